@@ -1,0 +1,662 @@
+"""What the store says: comparisons, looks, cells and alerts as plain dicts.
+
+The ``status``, ``history`` and ``alerts`` commands and the dashboard all read
+the store through these functions, so a number printed on the command line
+and the same number on a dashboard page cannot disagree. Every value handed
+back is JSON-serialisable: datetimes become ISO 8601 strings in UTC and
+non-finite floats become ``None``.
+
+Only SQLAlchemy Core queries; every function opens one short connection.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+
+import sqlalchemy as sa
+
+from .errors import InvalidArgumentError, UnknownComparisonError
+from .models import Alert, Cell, Comparison, Delivery, Look
+
+__all__ = [
+    "STATES",
+    "STOPPED_STATES",
+    "ALERT_STATES",
+    "state_label",
+    "comparison_status",
+    "list_comparisons",
+    "look_history",
+    "get_comparison",
+    "list_versions",
+    "cells_by_kind",
+    "excluded_by_reason",
+    "list_alerts",
+    "acknowledge_alert",
+    "next_look_time",
+    "store_url_from_config",
+    "open_store",
+]
+
+# state -> (symbol, words). The symbol lets a reader tell states apart without colour.
+STATES = {
+    "collecting": ("◷", "collecting"),
+    "awaiting_clusters": ("◌", "waiting for clusters"),
+    "difference_found": ("◆", "difference found"),
+    "no_material_difference": ("≈", "no material difference"),
+    "plan_complete": ("■", "plan complete"),
+    "data_problem": ("⚠", "data problem"),
+}
+STOPPED_STATES = frozenset({"difference_found", "no_material_difference", "plan_complete"})
+ALERT_STATES = ("pending", "delivered", "failed", "acknowledged")
+
+# How many recent looks the event rate is measured over: long enough to smooth one slow
+# look, short enough to follow a change of pace in the operation.
+_RATE_LOOKS = 6
+# A day-level design effect above this, on a comparison that is not clustered, means the
+# event-level standard error is materially too small.
+_DESIGN_EFFECT_WARN = 1.5
+
+
+def state_label(state):
+    """Return ``"SYMBOL words"`` for a state (unknown states are shown as they are)."""
+    symbol, words = STATES.get(state, ("?", str(state)))
+    return f"{symbol} {words}"
+
+
+# ---------------------------------------------------------------------------
+# small converters
+
+
+def _iso(value):
+    if value is None:
+        return None
+    return value.astimezone(timezone.utc).isoformat()
+
+
+def _num(value):
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        return value
+    if isinstance(value, int):
+        return value
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def _clean(value):
+    """Make a JSON column value safe to serialise strictly (no NaN, no datetimes)."""
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if isinstance(value, float):
+        return _num(value)
+    if isinstance(value, datetime):
+        return _iso(value)
+    return value
+
+
+def _aware(value, name):
+    if value is None:
+        return None
+    if not isinstance(value, datetime):
+        raise InvalidArgumentError(f"{name} must be a datetime, got {value!r}")
+    if value.tzinfo is None:
+        raise InvalidArgumentError(f"{name} must be timezone-aware (UTC), got naive {value!r}")
+    return value.astimezone(timezone.utc)
+
+
+def _now(now):
+    return _aware(now, "now") if now is not None else datetime.now(timezone.utc)
+
+
+# ---------------------------------------------------------------------------
+# schedule
+
+
+_DURATION = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([smhdw]?)\s*$")
+_UNIT_SECONDS = {"": 1, "s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
+
+
+def _schedule_trigger(every, start, tz_name):
+    from apscheduler.triggers.cron import CronTrigger
+    from apscheduler.triggers.interval import IntervalTrigger
+
+    if every is None:
+        return None
+    if isinstance(every, (int, float)) and not isinstance(every, bool):
+        seconds = float(every)
+    else:
+        text = str(every)
+        match = _DURATION.match(text)
+        if match:
+            seconds = float(match.group(1)) * _UNIT_SECONDS[match.group(2)]
+        else:
+            tz = timezone.utc
+            if tz_name:
+                from zoneinfo import ZoneInfo
+
+                tz = ZoneInfo(tz_name)
+            return CronTrigger.from_crontab(text, timezone=tz)
+    if seconds <= 0:
+        return None
+    return IntervalTrigger(seconds=seconds, start_date=start, timezone=timezone.utc)
+
+
+def next_look_time(every, *, last_look_at=None, created_at=None, now, timezone_name=None):
+    """When the scheduler will next look, by APScheduler's own trigger arithmetic.
+
+    ``every`` is interval seconds, a duration such as ``"10m"``, or a cron
+    expression. Returns an aware UTC datetime, or ``None`` when there is no
+    usable schedule.
+    """
+    now = _aware(now, "now")
+    start = last_look_at or created_at or now
+    try:
+        trigger = _schedule_trigger(every, start, timezone_name)
+    except (ValueError, KeyError) as exc:  # an unreadable schedule is shown as unknown, not fatal
+        del exc
+        return None
+    if trigger is None:
+        return None
+    fire = trigger.get_next_fire_time(last_look_at, now)
+    return fire.astimezone(timezone.utc) if fire is not None else None
+
+
+# ---------------------------------------------------------------------------
+# comparisons
+
+
+def _design_value(design, *keys, default=None):
+    for key in keys:
+        if isinstance(design, dict) and design.get(key) is not None:
+            return design[key]
+    return default
+
+
+def _planned_per_group(design):
+    value = _design_value(design, "planned_per_group", "max_per_group")
+    if value is None and isinstance(design.get("plan"), dict):
+        value = _design_value(design["plan"], "max_per_group", "planned_per_group")
+    return _num(value)
+
+
+def _is_clustered(design):
+    return bool(_design_value(design, "cluster_by", "cluster_column", "clustered"))
+
+
+def _comparison_select():
+    return sa.select(
+        Comparison.id, Comparison.name, Comparison.version, Comparison.design,
+        Comparison.settings, Comparison.state, Comparison.looks_taken, Comparison.created_at,
+        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived,
+    )
+
+
+def _comparison_filters(stmt, *, name_contains, states, since, until, archived):
+    if archived is not None:
+        stmt = stmt.where(Comparison.archived.is_(bool(archived)))
+    if name_contains:
+        stmt = stmt.where(Comparison.name.contains(str(name_contains), autoescape=True))
+    if states:
+        unknown = [s for s in states if s not in STATES]
+        if unknown:
+            raise InvalidArgumentError(f"states contains unknown state(s) {unknown!r}; known: {sorted(STATES)}")
+        stmt = stmt.where(Comparison.state.in_(list(states)))
+    # A comparison is "in" a date range when it was running at some point inside it.
+    if since is not None:
+        since = _aware(since, "since")
+        stmt = stmt.where(sa.func.coalesce(Comparison.last_look_at, Comparison.created_at) >= since)
+    if until is not None:
+        until = _aware(until, "until")
+        stmt = stmt.where(Comparison.created_at <= until)
+    return stmt
+
+
+def _recent_looks(conn, comparison_ids):
+    """The last few looks of each comparison, oldest first, for the latest values and the rate."""
+    if not comparison_ids:
+        return {}
+    stmt = (
+        sa.select(
+            Look.comparison_id, Look.look_number, Look.as_of, Look.n1, Look.n2, Look.estimate,
+            Look.ci_low, Look.ci_high, Look.p_value, Look.statistic, Look.fraction,
+            Look.boundary_z, Look.clusters, Look.design_effect, Look.effective_n,
+            Look.decision, Look.warnings, Look.mean1, Look.mean2, Look.detail,
+        )
+        .join(Comparison, Comparison.id == Look.comparison_id)
+        .where(Look.comparison_id.in_(comparison_ids))
+        .where(Look.look_number > Comparison.looks_taken - _RATE_LOOKS)
+        .order_by(Look.comparison_id, Look.look_number)
+    )
+    recent = {}
+    for row in conn.execute(stmt).mappings():
+        recent.setdefault(row["comparison_id"], []).append(row)
+    return recent
+
+
+def _rates(looks):
+    """Events per hour per group and fraction per second over the recent looks."""
+    if len(looks) < 2:
+        return None, None, None
+    first, last = looks[0], looks[-1]
+    seconds = (last["as_of"] - first["as_of"]).total_seconds()
+    if seconds <= 0:
+        return None, None, None
+    rate1 = (last["n1"] - first["n1"]) / seconds * 3600.0
+    rate2 = (last["n2"] - first["n2"]) / seconds * 3600.0
+    fraction_rate = None
+    if last["fraction"] is not None and first["fraction"] is not None:
+        fraction_rate = (last["fraction"] - first["fraction"]) / seconds
+    return rate1, rate2, fraction_rate
+
+
+def _status_row(comp, looks, now):
+    design = comp["design"] or {}
+    settings = comp["settings"] or {}
+    last = looks[-1] if looks else None
+    stopped = comp["state"] in STOPPED_STATES
+    rate1, rate2, fraction_rate = _rates(looks)
+
+    remaining = None
+    completes_at = None
+    if last is not None and not stopped and last["fraction"] is not None:
+        if last["fraction"] >= 1:
+            remaining = 0.0
+        elif fraction_rate and fraction_rate > 0:
+            remaining = (1.0 - last["fraction"]) / fraction_rate
+            completes_at = last["as_of"] + timedelta(seconds=remaining)
+
+    next_look = None
+    if not stopped and not comp["archived"]:
+        next_look = next_look_time(
+            settings.get("every", settings.get("schedule")),
+            last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
+            timezone_name=settings.get("timezone") or design.get("timezone"),
+        )
+
+    warnings = list(last["warnings"] or []) if last is not None else []
+    deff = last["design_effect"] if last is not None else None
+    if (
+        deff is not None and deff > _DESIGN_EFFECT_WARN and not _is_clustered(design)
+        and not any("design effect" in str(w).lower() for w in warnings)
+    ):
+        warnings.append(
+            f"day-level design effect {deff:.2f}: events are not independent, so the interval "
+            "is too narrow; consider cluster_by"
+        )
+
+    groups = design.get("groups") or settings.get("groups") or []
+    return {
+        "id": comp["id"],
+        "name": comp["name"],
+        "version": comp["version"],
+        "state": comp["state"],
+        "state_label": state_label(comp["state"]),
+        "stopped": stopped,
+        "archived": bool(comp["archived"]),
+        "looks": comp["looks_taken"],
+        "groups": [str(g) for g in groups],
+        "method": design.get("method"),
+        "metric": design.get("metric"),
+        "alternative": design.get("alternative"),
+        "alpha": _num(design.get("alpha")),
+        "spending": design.get("spending"),
+        "planned_per_group": _planned_per_group(design),
+        "null_difference": _num(design.get("null_difference", 0.0)),
+        "description": settings.get("description") or design.get("description"),
+        "every": settings.get("every", settings.get("schedule")),
+        "n1": last["n1"] if last is not None else 0,
+        "n2": last["n2"] if last is not None else 0,
+        "mean1": _num(last["mean1"]) if last is not None else None,
+        "mean2": _num(last["mean2"]) if last is not None else None,
+        "estimate": _num(last["estimate"]) if last is not None else None,
+        "ci_low": _num(last["ci_low"]) if last is not None else None,
+        "ci_high": _num(last["ci_high"]) if last is not None else None,
+        "p_value": _num(last["p_value"]) if last is not None else None,
+        "statistic": _num(last["statistic"]) if last is not None else None,
+        "boundary_z": _num(last["boundary_z"]) if last is not None else None,
+        "fraction": _num(last["fraction"]) if last is not None else None,
+        "decision": last["decision"] if last is not None else None,
+        "clusters": last["clusters"] if last is not None else None,
+        "design_effect": _num(deff),
+        "effective_n": _num(last["effective_n"]) if last is not None else None,
+        "warnings": [str(w) for w in warnings],
+        "created_at": _iso(comp["created_at"]),
+        "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
+        "stopped_at": _iso(comp["stopped_at"]),
+        "next_look_at": _iso(next_look),
+        "events_per_hour": [_num(rate1), _num(rate2)] if rate1 is not None else None,
+        "seconds_to_plan": _num(remaining),
+        "plan_completes_at": _iso(completes_at),
+        "adjusted": _clean((last["detail"] or {}).get("adjusted")) if last is not None and stopped else None,
+    }
+
+
+def list_comparisons(
+    engine, *, name_contains=None, states=None, since=None, until=None, archived=False, now=None
+):
+    """Status rows of the comparisons matching the filters, by name then version.
+
+    ``archived``: ``False`` (default) only live versions, ``True`` only
+    archived ones, ``None`` both. ``since``/``until`` keep comparisons that
+    were running at some time in that range.
+    """
+    now = _now(now)
+    stmt = _comparison_filters(
+        _comparison_select(), name_contains=name_contains, states=states, since=since,
+        until=until, archived=archived,
+    ).order_by(Comparison.name, Comparison.version)
+    with engine.connect() as conn:
+        comps = list(conn.execute(stmt).mappings())
+        recent = _recent_looks(conn, [c["id"] for c in comps])
+    return [_status_row(c, recent.get(c["id"], []), now) for c in comps]
+
+
+def comparison_status(engine, *, include_archived=False, now=None):
+    """One status row per comparison (archived versions too when asked).
+
+    Keys include name, version, state, state_label, looks, n1, n2, estimate,
+    ci_low, ci_high, p_value, fraction, last_look_at, next_look_at,
+    seconds_to_plan, groups, method, metric, clusters, design_effect,
+    effective_n and warnings.
+    """
+    return list_comparisons(engine, archived=None if include_archived else False, now=now)
+
+
+def _find_comparison(conn, name, version):
+    stmt = _comparison_select().where(Comparison.name == name)
+    if version is None:
+        # The live version if there is one, else the newest archived one.
+        stmt = stmt.order_by(Comparison.archived, Comparison.version.desc()).limit(1)
+    else:
+        stmt = stmt.where(Comparison.version == int(version))
+    row = conn.execute(stmt).mappings().first()
+    if row is None:
+        known = sorted(conn.execute(sa.select(Comparison.name).distinct()).scalars())
+        what = f"{name!r}" if version is None else f"{name!r} version {version}"
+        hint = f"; known: {', '.join(known)}" if known else "; the store holds no comparisons yet"
+        raise UnknownComparisonError(f"no comparison {what} in the store{hint}")
+    return row
+
+
+def list_versions(engine, name):
+    """The stored versions of one comparison: version, state, archived, looks."""
+    stmt = (
+        sa.select(Comparison.version, Comparison.state, Comparison.archived, Comparison.looks_taken,
+                  Comparison.created_at)
+        .where(Comparison.name == name).order_by(Comparison.version)
+    )
+    with engine.connect() as conn:
+        return [
+            {"version": r.version, "state": r.state, "archived": bool(r.archived),
+             "looks": r.looks_taken, "created_at": _iso(r.created_at)}
+            for r in conn.execute(stmt)
+        ]
+
+
+def get_comparison(engine, name, version=None, *, now=None):
+    """A comparison's status row plus its frozen design, settings and watermark."""
+    now = _now(now)
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        recent = _recent_looks(conn, [comp["id"]])
+        watermark = conn.execute(
+            sa.select(Comparison.watermark).where(Comparison.id == comp["id"])
+        ).scalar_one()
+    row = _status_row(comp, recent.get(comp["id"], []), now)
+    row["design"] = _clean(comp["design"] or {})
+    row["settings"] = _clean(comp["settings"] or {})
+    row["watermark"] = _clean(watermark)
+    return row
+
+
+# ---------------------------------------------------------------------------
+# looks
+
+
+def look_history(engine, name, version=None):
+    """Every look of one comparison (the live version unless ``version`` is given), in order."""
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        rows = conn.execute(
+            sa.select(*Look.__table__.columns).where(Look.comparison_id == comp["id"])
+            .order_by(Look.look_number)
+        ).mappings().all()
+    history = []
+    for r in rows:
+        excluded = _clean(r["excluded"] or {})
+        history.append({
+            "name": comp["name"],
+            "version": comp["version"],
+            "look": r["look_number"],
+            "as_of": _iso(r["as_of"]),
+            "cutoff": _iso(r["cutoff"]),
+            "recorded_at": _iso(r["recorded_at"]),
+            "n1": r["n1"],
+            "n2": r["n2"],
+            "mean1": _num(r["mean1"]),
+            "mean2": _num(r["mean2"]),
+            "sd1": _num(r["sd1"]),
+            "sd2": _num(r["sd2"]),
+            "pairs": r["pairs"],
+            "new_events": r["new_events"],
+            "late_events": r["late_events"],
+            "excluded": excluded,
+            "excluded_total": int(sum(v for v in excluded.values() if isinstance(v, (int, float)))),
+            "estimate": _num(r["estimate"]),
+            "standard_error": _num(r["standard_error"]),
+            "statistic": _num(r["statistic"]),
+            "df": _num(r["df"]),
+            "p_value": _num(r["p_value"]),
+            "information": _num(r["information"]),
+            "fraction": _num(r["fraction"]),
+            "boundary_z": _num(r["boundary_z"]),
+            "futility_z": _num(r["futility_z"]),
+            "nominal_p": _num(r["nominal_p"]),
+            "cumulative_alpha": _num(r["cumulative_alpha"]),
+            "ci_low": _num(r["ci_low"]),
+            "ci_high": _num(r["ci_high"]),
+            "clusters": r["clusters"],
+            "design_effect": _num(r["design_effect"]),
+            "effective_n": _num(r["effective_n"]),
+            "decision": r["decision"],
+            "warnings": [str(w) for w in (r["warnings"] or [])],
+            "detail": _clean(r["detail"] or {}),
+            "duration_ms": _num(r["duration_ms"]),
+        })
+    return history
+
+
+def excluded_by_reason(engine, name, version=None):
+    """Excluded rows per look and reason, as long rows: look, as_of, reason, count."""
+    out = []
+    for look in look_history(engine, name, version):
+        for reason, count in sorted(look["excluded"].items()):
+            out.append({"look": look["look"], "as_of": look["as_of"], "reason": reason, "count": count})
+    return out
+
+
+def cells_by_kind(engine, name, version=None):
+    """The running summaries of one comparison, grouped by kind (total, day, cluster, pair).
+
+    Each cell carries group_index, group, key, n and the mean recovered from
+    the shifted sums (the shift is the design's ``shift``).
+    """
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        rows = conn.execute(
+            sa.select(Cell.kind, Cell.group_index, Cell.key, Cell.n, Cell.sum_dev, Cell.sum_dev2)
+            .where(Cell.comparison_id == comp["id"])
+            .order_by(Cell.kind, Cell.key, Cell.group_index)
+        ).all()
+    design = comp["design"] or {}
+    shift = float(_design_value(design, "shift", default=0.0))
+    groups = [str(g) for g in (design.get("groups") or [])]
+    out = {}
+    for r in rows:
+        mean = shift + r.sum_dev / r.n if r.n else None
+        variance = None
+        if r.n and r.n > 1:
+            variance = max(r.sum_dev2 - r.sum_dev * r.sum_dev / r.n, 0.0) / (r.n - 1)
+        out.setdefault(r.kind, []).append({
+            "group_index": r.group_index,
+            "group": groups[r.group_index] if r.group_index < len(groups) else str(r.group_index),
+            "key": r.key,
+            "n": r.n,
+            "mean": _num(mean),
+            "sd": _num(math.sqrt(variance)) if variance is not None else None,
+        })
+    return out
+
+
+# ---------------------------------------------------------------------------
+# alerts
+
+
+def _alert_dict(alert, deliveries):
+    payload = _clean(alert["payload"] or {})
+    return {
+        "id": alert["id"],
+        "comparison": alert["comparison_name"],
+        "comparison_id": alert["comparison_id"],
+        "look_id": alert["look_id"],
+        "look": payload.get("look"),
+        "kind": alert["kind"],
+        "decision": payload.get("decision"),
+        "created_at": _iso(alert["created_at"]),
+        "state": alert["state"],
+        "acknowledged_at": _iso(alert["acknowledged_at"]),
+        "acknowledged_by": alert["acknowledged_by"],
+        "message": payload.get("message"),
+        "payload": payload,
+        "deliveries": [
+            {
+                "channel": d["channel"],
+                "state": d["state"],
+                "attempts": d["attempts"],
+                "next_attempt_at": _iso(d["next_attempt_at"]),
+                "delivered_at": _iso(d["delivered_at"]),
+                "last_error": d["last_error"],
+            }
+            for d in deliveries
+        ],
+    }
+
+
+def _deliveries_for(conn, alert_ids):
+    if not alert_ids:
+        return {}
+    out = {}
+    stmt = (
+        sa.select(*Delivery.__table__.columns)
+        .where(Delivery.alert_id.in_(alert_ids)).order_by(Delivery.alert_id, Delivery.channel)
+    )
+    for d in conn.execute(stmt).mappings():
+        out.setdefault(d["alert_id"], []).append(d)
+    return out
+
+
+def list_alerts(engine, states=None, *, comparison=None, limit=None):
+    """Alerts, newest first, each with its deliveries; optionally only some states."""
+    if isinstance(states, str):
+        states = [states]
+    stmt = sa.select(*Alert.__table__.columns)
+    if states:
+        unknown = [s for s in states if s not in ALERT_STATES]
+        if unknown:
+            raise InvalidArgumentError(f"states contains unknown alert state(s) {unknown!r}; known: {list(ALERT_STATES)}")
+        stmt = stmt.where(Alert.state.in_(list(states)))
+    if comparison:
+        stmt = stmt.where(Alert.comparison_name == comparison)
+    stmt = stmt.order_by(Alert.created_at.desc(), Alert.id)
+    if limit is not None:
+        stmt = stmt.limit(int(limit))
+    with engine.connect() as conn:
+        alerts = conn.execute(stmt).mappings().all()
+        deliveries = _deliveries_for(conn, [a["id"] for a in alerts])
+    return [_alert_dict(a, deliveries.get(a["id"], [])) for a in alerts]
+
+
+def acknowledge_alert(engine, alert_id, *, by, now):
+    """Mark an alert acknowledged by someone; acknowledging twice keeps the first record.
+
+    Raises ``InvalidArgumentError`` naming the id when no alert has it.
+    """
+    now = _aware(now, "now")
+    if not isinstance(by, str) or not by.strip():
+        raise InvalidArgumentError(f"by must name who acknowledges, got {by!r}")
+    by = by.strip()[:200]
+    with engine.begin() as conn:
+        alert = conn.execute(
+            sa.select(*Alert.__table__.columns).where(Alert.id == str(alert_id))
+        ).mappings().first()
+        if alert is None:
+            raise InvalidArgumentError(f"alert_id {alert_id!r}: no alert with that id in the store")
+        if alert["state"] != "acknowledged":
+            conn.execute(
+                sa.update(Alert).where(Alert.id == alert["id"])
+                .values(state="acknowledged", acknowledged_at=now, acknowledged_by=by)
+            )
+            alert = conn.execute(
+                sa.select(*Alert.__table__.columns).where(Alert.id == alert["id"])
+            ).mappings().first()
+        deliveries = _deliveries_for(conn, [alert["id"]])
+    return _alert_dict(alert, deliveries.get(alert["id"], []))
+
+
+# ---------------------------------------------------------------------------
+# opening the store from a configuration file
+
+
+def _config_path(path):
+    if path:
+        return Path(path)
+    if os.environ.get("GAPWATCH_CONFIG"):
+        return Path(os.environ["GAPWATCH_CONFIG"])
+    return Path("gapwatch.toml")
+
+
+def store_url_from_config(path=None):
+    """The ``[store] url`` of a configuration file (argument, ``$GAPWATCH_CONFIG``, ``./gapwatch.toml``)."""
+    try:
+        from .config import load_config
+    except ImportError:
+        load_config = None
+    if load_config is not None:
+        return load_config(path).store_url
+    import tomllib
+
+    from .errors import ConfigError
+
+    config_path = _config_path(path)
+    try:
+        with open(config_path, "rb") as fh:
+            data = tomllib.load(fh)
+    except FileNotFoundError:
+        raise ConfigError([f"configuration file not found (pass --config FILE)"], path=config_path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError([f"not valid TOML: {exc}"], path=config_path) from None
+    url = (data.get("store") or {}).get("url")
+    if not url:
+        raise ConfigError(["[store] url is missing"], path=config_path)
+    return url
+
+
+def open_store(url):
+    """An engine on the history store, checked to be at the schema this code expects."""
+    try:
+        from . import store
+    except ImportError:
+        store = None
+    if store is not None and hasattr(store, "make_engine"):
+        engine = store.make_engine(url)
+        if hasattr(store, "ensure_current"):
+            store.ensure_current(engine)
+        return engine
+    return sa.create_engine(url)
