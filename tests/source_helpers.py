@@ -1,0 +1,179 @@
+"""Build event tables with known rows on any SQLAlchemy URL (tests, benchmarks, demos).
+
+These helpers write through an ordinary read-write engine; the monitor's own
+``Source`` only ever reads.
+
+Example::
+
+    frame = make_events(500, seed=1)
+    create_events_table("sqlite:///ops.sqlite", frame, time_storage="iso")
+"""
+
+from __future__ import annotations
+
+import math
+from datetime import datetime, timedelta, timezone
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+__all__ = [
+    "START",
+    "make_events",
+    "events_table",
+    "create_events_table",
+    "append_events",
+    "stored_time",
+    "sqlite_url",
+]
+
+START = datetime(2026, 3, 2, 6, 0, tzinfo=timezone.utc)
+
+
+def sqlite_url(path) -> str:
+    return f"sqlite:///{path}"
+
+
+def make_events(
+    n,
+    *,
+    seed=0,
+    groups=("east", "west"),
+    start=START,
+    span=timedelta(hours=12),
+    means=(100.0, 103.0),
+    sds=(10.0, 12.0),
+    keys=None,
+    proportion=False,
+):
+    """Random events: columns site, value, done_at (aware UTC), crew (when ``keys``)."""
+    rng = np.random.default_rng(seed)
+    which = rng.integers(0, 2, size=n)
+    if proportion:
+        p = np.where(which == 0, means[0], means[1])
+        value = (rng.random(n) < p).astype(float)
+    else:
+        value = rng.normal(np.take(means, which), np.take(sds, which))
+    offsets = np.sort(rng.uniform(0, span.total_seconds(), size=n))
+    # Microsecond resolution, so every storage format (text, epoch, timestamp) holds the same instant.
+    micros = np.round(offsets * 1e6).astype("int64")
+    done_at = [start + timedelta(microseconds=int(m)) for m in micros]
+    frame = pd.DataFrame({"site": np.take(np.asarray(groups, dtype=object), which), "value": value, "done_at": done_at})
+    if keys is not None:
+        frame["crew"] = [f"crew-{k}" for k in rng.integers(0, keys, size=n)]
+    return frame
+
+
+def stored_time(moment, storage: str):
+    """``moment`` (aware datetime or None) as the table stores it for ``storage``."""
+    if moment is None or (isinstance(moment, float) and math.isnan(moment)):
+        return None
+    if isinstance(moment, str):
+        return moment
+    if isinstance(moment, pd.Timestamp):
+        moment = moment.to_pydatetime()
+    moment = moment.astimezone(timezone.utc)
+    if storage == "iso":
+        return moment.replace(tzinfo=None).isoformat(sep=" ", timespec="microseconds")
+    if storage == "iso_z":
+        return moment.replace(tzinfo=None).isoformat(sep="T", timespec="milliseconds") + "Z"
+    if storage == "epoch":
+        return moment.timestamp()
+    if storage == "epoch_int":
+        return int(math.floor(moment.timestamp()))
+    if storage == "timestamptz":
+        return moment
+    if storage == "timestamp":
+        return moment.replace(tzinfo=None)
+    raise ValueError(f"storage must be iso, iso_z, epoch, epoch_int, timestamp or timestamptz, got {storage!r}")
+
+
+def events_table(
+    metadata,
+    *,
+    table="events",
+    time_storage="iso",
+    value_type=None,
+    group_type=None,
+    key_column=None,
+    id_column="id",
+    time_index=True,
+    schema=None,
+):
+    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key]."""
+    time_type = {
+        "iso": sa.Text(),
+        "iso_z": sa.Text(),
+        "epoch": sa.Float(),
+        "epoch_int": sa.BigInteger(),
+        "timestamptz": sa.DateTime(timezone=True),
+        "timestamp": sa.DateTime(timezone=False),
+    }[time_storage]
+    columns = []
+    if id_column:
+        columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True))
+    columns += [
+        sa.Column("site", group_type if group_type is not None else sa.Text()),
+        sa.Column("value", value_type if value_type is not None else sa.Float()),
+        sa.Column("done_at", time_type),
+    ]
+    if key_column:
+        columns.append(sa.Column(key_column, sa.Text()))
+    t = sa.Table(table, metadata, *columns, schema=schema)
+    if time_index:
+        sa.Index(f"ix_{table}_done_at", t.c.done_at)
+    return t
+
+
+def _records(rows, time_storage, columns):
+    frame = rows if isinstance(rows, pd.DataFrame) else pd.DataFrame(list(rows))
+    records = []
+    for rec in frame.to_dict("records"):
+        out = {}
+        for name in columns:
+            if name not in rec:
+                continue
+            v = rec[name]
+            if name == "done_at":
+                v = stored_time(v, time_storage)
+            elif isinstance(v, float) and math.isnan(v) and name != "value":
+                v = None
+            elif isinstance(v, np.generic):
+                v = v.item()
+            out[name] = v
+        records.append(out)
+    return records
+
+
+def create_events_table(url, rows, *, table="events", time_storage="iso", chunk=5000, **table_options):
+    """Create ``table`` on ``url`` and insert ``rows`` (DataFrame or dicts); returns the Table."""
+    engine = sa.create_engine(url)
+    try:
+        metadata = sa.MetaData()
+        t = events_table(metadata, table=table, time_storage=time_storage, **table_options)
+        metadata.create_all(engine)
+        _insert(engine, t, rows, time_storage, chunk)
+        return t
+    finally:
+        engine.dispose()
+
+
+def append_events(url, rows, *, table="events", time_storage="iso", chunk=5000, schema=None):
+    """Insert more rows into an existing events table."""
+    engine = sa.create_engine(url)
+    try:
+        t = sa.Table(table, sa.MetaData(), autoload_with=engine, schema=schema)
+        _insert(engine, t, rows, time_storage, chunk)
+    finally:
+        engine.dispose()
+
+
+def _insert(engine, t, rows, time_storage, chunk):
+    names = [c.name for c in t.columns if not (c.primary_key and c.autoincrement)]
+    records = _records(rows, time_storage, names)
+    with engine.begin() as conn:
+        for i in range(0, len(records), chunk):
+            part = records[i : i + chunk]
+            if part:
+                conn.execute(sa.insert(t), part)
