@@ -1,0 +1,1 @@
+"""Alembic environment and revisions of the gapwatch history store (shipped with the package)."""

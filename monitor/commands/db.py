@@ -1,0 +1,49 @@
+"""``gapwatch db upgrade|downgrade REV|current``: the history store's schema."""
+
+from __future__ import annotations
+
+import sys
+
+from .. import store
+from ..config import load_config
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "db", help="migrate the history store (upgrade, downgrade REV, current)",
+        description="Manage the history store's schema with the migrations shipped in gapwatch.")
+    p.add_argument("action", choices=["upgrade", "downgrade", "current"],
+                   help="upgrade: to the newest (or --revision); downgrade: to REV; current: show the revision")
+    p.add_argument("revision", nargs="?", default=None,
+                   help="target revision (downgrade needs one, e.g. base; upgrade defaults to head)")
+    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    p.add_argument("--store", default=None, metavar="URL", help="store URL instead of the configuration's [store] url")
+    p.set_defaults(func=run)
+
+
+def store_url(args) -> str:
+    if args.store:
+        return args.store
+    return load_config(args.config).store_url
+
+
+def run(args) -> int:
+    url = store_url(args)
+    if args.action == "downgrade" and not args.revision:
+        print("gapwatch db: downgrade needs a revision (e.g. 'base'); got none", file=sys.stderr)
+        return 2
+    if args.action == "upgrade":
+        store.upgrade(url, args.revision or "head")
+    elif args.action == "downgrade":
+        store.downgrade(url, args.revision)
+    engine = store.make_engine(url)
+    try:
+        state = store.migration_state(engine)
+    finally:
+        engine.dispose()
+    current = state["current"] or "none (empty store)"
+    note = "up to date" if state["up_to_date"] else "run `gapwatch db upgrade`"
+    if state["current"] and not state["up_to_date"] and args.action == "downgrade":
+        note = "behind: `gapwatch db upgrade` brings it back"
+    print(f"store revision: {current}; newest: {state['head']} ({note})")
+    return 0
