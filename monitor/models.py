@@ -139,6 +139,10 @@ class Look(Base):
     effective_n: Mapped[float | None] = mapped_column(Float, nullable=True)
 
     decision: Mapped[str] = mapped_column(String(40))
+    # Which boundary look this was (1, 2, ...) when the look tested against a
+    # boundary; None when it only collected (no new information, too few
+    # clusters, a data problem). The boundary is resumed from these looks only.
+    boundary_look: Mapped[int | None] = mapped_column(Integer, nullable=True)
     warnings: Mapped[list] = mapped_column(JSON, default=list)
     # Everything else: the fixed-sample result, adjusted inference after a stop, timings.
     detail: Mapped[dict] = mapped_column(JSON, default=dict)
