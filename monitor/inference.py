@@ -1,0 +1,361 @@
+"""Inference that respects the repeated looks of a group-sequential comparison.
+
+Three things are needed around a sequential design:
+
+* during monitoring, a **repeated confidence interval** at every look whose
+  coverage holds simultaneously over all looks (Jennison & Turnbull 2000, ch. 9);
+* after a stop, a **stagewise-ordering p-value** (Jennison & Turnbull 2000,
+  ch. 8.4): the outcomes more extreme than the one observed are those that
+  crossed the efficacy boundary at an earlier look, plus those that reached the
+  stop look and went further than the observed z;
+* a **median-unbiased estimate** of the difference, the drift at which the
+  stagewise p-value is one half, with the matching adjusted confidence interval.
+
+All probabilities come from the boundary engine's
+:func:`monitor.boundaries.crossing_probabilities` (recursive numerical
+integration with Brownian-motion covariance), so they are exact up to its
+quadrature error.
+
+Conventions shared by the functions below:
+
+* looks are numbered from 1, as in :class:`monitor.boundaries.LookBoundary`;
+* ``upper_z`` holds the efficacy boundaries as positive z values, exactly as the
+  boundary engine reports them (for ``"less"`` a look rejects when Z <= -z);
+* a non-binding futility boundary is ignored: the continuation region before the
+  stop look is "below the efficacy boundary" (between the two efficacy
+  boundaries for two-sided designs). This is the usual convention and keeps the
+  p-value valid whether or not futility stops were followed.
+
+Pure module: numpy and scipy only.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+from scipy import optimize
+
+from .boundaries import crossing_probabilities
+from .errors import InvalidArgumentError
+
+__all__ = [
+    "SequentialEstimate",
+    "repeated_confidence_interval",
+    "stagewise_p_value",
+    "median_unbiased_estimate",
+]
+
+_ALTERNATIVES = ("two-sided", "greater", "less")
+
+# Below the observed z at the stop look the lower limit only has to sit under the
+# upper one: the first-crossing probability of the upper limit at the last look
+# does not depend on it.
+_LAST_LOOK_LOWER_GAP = 12.0
+
+
+def _check_alternative(alternative):
+    if alternative not in _ALTERNATIVES:
+        raise InvalidArgumentError(
+            f"alternative must be one of {', '.join(_ALTERNATIVES)}; got {alternative!r}"
+        )
+
+
+def _finite(name, value):
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InvalidArgumentError(f"{name} must be a number; got {value!r}") from None
+    if not math.isfinite(number):
+        raise InvalidArgumentError(f"{name} must be finite; got {value!r}")
+    return number
+
+
+def _check_looks(fractions, upper_z, stop_look):
+    try:
+        t = np.asarray(fractions, dtype=float).ravel()
+        b = np.asarray(upper_z, dtype=float).ravel()
+    except (TypeError, ValueError):
+        raise InvalidArgumentError(
+            f"fractions and upper_z must be sequences of numbers; got {fractions!r}, {upper_z!r}"
+        ) from None
+    if t.size == 0:
+        raise InvalidArgumentError("fractions must hold at least one look; got an empty sequence")
+    if b.size != t.size:
+        raise InvalidArgumentError(
+            f"upper_z must have one boundary per look ({t.size}); got {b.size}: {upper_z!r}"
+        )
+    if not np.all(np.isfinite(t)) or np.any(t <= 0) or np.any(np.diff(t) <= 0):
+        raise InvalidArgumentError(
+            f"fractions must be positive, finite and strictly increasing; got {fractions!r}"
+        )
+    if np.any(np.isnan(b)) or np.any(b <= 0):
+        raise InvalidArgumentError(f"upper_z must hold positive boundaries; got {upper_z!r}")
+    if isinstance(stop_look, bool) or not isinstance(stop_look, (int, np.integer)):
+        raise InvalidArgumentError(f"stop_look must be a look number (int); got {stop_look!r}")
+    if not 1 <= stop_look <= t.size:
+        raise InvalidArgumentError(
+            f"stop_look must be between 1 and the number of looks ({t.size}); got {stop_look!r}"
+        )
+    return t[:stop_look], b[:stop_look]
+
+
+def _at_or_beyond(t, b, z, drift, two_sided):
+    """Probability, at drift ``drift``, of an outcome at least as high as (stop look, z).
+
+    The stagewise ordering: crossing the upper efficacy boundary at an earlier
+    look beats any outcome at the stop look; at the stop look a higher z is more
+    extreme. For two-sided designs the paths that left through the lower
+    boundary earlier are below every outcome at the stop look.
+    """
+    upper = np.append(b[:-1], z)
+    lower = None
+    if two_sided:
+        lower = np.append(-b[:-1], z - _LAST_LOOK_LOWER_GAP)
+    up, _ = crossing_probabilities(t, upper, lower, drift=drift)
+    return float(min(1.0, max(0.0, float(np.sum(up)))))
+
+
+def repeated_confidence_interval(estimate, standard_error, boundary_z, alternative="two-sided"):
+    """Repeated confidence interval for the difference at one look.
+
+    ``estimate ± boundary_z · standard_error`` (Jennison & Turnbull 2000, ch. 9):
+    with the design's efficacy boundary in place of the fixed-sample quantile,
+    the intervals of all looks cover the true difference simultaneously with
+    probability at least ``1 − alpha``, so one may be read at any look.
+
+    Parameters
+    ----------
+    estimate : float
+        Estimated difference (group 1 − group 2) at the look.
+    standard_error : float
+        Its standard error. A zero, nan or infinite standard error (degenerate
+        data) gives ``(nan, nan)``.
+    boundary_z : float
+        The look's efficacy boundary on the z scale (``LookBoundary.z``, positive).
+        For t-based looks pass the t quantile at the boundary's nominal level
+        instead, ``scipy.stats.t.isf(nominal_p, df)``, the nominal-level approach.
+    alternative : {"two-sided", "greater", "less"}
+        One-sided designs give a one-sided interval; the open end is ``None``.
+
+    Returns
+    -------
+    tuple
+        ``(low, high)``; ``None`` marks an open end.
+
+    Examples
+    --------
+    >>> repeated_confidence_interval(1.5, 0.5, 2.0)
+    (0.5, 2.5)
+    >>> repeated_confidence_interval(1.5, 0.5, 2.0, "greater")
+    (0.5, None)
+    """
+    _check_alternative(alternative)
+    estimate = float(estimate)
+    z = float(boundary_z)
+    if math.isnan(z) or z <= 0:
+        raise InvalidArgumentError(f"boundary_z must be positive; got {boundary_z!r}")
+    se = float(standard_error)
+    if se < 0:
+        raise InvalidArgumentError(f"standard_error must not be negative; got {standard_error!r}")
+    if not (math.isfinite(se) and se > 0 and math.isfinite(estimate)):
+        nan = float("nan")
+        return (
+            nan if alternative != "less" else None,
+            nan if alternative != "greater" else None,
+        )
+    half = z * se
+    low = estimate - half if alternative != "less" else None
+    high = estimate + half if alternative != "greater" else None
+    return (low, high)
+
+
+def stagewise_p_value(fractions, upper_z, stop_look, z_observed, alternative="two-sided"):
+    """P-value after a sequential comparison stopped, in the stagewise ordering.
+
+    The probability, when the groups do not differ, of crossing the efficacy
+    boundary at a look before ``stop_look`` or of reaching ``stop_look`` with a
+    z at least as extreme as the one observed (Jennison & Turnbull 2000, §8.4).
+    Two-sided: twice the one-sided value in the direction of the observed z,
+    capped at 1. A non-binding futility boundary is ignored. At a single look
+    this is the fixed-sample p-value.
+
+    Parameters
+    ----------
+    fractions : sequence of float
+        Information fractions of the looks taken, at least up to the stop look.
+    upper_z : sequence of float
+        Efficacy boundaries (positive z) at those looks; the stop look's own
+        boundary is not used.
+    stop_look : int
+        Number (from 1) of the look at which the comparison stopped.
+    z_observed : float
+        The z statistic at the stop look (group 1 − group 2).
+    alternative : {"two-sided", "greater", "less"}
+        The design's alternative.
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> round(stagewise_p_value([1.0], [1.96], 1, 2.5), 6)  # single look: 2(1 − Φ(2.5))
+    0.012419
+    >>> p = stagewise_p_value([0.5, 1.0], [2.797, 1.977], 2, 2.1)
+    >>> 0.03 < p < 0.05
+    True
+    """
+    _check_alternative(alternative)
+    t, b = _check_looks(fractions, upper_z, stop_look)
+    z = _finite("z_observed", z_observed)
+    if alternative == "greater":
+        return _at_or_beyond(t, b, z, 0.0, two_sided=False)
+    if alternative == "less":
+        return _at_or_beyond(t, b, -z, 0.0, two_sided=False)
+    return min(1.0, 2.0 * _at_or_beyond(t, b, abs(z), 0.0, two_sided=True))
+
+
+@dataclass(frozen=True)
+class SequentialEstimate:
+    """Estimate of the difference after a sequential comparison stopped.
+
+    Attributes
+    ----------
+    estimate : float
+        Median-unbiased estimate of the difference (group 1 − group 2).
+    ci : tuple
+        Stagewise-ordering confidence interval at level ``1 − alpha``
+        (two-sided designs: ``alpha/2`` in each tail; one-sided designs: one
+        bound, the open end ``None``).
+    alpha : float
+    p_value : float
+        The stagewise p-value of the design's alternative.
+    naive_estimate : float
+        ``z / sqrt(information at the stop look)``, the ordinary estimate, which
+        is biased away from zero after an early stop.
+    stop_look : int
+    """
+
+    estimate: float
+    ci: tuple
+    alpha: float
+    p_value: float
+    naive_estimate: float
+    stop_look: int
+
+    def __float__(self):
+        return float(self.estimate)
+
+    def to_dict(self):
+        out = asdict(self)
+        out["ci"] = list(self.ci)
+        return out
+
+
+def _solve_drift(t, b, z, target, two_sided):
+    """Drift at which the stagewise upper-tail probability equals ``target``."""
+
+    def gap(drift):
+        return _at_or_beyond(t, b, z, drift, two_sided) - target
+
+    # Centre on the drift that makes z the expected value at the stop look and
+    # widen on the scale of the first look, where a drift shows the least.
+    centre = z / math.sqrt(t[-1])
+    step = 4.0 / math.sqrt(t[0])
+    low, high = centre - step, centre + step
+    for _ in range(60):
+        g_low, g_high = gap(low), gap(high)
+        if g_low <= 0 <= g_high:
+            break
+        if g_low > 0:
+            low -= step
+        if g_high < 0:
+            high += step
+        step *= 1.5
+    else:  # pragma: no cover - the probability is monotone from 0 to 1 in the drift
+        raise InvalidArgumentError(f"could not bracket the drift for z_observed={z!r}")
+    return optimize.brentq(gap, low, high, xtol=1e-10, rtol=1e-12)
+
+
+def median_unbiased_estimate(
+    fractions, upper_z, stop_look, z_observed, information, alternative="two-sided", *, alpha=0.05
+):
+    """Median-unbiased estimate of the difference after a sequential stop.
+
+    The drift at which the stagewise-ordering probability of an outcome at
+    least as extreme as the observed one is one half (Jennison & Turnbull 2000,
+    §8.3–8.4), converted to the difference scale. The confidence limits are the
+    drifts at which that probability is ``alpha/2`` and ``1 − alpha/2``
+    (one-sided designs: ``alpha``, one limit only). A non-binding futility
+    boundary is ignored. At a single look the estimate is ``z/sqrt(information)``
+    and the interval the fixed-sample Wald interval.
+
+    Parameters
+    ----------
+    fractions, upper_z, stop_look, z_observed, alternative
+        As for :func:`stagewise_p_value`.
+    information : float
+        Statistical information at fraction 1, ``I_max`` (the reciprocal of the
+        squared standard error of the difference the full plan would give). The
+        drift is ``difference · sqrt(I_max)`` and the z at look k has mean
+        ``difference · sqrt(I_max · t_k)``. From a look: ``I_max = 1 / (SE² · t)``
+        with the standard error and fraction ``t`` at that look.
+    alpha : float, default 0.05
+        One minus the confidence level of ``ci``.
+
+    Returns
+    -------
+    SequentialEstimate
+
+    Examples
+    --------
+    >>> r = median_unbiased_estimate([1.0], [1.96], 1, 2.5, information=4.0)
+    >>> round(r.estimate, 6), round(r.ci[0], 4), round(r.ci[1], 4)
+    (1.25, 0.27, 2.23)
+    >>> late = median_unbiased_estimate([0.5, 1.0], [2.797, 1.977], 2, 2.5, information=4.0)
+    >>> round(late.estimate, 3), late.naive_estimate, round(late.p_value, 4)
+    (1.235, 1.25, 0.0159)
+    """
+    _check_alternative(alternative)
+    t, b = _check_looks(fractions, upper_z, stop_look)
+    z = _finite("z_observed", z_observed)
+    info = _finite("information", information)
+    if info <= 0:
+        raise InvalidArgumentError(f"information must be positive; got {information!r}")
+    alpha = _finite("alpha", alpha)
+    if not 0 < alpha < 1:
+        raise InvalidArgumentError(f"alpha must be in (0, 1); got {alpha!r}")
+
+    two_sided = alternative == "two-sided"
+    # "less" designs are solved in the mirrored frame where the boundary is upper.
+    sign = -1.0 if alternative == "less" else 1.0
+    z_frame = sign * z
+    scale = 1.0 / math.sqrt(info)
+
+    def drift_at(target):
+        return _solve_drift(t, b, z_frame, target, two_sided)
+
+    estimate = sign * drift_at(0.5) * scale
+    tail = alpha / 2 if two_sided else alpha
+    # Higher drift makes "at least as extreme" likelier: the 1 − tail point is the upper limit.
+    lower_limit = drift_at(tail) * scale
+    upper_limit = drift_at(1.0 - tail) * scale
+    if two_sided:
+        ci = (lower_limit, upper_limit)
+    elif alternative == "greater":
+        ci = (lower_limit, None)
+    else:
+        ci = (None, -lower_limit)
+    p_value = stagewise_p_value(fractions, upper_z, stop_look, z, alternative)
+    naive = z / math.sqrt(info * t[-1])
+    return SequentialEstimate(
+        estimate=float(estimate),
+        ci=tuple(None if c is None else float(c) for c in ci),
+        alpha=alpha,
+        p_value=p_value,
+        naive_estimate=float(naive),
+        stop_look=int(stop_look),
+    )
+
