@@ -28,7 +28,16 @@ from .boundaries import FutilitySpec, SequentialBoundary, crossing_probabilities
 from .errors import InvalidArgumentError
 from .spending import parse_spending
 
-__all__ = ["Plan", "plan_mean", "plan_proportion", "fixed_sample_mean", "fixed_sample_proportion"]
+__all__ = [
+    "Plan",
+    "plan_mean",
+    "plan_proportion",
+    "fixed_sample_mean",
+    "fixed_sample_proportion",
+    "design_boundaries",
+    "sequential_drift",
+    "inflation_for_boundaries",
+]
 
 _ALTERNATIVES = ("two-sided", "greater", "less")
 
@@ -281,8 +290,7 @@ def _power(fractions, alpha, spending, alternative, power, futility, drift):
 
 def sequential_drift(fractions, alpha, spending, alternative, power, *, futility=False):
     """Drift θ at which the design crosses its efficacy boundary with probability ``power``."""
-    _, z_beta = _quantiles(alpha, power, alternative)
-    z_alpha, _ = _quantiles(alpha, power, alternative)
+    z_alpha, z_beta = _quantiles(alpha, power, alternative)
     fixed = z_alpha + z_beta
 
     def gap(theta):
