@@ -361,3 +361,47 @@ def test_build_channels_from_config():
 def test_redact_hides_url_passwords_and_secrets():
     text = "postgresql+psycopg://ops:s3cret@db:5432/ops failed; key=abc123"
     assert redact(text, ["abc123"]) == "postgresql+psycopg://ops:***@db:5432/ops failed; key=***"
+
+
+def _cli_store(tmp_path):
+    from live_helpers import config_toml, migrated_store, write_config
+
+    store_url = f"sqlite:///{tmp_path / 'cli-store.sqlite'}"
+    engine = migrated_store(store_url)
+    with engine.begin() as conn:
+        conn.execute(sa.insert(Comparison).values(
+            id=1, name="pick-seconds", version=1, design={}, design_hash="x", settings={},
+            state="difference_found", looks_taken=4, created_at=T0))
+    path = write_config(tmp_path, config_toml(f"sqlite:///{tmp_path / 'ops.sqlite'}", store_url))
+    return engine, path
+
+
+def test_alerts_command_lists_filters_and_acknowledges(tmp_path, capsys):
+    import json
+
+    from monitor.cli import main
+
+    engine, path = _cli_store(tmp_path)
+    first, _ = _alert(engine, ["ops-log"])
+    second, _ = _alert(engine, ["ops-log"], decision="plan_complete", now=T0 + timedelta(minutes=5))
+    deliver_pending(engine, {"ops-log": LogChannel("ops-log")}, now=T0)  # delivers only the due one
+
+    assert main(["alerts", "--config", str(path), "--format", "json"]) == 0
+    listed = json.loads(capsys.readouterr().out)
+    assert [a["id"] for a in listed] == [second, first]  # newest first
+    assert {a["id"]: a["state"] for a in listed} == {first: "delivered", second: "pending"}
+
+    assert main(["alerts", "--config", str(path), "--state", "pending"]) == 0
+    table = capsys.readouterr().out
+    assert second in table and first not in table and "plan_complete" in table and "ops-log:pending" in table
+
+    assert main(["alerts", "--config", str(path), "ack", first, "--by", "shift lead"]) == 0
+    assert f"alert {first} acknowledged by shift lead" in capsys.readouterr().out
+    assert main(["alerts", "--config", str(path), "--state", "acknowledged", "--format", "json"]) == 0
+    [acked] = json.loads(capsys.readouterr().out)
+    assert acked["id"] == first and acked["acknowledged_by"] == "shift lead"
+
+    assert main(["alerts", "--config", str(path), "ack", "no-such-id"]) == 2
+    err = capsys.readouterr().err
+    assert "no-such-id" in err and err.count("\n") == 1
+    engine.dispose()

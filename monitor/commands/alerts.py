@@ -1,0 +1,98 @@
+"""``gapwatch alerts [--state S] [--format table|json]`` and ``gapwatch alerts ack ID [--by NAME]``."""
+
+from __future__ import annotations
+
+import argparse
+import getpass
+import json
+import sys
+from datetime import datetime, timezone
+
+__all__ = ["register", "run"]
+
+STATES = ("pending", "delivered", "failed", "acknowledged")
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "alerts",
+        help="list alerts and their deliveries, or acknowledge one (alerts ack ID)",
+        description="List alerts from the history store, newest first, with the state of each "
+                    "delivery; 'gapwatch alerts ack ID' records that someone has seen an alert.",
+    )
+    p.add_argument("--config", metavar="FILE",
+                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
+    p.add_argument("--state", action="append", choices=STATES,
+                   help="only alerts in this state (repeat for several)")
+    p.add_argument("--comparison", metavar="NAME", help="only alerts of this comparison")
+    p.add_argument("--format", choices=["table", "json"], default="table",
+                   help="table (default) or json (a list of objects)")
+    actions = p.add_subparsers(dest="alerts_action", metavar="ACTION")
+    ack = actions.add_parser("ack", help="acknowledge an alert",
+                             description="Mark an alert acknowledged (by whom, and when).")
+    ack.add_argument("alert_id", metavar="ID", help="the alert's id (as listed)")
+    ack.add_argument("--by", default=None, metavar="NAME", help="who acknowledges (default: the login name)")
+    ack.add_argument("--config", metavar="FILE", dest="ack_config", help=argparse.SUPPRESS)
+    ack.add_argument("--format", choices=["table", "json"], dest="ack_format", help=argparse.SUPPRESS)
+    p.set_defaults(func=run)
+
+
+def _engine(args):
+    from .. import readback
+
+    path = getattr(args, "ack_config", None) or args.config
+    return readback.open_store(readback.store_url_from_config(path))
+
+
+def _short(text, width):
+    text = "-" if text is None else str(text)
+    return text if len(text) <= width else text[: width - 1] + "~"
+
+
+def _table(alerts) -> str:
+    if not alerts:
+        return "no alerts"
+    header = f"{'id':36}  {'created (UTC)':19}  {'comparison':24}  {'kind / decision':28}  {'look':>4}  {'state':12}  deliveries"
+    lines = [header]
+    for a in alerts:
+        what = a["decision"] or a["kind"]
+        created = (a["created_at"] or "-")[:19].replace("T", " ")
+        deliveries = ", ".join(
+            f"{d['channel']}:{d['state']}" + (f"({d['attempts']})" if d["state"] != "delivered" and d["attempts"] else "")
+            for d in a["deliveries"]
+        ) or "-"
+        look = "-" if a["look"] is None else str(a["look"])
+        lines.append(f"{a['id']:36}  {created:19}  {_short(a['comparison'], 24):24}  {_short(what, 28):28}  "
+                     f"{look:>4}  {a['state']:12}  {deliveries}")
+        if a["state"] == "acknowledged" and a.get("acknowledged_by"):
+            lines.append(f"{'':36}  acknowledged by {a['acknowledged_by']} at {a['acknowledged_at']}")
+    return "\n".join(lines)
+
+
+def run(args) -> int:
+    from .. import readback
+
+    fmt = getattr(args, "ack_format", None) or args.format
+    engine = _engine(args)
+    try:
+        if args.alerts_action == "ack":
+            by = args.by
+            if by is None:
+                try:
+                    by = getpass.getuser()
+                except Exception:  # noqa: BLE001 - no login name in this environment
+                    by = "unknown"
+            alert = readback.acknowledge_alert(engine, args.alert_id, by=by, now=datetime.now(timezone.utc))
+            if fmt == "json":
+                print(json.dumps(alert, indent=2, sort_keys=True))
+            else:
+                print(f"alert {alert['id']} acknowledged by {alert['acknowledged_by']} at {alert['acknowledged_at']}")
+            return 0
+        alerts = readback.list_alerts(engine, states=args.state, comparison=args.comparison)
+        if fmt == "json":
+            print(json.dumps(alerts, indent=2, sort_keys=True))
+        else:
+            print(_table(alerts))
+        return 0
+    finally:
+        engine.dispose()
