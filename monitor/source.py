@@ -21,7 +21,8 @@ Requirements on the source table
   format is detected from the earliest row (e.g. ``2024-05-01 08:30:00``,
   ``2024-05-01T08:30:00.123Z``, ``2024-05-01T08:30:00+02:00``) and cutoffs are
   written in the same format. Text that is not a date-time is counted as
-  ``null_time``.
+  ``null_time`` when it sorts inside a read range; text sorting after every
+  date (a word, say) never falls inside one and is not seen at all.
 * Arrival column (optional, e.g. an auto-increment id or an ``inserted_at``
   column): increases with insertion; used to find late events. On SQLite the
   implicit rowid serves when no arrival column is configured (a ``VACUUM`` may
@@ -274,6 +275,13 @@ class _Columns:
     table: sa.Table  # reflected (types used to coerce bound values)
     query_table: sa.TableClause  # untyped, so values come back as the driver stores them
     has_rowid: bool
+
+
+def _literal(value):
+    """A bound value; integers bind as BIGINT so large ids and epochs survive a typed bind cast."""
+    if isinstance(value, int) and not isinstance(value, bool):
+        return sa.literal(value, sa.BigInteger())
+    return sa.literal(value)
 
 
 def _is_numeric_type(t) -> bool:
@@ -539,11 +547,15 @@ class Source:
             return sa.cast(sa.extract("epoch", sa.cast(raw, target)), sa.Float)
         return sa.cast(sa.extract("epoch", raw), sa.Float)
 
-    def _slot_expr(self, epoch):
+    def _slot_expr(self, kind: _TimeKind, epoch):
         if self.dialect == "sqlite":
-            whole = sa.cast(epoch, sa.Integer)
-            # CAST truncates toward zero; step down for negative fractions, then floor to the slot.
-            whole = whole - sa.case((epoch < whole, 1), else_=0)
+            if kind.kind == "epoch":
+                whole = sa.cast(epoch, sa.Integer)
+                # CAST truncates toward zero; step down for negative fractions before flooring.
+                whole = whole - sa.case((epoch < whole, 1), else_=0)
+            else:
+                whole = epoch
+            # SQLite's % keeps the sign of the dividend; this floors negative epochs too.
             return whole - ((whole % SLOT_SECONDS) + SLOT_SECONDS) % SLOT_SECONDS
         return sa.cast(sa.func.floor(epoch / SLOT_SECONDS) * SLOT_SECONDS, sa.BigInteger)
 
@@ -567,7 +579,7 @@ class Source:
         column = cols.query_table.c[spec.group_column]
         ctype = cols.table.c[spec.group_column].type
         g0, g1 = (self._bind_like(ctype, g) for g in spec.groups)
-        return sa.case((column == sa.literal(g0), 0), (column == sa.literal(g1), 1), else_=None)
+        return sa.case((column == _literal(g0), 0), (column == _literal(g1), 1), else_=None)
 
     def _value_parts(self, spec, cols):
         """(numeric value expression, list of (condition, reason) for value problems)."""
@@ -622,13 +634,13 @@ class Source:
             ctype = cols.table.c[column_name].type
             if op in ("in", "not in"):
                 values = [self._bind_like(ctype, v) for v in value]
-                clauses.append(column.in_(values) if op == "in" else column.not_in(values))
+                clauses.append(column.in_([_literal(v) for v in values]) if op == "in" else column.not_in([_literal(v) for v in values]))
                 continue
             bound = self._bind_like(ctype, value)
             if bound is None and op in ("=", "!="):
                 clauses.append(column.is_(None) if op == "=" else column.is_not(None))
                 continue
-            literal = sa.literal(bound)
+            literal = _literal(bound)
             clauses.append(
                 {
                     "=": column == literal,
@@ -862,12 +874,12 @@ class Source:
     def _cells_statement(self, conn, spec, since, cutoff):
         cols, kind, time_raw, epoch, gi, value, reason, key, arrival, atype = self._row_parts(conn, spec)
         filters = self._filters(spec, cols)
-        upper = sa.literal(self._bind_time(kind, cutoff))
+        upper = _literal(self._bind_time(kind, cutoff))
 
         def part(where, late):
             return sa.select(
                 gi.label("gi"),
-                self._slot_expr(epoch).label("slot"),
+                self._slot_expr(kind, epoch).label("slot"),
                 key.label("key"),
                 reason.label("reason"),
                 value.label("x"),
@@ -881,13 +893,13 @@ class Source:
             # NULL times never fall in a time range: count them once, on the first read.
             parts.append(part([time_raw.is_(None)], 0))
         else:
-            lower = sa.literal(self._bind_time(kind, _as_utc(since.cutoff, "since.cutoff")))
+            lower = _literal(self._bind_time(kind, _as_utc(since.cutoff, "since.cutoff")))
             parts.append(part([time_raw > lower, time_raw <= upper], 0))
             if arrival is not None:
                 seen = self._bind_arrival(atype, since.arrival)
                 # Late rows are only those at or before the previous cutoff, so rows read
                 # earlier through the time range can never come back through this branch.
-                newer = arrival > sa.literal(seen) if seen is not None else arrival.is_not(None)
+                newer = arrival > _literal(seen) if seen is not None else arrival.is_not(None)
                 parts.append(part([time_raw <= lower, newer], 1))
                 parts.append(part([time_raw.is_(None), newer], 0))
         rows = sa.union_all(*parts).subquery("new_rows")
@@ -917,13 +929,13 @@ class Source:
         try:
             with self.engine.connect() as conn:
                 cols, kind, time_raw, epoch, gi, value, reason, key, arrival, atype = self._row_parts(conn, spec)
-                where = [sa.or_(time_raw <= sa.literal(self._bind_time(kind, cutoff)), time_raw.is_(None))]
+                where = [sa.or_(time_raw <= _literal(self._bind_time(kind, cutoff)), time_raw.is_(None))]
                 if arrival_max is not None:
                     if arrival is None:
                         raise InvalidArgumentError(
                             f"arrival_max given but table {spec.table!r} has no arrival column"
                         )
-                    bound = sa.literal(self._bind_arrival(atype, arrival_max))
+                    bound = _literal(self._bind_arrival(atype, arrival_max))
                     where.append(sa.or_(arrival <= bound, arrival.is_(None)))
                 where.extend(self._filters(spec, cols))
                 labelled = sa.select(
