@@ -280,3 +280,22 @@ def test_planned_inflation_restores_precision_by_simulation():
         diffs.append(day_means[0].mean() - day_means[1].mean())
     target = 2.0 / n  # variance of a difference of means of n independent unit-variance events
     assert np.var(diffs, ddof=1) == pytest.approx(target, rel=0.2)
+
+
+# ---------------------------------------------------------------------------
+# validation by simulation (small; the full run is tests/benchmarks/clustered_false_alarm.py)
+
+
+def test_sequential_false_alarm_rate_by_simulation():
+    pytest.importorskip("monitor.boundaries")
+    from benchmarks import clustered_false_alarm as bench
+
+    streams, alpha = 400, 0.05
+    r = bench.run(streams, seed=20261201, alpha=alpha)
+    mc = math.sqrt(alpha * (1 - alpha) / streams)
+    # The vectorised simulation computes exactly what the library computes.
+    assert r["library_gap"] < 1e-9
+    # Clustered monitoring holds the level; event-level monitoring does not.
+    assert abs(r["clustered"] - alpha) < 3 * mc
+    assert r["event_level"] > 0.5
+    assert r["median_design_effect"] > 2
