@@ -56,6 +56,7 @@ __all__ = [
     "from_summaries",
     "METHODS",
     "ALTERNATIVES",
+    "INTERVALS",
     "DEGENERATE_NOTE",
 ]
 
@@ -260,6 +261,10 @@ def _interval(spec, estimate, alternative, alpha):
     kind = spec[0]
     if kind == "se":
         _, se, df = spec
+        if se == 0.0:
+            # No spread at all: every bound collapses onto the estimate.
+            return {"two-sided": (estimate, estimate), "greater": (estimate, None),
+                    "less": (None, estimate)}[alternative]
         if df is not None and math.isnan(df):
             return (math.nan, math.nan) if alternative == "two-sided" else (
                 (math.nan, None) if alternative == "greater" else (None, math.nan))
@@ -299,14 +304,13 @@ def _finish(method, alternative, alpha, null_difference, estimate, se, df,
             p = 0.0 if statistic > 0 else 1.0
         else:
             p = 0.0 if statistic < 0 else 1.0
-        crit_df = None if df is None or math.isnan(df) else df
     else:
-        crit_df = df
         p = _p_value(statistic, df, alternative)
-    if crit_df is not None and math.isnan(crit_df):
+    if df is not None and math.isnan(df):
+        # Welch df is 0/0 when both variances vanish: no t distribution to quote.
         crit = (math.nan, math.nan) if alternative == "two-sided" else (math.nan,)
     else:
-        crit = _critical_values(crit_df, alternative, alpha)
+        crit = _critical_values(df, alternative, alpha)
     reject = bool((not degenerate) and p <= alpha)
     result_df = None if df is None else float(df)
     return FixedSampleResult(
