@@ -11,6 +11,8 @@ import math
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import optimize, stats
 
 from monitor import inference
@@ -297,4 +299,54 @@ def test_estimate_to_dict_and_float():
     d = r.to_dict()
     assert set(d) >= {"estimate", "ci", "alpha", "p_value", "naive_estimate", "stop_look"}
     assert float(r) == r.estimate
+    assert r.ci[0] < r.estimate < r.ci[1]
+
+
+# ---------------------------------------------------------------- properties
+
+_DESIGN = [0.3, 0.55, 0.8, 1.0]
+_UPPER = {alt: [b.z for b in efficacy_boundaries(_DESIGN, 0.05, "obrien-fleming", alt)]
+          for alt in ("two-sided", "greater")}
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    look=st.integers(1, 4),
+    z=st.floats(-6, 6, allow_nan=False),
+    step=st.floats(0.05, 2.0),
+    alternative=st.sampled_from(["two-sided", "greater"]),
+)
+def test_p_value_is_a_probability_and_monotone(look, z, step, alternative):
+    upper = _UPPER[alternative]
+    p = stagewise_p_value(_DESIGN, upper, look, z, alternative)
+    assert 0.0 <= p <= 1.0
+    if alternative == "greater":
+        assert stagewise_p_value(_DESIGN, upper, look, z + step, alternative) <= p + 1e-12
+    else:
+        assert stagewise_p_value(_DESIGN, upper, look, abs(z) + step, alternative) <= (
+            stagewise_p_value(_DESIGN, upper, look, abs(z), alternative) + 1e-12
+        )
+
+
+@settings(max_examples=15, deadline=None)
+@given(look=st.integers(1, 4), z=st.floats(-4, 4, allow_nan=False), step=st.floats(0.1, 2.0))
+def test_estimate_rises_with_z_and_sits_inside_its_interval(look, z, step):
+    upper = _UPPER["two-sided"]
+    low = median_unbiased_estimate(_DESIGN, upper, look, z, 10.0)
+    high = median_unbiased_estimate(_DESIGN, upper, look, z + step, 10.0)
+    assert high.estimate > low.estimate
+    assert low.ci[0] < low.estimate < low.ci[1]
+
+
+def test_infinite_boundaries_at_early_looks_are_accepted():
+    # Small first fractions under O'Brien-Fleming spending get boundary +inf: no stop possible.
+    fractions = [0.001, 0.5, 1.0]
+    upper = [b.z for b in efficacy_boundaries(fractions, 0.05, "obrien-fleming", "two-sided")]
+    assert math.isinf(upper[0])
+    with_inf = stagewise_p_value(fractions, upper, 3, 2.2)
+    without = stagewise_p_value([0.5, 1.0], upper[1:], 2, 2.2)
+    # Looking at fraction 0.001 (nothing spent) changes the p-value only through Z at 0.001,
+    # which never stops the path: the two agree.
+    assert with_inf == pytest.approx(without, abs=1e-6)
+    r = median_unbiased_estimate(fractions, upper, 3, 2.2, 8.0)
     assert r.ci[0] < r.estimate < r.ci[1]
