@@ -605,6 +605,22 @@ def inflate_for_clustering(events_per_group, *, design_effect=None, icc=None,
 def clusters_needed(events_per_group, events_per_cluster, *, design_effect=None, icc=None) -> int:
     """Clusters (days) per group needed after inflating for clustering.
 
+    Parameters
+    ----------
+    events_per_group : float
+        Events per group from an independent-events plan.
+    events_per_cluster : float
+        Events per group in one cluster (a day).
+    design_effect : float, optional
+        Assumed variance inflation; by default ``1 + (m − 1)·icc``.
+    icc : float, optional
+        Intra-cluster correlation, used when ``design_effect`` is not given.
+
+    Returns
+    -------
+    int
+        ``ceil(events_per_group × design effect / events_per_cluster)``.
+
     Examples
     --------
     >>> clusters_needed(400, 51, icc=0.02)

@@ -299,3 +299,43 @@ def test_sequential_false_alarm_rate_by_simulation():
     assert abs(r["clustered"] - alpha) < 3 * mc
     assert r["event_level"] > 0.5
     assert r["median_design_effect"] > 2
+
+
+# ---------------------------------------------------------------------------
+# invariants
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+cell = st.tuples(st.integers(0, 1), st.integers(0, 6), st.integers(1, 30), st.floats(-5, 5), st.floats(0.1, 3))
+
+
+@settings(max_examples=100, deadline=None)
+@given(cells=st.lists(cell, min_size=4, max_size=30), order=st.randoms(use_true_random=False),
+       alt=st.sampled_from(["two-sided", "greater", "less"]))
+def test_swapping_groups_and_reordering_cells(cells, order, alt):
+    g = [c[0] for c in cells]
+    if 0 not in g or 1 not in g:
+        return
+    k = [c[1] for c in cells]
+    n = [c[2] for c in cells]
+    dev = [c[2] * c[3] for c in cells]
+    dev2 = [c[2] * (c[3] ** 2 + c[4] ** 2) for c in cells]
+    r = clustered.cluster_robust_difference(g, k, n, dev, 0.0, sum_dev2=dev2, alternative=alt)
+    flip = {"two-sided": "two-sided", "greater": "less", "less": "greater"}[alt]
+    s = clustered.cluster_robust_difference([1 - x for x in g], k, n, dev, 0.0, sum_dev2=dev2, alternative=flip)
+    assert s.estimate == pytest.approx(-r.estimate, abs=1e-12)
+    assert s.clusters == r.clusters and (s.n1, s.n2) == (r.n2, r.n1)
+    if math.isfinite(r.standard_error):
+        assert s.standard_error == pytest.approx(r.standard_error, rel=1e-9, abs=1e-12)
+        if r.standard_error > 1e-9:
+            assert s.p_value == pytest.approx(r.p_value, rel=1e-7, abs=1e-12)
+            assert 0.0 <= r.p_value <= 1.0
+    idx = list(range(len(cells)))
+    order.shuffle(idx)
+    t = clustered.cluster_robust_difference([g[i] for i in idx], [k[i] for i in idx], [n[i] for i in idx],
+                                            [dev[i] for i in idx], 0.0, sum_dev2=[dev2[i] for i in idx],
+                                            alternative=alt)
+    assert t.estimate == pytest.approx(r.estimate, abs=1e-12)
+    if math.isfinite(r.standard_error):
+        assert t.standard_error == pytest.approx(r.standard_error, rel=1e-9, abs=1e-12)
