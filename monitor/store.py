@@ -8,6 +8,7 @@ installed gapwatch finds them wherever it lives.
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 
 import sqlalchemy as sa
@@ -105,22 +106,34 @@ def downgrade(url, revision: str) -> None:
     _run(url, "downgrade", revision)
 
 
-def head_revision() -> str:
-    """The newest revision this version of gapwatch ships."""
+@functools.lru_cache(maxsize=8)
+def _head_for(folder: str) -> str:
     from alembic.script import ScriptDirectory
 
-    script = ScriptDirectory(str(_migrations_folder()))
-    return script.get_current_head()
+    return ScriptDirectory(folder).get_current_head()
+
+
+def head_revision() -> str:
+    """The newest revision this version of gapwatch ships."""
+    return _head_for(str(_migrations_folder()))
+
+
+_VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
 
 
 def current_revision(engine: Engine) -> str | None:
     """The store's revision (None for an empty store)."""
-    from alembic.migration import MigrationContext
-
     try:
         with engine.connect() as connection:
-            return MigrationContext.configure(connection).get_current_revision()
-    except sa.exc.OperationalError as exc:
+            try:
+                # A plain read of Alembic's version table: cheap enough for every look.
+                return connection.execute(sa.select(_VERSION_TABLE.c.version_num)).scalar()
+            except sa.exc.DBAPIError:
+                connection.rollback()
+                if not sa.inspect(connection).has_table("alembic_version"):
+                    return None
+                raise
+    except sa.exc.DBAPIError as exc:
         raise StoreUnavailableError(f"cannot reach the history store: {_brief(exc)}") from None
 
 

@@ -1,0 +1,448 @@
+"""The look, end to end, on SQLite: figures against scipy/statsmodels from raw rows, and the promises."""
+
+from __future__ import annotations
+
+import threading
+from datetime import timedelta
+
+import numpy as np
+import pandas as pd
+import pytest
+import sqlalchemy as sa
+from scipy import stats
+
+from live_helpers import (at, comparison_toml, config_toml, create_events_table, file_digest,
+                          insert_events, migrated_store, write_config)
+from monitor import look as look_module
+from monitor.boundaries import SequentialBoundary
+from monitor.config import load_config
+from monitor.errors import (DesignChangedError, LookAlreadyRecordedError, SourceUnavailableError,
+                            StoreBehindError)
+from monitor.look import bucket_end, bucket_key, restart_comparison, take_look
+from monitor.models import Alert, Cell, Comparison, Delivery, Look
+from monitor.source import Source
+
+T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
+CHANNELS = '[channels.ops-log]\ntype = "log"\n[channels.other-log]\ntype = "log"\n'
+
+
+def _rows(rng, count, start=T0, step_minutes=3, east=100.0, west=100.0, sd=10.0, day_sd=0.0):
+    rows, day_effect = [], {}
+    for i in range(count):
+        when = start + timedelta(minutes=step_minutes * i)
+        site = "east" if i % 2 else "west"
+        # Each site's day has its own staffing and backlog: the day effect is per (day, site).
+        d = (when.date(), site)
+        if d not in day_effect:
+            day_effect[d] = rng.normal(0, day_sd) if day_sd else 0.0
+        mean = east if site == "east" else west
+        rows.append({"site": site, "seconds": float(rng.normal(mean, sd) + day_effect[d]), "done_at": when})
+    return rows
+
+
+class World:
+    """A source table, a config file and a migrated store in one folder."""
+
+    def __init__(self, folder, rows=(), channels=CHANNELS, **keys):
+        self.folder = folder
+        self.source_path = folder / "ops.sqlite"
+        self.source_url = f"sqlite:///{self.source_path}"
+        self.store_url = f"sqlite:///{folder / 'store.sqlite'}"
+        create_events_table(self.source_url, rows=list(rows))
+        self.channels = channels
+        self.write(**keys)
+        self.engine = migrated_store(self.config.store_url)
+
+    def write(self, **keys):
+        text = config_toml(self.source_url, self.store_url, [comparison_toml(**keys)], self.channels)
+        self.config = load_config(write_config(self.folder, text), environ={})
+        self.comparison = self.config.comparisons[0]
+
+    def look(self, as_of, **kw):
+        return take_look(self.config, self.comparison.name, as_of=as_of, engine=self.engine, **kw)
+
+    def raw(self):
+        engine = sa.create_engine(self.source_url)
+        frame = pd.read_sql("SELECT site, seconds, done_at FROM events", engine)
+        engine.dispose()
+        frame["done_at"] = pd.to_datetime(frame["done_at"], utc=True)
+        return frame
+
+    def looks(self):
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(Look).order_by(Look.id)).all()
+
+    def count(self, model):
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.func.count()).select_from(model)).scalar()
+
+
+def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):
+    rng = np.random.default_rng(20260302)
+    w = World(tmp_path, _rows(rng, 900, east=101.5, west=100.0), lateness="5m", planned_per_group=600)
+    raw = w.raw()
+    fresh = SequentialBoundary(0.05, "obrien-fleming", "two-sided")
+    records = []
+    for hours in (4, 9, 15, 22, 30, 45):
+        record = w.look(T0 + timedelta(hours=hours))
+        if record is None:
+            break
+        records.append(record)
+        assert record.cutoff == T0 + timedelta(hours=hours, minutes=-5)
+        upto = raw[raw.done_at <= pd.Timestamp(record.cutoff)]
+        east = upto[upto.site == "east"].seconds.to_numpy()
+        west = upto[upto.site == "west"].seconds.to_numpy()
+        ref = stats.ttest_ind(east, west, equal_var=False)
+        assert (record.n1, record.n2) == (len(east), len(west))
+        assert record.estimate == pytest.approx(east.mean() - west.mean(), rel=1e-9)
+        assert record.statistic == pytest.approx(ref.statistic, rel=1e-9)
+        assert record.p_value == pytest.approx(ref.pvalue, rel=1e-7)
+        assert record.df == pytest.approx(ref.df, rel=1e-9)
+        assert record.fraction == pytest.approx(min(len(east), len(west)) / 600)
+        # The resumed boundary equals one computed afresh at the same fractions.
+        expected = fresh.add_look(record.fraction)
+        assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
+        critical = stats.t.isf(expected.nominal_p, ref.df)
+        se = (east.mean() - west.mean()) / ref.statistic
+        if np.isfinite(critical):
+            assert record.ci_low == pytest.approx(record.estimate - critical * se, rel=1e-7)
+            assert record.ci_high == pytest.approx(record.estimate + critical * se, rel=1e-7)
+        else:  # nothing spendable yet at this tiny fraction: the interval is unbounded
+            assert (record.ci_low, record.ci_high) == (None, None)
+        crossed = min(stats.t.sf(ref.statistic, ref.df), stats.t.cdf(ref.statistic, ref.df)) <= expected.nominal_p
+        assert (record.decision == "difference_found") == crossed
+    assert [r.look for r in records] == list(range(1, len(records) + 1))
+    assert records[-1].decision in ("difference_found", "plan_complete")
+    # After the stop it looks no more, and the stop look carries the adjusted inference.
+    assert w.look(T0 + timedelta(hours=60)) is None
+    last = w.looks()[-1]
+    assert "p_value" in last.detail["after_stop"] and "median_unbiased_estimate" in last.detail["after_stop"]
+    with w.engine.connect() as conn:
+        comp = conn.execute(sa.select(Comparison)).one()
+    assert comp.state == records[-1].decision and comp.looks_taken == len(records)
+    assert comp.stopped_at == records[-1].as_of
+
+
+@pytest.mark.parametrize("method", ["pooled", "z", "proportions"])
+def test_other_methods_match_references(tmp_path, method):
+    from statsmodels.stats.proportion import proportions_ztest
+
+    rng = np.random.default_rng(7)
+    rows = _rows(rng, 400)
+    keys = dict(method=method)
+    if method == "proportions":
+        for r in rows:
+            r["seconds"] = float(rng.random() < (0.55 if r["site"] == "east" else 0.45))
+        keys["metric"] = "proportion"
+    if method == "z":
+        keys["sigmas"] = [10.0, 10.0]
+    w = World(tmp_path, rows, **keys)
+    record = w.look(T0 + timedelta(hours=12))
+    raw = w.raw()
+    upto = raw[raw.done_at <= pd.Timestamp(record.cutoff)]
+    east = upto[upto.site == "east"].seconds.to_numpy()
+    west = upto[upto.site == "west"].seconds.to_numpy()
+    if method == "pooled":
+        ref = stats.ttest_ind(east, west, equal_var=True)
+        statistic, p = ref.statistic, ref.pvalue
+        assert record.df == len(east) + len(west) - 2
+    elif method == "z":
+        statistic = (east.mean() - west.mean()) / np.sqrt(100 / len(east) + 100 / len(west))
+        p = 2 * stats.norm.sf(abs(statistic))
+    else:
+        statistic, p = proportions_ztest([east.sum(), west.sum()], [len(east), len(west)])
+    assert record.statistic == pytest.approx(statistic, rel=1e-9)
+    assert record.p_value == pytest.approx(p, rel=1e-7)
+
+
+def test_paired_by_day_uses_closed_days_only(tmp_path):
+    rng = np.random.default_rng(11)
+    rows = _rows(rng, 4 * 24 * 20, step_minutes=3, east=101.0, sd=5.0)  # 4 days
+    w = World(tmp_path, rows, method="paired", pair_by="day", planned_per_group=30)
+    as_of = at(5, 12)  # days 2, 3 and 4 March have closed; 5 March is open
+    record = w.look(as_of)
+    raw = w.raw()
+    raw = raw[raw.done_at <= pd.Timestamp(as_of)]
+    raw["day"] = raw.done_at.dt.date
+    means = raw.groupby(["day", "site"]).seconds.mean().unstack()
+    closed = means[[pd.Timestamp(d, tz="UTC") + pd.Timedelta(days=1) <= pd.Timestamp(as_of) for d in means.index]]
+    ref = stats.ttest_rel(closed["east"], closed["west"])
+    assert record.pairs == len(closed) == 3
+    assert record.statistic == pytest.approx(ref.statistic, rel=1e-9)
+    assert record.p_value == pytest.approx(ref.pvalue, rel=1e-7)
+    assert record.fraction == pytest.approx(3 / 30)
+
+
+def test_clustered_by_day_matches_statsmodels_cluster_robust_ols(tmp_path):
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(5)
+    rows = _rows(rng, 14 * 24 * 4, step_minutes=15, east=101.0, day_sd=4.0)  # 14 days
+    w = World(tmp_path, rows, cluster_by="day", min_clusters=10, planned_per_group=5000)
+    early = w.look(at(7, 23))  # 6 days (2-7 March): too few clusters
+    assert early.decision == "awaiting_clusters" and early.clusters == 6
+    record = w.look(at(16, 12))
+    raw = w.raw()
+    raw = raw[raw.done_at <= pd.Timestamp(record.cutoff)]
+    x = sm.add_constant((raw.site == "east").astype(float).to_numpy())
+    fit = sm.OLS(raw.seconds.to_numpy(), x).fit(
+        cov_type="cluster", cov_kwds={"groups": pd.factorize(raw.done_at.dt.date)[0]}, use_t=True)
+    assert record.clusters == 15
+    assert record.estimate == pytest.approx(fit.params[1], rel=1e-9)
+    assert record.standard_error == pytest.approx(fit.bse[1], rel=1e-7)
+    assert record.df == 14
+    assert record.p_value == pytest.approx(fit.pvalues[1], rel=1e-6)
+    assert record.decision in ("collecting", "difference_found")
+    assert not any("set cluster_by" in text for text in record.warnings)
+
+
+def test_day_level_design_effect_warns_unclustered(tmp_path):
+    rng = np.random.default_rng(3)
+    rows = _rows(rng, 10 * 24 * 4, step_minutes=15, day_sd=6.0)
+    w = World(tmp_path, rows, planned_per_group=5000)
+    record = w.look(at(12, 12))
+    assert record.design_effect > 1.5 and record.effective_n < record.n1 + record.n2
+    assert any(t.startswith(f"design effect {record.design_effect:.1f} at day level: events are not "
+                            "independent; set cluster_by = \"day\"") for t in record.warnings)
+    quiet = World(tmp_path / "q" if (tmp_path / "q").mkdir() is None else None,
+                  _rows(np.random.default_rng(4), 10 * 24 * 4, step_minutes=15), planned_per_group=5000)
+    calm = quiet.look(at(12, 12))
+    assert calm.design_effect is not None and not any("design effect" in t for t in calm.warnings)
+
+
+def test_late_events_counted_and_picked_up(tmp_path):
+    rng = np.random.default_rng(8)
+    w = World(tmp_path, _rows(rng, 200), planned_per_group=5000)
+    first = w.look(T0 + timedelta(hours=5))
+    assert first.late_events == 0
+    insert_events(w.source_url, "events", [
+        {"site": "east", "seconds": 1000.0, "done_at": T0 + timedelta(hours=1)},   # late: before cutoff 1
+        {"site": "west", "seconds": 2000.0, "done_at": T0 + timedelta(hours=2)},   # late
+        {"site": "east", "seconds": 3000.0, "done_at": T0 + timedelta(hours=6)},   # on time
+    ])
+    second = w.look(T0 + timedelta(hours=7))
+    assert second.late_events == 2 and second.new_events == 2 + 40 + 1  # 2 late, 40 regular rows in (5h, 7h], 1 inserted
+    raw = w.raw()
+    upto = raw[raw.done_at <= pd.Timestamp(second.cutoff)]
+    assert (second.n1, second.n2) == ((upto.site == "east").sum(), (upto.site == "west").sum())
+    assert second.estimate == pytest.approx(upto[upto.site == "east"].seconds.mean()
+                                            - upto[upto.site == "west"].seconds.mean(), rel=1e-9)
+    assert w.looks()[-1].late_events == 2
+
+
+def test_bad_rows_of_every_kind_counted_per_reason(tmp_path):
+    rng = np.random.default_rng(9)
+    good = _rows(rng, 40)
+    bad = [
+        {"site": "east", "seconds": None, "done_at": T0},                       # null_value
+        {"site": "east", "seconds": float("inf"), "done_at": T0},               # not_finite
+        {"site": "west", "seconds": float("-inf"), "done_at": T0},              # not_finite
+        {"site": "east", "seconds": 1e6, "done_at": T0},                        # out_of_range
+        {"site": "north", "seconds": 10.0, "done_at": T0},                      # unknown_group
+        {"site": None, "seconds": 10.0, "done_at": T0},                         # unknown_group
+        {"site": "east", "seconds": 10.0, "done_at": None},                     # null_time
+    ]
+    w = World(tmp_path, good + bad, valid_range=[0, 10000], planned_per_group=5000)
+    # SQLite keeps text in a REAL column as text: a non-numeric value, bypassing the Float type.
+    source = sa.create_engine(w.source_url)
+    with source.begin() as conn:
+        conn.execute(sa.text("INSERT INTO events (site, seconds, done_at) VALUES ('west', 'fast', :t)"),
+                     {"t": T0.replace(tzinfo=None)})
+    source.dispose()
+    record = w.look(T0 + timedelta(hours=5))
+    assert record.excluded == {"null_value": 1, "not_finite": 2, "non_numeric": 1, "out_of_range": 1,
+                               "unknown_group": 2, "null_time": 1}
+    assert record.n1 + record.n2 == 40
+    # Counts accumulate across looks.
+    insert_events(w.source_url, "events", [{"site": "west", "seconds": None, "done_at": T0 + timedelta(hours=6)}])
+    again = w.look(T0 + timedelta(hours=7))
+    assert again.excluded["null_value"] == 2
+
+
+def test_not_binary_and_data_problems(tmp_path):
+    rows = [{"site": s, "seconds": v, "done_at": T0 + timedelta(minutes=i)}
+            for i, (s, v) in enumerate([("east", 1.0), ("west", 0.0), ("east", 2.0), ("west", 1.0), ("east", 0.0)])]
+    w = World(tmp_path, rows, metric="proportion", method="proportions", planned_per_group=100)
+    record = w.look(T0 + timedelta(hours=1))
+    assert record.excluded == {"not_binary": 1}
+    # Zero variance: all the same value in both groups.
+    flat = World(tmp_path / "flat" if (tmp_path / "flat").mkdir() is None else None,
+                 [{"site": s, "seconds": 5.0, "done_at": T0 + timedelta(minutes=i)}
+                  for i, s in enumerate(["east", "west"] * 5)])
+    assert flat.look(T0 + timedelta(hours=1)).decision == "data_problem"
+    # One group empty.
+    lone = World(tmp_path / "lone" if (tmp_path / "lone").mkdir() is None else None,
+                 [{"site": "east", "seconds": float(i), "done_at": T0 + timedelta(minutes=i)} for i in range(5)])
+    problem = lone.look(T0 + timedelta(hours=1))
+    assert problem.decision == "data_problem" and "'west' has no valid events" in problem.warnings[0]
+    with lone.engine.connect() as conn:
+        alert = conn.execute(sa.select(Alert)).one()
+    assert alert.kind == "data_problem" and alert.payload["look"] == 1
+    # data_problem stays open: the next look happens.
+    assert lone.look(T0 + timedelta(hours=2)) is not None
+
+
+def test_source_unreachable_records_nothing_then_next_look_is_fine(tmp_path):
+    rng = np.random.default_rng(10)
+    w = World(tmp_path, _rows(rng, 100))
+    broken = Source(f"sqlite:///{tmp_path / 'missing' / 'nowhere.sqlite'}", name="ops")
+    with pytest.raises(SourceUnavailableError, match="ops"):
+        w.look(T0 + timedelta(hours=3), source=broken)
+    assert w.count(Comparison) == 0 and w.count(Look) == 0
+    assert w.look(T0 + timedelta(hours=3)).look == 1
+    with pytest.raises(SourceUnavailableError):
+        w.look(T0 + timedelta(hours=4), source=broken)
+    assert w.count(Look) == 1
+    assert w.look(T0 + timedelta(hours=4)).look == 2
+
+
+def test_store_a_migration_behind_is_refused(tmp_path):
+    from monitor.store import downgrade
+
+    w = World(tmp_path, _rows(np.random.default_rng(1), 20))
+    downgrade(w.store_url, "0001")
+    with pytest.raises(StoreBehindError, match="gapwatch db upgrade"):
+        w.look(T0 + timedelta(hours=3))
+
+
+def test_design_change_refused_and_restart_starts_a_new_version(tmp_path):
+    rng = np.random.default_rng(12)
+    w = World(tmp_path, _rows(rng, 300))
+    w.look(T0 + timedelta(hours=3))
+    w.write(alpha=0.01, value_column="seconds", every="1h")  # schedule changes are fine, alpha is not
+    with pytest.raises(DesignChangedError) as info:
+        w.look(T0 + timedelta(hours=4))
+    message = str(info.value)
+    assert "alpha" in message and "every" not in message.split("in:")[1].split(".")[0]
+    assert "gapwatch restart handle-time" in message and "new name" in message
+    assert w.count(Look) == 1
+    w.write(every="1h")  # back to the frozen design: looks again
+    assert w.look(T0 + timedelta(hours=4)).look == 2
+    w.write(alpha=0.01)
+    assert restart_comparison(w.engine, "handle-time") == {"name": "handle-time", "archived_version": 1,
+                                                            "next_version": 2}
+    record = w.look(T0 + timedelta(hours=5))
+    assert (record.version, record.look) == (2, 1)
+    raw = w.raw()
+    assert record.n1 + record.n2 == (raw.done_at <= pd.Timestamp(record.cutoff)).sum()  # reads from the start
+    with w.engine.connect() as conn:
+        versions = conn.execute(sa.select(Comparison.version, Comparison.archived, Comparison.looks_taken)
+                                .order_by(Comparison.version)).all()
+    assert versions == [(1, True, 2), (2, False, 1)]
+
+
+def test_injection_in_filter_values_is_harmless_and_source_unchanged(tmp_path):
+    rng = np.random.default_rng(13)
+    rows = _rows(rng, 60)
+    for i, r in enumerate(rows):
+        r["status"] = "done" if i % 3 else "x'; DROP TABLE events; --"
+    folder = tmp_path
+    url = f"sqlite:///{folder / 'ops.sqlite'}"
+    create_events_table(url, rows=rows, extra_columns=[("status", sa.String(50))])
+    text = config_toml(url, f"sqlite:///{folder / 'store.sqlite'}",
+                       [comparison_toml(filters=[["status", "!=", "x'; DROP TABLE events; --"],
+                                                 ["status", "in", ["done", "' OR 1=1 --"]]])])
+    config = load_config(write_config(folder, text), environ={})
+    engine = migrated_store(config.store_url)
+    before = file_digest(folder / "ops.sqlite")
+    for hours in (2, 4, 8):
+        record = take_look(config, "handle-time", as_of=T0 + timedelta(hours=hours), engine=engine)
+    assert file_digest(folder / "ops.sqlite") == before
+    assert record.n1 + record.n2 == sum(1 for i in range(60) if i % 3)
+    source = sa.create_engine(url)
+    with source.connect() as conn:
+        assert conn.execute(sa.text("SELECT count(*) FROM events")).scalar() == 60
+
+
+def test_a_look_is_all_or_nothing(tmp_path, monkeypatch):
+    rng = np.random.default_rng(14)
+    w = World(tmp_path, _rows(rng, 300))
+    w.look(T0 + timedelta(hours=3))
+    with w.engine.connect() as conn:
+        cells_before = conn.execute(sa.select(Cell).order_by(Cell.kind, Cell.group_index, Cell.key)).all()
+        comp_before = conn.execute(sa.select(Comparison)).one()
+
+    def fail(*args, **kwargs):
+        raise RuntimeError("disk full while writing cells")
+
+    monkeypatch.setattr(look_module, "_upsert_cells", fail)
+    with pytest.raises(RuntimeError, match="disk full"):
+        w.look(T0 + timedelta(hours=6))
+    with w.engine.connect() as conn:
+        assert conn.execute(sa.select(Cell).order_by(Cell.kind, Cell.group_index, Cell.key)).all() == cells_before
+        comp_after = conn.execute(sa.select(Comparison)).one()
+    assert (comp_after.looks_taken, comp_after.watermark) == (comp_before.looks_taken, comp_before.watermark)
+    assert w.count(Look) == 1
+    monkeypatch.undo()
+    record = w.look(T0 + timedelta(hours=6))
+    raw = w.raw()
+    assert record.look == 2 and record.n1 + record.n2 == (raw.done_at <= pd.Timestamp(record.cutoff)).sum()
+
+
+def test_alert_and_deliveries_written_with_the_stopping_look(tmp_path):
+    rng = np.random.default_rng(15)
+    w = World(tmp_path, _rows(rng, 600, east=110.0), planned_per_group=200, notify=["other-log"])
+    record = w.look(T0 + timedelta(hours=30))
+    assert record.decision == "difference_found" and record.alert_id
+    with w.engine.connect() as conn:
+        alert = conn.execute(sa.select(Alert)).one()
+        deliveries = conn.execute(sa.select(Delivery)).all()
+    assert alert.id == record.alert_id and alert.payload["alert_id"] == alert.id
+    assert set(alert.payload) >= {"alert_id", "comparison", "version", "kind", "decision", "look", "as_of",
+                                  "estimate", "ci_low", "ci_high", "p_value", "fraction", "n1", "n2",
+                                  "groups", "message"}
+    assert alert.payload["message"].startswith("handle-time: east minus west differs by")
+    assert [(d.channel, d.state, d.next_attempt_at) for d in deliveries] == [
+        ("other-log", "pending", record.as_of)]
+
+
+def _concurrent(w, as_of, workers=4):
+    barrier = threading.Barrier(workers)
+    results, errors = [], []
+
+    def run():
+        barrier.wait()
+        try:
+            results.append(w.look(as_of))
+        except LookAlreadyRecordedError as exc:
+            errors.append(exc)
+
+    threads = [threading.Thread(target=run) for _ in range(workers)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    return results, errors
+
+
+def test_concurrent_looks_never_duplicate_numbers_nor_double_count(tmp_path):
+    rng = np.random.default_rng(16)
+    w = World(tmp_path, _rows(rng, 400), planned_per_group=5000)
+    for hours in (3, 6, 9):
+        results, errors = _concurrent(w, T0 + timedelta(hours=hours))
+        assert len(results) + len(errors) == 4 and results
+    looks = w.looks()
+    numbers = [l.look_number for l in looks]
+    assert numbers == sorted(set(numbers)) == list(range(1, len(looks) + 1))
+    raw = w.raw()
+    last = looks[-1]
+    assert last.n1 + last.n2 == (raw.done_at <= pd.Timestamp(last.cutoff)).sum()
+    with w.engine.connect() as conn:
+        total = conn.execute(sa.select(sa.func.sum(Cell.n)).where(Cell.kind == "total")).scalar()
+    assert total == last.n1 + last.n2
+
+
+def test_buckets_in_a_time_zone_across_daylight_saving():
+    from zoneinfo import ZoneInfo
+
+    lisbon = ZoneInfo("Europe/Lisbon")
+    # 29 March 2026: clocks go from 01:00 to 02:00 local in Lisbon.
+    slot = int(at(29, 0, 30).timestamp())
+    assert bucket_key(slot, "day", lisbon) == "2026-03-29"
+    assert bucket_end("2026-03-29", "day", lisbon) == at(29, 23)  # midnight local = 23:00 UTC (summer time)
+    assert bucket_key(slot, "week", lisbon) == "2026-03-23"
+    assert bucket_key(slot, "hour", lisbon) == "2026-03-29T00:00+00:00"
+    assert bucket_key(int(at(29, 1, 15).timestamp()), "hour", lisbon) == "2026-03-29T02:00+01:00"
+    starts = ("06:00", "14:00", "22:00")
+    assert bucket_key(int(at(3, 3).timestamp()), "shift", ZoneInfo("UTC"), starts) == "2026-03-02T22:00+00:00"
+    assert bucket_end("2026-03-02T22:00+00:00", "shift", ZoneInfo("UTC"), starts) == at(3, 6)
