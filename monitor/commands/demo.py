@@ -1,0 +1,284 @@
+"""``gapwatch demo``: the invented Corvane Provisions scenario, live, in one command.
+
+Builds the demo folder (source databases, configuration, history store),
+then runs three things side by side until Ctrl-C or ``--duration``: the live
+feed appending events on a simulated clock, the monitoring service taking
+looks with that same clock as ``as_of``, and the dashboard (a subprocess).
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+__all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
+
+# Not "demo_db": run from a checkout, that is the scenario's own package folder.
+DEFAULT_FOLDER = "gapwatch-demo"
+# One simulated hour per real second: a working day passes in a quarter of a minute.
+DEFAULT_SPEED = 3600.0
+DEFAULT_PORT = 8501
+
+EXPLANATION = """\
+What you are watching: {company} (an invented grocery distributor) compares pairs of
+sites, desks, lines and filling heads on live operational tables. A feed appends events
+on a simulated clock ({speed:g} simulated seconds per real second, starting {start}); every
+few real seconds each comparison takes a look at what has arrived. The dashboard shows,
+per comparison, the difference so far with its confidence interval, how much of the
+planned data has been seen (the information fraction) and the boundary the evidence must
+cross at this look before the monitor speaks. Expect: pick-seconds to find the new pick
+path at Hollin Cross within a simulated day; desk-first-contact to stay quiet (the desks
+do not differ) and to stop with "no material difference"; fill-giveaway to use up its plan
+without alarm; delivery-lateness to wait for enough days (clusters) before it judges;
+returns-grading to report a data problem until bench 2 opens on Thursday; and the paired
+line comparison to build its case day by day. Bad rows and late events are counted on
+every look. A signal supports, never replaces, operational judgement and local rules."""
+
+
+def register(subparsers):
+    parser = subparsers.add_parser(
+        "demo",
+        help="run the invented live demo (feed, monitor and dashboard) in one folder",
+        description="Create the demo databases and configuration in a folder, feed them live on a "
+                    "simulated clock, take looks and show them on the dashboard. Stops on Ctrl-C "
+                    "or after --duration seconds. Nothing is written outside --dir.",
+    )
+    parser.add_argument("--dir", default=DEFAULT_FOLDER, metavar="PATH",
+                        help=f"demo folder (default: ./{DEFAULT_FOLDER}); an existing demo there is resumed")
+    parser.add_argument("--reset", action="store_true", help="delete the demo in --dir and start again")
+    parser.add_argument("--speed", type=float, default=DEFAULT_SPEED, metavar="X",
+                        help=f"simulated seconds per real second (default {DEFAULT_SPEED:g})")
+    parser.add_argument("--no-dashboard", action="store_true", help="do not start the dashboard")
+    parser.add_argument("--duration", type=float, default=None, metavar="SECONDS",
+                        help="stop after this many real seconds (default: run until Ctrl-C)")
+    parser.add_argument("--port", type=int, default=DEFAULT_PORT, metavar="P",
+                        help=f"dashboard port (default {DEFAULT_PORT})")
+    parser.add_argument("--seed", type=int, default=None, metavar="N",
+                        help="random seed of a new demo (default: the scenario's own)")
+    parser.set_defaults(func=run)
+
+
+def _bad(option, value, why) -> int:
+    print(f"gapwatch demo: {option} {value!r} {why}", file=sys.stderr)
+    return 2
+
+
+def _check(args) -> int:
+    if not (args.speed > 0 and args.speed < 1e7):
+        return _bad("--speed", args.speed, "must be a positive number of simulated seconds per real second (below 1e7)")
+    if args.duration is not None and not args.duration > 0:
+        return _bad("--duration", args.duration, "must be a positive number of seconds")
+    if not 1 <= args.port <= 65535:
+        return _bad("--port", args.port, "must be a TCP port between 1 and 65535")
+    if args.seed is not None and args.seed < 0:
+        return _bad("--seed", args.seed, "must be a non-negative integer")
+    return 0
+
+
+_LOGGERS = {"gapwatch": logging.INFO, "apscheduler": logging.WARNING}
+
+
+def _setup_logging(folder: Path) -> list[logging.Handler]:
+    """Service, alert and scheduler logs go to the demo's log file, not the terminal.
+
+    The terminal gets one line per change of state instead (see ``_Watcher``).
+    """
+    from demo_db.folder import LOG_NAME
+
+    handler = logging.FileHandler(folder / LOG_NAME, encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s %(message)s"))
+    for name, level in _LOGGERS.items():
+        logger = logging.getLogger(name)
+        logger.setLevel(level)
+        logger.addHandler(handler)
+    return [handler]
+
+
+def _teardown_logging(handlers):
+    for name in _LOGGERS:
+        logger = logging.getLogger(name)
+        for handler in handlers:
+            logger.removeHandler(handler)
+    for handler in handlers:
+        handler.close()
+
+
+def _start_dashboard(config_path: Path, port: int, folder: Path):
+    root = Path(__file__).resolve().parents[2]
+    env = dict(os.environ)
+    # Works from a checkout that is not installed, too.
+    env["PYTHONPATH"] = os.pathsep.join([str(root)] + ([env["PYTHONPATH"]] if env.get("PYTHONPATH") else []))
+    env["GAPWATCH_CONFIG"] = str(config_path)
+    log = open(folder / "dashboard.log", "ab")
+    try:
+        process = subprocess.Popen(
+            [sys.executable, "-m", "monitor", "dashboard", "--config", str(config_path), "--port", str(port)],
+            cwd=folder, env=env, stdout=log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL,
+            # Its own process group: Ctrl-C reaches the demo, which then stops the dashboard itself.
+            start_new_session=True,
+        )
+    finally:
+        log.close()
+    return process
+
+
+def _stop_dashboard(process):
+    if process is None or process.poll() is not None:
+        return
+    process.send_signal(signal.SIGTERM)
+    try:
+        process.wait(timeout=10)
+    except subprocess.TimeoutExpired:
+        process.kill()
+        process.wait(timeout=5)
+
+
+def _describe(row) -> str:
+    from monitor.readback import state_label
+
+    parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
+    if row.get("estimate") is not None:
+        low, high = row.get("ci_low"), row.get("ci_high")
+        interval = ""
+        if low is not None or high is not None:
+            interval = f" [{'-inf' if low is None else f'{low:.3g}'}, {'inf' if high is None else f'{high:.3g}'}]"
+        parts.append(f"difference {row['estimate']:.3g}{interval}")
+    if row.get("fraction") is not None:
+        parts.append(f"fraction {row['fraction']:.2f}")
+    return ", ".join(parts)
+
+
+class _Watcher:
+    """Prints a line whenever a comparison's state changes (read from the store)."""
+
+    def __init__(self, store_url, clock):
+        from monitor.store import make_engine
+
+        self.engine = make_engine(store_url)
+        self.clock = clock
+        self.states = {}
+
+    def poll(self, *, final=False):
+        from monitor.readback import comparison_status
+
+        try:
+            rows = comparison_status(self.engine, now=self.clock())
+        except Exception as exc:  # noqa: BLE001 - a busy store must not end the demo
+            logging.getLogger("gapwatch.demo").info("status read failed: %s", exc)
+            return []
+        for row in rows:
+            if final or self.states.get(row["name"]) != row["state"]:
+                self.states[row["name"]] = row["state"]
+                stamp = self.clock().strftime("%a %d %b %H:%M")
+                print(f"  [{stamp} simulated] {_describe(row)}", flush=True)
+        return rows
+
+    def close(self):
+        self.engine.dispose()
+
+
+def run(args) -> int:
+    problem = _check(args)
+    if problem:
+        return problem
+
+    from demo_db.feed import LiveFeed, SimulatedClock
+    from demo_db.folder import folder_seed, prepare_folder
+    from demo_db.scenario import COMPANY, DEFAULT_SEED
+    from monitor.config import load_config
+    from monitor.scheduler import run_service
+
+    folder_arg = Path(args.dir)
+    try:
+        seed = args.seed if args.seed is not None else (
+            folder_seed(folder_arg) if folder_arg.exists() and not args.reset else DEFAULT_SEED)
+        demo = prepare_folder(folder_arg, reset=args.reset, seed=seed)
+    except (FileExistsError, NotADirectoryError, PermissionError) as exc:
+        print(f"gapwatch demo: --dir {str(args.dir)!r}: {exc}", file=sys.stderr)
+        return 2
+    load_config(demo.config_path)  # a broken demo config fails here, with every problem listed
+
+    handlers = _setup_logging(demo.path)
+    clock = SimulatedClock(demo.start, args.speed)
+    feed = LiveFeed(demo.path, clock, seed=seed)
+    stop = threading.Event()
+    failures = []
+
+    def service():
+        try:
+            run_service(str(demo.config_path), stop_event=stop, clock=clock, holder="gapwatch-demo")
+        except BaseException as exc:  # noqa: BLE001 - reported, then the demo stops
+            failures.append(exc)
+            logging.getLogger("gapwatch.demo").exception("service stopped")
+            stop.set()
+
+    feed_thread = threading.Thread(target=feed.run, args=(stop,), name="demo-feed", daemon=True)
+    service_thread = threading.Thread(target=service, name="demo-service", daemon=True)
+
+    what = "created" if demo.created else "resumed"
+    print(f"gapwatch demo: {what} {demo.path}", flush=True)
+    if demo.created:
+        total = sum(demo.rows.values())
+        print(f"  {total} events of history seeded in {len(demo.rows)} tables", flush=True)
+    print(f"  config: {demo.config_path}", flush=True)
+    print(f"  from another terminal: GAPWATCH_CONFIG={demo.config_path} gapwatch status", flush=True)
+
+    dashboard = None
+    previous_term = signal.getsignal(signal.SIGTERM)
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, lambda *_: stop.set())
+    watcher = _Watcher(demo.store_url, clock)
+    try:
+        feed_thread.start()
+        service_thread.start()
+        if not args.no_dashboard:
+            dashboard = _start_dashboard(demo.config_path, args.port, demo.path)
+            print(f"  dashboard: http://127.0.0.1:{args.port}/  (log: {demo.path / 'dashboard.log'})", flush=True)
+        print("", flush=True)
+        print(EXPLANATION.format(company=COMPANY, speed=args.speed,
+                                 start=demo.start.strftime("%A %d %B %Y %H:%M UTC")), flush=True)
+        print("", flush=True)
+        print("Press Ctrl-C to stop." if args.duration is None else
+              f"Stopping after {args.duration:g} seconds (or Ctrl-C).", flush=True)
+        deadline = None if args.duration is None else time.monotonic() + args.duration
+        try:
+            while not stop.is_set():
+                left = None if deadline is None else deadline - time.monotonic()
+                if left is not None and left <= 0:
+                    break
+                stop.wait(2.0 if left is None else min(2.0, left))
+                watcher.poll()
+                if dashboard is not None and dashboard.poll() is not None and not stop.is_set():
+                    print(f"  the dashboard exited (code {dashboard.returncode}); see dashboard.log", flush=True)
+                    dashboard = None
+        except KeyboardInterrupt:
+            print("\nstopping ...", flush=True)
+    finally:
+        stop.set()
+        service_thread.join(timeout=60) if service_thread.is_alive() else None
+        feed_thread.join(timeout=30) if feed_thread.is_alive() else None
+        _stop_dashboard(dashboard)
+        feed.close()
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGTERM, previous_term)
+
+    print(f"\nwhere things stand (simulated time {clock().strftime('%a %d %b %H:%M')}):", flush=True)
+    watcher.poll(final=True)
+    watcher.close()
+    if feed.errors:
+        print(f"  the feed retried {len(feed.errors)} time(s); last problem: {feed.errors[-1]}", flush=True)
+    _teardown_logging(handlers)
+    if service_thread.is_alive():
+        print("gapwatch demo: the service did not stop within 60 s", file=sys.stderr)
+        return 1
+    if failures:
+        print(f"gapwatch demo: the monitoring service stopped: {failures[0]}", file=sys.stderr)
+        return 1
+    print(f"Run again to continue where it stopped, or add --reset to start over. Files: {demo.path}", flush=True)
+    return 0

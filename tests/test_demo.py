@@ -1,0 +1,310 @@
+"""The demo: scenario generator, live feed, demo folder and ``gapwatch demo`` end to end."""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+from datetime import timedelta
+from pathlib import Path
+
+import numpy as np
+import pytest
+import sqlalchemy as sa
+from scipy import stats
+
+from demo_db import scenario
+from demo_db.feed import LiveFeed, SimulatedClock, create_databases, database_url, fed_until
+from demo_db.folder import CONFIG_NAME, STORE_NAME, comparisons, config_text, prepare_folder
+from demo_db.scenario import EPOCH, LIVE_START, TABLES, day_events, events_between
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _values(table, days, group=None, seed=scenario.DEFAULT_SEED):
+    rows = [e for d in days for e in day_events(table, d, seed=seed)]
+    return [e for e in rows if group is None or e.group == group]
+
+
+def _good_number(value):
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+# ------------------------------------------------------------ generator
+
+@pytest.mark.parametrize("table", [t.name for t in TABLES])
+def test_same_seed_same_rows_other_seed_other_rows(table):
+    first = day_events(table, 3, seed=11)
+    assert first == day_events(table, 3, seed=11)
+    assert first != day_events(table, 3, seed=12)
+    # A day does not depend on which other days were built before it.
+    day_events(table, 1, seed=11)
+    assert first == day_events(table, 3, seed=11)
+
+
+def test_windows_partition_the_arrivals():
+    """Feeding in many small windows inserts exactly the rows one big window would."""
+    start, end = EPOCH + timedelta(hours=30), EPOCH + timedelta(days=3, hours=5)
+    whole = events_between("contacts", start, end)
+    pieces, cache, t = [], {}, start
+    step = timedelta(minutes=47)
+    while t < end:
+        nxt = min(end, t + step)
+        pieces.extend(events_between("contacts", t, nxt, cache=cache))
+        t = nxt
+    assert pieces == whole
+    assert all(start < e.arrival <= end for e in whole)
+    assert [e.arrival for e in whole] == sorted(e.arrival for e in whole)
+
+
+def test_pick_durations_are_right_skewed_lognormal():
+    seconds = np.array([e.value for e in _values("pick_tasks", [0, 1], "saltmarsh") if _good_number(e.value)
+                        and 1 <= e.value <= 3600])
+    assert len(seconds) > 2000
+    sigma = scenario.PICK_LOG_SD
+    # Lognormal skewness (e^σ² + 2)·sqrt(e^σ² − 1): about 1.75 for σ = 0.5.
+    expected_skew = (math.exp(sigma**2) + 2) * math.sqrt(math.exp(sigma**2) - 1)
+    assert stats.skew(seconds) > 1.0
+    assert abs(stats.skew(seconds) - expected_skew) < 0.6
+    assert np.median(seconds) < seconds.mean()
+    logs = np.log(seconds)
+    assert abs(logs.std(ddof=1) - sigma) < 0.03
+    assert abs(np.exp(np.median(logs)) - scenario.PICK_MEDIAN_SECONDS) < 3
+    # Log durations look normal: the KS distance to the fitted normal is small.
+    assert stats.kstest(logs, "norm", args=(logs.mean(), logs.std(ddof=1))).statistic < 0.03
+
+
+def test_pick_path_difference_starts_on_day_two():
+    switch = EPOCH + timedelta(days=scenario.PICK_PATH_DAY, hours=scenario.PICK_PATH_HOUR)
+
+    def mean(site, days, after=None):
+        vals = [e.value for e in _values("pick_tasks", days, site)
+                if _good_number(e.value) and 1 <= e.value <= 3600 and e.time is not None
+                and (after is None or (e.time >= switch) == after)]
+        return float(np.mean(vals))
+
+    before = mean("hollin", [0, 1]) / mean("saltmarsh", [0, 1])
+    after = mean("hollin", [2, 3, 4], after=True) / mean("saltmarsh", [2, 3, 4], after=True)
+    assert abs(before - 1) < 0.05
+    assert abs(after - scenario.PICK_PATH_SPEEDUP) < 0.04
+
+
+def test_bad_rows_of_every_kind_are_present():
+    days = [0, 1, 2, 3]
+    kinds = {}
+    for spec in TABLES:
+        rows = _values(spec.name, days)
+        config = next(c for c in comparisons() if c["table"] == spec.name)
+        low, high = config.get("valid_range", [-math.inf, math.inf])
+        counted = {
+            "null_value": sum(e.value is None for e in rows),
+            "non_numeric": sum(isinstance(e.value, str) for e in rows),
+            "unknown_group": sum(e.group not in spec.groups for e in rows),
+            "null_time": sum(e.time is None for e in rows),
+            "out_of_range": sum(_good_number(e.value) and not low <= e.value <= high for e in rows),
+            "not_binary": sum(_good_number(e.value) and e.value not in (0, 1) for e in rows)
+            if config["metric"] == "proportion" else 0,
+        }
+        assert sum(counted.values()) > 0, spec.name
+        assert sum(counted.values()) < 0.05 * len(rows), spec.name  # a small share, not a flood
+        for kind, n in counted.items():
+            kinds[kind] = kinds.get(kind, 0) + n
+    assert all(n > 0 for n in kinds.values()), kinds
+
+
+@pytest.mark.parametrize("table", [t.name for t in TABLES])
+def test_late_arrivals_are_present(table):
+    rows = [e for e in _values(table, [0, 1, 2, 3]) if e.time is not None]
+    delays = np.array([(e.arrival - e.time).total_seconds() for e in rows])
+    assert (delays >= 0).all()
+    # Hours late: behind any look's cutoff (looks come every few simulated hours at most).
+    assert (delays > 3600).sum() >= 2
+    assert (delays > 3600).mean() < 0.05
+    assert delays.max() <= scenario.MAX_ARRIVAL_DELAY.total_seconds()
+
+
+def test_null_desks_do_not_differ_and_line_five_packs_more():
+    days = range(1, 13)
+    rates = {}
+    for desk in ("heron", "wren"):
+        vals = [e.value for e in _values("contacts", days, desk) if e.value in (0, 1) and e.group == desk]
+        rates[desk] = np.mean(vals)
+    assert abs(rates["heron"] - 0.74) < 0.02 and abs(rates["wren"] - 0.74) < 0.02
+    cases = {line: np.mean([e.value for e in _values("line_output", days, line)
+                            if _good_number(e.value) and 0 <= e.value <= 900])
+             for line in ("line-2", "line-5")}
+    assert 2 < cases["line-5"] - cases["line-2"] < 10
+
+
+# ------------------------------------------------------------ databases and feed
+
+def test_databases_have_integer_keys_time_indexes_and_the_backlog(tmp_path):
+    counts = create_databases(tmp_path)
+    assert set(counts) == {t.name for t in TABLES}
+    assert all(n > 0 for n in counts.values())
+    assert fed_until(tmp_path) == LIVE_START
+    for spec in TABLES:
+        engine = sa.create_engine(database_url(tmp_path, spec.database))
+        try:
+            inspector = sa.inspect(engine)
+            assert inspector.get_pk_constraint(spec.name)["constrained_columns"] == ["id"]
+            indexed = {tuple(ix["column_names"]) for ix in inspector.get_indexes(spec.name)}
+            assert (spec.time_column,) in indexed
+            with engine.connect() as conn:
+                table = sa.Table(spec.name, sa.MetaData(), autoload_with=conn)
+                n = conn.execute(sa.select(sa.func.count()).select_from(table)).scalar()
+                latest = conn.execute(sa.select(sa.func.max(table.c[spec.time_column]))).scalar()
+        finally:
+            engine.dispose()
+        assert n == counts[spec.name]
+        assert latest <= scenario.format_time(LIVE_START)
+
+
+def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
+    """What the monitor itself counts as excluded on the first look, per comparison."""
+    from monitor.config import load_config
+    from monitor.source import Source
+
+    create_databases(tmp_path)
+    (tmp_path / CONFIG_NAME).write_text(config_text())
+    config = load_config(tmp_path / CONFIG_NAME)
+    reasons = set()
+    for comparison in config.comparisons:
+        source = Source(config.sources[comparison.source].url)
+        try:
+            spec = comparison.source_spec(0.0)
+            assert source.check(spec) == [], comparison.name
+            batch = source.read_cells(spec, None, LIVE_START)
+        finally:
+            source.dispose()
+        assert batch.new_events > 0, comparison.name
+        assert sum(batch.excluded.values()) > 0, (comparison.name, batch.excluded)
+        reasons |= {reason for reason, n in batch.excluded.items() if n}
+    assert {"null_value", "non_numeric", "unknown_group", "out_of_range", "not_binary", "null_time"} <= reasons
+
+
+def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path):
+    from monitor.config import load_config
+    from monitor.source import Source, Watermark
+
+    create_databases(tmp_path)
+    (tmp_path / CONFIG_NAME).write_text(config_text())
+    config = load_config(tmp_path / CONFIG_NAME)
+    fake = {"t": 0.0}
+    clock = SimulatedClock(LIVE_START, 3600, monotonic=lambda: fake["t"])
+    assert clock() == LIVE_START
+    fake["t"] = 2.5
+    assert clock() == LIVE_START + timedelta(seconds=9000)
+
+    comparison = next(c for c in config.comparisons if c.name == "pick-seconds")
+    source = Source(config.sources[comparison.source].url)
+    feed = LiveFeed(tmp_path, clock)
+    try:
+        spec = comparison.source_spec(90.0)
+        first = source.read_cells(spec, None, LIVE_START)
+        assert sum(first.excluded.values()) > 0
+        assert {"null_value", "non_numeric", "unknown_group", "out_of_range"} <= set(first.excluded)
+        watermark = first.watermark
+        late = 0
+        # Twelve simulated hours, read every two: late rows must turn up.
+        for step in range(1, 7):
+            fake["t"] = 7200 * step / 3600
+            inserted = feed.advance()
+            assert inserted > 0
+            batch = source.read_cells(spec, watermark, clock())
+            late += batch.late_events
+            watermark = batch.watermark
+        assert late > 0
+        assert fed_until(tmp_path) == clock()
+    finally:
+        feed.close()
+        source.dispose()
+
+
+def test_demo_config_covers_every_kind_of_comparison(tmp_path):
+    from monitor.config import load_config
+
+    (tmp_path / CONFIG_NAME).write_text(config_text())
+    config = load_config(tmp_path / CONFIG_NAME)
+    by_name = {c.name: c for c in config.comparisons}
+    assert len(by_name) >= 5
+    assert by_name["pick-seconds"].method == "welch" and by_name["pick-seconds"].alternative == "two-sided"
+    assert by_name["desk-first-contact"].metric == "proportion"
+    assert by_name["line-daily-output"].pair_by == "day"
+    assert by_name["fill-giveaway"].method == "z" and by_name["fill-giveaway"].alternative != "two-sided"
+    assert tuple(by_name["fill-giveaway"].sigmas) == (2.4, 2.4)
+    assert by_name["delivery-lateness"].cluster_by == "day" and by_name["delivery-lateness"].min_clusters >= 2
+    # Paths are relative in the file and resolved against its folder.
+    assert "sqlite:///gapwatch-store.sqlite" in config_text()
+    assert str(tmp_path.resolve()) in config.store_url
+    assert all(str(tmp_path.resolve()) in s.url for s in config.sources.values())
+
+
+def test_prepare_refuses_a_folder_of_other_files(tmp_path):
+    (tmp_path / "notes.txt").write_text("mine")
+    with pytest.raises(FileExistsError):
+        prepare_folder(tmp_path)
+    assert (tmp_path / "notes.txt").read_text() == "mine"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["notes.txt"]
+
+
+# ------------------------------------------------------------ gapwatch demo, end to end
+
+def _gapwatch(args, *, cwd, env=None, timeout=240):
+    environ = dict(os.environ)
+    environ["PYTHONPATH"] = str(ROOT) + (os.pathsep + environ["PYTHONPATH"] if environ.get("PYTHONPATH") else "")
+    environ.update(env or {})
+    return subprocess.run([sys.executable, "-m", "monitor", *args], cwd=cwd, env=environ,
+                          capture_output=True, text=True, timeout=timeout)
+
+
+@pytest.mark.slow
+def test_gapwatch_demo_runs_end_to_end(tmp_path):
+    from monitor.readback import comparison_status, look_history
+    from monitor.store import make_engine
+
+    folder = tmp_path / "demo"
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    done = _gapwatch(["demo", "--dir", str(folder), "--no-dashboard", "--duration", "45", "--speed", "3600"],
+                     cwd=elsewhere)
+    assert done.returncode == 0, done.stdout[-3000:] + done.stderr[-3000:]
+    assert "pick-seconds" in done.stdout
+    assert sorted(p.name for p in elsewhere.iterdir()) == []  # nothing written outside --dir
+    for name in (CONFIG_NAME, STORE_NAME, "warehouse.sqlite", "service.sqlite", "plant.sqlite", ".gitignore"):
+        assert (folder / name).exists(), name
+
+    engine = make_engine(f"sqlite:///{folder / STORE_NAME}")
+    try:
+        status = {row["name"]: row for row in comparison_status(engine)}
+        assert set(status) == {c["name"] for c in comparisons()}
+        for name, row in status.items():
+            assert row["looks"] >= 2, (name, row)
+        assert status["pick-seconds"]["state"] == "difference_found", status["pick-seconds"]
+        assert status["pick-seconds"]["estimate"] < 0  # Hollin Cross got faster
+        assert status["desk-first-contact"]["state"] != "difference_found"
+        history = {name: look_history(engine, name) for name in status}
+    finally:
+        engine.dispose()
+    # Every look's as_of is simulated time: after the live start, increasing.
+    for name, looks in history.items():
+        times = [look["as_of"] for look in looks]
+        assert times == sorted(times), name
+        assert times[0] >= LIVE_START.isoformat(), name
+    # Bad rows and late events were counted.
+    excluded = sum(sum((look.get("excluded") or {}).values()) for looks in history.values() for look in looks)
+    late = sum(look.get("late_events") or 0 for looks in history.values() for look in looks)
+    assert excluded > 0 and late > 0
+    # The returns bench that opens on Thursday starts as a data problem.
+    assert history["returns-grading"][0]["decision"] == "data_problem"
+    assert history["delivery-lateness"][0]["decision"] == "awaiting_clusters"
+
+    shown = _gapwatch(["status", "--format", "json"], cwd=elsewhere,
+                      env={"GAPWATCH_CONFIG": str(folder / CONFIG_NAME)}, timeout=60)
+    assert shown.returncode == 0, shown.stderr
+    rows = json.loads(shown.stdout)
+    rows = rows.get("comparisons", rows) if isinstance(rows, dict) else rows
+    assert {row["name"] for row in rows} == set(status)
+    assert sorted(p.name for p in elsewhere.iterdir()) == []
