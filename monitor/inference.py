@@ -5,7 +5,7 @@ Three things are needed around a sequential design:
 * during monitoring, a **repeated confidence interval** at every look whose
   coverage holds simultaneously over all looks (Jennison & Turnbull 2000, ch. 9);
 * after a stop, a **stagewise-ordering p-value** (Jennison & Turnbull 2000,
-  ch. 8.4): the outcomes more extreme than the one observed are those that
+  ch. 8): the outcomes more extreme than the one observed are those that
   crossed the efficacy boundary at an earlier look, plus those that reached the
   stop look and went further than the observed z;
 * a **median-unbiased estimate** of the difference, the drift at which the
@@ -176,7 +176,7 @@ def stagewise_p_value(fractions, upper_z, stop_look, z_observed, alternative="tw
 
     The probability, when the groups do not differ, of crossing the efficacy
     boundary at a look before ``stop_look`` or of reaching ``stop_look`` with a
-    z at least as extreme as the one observed (Jennison & Turnbull 2000, §8.4).
+    z at least as extreme as the one observed (Jennison & Turnbull 2000, ch. 8).
     Two-sided: twice the one-sided value in the direction of the observed z,
     capped at 1. A non-binding futility boundary is ignored. At a single look
     this is the fixed-sample p-value.
@@ -286,7 +286,7 @@ def median_unbiased_estimate(
 
     The drift at which the stagewise-ordering probability of an outcome at
     least as extreme as the observed one is one half (Jennison & Turnbull 2000,
-    §8.3–8.4), converted to the difference scale. The confidence limits are the
+    ch. 8), converted to the difference scale. The confidence limits are the
     drifts at which that probability is ``alpha/2`` and ``1 − alpha/2``
     (one-sided designs: ``alpha``, one limit only). A non-binding futility
     boundary is ignored. At a single look the estimate is ``z/sqrt(information)``

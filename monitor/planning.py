@@ -8,7 +8,7 @@ expected z at fraction 1 under the planned difference, a single two-sided
 analysis at level α with power 1 − β needs drift ``z_{1−α/2} + z_{1−β}``; the
 K-look design needs the drift θ at which its boundaries are crossed (in the
 planned direction) with probability 1 − β, and the inflation is the squared
-ratio of the two (Jennison & Turnbull 2000, §2.3 and ch. 7).
+ratio of the two (Jennison & Turnbull 2000, ch. 2 and ch. 7).
 
 Expected events at decision follow from the crossing probabilities at equally
 spaced looks: a comparison that stops at look k has used ``k/K`` of the plan.
@@ -204,7 +204,8 @@ def fixed_sample_proportion(p1, p2, *, alpha=0.05, power=0.8, alternative="two-s
         n = [z_{1−α/2} √(2 p̄ (1 − p̄)) + z_{1−β} √(p1 (1 − p1) + p2 (1 − p2))]² / (p1 − p2)²
 
     with ``p̄ = (p1 + p2)/2`` (one-sided: ``z_{1−α}``), no continuity correction
-    (Fleiss, Levin & Paik 2003, §4.2).
+    (the usual normal-approximation formula, e.g. Fleiss, Levin & Paik 2003, ch. 4;
+    statsmodels' ``samplesize_proportions_2indep_onetail`` gives the same).
 
     Examples
     --------
@@ -242,6 +243,12 @@ def design_boundaries(fractions, alpha, spending, alternative, *, futility=False
     that stop the comparison (the mirrored efficacy boundary for two-sided
     designs, the futility boundary for one-sided designs with futility, else
     None), and the futility boundaries (or None).
+
+    Examples
+    --------
+    >>> upper, lower, futility = design_boundaries([0.5, 1.0], 0.05, "pocock", "two-sided")
+    >>> [round(float(z), 3) for z in upper], futility is None
+    ([2.157, 2.201], True)
     """
     frame = _design_frame(alternative)
     fractions = [float(f) for f in fractions]
@@ -289,7 +296,13 @@ def _power(fractions, alpha, spending, alternative, power, futility, drift):
 
 
 def sequential_drift(fractions, alpha, spending, alternative, power, *, futility=False):
-    """Drift θ at which the design crosses its efficacy boundary with probability ``power``."""
+    """Drift θ at which the design crosses its efficacy boundary with probability ``power``.
+
+    Examples
+    --------
+    >>> round(sequential_drift([1.0], 0.05, "obrien-fleming", "two-sided", 0.8), 4)  # z_.975 + z_.8
+    2.8016
+    """
     z_alpha, z_beta = _quantiles(alpha, power, alternative)
     fixed = z_alpha + z_beta
 
@@ -309,6 +322,16 @@ def inflation_for_boundaries(fractions, upper, lower, alpha, power, alternative)
 
     Solves for the drift at which the probability of crossing ``upper`` first
     is ``power`` and returns ``(θ / (z_{1−α(/2)} + z_{1−β}))²``.
+
+    Examples
+    --------
+    Pocock's constant 2.413 for five looks at two-sided 0.05 (Jennison & Turnbull
+    2000, Table 2.1):
+
+    >>> import numpy as np
+    >>> t = [0.2, 0.4, 0.6, 0.8, 1.0]
+    >>> round(inflation_for_boundaries(t, np.full(5, 2.413), np.full(5, -2.413), 0.05, 0.8, "two-sided"), 3)
+    1.228
     """
     z_alpha, z_beta = _quantiles(alpha, power, alternative)
     fixed = z_alpha + z_beta
@@ -318,7 +341,7 @@ def inflation_for_boundaries(fractions, upper, lower, alpha, power, alternative)
         return float(np.sum(up)) - power
 
     theta = optimize.brentq(gap, 0.5 * fixed, 3.0 * fixed, xtol=1e-10, rtol=1e-12)
-    return (theta / fixed) ** 2
+    return float((theta / fixed) ** 2)
 
 
 def _sequential_plan(metric, difference, sd, p1, p2, fixed_exact, alpha, power, alternative, spending, looks, futility):
