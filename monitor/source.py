@@ -43,6 +43,7 @@ from __future__ import annotations
 
 import math
 import re
+import sqlite3
 import sys
 import threading
 from dataclasses import dataclass, field
@@ -284,6 +285,23 @@ def _literal(value):
     return sa.literal(value)
 
 
+def _bind_type(value):
+    """The SQL type of a bound cutoff or arrival value (decides the driver's bind cast)."""
+    if isinstance(value, bool):
+        return sa.Boolean()
+    if isinstance(value, int):
+        return sa.BigInteger()
+    if isinstance(value, float):
+        return sa.Float()
+    if isinstance(value, Decimal):
+        return sa.Numeric()
+    if isinstance(value, datetime):
+        return sa.DateTime(timezone=value.tzinfo is not None)
+    if isinstance(value, date):
+        return sa.Date()
+    return sa.String()
+
+
 def _is_numeric_type(t) -> bool:
     return isinstance(t, (sa.Integer, sa.Numeric, sa.Float)) and not isinstance(t, sa.Boolean)
 
@@ -312,6 +330,8 @@ class Source:
         self._lock = threading.Lock()
         self._tables: dict = {}
         self._iso_formats: dict = {}
+        self._kinds: dict = {}
+        self._statements: dict = {}
         self.engine = self._make_engine()
         self.dialect = self.engine.dialect.name
 
@@ -325,7 +345,6 @@ class Source:
                 raise InvalidArgumentError(
                     f"source {self.name!r}: url must name a SQLite file, got {self._safe_url!r}"
                 )
-            import sqlite3
             from pathlib import Path
             from urllib.parse import quote
 
@@ -373,7 +392,13 @@ class Source:
     def _columns(self, conn, spec, *, refresh=False) -> _Columns:
         key = (spec.schema, spec.table)
         with self._lock:
-            cached = None if refresh else self._tables.get(key)
+            if refresh:
+                # The table may have changed: forget everything learnt from it.
+                self._tables.pop(key, None)
+                self._kinds.clear()
+                self._iso_formats.clear()
+                self._statements.clear()
+            cached = self._tables.get(key)
         if cached is not None:
             return cached
         try:
@@ -430,9 +455,21 @@ class Source:
         return cols
 
     def _time_kind(self, conn, spec, cols: _Columns) -> _TimeKind:
+        key = (spec.schema, spec.table, spec.time_column, spec.time_format)
+        with self._lock:
+            known = self._kinds.get(key)
+        if known is not None:
+            return known
+        kind, settled = self._detect_time_kind(conn, spec, cols)
+        if settled:
+            with self._lock:
+                self._kinds[key] = kind
+        return kind
+
+    def _detect_time_kind(self, conn, spec, cols: _Columns):
+        """(kind, settled): settled is False while an empty SQLite table leaves the layout open."""
         column = cols.table.c[spec.time_column]
         ctype = column.type
-        raw = cols.query_table.c[spec.time_column]
         wanted = spec.time_format
         if self.dialect == "sqlite":
             # SQLite keeps whatever was inserted, so look at a stored value, not the declared type.
@@ -451,14 +488,15 @@ class Source:
                     )
             elif wanted == "timestamp":
                 wanted = "iso"
+            settled = sample is not None
             if wanted == "epoch":
-                return _TimeKind("epoch", integer=sample_type == "integer")
-            return _TimeKind("iso", iso=self._iso_format(spec, sample))
+                return _TimeKind("epoch", integer=sample_type == "integer"), settled
+            return _TimeKind("iso", iso=self._iso_format(spec, sample)), settled
         if wanted == "auto":
             if isinstance(ctype, sa.DateTime):
                 wanted = "timestamp"
             elif isinstance(ctype, sa.Date):
-                return _TimeKind("date")
+                return _TimeKind("date"), True
             elif _is_numeric_type(ctype):
                 wanted = "epoch"
             elif isinstance(ctype, sa.String):
@@ -470,16 +508,16 @@ class Source:
                 )
         if wanted == "timestamp":
             if isinstance(ctype, sa.Date) and not isinstance(ctype, sa.DateTime):
-                return _TimeKind("date")
-            return _TimeKind("timestamp", timezone_aware=bool(getattr(ctype, "timezone", False)))
+                return _TimeKind("date"), True
+            return _TimeKind("timestamp", timezone_aware=bool(getattr(ctype, "timezone", False))), True
         if wanted == "epoch":
             return _TimeKind(
                 "epoch",
                 integer=isinstance(ctype, sa.Integer),
                 decimal=isinstance(ctype, sa.Numeric) and not isinstance(ctype, sa.Float),
-            )
+            ), True
         _sample_type, sample = self._sample_time(conn, spec, cols)
-        return _TimeKind("iso", iso=self._iso_format(spec, sample))
+        return _TimeKind("iso", iso=self._iso_format(spec, sample)), sample is not None
 
     def _sample_time(self, conn, spec, cols):
         raw = cols.query_table.c[spec.time_column]
@@ -539,6 +577,8 @@ class Source:
         if self.dialect == "sqlite":
             if kind.kind == "epoch":
                 return raw
+            if sqlite3.sqlite_version_info >= (3, 38, 0):
+                return sa.func.unixepoch(raw)  # an integer, without formatting text first
             return sa.cast(sa.func.strftime("%s", raw), sa.Integer)
         if kind.kind == "epoch":
             return sa.cast(raw, sa.Float)
@@ -693,7 +733,8 @@ class Source:
         epoch = self._epoch_expr(kind, time_raw)
         group_index = self._group_index(spec, cols)
         raw_value, value, value_checks = self._value_parts(spec, cols)
-        conditions = [(sa.or_(time_raw.is_(None), epoch.is_(None)), "null_time")]
+        # The epoch of a NULL time is NULL, so one test covers NULL and unreadable times.
+        conditions = [(epoch.is_(None), "null_time")]
         conditions.append((group_index.is_(None), "unknown_group"))
         conditions.append((raw_value.is_(None), "null_value"))
         conditions.extend(value_checks)
@@ -727,7 +768,7 @@ class Source:
                         f"value_column {spec.value_column!r} has type {vtype}, not a numeric type"
                     )
                 try:
-                    kind = self._time_kind(conn, spec, cols)
+                    kind, _settled = self._detect_time_kind(conn, spec, cols)
                 except SourceSchemaError as error:
                     problems.append(str(error))
                     kind = None
@@ -832,8 +873,8 @@ class Source:
                 )
         try:
             with self.engine.connect() as conn:
-                statement = self._cells_statement(conn, spec, since, cutoff)
-                rows = conn.execute(statement).all()
+                statement, params = self._cells_statement(conn, spec, since, cutoff)
+                rows = conn.execute(statement, params).all()
         except (SourceSchemaError, InvalidArgumentError):
             raise
         except sa_exc.SQLAlchemyError as error:
@@ -872,9 +913,29 @@ class Source:
         )
 
     def _cells_statement(self, conn, spec, since, cutoff):
+        """The aggregate statement (built once per spec and shape) and its bound values."""
+        cols = self._resolve(conn, spec)
+        kind = self._time_kind(conn, spec, cols)
+        arrival, atype = self._arrival(spec, cols)
+        params = {"upper": self._bind_time(kind, cutoff)}
+        if since is not None:
+            params["lower"] = self._bind_time(kind, _as_utc(since.cutoff, "since.cutoff"))
+            if arrival is not None and since.arrival is not None:
+                params["seen"] = self._bind_arrival(atype, since.arrival)
+        shape = (spec, kind, since is None, arrival is not None, tuple((k, type(v)) for k, v in sorted(params.items())))
+        with self._lock:
+            statement = self._statements.get(shape)
+        if statement is None:
+            statement = self._build_cells_statement(conn, spec, params)
+            with self._lock:
+                self._statements[shape] = statement
+        return statement, params
+
+    def _build_cells_statement(self, conn, spec, params):
         cols, kind, time_raw, epoch, gi, value, reason, key, arrival, atype = self._row_parts(conn, spec)
         filters = self._filters(spec, cols)
-        upper = _literal(self._bind_time(kind, cutoff))
+        bound = {name: sa.bindparam(name, type_=_bind_type(v)) for name, v in params.items()}
+        upper = bound["upper"]
 
         def part(where, late):
             return sa.select(
@@ -888,18 +949,17 @@ class Source:
             ).where(*where, *filters)
 
         parts = []
-        if since is None:
+        if "lower" not in bound:
             parts.append(part([time_raw <= upper], 0))
             # NULL times never fall in a time range: count them once, on the first read.
             parts.append(part([time_raw.is_(None)], 0))
         else:
-            lower = _literal(self._bind_time(kind, _as_utc(since.cutoff, "since.cutoff")))
+            lower = bound["lower"]
             parts.append(part([time_raw > lower, time_raw <= upper], 0))
             if arrival is not None:
-                seen = self._bind_arrival(atype, since.arrival)
                 # Late rows are only those at or before the previous cutoff, so rows read
                 # earlier through the time range can never come back through this branch.
-                newer = arrival > _literal(seen) if seen is not None else arrival.is_not(None)
+                newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
                 parts.append(part([time_raw <= lower, newer], 1))
                 parts.append(part([time_raw.is_(None), newer], 0))
         rows = sa.union_all(*parts).subquery("new_rows")
