@@ -27,6 +27,7 @@ __all__ = [
     "STOPPED_STATES",
     "ALERT_STATES",
     "state_label",
+    "describe_seconds",
     "comparison_status",
     "list_comparisons",
     "look_history",
@@ -65,6 +66,24 @@ def state_label(state):
     """Return ``"SYMBOL words"`` for a state (unknown states are shown as they are)."""
     symbol, words = STATES.get(state, ("?", str(state)))
     return f"{symbol} {words}"
+
+
+def describe_seconds(seconds):
+    """A span in words a shift lead reads at a glance: ``"45 s"``, ``"12 min"``, ``"3.5 h"``, ``"2.1 days"``."""
+    if seconds is None:
+        return "unknown"
+    seconds = float(seconds)
+    if not math.isfinite(seconds):
+        return "unknown"
+    sign = "-" if seconds < 0 else ""
+    seconds = abs(seconds)
+    if seconds < 90:
+        return f"{sign}{seconds:.0f} s"
+    if seconds < 90 * 60:
+        return f"{sign}{seconds / 60:.0f} min"
+    if seconds < 36 * 3600:
+        return f"{sign}{seconds / 3600:.1f} h"
+    return f"{sign}{seconds / 86400:.1f} days"
 
 
 # ---------------------------------------------------------------------------
@@ -187,7 +206,10 @@ def _planned_per_group(design):
 
 
 def _is_clustered(design):
-    return bool(_design_value(design, "cluster_by", "cluster_column", "clustered"))
+    clustering = design.get("clustering")
+    if isinstance(clustering, dict) and any(clustering.values()):
+        return True
+    return bool(_design_value(design, "cluster_by", "cluster_column"))
 
 
 def _comparison_select():
@@ -308,6 +330,7 @@ def _status_row(comp, looks, now):
         "alpha": _num(design.get("alpha")),
         "spending": design.get("spending"),
         "planned_per_group": _planned_per_group(design),
+        "plan": _clean(design.get("plan")) if isinstance(design.get("plan"), dict) else None,
         "null_difference": _num(design.get("null_difference", 0.0)),
         "description": settings.get("description") or design.get("description"),
         "every": settings.get("every", settings.get("schedule")),

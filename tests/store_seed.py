@@ -188,6 +188,8 @@ def _looks_for(scenario, rng, start, interval):
         if s.cluster_by is not None:
             row["decision"] = "awaiting_clusters"
         rows.append(row)
+        if s.state == "difference_found" and abs(statistic) >= boundary:
+            break  # a crossing stops the comparison at this look
     # The last look carries the scenario's final decision.
     last = rows[-1]
     last["decision"] = s.state
@@ -208,15 +210,23 @@ def _looks_for(scenario, rng, start, interval):
 
 
 def _design(s, shift):
-    design = {
-        "method": s.method, "metric": s.metric, "alternative": "two-sided", "alpha": 0.05,
-        "spending": "obrien-fleming", "planned_per_group": s.planned_per_group,
-        "groups": list(s.groups), "shift": shift, "null_difference": 0.0, "futility": s.futility,
+    # The shape of ComparisonConfig.design(), plus the shift fixed at the first look.
+    if s.metric == "proportion":
+        inputs = {"p1": s.true_means[0], "p2": s.true_means[1], "power": 0.8}
+    else:
+        inputs = {"difference": round(abs(s.true_means[0] - s.true_means[1]) or 1.0, 2),
+                  "sd": s.sds[0], "power": 0.8}
+    return {
+        "method": s.method, "metric": s.metric, "groups": list(s.groups), "alternative": "two-sided",
+        "alpha": 0.05, "spending": "obrien-fleming", "null_difference": 0.0,
+        "plan": {"planned_per_group": s.planned_per_group, "inputs": inputs},
+        "sigmas": None, "pairing": None,
+        "clustering": {"cluster_by": s.cluster_by, "cluster_column": None} if s.cluster_by else None,
+        "futility": s.futility, "valid_range": None, "filters": [],
+        "table": s.name.replace("-", "_"), "schema": None, "group_column": "grp",
+        "value_column": "value", "time_column": "done_at", "time_format": "auto",
+        "timezone": "UTC", "min_clusters": 10 if s.cluster_by else None, "shift": shift,
     }
-    if s.cluster_by:
-        design["cluster_by"] = s.cluster_by
-        design["min_clusters"] = 10
-    return design
 
 
 def _add(session, s, rng, *, now, offset_looks=0, alerts=True):
