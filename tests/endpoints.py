@@ -172,3 +172,92 @@ class MailReceiver:
 
     def __exit__(self, *exc):
         self.controller.stop()
+
+
+class ServiceProcess:
+    """``python -m monitor run --config FILE`` as a real child process, its log in a file."""
+
+    def __init__(self, config_path, log_path, *, env=None, args=(), cwd=None):
+        import os
+        import sys
+        from pathlib import Path
+
+        self.config_path = Path(config_path)
+        self.log_path = Path(log_path)
+        self.argv = [sys.executable, "-m", "monitor", "run", "--config", str(self.config_path), *args]
+        root = Path(__file__).resolve().parent.parent
+        self.env = {**os.environ, **(env or {})}
+        self.env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(root), self.env.get("PYTHONPATH")]))
+        self.cwd = str(cwd or self.config_path.parent)
+        self.process = None
+
+    def start(self):
+        import subprocess
+
+        self._log = open(self.log_path, "ab")
+        self.process = subprocess.Popen(self.argv, stdout=self._log, stderr=subprocess.STDOUT,
+                                        env=self.env, cwd=self.cwd)
+        return self
+
+    def run(self, timeout=60):
+        """Run to completion (for ``--once``); returns the exit status."""
+        self.start()
+        try:
+            return self.process.wait(timeout=timeout)
+        finally:
+            self._log.close()
+
+    @property
+    def pid(self):
+        return self.process.pid
+
+    def alive(self):
+        return self.process is not None and self.process.poll() is None
+
+    def log(self) -> str:
+        try:
+            return self.log_path.read_text(errors="replace")
+        except FileNotFoundError:
+            return ""
+
+    def signal(self, signum):
+        self.process.send_signal(signum)
+
+    def stop(self, timeout=30) -> int:
+        """SIGTERM and wait; returns the exit status."""
+        import signal as _signal
+
+        if self.alive():
+            self.process.send_signal(_signal.SIGTERM)
+        try:
+            return self.process.wait(timeout=timeout)
+        finally:
+            self._log.close()
+
+    def kill(self) -> int:
+        """SIGKILL: no clean-up of any kind runs in the child."""
+        self.process.kill()
+        code = self.process.wait(timeout=30)
+        self._log.close()
+        return code
+
+    def wait_for(self, predicate, timeout=30, interval=0.1, what="condition"):
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            value = predicate()
+            if value:
+                return value
+            if self.process is not None and self.process.poll() is not None:
+                raise AssertionError(f"service exited ({self.process.returncode}) before {what}:\n{self.log()[-3000:]}")
+            time.sleep(interval)
+        raise AssertionError(f"timed out after {timeout}s waiting for {what}:\n{self.log()[-3000:]}")
+
+    def __enter__(self):
+        return self.start()
+
+    def __exit__(self, *exc):
+        if self.alive():
+            try:
+                self.stop(timeout=20)
+            except Exception:  # noqa: BLE001 - last resort in a failing test
+                self.kill()

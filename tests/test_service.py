@@ -1,0 +1,429 @@
+"""``gapwatch run`` as a real child process on a SQLite store and a SQLite source filled while it runs.
+
+Every check is against the store and the source themselves: look numbers
+consecutive, counts never decreasing and equal to the source rows up to each
+look's cutoff, one alert per state change, delivered to a real webhook
+receiver on 127.0.0.1 with a valid signature, and nothing partial after a
+``kill -9``.
+"""
+
+from __future__ import annotations
+
+import random
+import signal
+import sqlite3
+import threading
+import time
+from datetime import datetime, timedelta, timezone
+
+import pytest
+import sqlalchemy as sa
+
+from monitor.alerts import ALERT_ID_HEADER as ALERT_HEADER
+
+from endpoints import ServiceProcess, WebhookReceiver, verify_signature
+from live_helpers import comparison_toml, create_events_table, migrated_store, write_config
+
+pytestmark = pytest.mark.slow
+
+UTC = timezone.utc
+SECRET = "whsec-5e1f0a9b77"
+
+
+# --------------------------------------------------------------------------- source and checks
+
+
+def make_source(path, tables=("picks", "calls"), seed_rows=20, seed_means=None, rng=None):
+    """A SQLite source with events tables (WAL, so readers never wait on the feeder)."""
+    rng = rng or random.Random(7)
+    url = f"sqlite:///{path}"
+    past = datetime.now(UTC) - timedelta(seconds=30)
+    for table in tables:
+        mean = (seed_means or {}).get(table, 100.0)
+        rows = [{"site": site, "seconds": rng.gauss(mean, 10.0), "done_at": past}
+                for _ in range(seed_rows) for site in ("east", "west")]
+        create_events_table(url, table, rows)
+    with sqlite3.connect(path) as conn:
+        conn.execute("PRAGMA journal_mode=WAL")
+    return url
+
+
+class Feeder:
+    """Appends events to source tables in a thread while the service runs.
+
+    Each event's time is a little in the future when it is written, so a look
+    whose cutoff covers it started after the row was committed: no row is
+    ever late, and each look must count exactly the rows up to its cutoff.
+    """
+
+    def __init__(self, path, means, *, every=0.25, per_batch=3, lead=0.3, seed=11):
+        self.path, self.means = str(path), dict(means)
+        self.every, self.per_batch, self.lead = every, per_batch, lead
+        self.rng = random.Random(seed)
+        self.stop_event = threading.Event()
+        self.paused = threading.Event()
+        self.thread = threading.Thread(target=self._run, daemon=True)
+        self.batches = 0
+
+    def _run(self):
+        conn = sqlite3.connect(self.path, timeout=30)
+        try:
+            while not self.stop_event.wait(self.every):
+                if self.paused.is_set():
+                    continue
+                when = (datetime.now(UTC) + timedelta(seconds=self.lead)).replace(tzinfo=None)
+                for table, (east, west) in self.means.items():
+                    rows = [(site, self.rng.gauss(mean, 10.0), when.isoformat(sep=" "))
+                            for _ in range(self.per_batch) for site, mean in (("east", east), ("west", west))]
+                    conn.executemany(f'INSERT INTO "{table}" (site, seconds, done_at) VALUES (?, ?, ?)', rows)
+                conn.commit()
+                self.batches += 1
+        finally:
+            conn.close()
+
+    def __enter__(self):
+        self.thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self.stop_event.set()
+        self.thread.join(timeout=10)
+
+
+def source_rows(path, table):
+    with sqlite3.connect(path, timeout=30) as conn:
+        return [(site, datetime.fromisoformat(done_at).replace(tzinfo=UTC))
+                for site, done_at in conn.execute(f'SELECT site, done_at FROM "{table}"')]
+
+
+def looks_of(engine, name):
+    from monitor.models import Comparison, Look
+
+    with engine.connect() as conn:
+        return conn.execute(
+            sa.select(Look.look_number, Look.n1, Look.n2, Look.cutoff, Look.decision, Look.as_of, Look.id)
+            .join(Comparison, Comparison.id == Look.comparison_id)
+            .where(Comparison.name == name).order_by(Look.look_number)
+        ).all()
+
+
+def alerts_of(engine, name=None, kind=None):
+    from monitor.models import Alert
+
+    stmt = sa.select(Alert.id, Alert.kind, Alert.state, Alert.payload, Alert.look_id).order_by(Alert.created_at)
+    if name:
+        stmt = stmt.where(Alert.comparison_name == name)
+    if kind:
+        stmt = stmt.where(Alert.kind == kind)
+    with engine.connect() as conn:
+        return conn.execute(stmt).all()
+
+
+def assert_looks_consistent(engine, source_path, name, table, *, min_looks=1):
+    """Consecutive look numbers, counts never decreasing, counts = source rows up to each cutoff."""
+    looks = looks_of(engine, name)
+    assert len(looks) >= min_looks, f"{name}: only {len(looks)} looks"
+    assert [lk.look_number for lk in looks] == list(range(1, len(looks) + 1))
+    rows = source_rows(source_path, table)
+    previous = (0, 0)
+    for lk in looks:
+        expected = (sum(1 for s, t in rows if s == "east" and t <= lk.cutoff),
+                    sum(1 for s, t in rows if s == "west" and t <= lk.cutoff))
+        assert (lk.n1, lk.n2) == expected, f"{name} look {lk.look_number}: {(lk.n1, lk.n2)} != {expected}"
+        assert lk.n1 >= previous[0] and lk.n2 >= previous[1]
+        previous = (lk.n1, lk.n2)
+    return looks
+
+
+def assert_one_alert_per_state_change(engine, name):
+    """The alerts of a comparison are exactly its state changes (quiet-to-quiet excepted)."""
+    quiet = ("collecting", "awaiting_clusters")
+    looks = looks_of(engine, name)
+    expected, state = [], "collecting"
+    for lk in looks:
+        if lk.decision != state and not (lk.decision in quiet and state in quiet):
+            expected.append((lk.id, lk.decision))
+        state = lk.decision
+    got = [(a.look_id, a.payload["decision"]) for a in alerts_of(engine, name) if a.look_id is not None]
+    assert got == expected
+    return got
+
+
+def write_service_config(folder, source_url, store_url, comparisons, *, channels="", service=""):
+    text = "\n".join([f'[store]\nurl = "{store_url}"\n', f'[sources.ops]\nurl = "{source_url}"\n',
+                      service, channels, *comparisons])
+    return write_config(folder, text)
+
+
+def picks(**keys):
+    base = dict(name="pick-seconds", table="picks", every="1s", lateness="0s", planned_per_group=80)
+    return comparison_toml(**{**base, **keys})
+
+
+def calls(**keys):
+    base = dict(name="call-seconds", table="calls", every="1s", lateness="0s", planned_per_group=100000)
+    return comparison_toml(**{**base, **keys})
+
+
+def hook_channel(url):
+    return f'[channels.hook]\ntype = "webhook"\nurl = "{url}"\nsecret = "${{HOOK_SECRET}}"\ntimeout = "2s"\n'
+
+
+FAST_SERVICE = '[service]\nunreachable_alert_after = "2s"\nretry_max_backoff = "4s"\nconfig_poll = "1s"\n'
+
+
+@pytest.fixture
+def site(tmp_path):
+    """A migrated SQLite store and a SQLite source in a fresh folder."""
+    store_url = f"sqlite:///{tmp_path / 'store.sqlite'}"
+    engine = migrated_store(store_url)
+    source_path = tmp_path / "ops.sqlite"
+    source_url = make_source(source_path)
+    yield {"folder": tmp_path, "store_url": store_url, "engine": engine,
+           "source_path": source_path, "source_url": source_url}
+    engine.dispose()
+
+
+def _service(site, config, name="service"):
+    return ServiceProcess(config, site["folder"] / f"{name}.log", env={"HOOK_SECRET": SECRET})
+
+
+# --------------------------------------------------------------------------- tests
+
+
+def test_looks_on_schedule_and_alert_delivered_when_receiver_returns(site):
+    hook = WebhookReceiver()  # down at first: the port refuses connections
+    config = write_service_config(site["folder"], site["source_url"], site["store_url"], [picks(), calls()],
+                                  channels=hook_channel(hook.url), service=FAST_SERVICE)
+    engine = site["engine"]
+    with Feeder(site["source_path"], {"picks": (125.0, 100.0), "calls": (300.0, 300.0)}):
+        with _service(site, config) as service:
+            # The state change is recorded while the receiver is down; delivery fails and is retried.
+            service.wait_for(lambda: alerts_of(engine, "pick-seconds"), timeout=40, what="an alert")
+            from monitor.models import Delivery
+
+            def failed_attempt():
+                with engine.connect() as conn:
+                    return conn.execute(sa.select(Delivery.attempts, Delivery.last_error)
+                                        .where(Delivery.last_error.is_not(None), Delivery.state == "pending")).first()
+
+            attempt = service.wait_for(failed_attempt, timeout=15, what="a failed delivery attempt")
+            assert "could not reach" in attempt.last_error
+            hook.up()
+            try:
+                service.wait_for(hook.accepted, timeout=30, what="the webhook delivery")
+                service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= 5, timeout=30,
+                                 what="five looks at call-seconds")
+                time.sleep(2.5)  # further delivery passes must not repeat the alert
+            finally:
+                code = service.stop()
+                hook.down()
+    assert code == 0
+    log = service.log()
+    assert "service stopped" in log and SECRET not in log
+
+    # Exactly one alert per state change, delivered once, same id across the retries.
+    [(look_id, decision)] = assert_one_alert_per_state_change(engine, "pick-seconds")
+    assert decision in ("difference_found", "plan_complete")
+    [alert] = alerts_of(engine, "pick-seconds")
+    assert alert.state == "delivered"
+    [request] = hook.accepted()
+    body = request.json()
+    assert body["alert_id"] == request.headers[ALERT_HEADER] == alert.id
+    assert verify_signature(request.body, request.headers["X-Gapwatch-Signature"], SECRET)
+    assert body["comparison"] == "pick-seconds" and body["decision"] == decision
+    assert body["interval"] == [body["ci_low"], body["ci_high"]]
+
+    assert_looks_consistent(engine, site["source_path"], "pick-seconds", "picks")
+    looks = assert_looks_consistent(engine, site["source_path"], "call-seconds", "calls", min_looks=5)
+    # The collecting comparison kept looking about once a second.
+    gaps = [(b.as_of - a.as_of).total_seconds() for a, b in zip(looks, looks[1:])]
+    assert all(0.5 < g < 3.0 for g in gaps), gaps
+    assert alerts_of(engine, "call-seconds") == []
+    # One structured line per look.
+    look_lines = [ln for ln in log.splitlines() if " look comparison=call-seconds " in ln]
+    assert len(look_lines) == len(looks)
+    assert all("decision=collecting" in ln and "duration_ms=" in ln for ln in look_lines)
+
+
+def test_source_taken_away_and_back(site):
+    engine = site["engine"]
+    with WebhookReceiver() as hook:
+        config = write_service_config(site["folder"], site["source_url"], site["store_url"], [calls()],
+                                      channels=hook_channel(hook.url), service=FAST_SERVICE)
+        with Feeder(site["source_path"], {"calls": (300.0, 300.0)}) as feeder:
+            with _service(site, config) as service:
+                service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= 2, timeout=40, what="two looks")
+                # Take the table away (the service only reads; this writer is the operator).
+                feeder.paused.set()
+                time.sleep(0.4)
+                with sqlite3.connect(site["source_path"], timeout=30) as conn:
+                    conn.execute('ALTER TABLE "calls" RENAME TO "calls_away"')
+                away_at = datetime.now(UTC)
+                before = len(looks_of(engine, "call-seconds"))
+                service.wait_for(lambda: alerts_of(engine, kind="source_unreachable"), timeout=20,
+                                 what="the source-unreachable alert")
+                alerted_at = datetime.now(UTC)
+                service.wait_for(lambda: any(r.json()["kind"] == "source_unreachable" for r in hook.accepted()),
+                                 timeout=15, what="the unreachable alert at the receiver")
+                # Rows written while the source was away must be counted once it is back.
+                with sqlite3.connect(site["source_path"], timeout=30) as conn:
+                    when = (datetime.now(UTC) - timedelta(seconds=1)).replace(tzinfo=None).isoformat(sep=" ")
+                    conn.executemany('INSERT INTO "calls_away" (site, seconds, done_at) VALUES (?, ?, ?)',
+                                     [("east", 301.0, when), ("west", 299.0, when)] * 5)
+                during = len(looks_of(engine, "call-seconds"))
+                with sqlite3.connect(site["source_path"], timeout=30) as conn:
+                    conn.execute('ALTER TABLE "calls_away" RENAME TO "calls"')
+                back_at = datetime.now(UTC)
+                feeder.paused.clear()
+                service.wait_for(lambda: alerts_of(engine, kind="source_recovered"), timeout=20,
+                                 what="looks to resume")
+                service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= during + 2, timeout=20,
+                                 what="two more looks")
+                code = service.stop()
+    assert code == 0
+    assert during == before  # nothing recorded while the source was away
+    looks = assert_looks_consistent(engine, site["source_path"], "call-seconds", "calls", min_looks=4)
+    assert not any(away_at < lk.as_of < back_at for lk in looks)
+    assert (alerted_at - away_at).total_seconds() >= 2.0  # after unreachable_alert_after, not before
+    [unreachable] = alerts_of(engine, kind="source_unreachable")
+    assert unreachable.payload["comparison"] == "call-seconds"
+    assert len(alerts_of(engine, kind="source_recovered")) == 1
+    log = service.log()
+    failures = [ln for ln in log.splitlines() if "look failed comparison=call-seconds reason=source" in ln]
+    # Backoff: fewer attempts than one-second ticks while the source was away.
+    seconds_away = (back_at - away_at).total_seconds()
+    assert 1 <= len(failures) < seconds_away
+
+
+def _set_view(path, slow: bool):
+    """The comparison reads a view of ``calls``; made slow, a look spends seconds in its source read."""
+    work = ("(WITH RECURSIVE r(x) AS (SELECT 1 UNION ALL SELECT x + 1 FROM r WHERE x < 1500000) "
+            "SELECT max(x) AS m FROM r) w WHERE w.m > 0") if slow else "(SELECT 1 AS m) w"
+    conn = sqlite3.connect(path, timeout=30, isolation_level=None)
+    try:
+        # One transaction, so a reader never finds the view missing.
+        conn.execute("BEGIN IMMEDIATE")
+        conn.execute("DROP VIEW IF EXISTS calls_view")
+        conn.execute(f"CREATE VIEW calls_view AS SELECT c.* FROM calls c, {work}")
+        conn.execute("COMMIT")
+    finally:
+        conn.close()
+
+
+def _live_lease(engine, name):
+    from monitor.models import Lease
+
+    with engine.connect() as conn:
+        row = conn.execute(sa.select(Lease.holder, Lease.expires_at).where(Lease.comparison_name == name)).first()
+    return row if row is not None and row.expires_at > datetime.now(UTC) else None
+
+
+def test_kill_9_mid_look_leaves_nothing_partial(site):
+    """kill -9 while a look is inside its (slow) source read; the restart waits out the dead claim."""
+    engine = site["engine"]
+    _set_view(site["source_path"], slow=False)
+    config = write_service_config(site["folder"], site["source_url"], site["store_url"],
+                                  [calls(table="calls_view", arrival_column="id")],
+                                  service="[service]\nlease_seconds = 4\n")
+    with Feeder(site["source_path"], {"calls": (300.0, 300.0)}):
+        service = _service(site, config, "first").start()
+        try:
+            service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= 2, timeout=40, what="two looks")
+            _set_view(site["source_path"], slow=True)
+            # A claim in the store means a look is under way (claims are released after each look).
+            lease = service.wait_for(lambda: _live_lease(engine, "call-seconds"), timeout=20, what="a look in progress")
+            held = len(looks_of(engine, "call-seconds"))
+            time.sleep(0.5)
+            assert _live_lease(engine, "call-seconds") is not None
+        finally:
+            service.kill()
+        killed_at = datetime.now(UTC)
+        _set_view(site["source_path"], slow=False)
+        assert len(looks_of(engine, "call-seconds")) == held
+        _assert_store_whole(engine, "call-seconds")
+        again = _service(site, config, "second").start()
+        again.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= held + 2, timeout=40,
+                       what="looks after the restart")
+        assert again.stop() == 0
+    looks = assert_looks_consistent(engine, site["source_path"], "call-seconds", "calls", min_looks=held + 2)
+    _assert_store_whole(engine, "call-seconds")
+    # The dead worker's claim was honoured until it expired, then taken over.
+    resumed = looks[held]
+    assert resumed.as_of >= min(lease.expires_at, killed_at + timedelta(seconds=4)) - timedelta(seconds=0.5)
+
+
+def _assert_store_whole(engine, name):
+    """The comparison row, its looks and its total cells agree: no look was half written."""
+    from monitor.models import Cell, Comparison, Look
+
+    with engine.connect() as conn:
+        comp = conn.execute(sa.select(Comparison.id, Comparison.looks_taken).where(Comparison.name == name)).one()
+        last = conn.execute(sa.select(Look.look_number, Look.n1, Look.n2).where(Look.comparison_id == comp.id)
+                            .order_by(Look.look_number.desc()).limit(1)).one()
+        totals = dict(conn.execute(sa.select(Cell.group_index, Cell.n)
+                                   .where(Cell.comparison_id == comp.id, Cell.kind == "total")).all())
+    assert comp.looks_taken == last.look_number
+    assert (totals.get(0), totals.get(1)) == (last.n1, last.n2)
+
+
+def test_config_reload_adds_removes_and_refuses_invalid(site):
+    engine = site["engine"]
+    folder = site["folder"]
+    config = write_service_config(folder, site["source_url"], site["store_url"], [calls()], service=FAST_SERVICE)
+    with Feeder(site["source_path"], {"calls": (300.0, 300.0), "picks": (100.0, 100.0)}):
+        with _service(site, config) as service:
+            service.wait_for(lambda: looks_of(engine, "call-seconds"), timeout=40, what="a first look")
+            assert looks_of(engine, "pick-seconds") == []
+            # Added without a restart (noticed by polling the file's modification time).
+            write_service_config(folder, site["source_url"], site["store_url"],
+                                 [calls(), picks(planned_per_group=100000)], service=FAST_SERVICE)
+            service.wait_for(lambda: looks_of(engine, "pick-seconds"), timeout=20, what="the added comparison")
+            # An invalid file is refused; the running configuration keeps looking.
+            config.write_text(config.read_text().replace('method = "welch"', 'method = "welsh"', 1))
+            service.wait_for(lambda: "configuration refused" in service.log(), timeout=20, what="the refusal")
+            n = len(looks_of(engine, "pick-seconds"))
+            service.wait_for(lambda: len(looks_of(engine, "pick-seconds")) >= n + 2, timeout=20,
+                             what="looks to continue")
+            # Removed on SIGHUP (the file is also polled; either way it must stop).
+            write_service_config(folder, site["source_url"], site["store_url"], [picks(planned_per_group=100000)],
+                                 service=FAST_SERVICE)
+            service.signal(signal.SIGHUP)
+            service.wait_for(lambda: "removed=call-seconds" in service.log(), timeout=20, what="the removal")
+            time.sleep(0.5)
+            stopped_at = len(looks_of(engine, "call-seconds"))
+            time.sleep(2.5)
+            assert len(looks_of(engine, "call-seconds")) == stopped_at
+            assert service.stop() == 0
+    log = service.log()
+    assert "welsh" in log  # the refusal names the bad value
+    assert_looks_consistent(engine, site["source_path"], "pick-seconds", "picks", min_looks=3)
+    assert_looks_consistent(engine, site["source_path"], "call-seconds", "calls")
+
+
+def test_once_takes_one_look_each_and_exits(site):
+    engine = site["engine"]
+    with WebhookReceiver() as hook:
+        config = write_service_config(site["folder"], site["source_url"], site["store_url"],
+                                      [calls(), picks(planned_per_group=100000)], channels=hook_channel(hook.url))
+        for expected in (1, 2):
+            once = ServiceProcess(config, site["folder"] / f"once{expected}.log", args=["--once"],
+                                  env={"HOOK_SECRET": SECRET})
+            assert once.run() == 0, once.log()
+            assert [lk.look_number for lk in looks_of(engine, "call-seconds")] == list(range(1, expected + 1))
+            assert [lk.look_number for lk in looks_of(engine, "pick-seconds")] == list(range(1, expected + 1))
+        # The source file is gone: the look fails, nothing is recorded, the exit status says so.
+        site["source_path"].rename(site["folder"] / "elsewhere.sqlite")
+        failed = ServiceProcess(config, site["folder"] / "once3.log", args=["--once"], env={"HOOK_SECRET": SECRET})
+        assert failed.run() == 1
+        assert "reason=source" in failed.log() and SECRET not in failed.log()
+        assert len(looks_of(engine, "call-seconds")) == 2
+
+
+def test_store_behind_is_refused(tmp_path):
+    source_url = make_source(tmp_path / "ops.sqlite", tables=("calls",))
+    store_url = f"sqlite:///{tmp_path / 'empty-store.sqlite'}"
+    config = write_service_config(tmp_path, source_url, store_url, [calls()])
+    service = ServiceProcess(config, tmp_path / "behind.log")
+    assert service.run() == 2
+    assert "gapwatch db upgrade" in service.log()
