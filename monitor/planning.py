@@ -114,10 +114,11 @@ class Plan:
     futility_z: tuple | None
 
     def to_dict(self):
+        """Plain JSON-ready dict; an infinite boundary (a look that cannot stop) becomes None."""
         out = asdict(self)
         for key in ("fractions", "efficacy_z", "futility_z"):
             if out[key] is not None:
-                out[key] = list(out[key])
+                out[key] = [z if math.isfinite(z) else None for z in out[key]]
         return out
 
 

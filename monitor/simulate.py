@@ -42,6 +42,10 @@ _BATCHES = 20
 _CHUNK = 50_000
 
 
+def _finite_or_none(x):
+    return x if math.isfinite(x) else None
+
+
 @dataclass(frozen=True)
 class EventsAtDecision:
     """Events per group at the decision, over simulated comparisons.
@@ -63,11 +67,12 @@ class EventsAtDecision:
     quantile_se: dict
 
     def to_dict(self):
+        """Plain JSON-ready dict (percent keys as text; an undefined error is None)."""
         return {
             "mean": self.mean,
-            "mean_se": self.mean_se,
+            "mean_se": _finite_or_none(self.mean_se),
             "quantiles": {str(k): v for k, v in self.quantiles.items()},
-            "quantile_se": {str(k): v for k, v in self.quantile_se.items()},
+            "quantile_se": {str(k): _finite_or_none(v) for k, v in self.quantile_se.items()},
         }
 
 

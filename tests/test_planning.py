@@ -199,6 +199,11 @@ def test_plan_to_dict_is_json_ready():
                 "expected_per_group_alternative", "drift", "alpha", "power", "spending", "looks"):
         assert key in d
     assert isinstance(d["max_per_group"], int)
+    # Many looks under O'Brien-Fleming spending: the first boundaries are infinite, and
+    # the dict stays strict JSON (no Infinity token) so it can be frozen in the store.
+    many = plan_mean(1.5, 6.0, looks=30).to_dict()
+    assert many["efficacy_z"][0] is None
+    json.dumps(many, allow_nan=False)
     assert isinstance(plan, Plan)
     with pytest.raises(AttributeError):
         plan.looks = 4

@@ -85,7 +85,9 @@ def test_standard_errors_are_monte_carlo_errors(obf_plan):
 
 
 def test_to_dict_is_json_ready(obf_plan):
-    d = json.loads(json.dumps(simulate_design(obf_plan, streams=500, seed=7).to_dict()))
+    # 150 streams are too few for batch-means quantile errors: they come out as None.
+    d = json.loads(json.dumps(simulate_design(obf_plan, streams=150, seed=7).to_dict(), allow_nan=False))
+    assert d["events_null"]["quantile_se"]["50"] is None
     assert {"false_alarm_rate", "power", "events_null", "events_alternative"} <= set(d)
     assert set(d["events_null"]["quantiles"]) == {"25", "50", "75", "90"}
 
