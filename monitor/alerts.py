@@ -241,13 +241,18 @@ class Channel(ABC):
 
 
 class LogChannel(Channel):
-    """One structured log line per alert."""
+    """One structured log line per alert; with ``path``, also one JSON line appended to that file."""
 
     type = "log"
 
-    def __init__(self, name: str, logger_name: str = "gapwatch.alert"):
+    def __init__(self, name: str, path=None, level="warning", logger_name: str = "gapwatch.alert"):
         super().__init__(name)
         self.logger = logging.getLogger(logger_name)
+        level_number = logging.getLevelName(str(level).upper())
+        if not isinstance(level_number, int):
+            raise InvalidArgumentError(f"channel {name!r}: level must be debug, info, warning or error, got {level!r}")
+        self.level = level_number
+        self.path = path
 
     def send(self, alert_id, payload):
         fields = {
@@ -260,7 +265,13 @@ class LogChannel(Channel):
             "interval": f"[{_fmt(payload.get('ci_low'))}, {_fmt(payload.get('ci_high'))}]",
         }
         text = " ".join(f"{k}={v}" for k, v in fields.items())
-        self.logger.warning("alert %s message=%s", text, json.dumps(payload.get("message", "")))
+        self.logger.log(self.level, "alert %s message=%s", text, json.dumps(payload.get("message", "")))
+        if self.path:
+            try:
+                with open(self.path, "ab") as handle:
+                    handle.write(webhook_body(alert_id, payload) + b"\n")
+            except OSError as exc:
+                raise self._fail(f"could not append to {self.path}", exc) from None
 
 
 class WebhookChannel(Channel):
@@ -268,19 +279,22 @@ class WebhookChannel(Channel):
 
     type = "webhook"
 
-    def __init__(self, name: str, url: str, secret: str | None = None, timeout: float = 5.0):
+    def __init__(self, name: str, url: str, secret: str | None = None, timeout: float = 5.0, headers=None):
         super().__init__(name)
         if not url or not str(url).startswith(("http://", "https://")):
             raise InvalidArgumentError(f"channel {name!r}: url must start with http:// or https://, got {url!r}")
         self.url = url
         self.secret = secret or None
         self.timeout = float(timeout)
+        self.extra_headers = {str(k): str(v) for k, v in dict(headers or {}).items()}
 
     def secrets(self):
-        return (self.secret,) if self.secret else ()
+        # Extra headers often carry tokens: treat their values as secrets too.
+        return tuple(v for v in (self.secret, *self.extra_headers.values()) if v)
 
     def headers_for(self, alert_id: str, body: bytes) -> dict:
-        headers = {"Content-Type": "application/json", ALERT_ID_HEADER: alert_id, "User-Agent": "gapwatch"}
+        headers = dict(self.extra_headers)
+        headers.update({"Content-Type": "application/json", ALERT_ID_HEADER: alert_id, "User-Agent": "gapwatch"})
         if self.secret:
             headers[SIGNATURE_HEADER] = sign_body(body, self.secret)
         return headers
@@ -301,7 +315,7 @@ class EmailChannel(Channel):
     type = "email"
 
     def __init__(self, name, host, port=25, sender=None, recipients=(), user=None, password=None,
-                 starttls=False, timeout=10.0):
+                 starttls=False, timeout=10.0, ssl=False):
         super().__init__(name)
         if not host:
             raise InvalidArgumentError(f"channel {name!r}: host must be given, got {host!r}")
@@ -315,6 +329,7 @@ class EmailChannel(Channel):
         self.sender, self.recipients = sender, list(recipients)
         self.user, self.password = user or None, password or None
         self.starttls = bool(starttls)
+        self.ssl = bool(ssl)
         self.timeout = float(timeout)
 
     def secrets(self):
@@ -335,8 +350,9 @@ class EmailChannel(Channel):
     def send(self, alert_id, payload):
         message = self.message_for(alert_id, payload)
         try:
-            with smtplib.SMTP(self.host, self.port, timeout=self.timeout) as smtp:
-                if self.starttls:
+            connect = smtplib.SMTP_SSL if self.ssl else smtplib.SMTP
+            with connect(self.host, self.port, timeout=self.timeout) as smtp:
+                if self.starttls and not self.ssl:
                     smtp.starttls()
                 if self.user and self.password:
                     smtp.login(self.user, self.password)
@@ -367,10 +383,11 @@ def build_channels(channel_configs) -> dict[str, Channel]:
         kind = getattr(cfg, "type", None)
         options = dict(getattr(cfg, "options", None) or {})
         if kind == "log":
-            channels[name] = LogChannel(name)
+            channels[name] = LogChannel(name, options.get("path"), options.get("level", "warning"))
         elif kind == "webhook":
             channels[name] = WebhookChannel(
-                name, options.get("url"), options.get("secret"), _seconds(options.get("timeout"), 5.0)
+                name, options.get("url"), options.get("secret"), _seconds(options.get("timeout"), 5.0),
+                options.get("headers"),
             )
         elif kind == "email":
             channels[name] = EmailChannel(
@@ -383,6 +400,7 @@ def build_channels(channel_configs) -> dict[str, Channel]:
                 options.get("password"),
                 options.get("starttls", False),
                 _seconds(options.get("timeout"), 10.0),
+                options.get("ssl", False),
             )
         else:
             raise InvalidArgumentError(f"channel {name!r}: type must be log, webhook or email, got {kind!r}")

@@ -217,6 +217,37 @@ def test_log_channel_structured_line(engine, caplog):
     assert "interval=[-5.5, -1]" in line
 
 
+def test_log_channel_appends_json_lines(engine, tmp_path):
+    import json
+
+    path = tmp_path / "alerts.jsonl"
+    first, _ = _alert(engine, ["file"])
+    second, _ = _alert(engine, ["file"], decision="plan_complete")
+    assert deliver_pending(engine, {"file": LogChannel("file", path, "info")}, now=T0) == 2
+    lines = [json.loads(line) for line in path.read_text().splitlines()]
+    assert sorted(d["alert_id"] for d in lines) == sorted([first, second])
+    assert {d["decision"] for d in lines} == {"difference_found", "plan_complete"}
+    with pytest.raises(InvalidArgumentError, match="level"):
+        LogChannel("file", level="loud")
+
+
+def test_webhook_extra_headers_sent_and_kept_secret(engine, caplog):
+    token = "Bearer tok-81d2"
+    with WebhookReceiver() as hook:
+        hook.status = 500
+        channel = WebhookChannel("hook", hook.url, SECRET, timeout=2,
+                                 headers={"Authorization": token, ALERT_ID_HEADER: "forged"})
+        alert_id, _ = _alert(engine, ["hook"])
+        with caplog.at_level(logging.DEBUG):
+            deliver_pending(engine, {"hook": channel}, now=T0)
+        hook.status = 200
+        deliver_pending(engine, {"hook": channel}, now=T0 + timedelta(seconds=5))
+    assert [r.headers["Authorization"] for r in hook.requests] == [token, token]
+    # Our own headers win over configured ones.
+    assert {r.headers[ALERT_ID_HEADER] for r in hook.requests} == {alert_id}
+    assert token not in caplog.text
+
+
 def test_alert_delivered_only_when_every_channel_is(engine):
     with WebhookReceiver() as hook:
         channels = {"ops-log": LogChannel("ops-log"),
@@ -344,13 +375,14 @@ def test_build_channels_from_config():
     configs = {
         "ops-log": SimpleNamespace(type="log", options={}),
         "hook": SimpleNamespace(type="webhook", options={"url": "http://127.0.0.1:9/h", "secret": "s",
-                                                         "timeout": "3s"}),
+                                                         "timeout": "3s", "headers": {"X-Team": "ops"}}),
         "mail": SimpleNamespace(type="email", options={"host": "127.0.0.1", "port": 2525, "sender": "a@b.test",
                                                        "recipients": ["c@d.test"], "starttls": True}),
     }
     channels = build_channels(configs)
     assert isinstance(channels["ops-log"], LogChannel)
     assert channels["hook"].timeout == 3.0 and channels["hook"].secret == "s"
+    assert channels["hook"].extra_headers == {"X-Team": "ops"}
     assert channels["mail"].port == 2525 and channels["mail"].starttls is True
     with pytest.raises(InvalidArgumentError, match="pager"):
         build_channels({"x": SimpleNamespace(type="pager", options={})})
