@@ -285,6 +285,11 @@ def _literal(value):
     return sa.literal(value)
 
 
+def _literals(values):
+    """Bound values rendered one by one: an "expanding" IN list would be re-rendered on every execution."""
+    return [_literal(v) for v in values]
+
+
 def _bind_type(value):
     """The SQL type of a bound cutoff or arrival value (decides the driver's bind cast)."""
     if isinstance(value, bool):
@@ -630,7 +635,7 @@ class Source:
             stored = sa.func.typeof(raw)
             trimmed = sa.func.trim(raw)
             checks.append(
-                (sa.and_(stored == "text", sa.func.lower(trimmed).in_(_NON_FINITE_TEXT)), "not_finite")
+                (sa.and_(stored == "text", sa.func.lower(trimmed).in_(_literals(_NON_FINITE_TEXT))), "not_finite")
             )
             checks.append((stored == "blob", "non_numeric"))
             checks.append(
@@ -640,7 +645,7 @@ class Source:
                         sa.not_(
                             sa.and_(
                                 sa.func.json_valid(trimmed) == 1,
-                                sa.func.json_type(trimmed).in_(("integer", "real")),
+                                sa.func.json_type(trimmed).in_(_literals(("integer", "real"))),
                             )
                         ),
                     ),
@@ -658,7 +663,7 @@ class Source:
                 # PostgreSQL sorts NaN above every number, so the upper test catches NaN as well.
                 checks.append((sa.or_(raw > sa.literal(limit), raw < sa.literal(-limit)), "not_finite"))
         if spec.metric == "proportion":
-            checks.append((value.not_in((0.0, 1.0)), "not_binary"))
+            checks.append((value.not_in(_literals((0.0, 1.0))), "not_binary"))
         if spec.valid_range is not None:
             low, high = spec.valid_range
             if low is not None:
@@ -674,7 +679,7 @@ class Source:
             ctype = cols.table.c[column_name].type
             if op in ("in", "not in"):
                 values = [self._bind_like(ctype, v) for v in value]
-                clauses.append(column.in_([_literal(v) for v in values]) if op == "in" else column.not_in([_literal(v) for v in values]))
+                clauses.append(column.in_(_literals(values)) if op == "in" else column.not_in(_literals(values)))
                 continue
             bound = self._bind_like(ctype, value)
             if bound is None and op in ("=", "!="):
