@@ -23,6 +23,9 @@ __all__ = [
     "migrated_store",
     "file_digest",
     "at",
+    "LiveWorld",
+    "event_rows",
+    "CHANNELS",
 ]
 
 UTC = timezone.utc
@@ -135,6 +138,71 @@ def migrated_store(url: str):
 
     upgrade(url)
     return make_engine(url)
+
+
+def event_rows(rng, count, start, step_minutes=3, east=100.0, west=100.0, sd=10.0, day_sd=0.0):
+    """Alternating west/east events every ``step_minutes`` from ``start`` (normal values).
+
+    ``day_sd`` adds a random effect per (day, site): each site's day has its own staffing.
+    """
+    rows, day_effect = [], {}
+    for i in range(count):
+        when = start + timedelta(minutes=step_minutes * i)
+        site = "east" if i % 2 else "west"
+        d = (when.date(), site)
+        if d not in day_effect:
+            day_effect[d] = rng.normal(0, day_sd) if day_sd else 0.0
+        mean = east if site == "east" else west
+        rows.append({"site": site, "seconds": float(rng.normal(mean, sd) + day_effect[d]), "done_at": when})
+    return rows
+
+
+CHANNELS = '[channels.ops-log]\ntype = "log"\n[channels.other-log]\ntype = "log"\n'
+
+
+class LiveWorld:
+    """A source table, a config file and a migrated store in one folder."""
+
+    def __init__(self, folder, rows=(), channels=CHANNELS, *, source_url=None, store_url=None, **keys):
+        self.folder = folder
+        self.source_path = folder / "ops.sqlite"
+        self.source_url = source_url or f"sqlite:///{self.source_path}"
+        self.store_url = store_url or f"sqlite:///{folder / 'store.sqlite'}"
+        create_events_table(self.source_url, rows=list(rows))
+        self.channels = channels
+        self.write(**keys)
+        self.engine = migrated_store(self.config.store_url)
+
+    def write(self, **keys):
+        text = config_toml(self.source_url, self.store_url, [comparison_toml(**keys)], self.channels)
+        from monitor.config import load_config
+
+        self.config = load_config(write_config(self.folder, text), environ={})
+        self.comparison = self.config.comparisons[0]
+
+    def look(self, as_of, **kw):
+        from monitor.look import take_look
+
+        return take_look(self.config, self.comparison.name, as_of=as_of, engine=self.engine, **kw)
+
+    def raw(self):
+        import pandas as pd
+
+        engine = sa.create_engine(self.source_url)
+        frame = pd.read_sql("SELECT site, seconds, done_at FROM events", engine)
+        engine.dispose()
+        frame["done_at"] = pd.to_datetime(frame["done_at"], utc=True)
+        return frame
+
+    def looks(self):
+        from monitor.models import Look
+
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(Look).order_by(Look.id)).all()
+
+    def count(self, model):
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.func.count()).select_from(model)).scalar()
 
 
 def file_digest(path) -> str:

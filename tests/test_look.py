@@ -11,8 +11,8 @@ import pytest
 import sqlalchemy as sa
 from scipy import stats
 
-from live_helpers import (at, comparison_toml, config_toml, create_events_table, file_digest,
-                          insert_events, migrated_store, write_config)
+from live_helpers import (CHANNELS, event_rows, LiveWorld as World, at, comparison_toml, config_toml,
+                          create_events_table, file_digest, insert_events, migrated_store, write_config)
 from monitor import look as look_module
 from monitor.boundaries import SequentialBoundary
 from monitor.config import load_config
@@ -23,58 +23,10 @@ from monitor.models import Alert, Cell, Comparison, Delivery, Look
 from monitor.source import Source
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
-CHANNELS = '[channels.ops-log]\ntype = "log"\n[channels.other-log]\ntype = "log"\n'
 
 
-def _rows(rng, count, start=T0, step_minutes=3, east=100.0, west=100.0, sd=10.0, day_sd=0.0):
-    rows, day_effect = [], {}
-    for i in range(count):
-        when = start + timedelta(minutes=step_minutes * i)
-        site = "east" if i % 2 else "west"
-        # Each site's day has its own staffing and backlog: the day effect is per (day, site).
-        d = (when.date(), site)
-        if d not in day_effect:
-            day_effect[d] = rng.normal(0, day_sd) if day_sd else 0.0
-        mean = east if site == "east" else west
-        rows.append({"site": site, "seconds": float(rng.normal(mean, sd) + day_effect[d]), "done_at": when})
-    return rows
-
-
-class World:
-    """A source table, a config file and a migrated store in one folder."""
-
-    def __init__(self, folder, rows=(), channels=CHANNELS, **keys):
-        self.folder = folder
-        self.source_path = folder / "ops.sqlite"
-        self.source_url = f"sqlite:///{self.source_path}"
-        self.store_url = f"sqlite:///{folder / 'store.sqlite'}"
-        create_events_table(self.source_url, rows=list(rows))
-        self.channels = channels
-        self.write(**keys)
-        self.engine = migrated_store(self.config.store_url)
-
-    def write(self, **keys):
-        text = config_toml(self.source_url, self.store_url, [comparison_toml(**keys)], self.channels)
-        self.config = load_config(write_config(self.folder, text), environ={})
-        self.comparison = self.config.comparisons[0]
-
-    def look(self, as_of, **kw):
-        return take_look(self.config, self.comparison.name, as_of=as_of, engine=self.engine, **kw)
-
-    def raw(self):
-        engine = sa.create_engine(self.source_url)
-        frame = pd.read_sql("SELECT site, seconds, done_at FROM events", engine)
-        engine.dispose()
-        frame["done_at"] = pd.to_datetime(frame["done_at"], utc=True)
-        return frame
-
-    def looks(self):
-        with self.engine.connect() as conn:
-            return conn.execute(sa.select(Look).order_by(Look.id)).all()
-
-    def count(self, model):
-        with self.engine.connect() as conn:
-            return conn.execute(sa.select(sa.func.count()).select_from(model)).scalar()
+def _rows(rng, count, start=T0, **kw):
+    return event_rows(rng, count, start, **kw)
 
 
 def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):

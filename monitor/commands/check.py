@@ -1,0 +1,61 @@
+"""``gapwatch check``: validate the configuration, reach every source, report the store's state."""
+
+from __future__ import annotations
+
+from ..config import load_config
+from ..errors import SourceUnavailableError
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "check", help="validate the configuration, the sources' tables and columns, and the store",
+        description="Validate the configuration file, connect to each source and confirm the tables and "
+                    "columns exist with usable types, and report the history store's migration state.")
+    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from ..source import Source
+    from ..store import make_engine, migration_state
+
+    config = load_config(args.config)  # every problem at once, as a ConfigError
+    print(f"{config.path}: configuration valid ({len(config.comparisons)} comparisons, "
+          f"{len(config.sources)} sources, {len(config.channels)} channels)")
+    failed = False
+    sources = {}
+    try:
+        for c in config.comparisons:
+            if c.source not in sources:
+                sources[c.source] = Source(config.sources[c.source].url, name=c.source)
+            try:
+                problems = sources[c.source].check(c.source_spec(0.0))
+            except SourceUnavailableError as exc:
+                print(f"comparison {c.name!r}: {exc}")
+                failed = True
+                continue
+            errors = [p for p in problems if not p.startswith("warning:")]
+            for p in problems:
+                print(f"comparison {c.name!r}: {p}")
+            if errors:
+                failed = True
+            else:
+                print(f"comparison {c.name!r}: source {c.source!r} table {c.table!r} ok")
+    finally:
+        for s in sources.values():
+            s.dispose()
+    engine = make_engine(config.store_url)
+    try:
+        state = migration_state(engine)
+    except Exception as exc:  # noqa: BLE001 - any store failure is reported, not raised
+        print(f"store: cannot be read ({exc})")
+        return 1
+    finally:
+        engine.dispose()
+    if state["up_to_date"]:
+        print(f"store: at revision {state['current']} (up to date)")
+    else:
+        print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
+              f"run `gapwatch db upgrade`")
+        failed = True
+    return 1 if failed else 0
