@@ -308,3 +308,85 @@ def test_gapwatch_demo_runs_end_to_end(tmp_path):
     rows = rows.get("comparisons", rows) if isinstance(rows, dict) else rows
     assert {row["name"] for row in rows} == set(status)
     assert sorted(p.name for p in elsewhere.iterdir()) == []
+
+
+@pytest.mark.parametrize("args, named", [
+    (["--speed", "0"], "--speed"),
+    (["--speed", "-5"], "--speed"),
+    (["--duration", "0"], "--duration"),
+    (["--port", "70000"], "--port"),
+], ids=["speed-zero", "speed-negative", "duration-zero", "port-too-big"])
+def test_bad_options_exit_2_naming_the_option(args, named, tmp_path, capsys):
+    from monitor.cli import main
+
+    folder = tmp_path / "demo"
+    assert main(["demo", "--dir", str(folder), "--no-dashboard", *args]) == 2
+    err = capsys.readouterr().err
+    assert named in err and args[1] in err
+    assert not folder.exists()
+
+
+def test_a_folder_of_other_files_is_refused_by_the_command(tmp_path, capsys):
+    from monitor.cli import main
+
+    (tmp_path / "report.csv").write_text("a,b\n")
+    assert main(["demo", "--dir", str(tmp_path), "--no-dashboard", "--duration", "1"]) == 2
+    assert "--dir" in capsys.readouterr().err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["report.csv"]
+
+
+def _looks(store_path):
+    from monitor.readback import comparison_status
+    from monitor.store import make_engine
+
+    engine = make_engine(f"sqlite:///{store_path}")
+    try:
+        return {row["name"]: (row["looks"] or 0, row["last_look_at"]) for row in comparison_status(engine)}
+    except Exception:  # noqa: BLE001 - the store may not be migrated yet
+        return {}
+    finally:
+        engine.dispose()
+
+
+@pytest.mark.slow
+def test_ctrl_c_stops_cleanly_and_a_second_run_resumes(tmp_path):
+    import signal
+    import time
+
+    folder = tmp_path / "demo"
+    environ = dict(os.environ)
+    environ["PYTHONPATH"] = str(ROOT) + (os.pathsep + environ["PYTHONPATH"] if environ.get("PYTHONPATH") else "")
+    process = subprocess.Popen([sys.executable, "-m", "monitor", "demo", "--dir", str(folder), "--no-dashboard"],
+                               cwd=tmp_path, env=environ, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline:
+            looks = _looks(folder / STORE_NAME) if (folder / STORE_NAME).exists() else {}
+            if looks and all(n >= 1 for n, _ in looks.values()) and len(looks) == len(comparisons()):
+                break
+            time.sleep(0.5)
+        else:
+            pytest.fail("no looks within 60 s")
+        process.send_signal(signal.SIGINT)
+        out, err = process.communicate(timeout=60)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.communicate()
+    assert process.returncode == 0, err[-2000:]
+    assert "where things stand" in out
+    before = _looks(folder / STORE_NAME)
+
+    again = _gapwatch(["demo", "--dir", str(folder), "--no-dashboard", "--duration", "8"], cwd=tmp_path)
+    assert again.returncode == 0, again.stderr[-2000:]
+    assert "resumed" in again.stdout
+    after = _looks(folder / STORE_NAME)
+    assert sum(n for n, _ in after.values()) > sum(n for n, _ in before.values())
+    for name, (n, last) in after.items():
+        assert n >= before[name][0] and last >= before[name][1], name
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo"]
+
+    fresh = _gapwatch(["demo", "--dir", str(folder), "--no-dashboard", "--duration", "3", "--reset"], cwd=tmp_path)
+    assert fresh.returncode == 0, fresh.stderr[-2000:]
+    assert "created" in fresh.stdout
+    assert sum(n for n, _ in _looks(folder / STORE_NAME).values()) < sum(n for n, _ in after.values())

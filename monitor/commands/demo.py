@@ -129,14 +129,30 @@ def _start_dashboard(config_path: Path, port: int, folder: Path):
 
 
 def _stop_dashboard(process):
-    if process is None or process.poll() is not None:
+    """Stop the dashboard and the Streamlit server it started: its whole process group.
+
+    The group is the one made for it at start (``start_new_session``), so
+    nothing else is touched. Ctrl-C first, as a user would; harder if it lingers.
+    """
+    if process is None:
         return
-    process.send_signal(signal.SIGTERM)
-    try:
-        process.wait(timeout=10)
-    except subprocess.TimeoutExpired:
-        process.kill()
-        process.wait(timeout=5)
+    for sig, wait in ((signal.SIGINT, 10), (signal.SIGTERM, 5), (signal.SIGKILL, 5)):
+        try:
+            os.killpg(process.pid, sig)
+        except ProcessLookupError:
+            break
+        try:
+            process.wait(timeout=wait)
+        except subprocess.TimeoutExpired:
+            continue
+        # The dashboard command has exited; give its server the same chance.
+        deadline = time.monotonic() + wait
+        while time.monotonic() < deadline:
+            try:
+                os.killpg(process.pid, 0)
+            except ProcessLookupError:
+                return
+            time.sleep(0.2)
 
 
 def _describe(row) -> str:
