@@ -213,3 +213,35 @@ def test_postgres_source_goes_away_and_comes_back(pg_site, pg_source):
     for lk in looks:
         assert (lk.n1, lk.n2) == (sum(1 for s, t in rows if s == "east" and t <= lk.cutoff),
                                   sum(1 for s, t in rows if s == "west" and t <= lk.cutoff))
+
+
+def test_store_goes_away_and_comes_back(pg_site, pg_database_url):
+    engine = pg_site["engine"]
+    store = sa.engine.make_url(pg_database_url)
+    admin = sa.create_engine(store.set(database="postgres"), isolation_level="AUTOCOMMIT")
+    config = write_service_config(pg_site["folder"], pg_site["source_url"], pg_site["store_url"], [calls()])
+    try:
+        with Feeder(pg_site["source_path"], {"calls": (300.0, 300.0)}):
+            with _service(pg_site, config, "svc") as service:
+                service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= 2, timeout=40, what="two looks")
+                engine.dispose()
+                with admin.connect() as conn:
+                    conn.execute(sa.text(f'ALTER DATABASE "{store.database}" WITH ALLOW_CONNECTIONS false'))
+                    conn.execute(sa.text("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
+                                         "WHERE datname = :n AND pid <> pg_backend_pid()"), {"n": store.database})
+                service.wait_for(lambda: "reason=store_unavailable" in service.log(), timeout=20,
+                                 what="the store outage to be logged")
+                time.sleep(2.0)
+                assert service.alive()
+                with admin.connect() as conn:
+                    conn.execute(sa.text(f'ALTER DATABASE "{store.database}" WITH ALLOW_CONNECTIONS true'))
+                back = len(looks_of(engine, "call-seconds"))
+                service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= back + 2, timeout=30,
+                                 what="looks after the store returned")
+                assert service.stop() == 0
+    finally:
+        with admin.connect() as conn:
+            conn.execute(sa.text(f'ALTER DATABASE "{store.database}" WITH ALLOW_CONNECTIONS true'))
+        admin.dispose()
+    assert_looks_consistent(engine, pg_site["source_path"], "call-seconds", "calls", min_looks=4)
+    _assert_store_whole(engine, "call-seconds")
