@@ -21,7 +21,7 @@ import sqlalchemy as sa
 
 from monitor.alerts import ALERT_ID_HEADER as ALERT_HEADER
 
-from endpoints import ServiceProcess, WebhookReceiver, verify_signature
+from endpoints import MailReceiver, ServiceProcess, WebhookReceiver, verify_signature
 from live_helpers import comparison_toml, create_events_table, migrated_store, write_config
 
 pytestmark = pytest.mark.slow
@@ -193,10 +193,13 @@ def _service(site, config, name="service"):
 
 def test_looks_on_schedule_and_alert_delivered_when_receiver_returns(site):
     hook = WebhookReceiver()  # down at first: the port refuses connections
+    mail = MailReceiver()
+    mail_channel = (f'[channels.mail]\ntype = "email"\nhost = "127.0.0.1"\nport = {mail.port}\n'
+                    'sender = "gapwatch@example.test"\nrecipients = ["lead@example.test"]\n')
     config = write_service_config(site["folder"], site["source_url"], site["store_url"], [picks(), calls()],
-                                  channels=hook_channel(hook.url), service=FAST_SERVICE)
+                                  channels=hook_channel(hook.url) + mail_channel, service=FAST_SERVICE)
     engine = site["engine"]
-    with Feeder(site["source_path"], {"picks": (125.0, 100.0), "calls": (300.0, 300.0)}):
+    with mail, Feeder(site["source_path"], {"picks": (125.0, 100.0), "calls": (300.0, 300.0)}):
         with _service(site, config) as service:
             # The state change is recorded while the receiver is down; delivery fails and is retried.
             service.wait_for(lambda: alerts_of(engine, "pick-seconds"), timeout=40, what="an alert")
@@ -226,7 +229,11 @@ def test_looks_on_schedule_and_alert_delivered_when_receiver_returns(site):
     [(look_id, decision)] = assert_one_alert_per_state_change(engine, "pick-seconds")
     assert decision in ("difference_found", "plan_complete")
     [alert] = alerts_of(engine, "pick-seconds")
-    assert alert.state == "delivered"
+    assert alert.state == "delivered"  # through both channels
+    [message] = mail.messages
+    assert message["X-Gapwatch-Alert-Id"] == alert.id
+    assert message["Subject"].startswith("gapwatch: pick-seconds - ")
+    assert "Alert id: " + alert.id in message.get_content()
     [request] = hook.accepted()
     body = request.json()
     assert body["alert_id"] == request.headers[ALERT_HEADER] == alert.id
