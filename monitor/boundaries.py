@@ -35,6 +35,7 @@ Conventions
   spending function (see :mod:`monitor.spending`); ``cumulative_alpha``
   counts both sides.
 * A fraction ``>= 1`` is the final look and spends all that is left.
+* Fractions must strictly increase, by at least ``MIN_INCREMENT`` (1e-6).
 * When the alpha a look may spend is below ``1e-12`` (a small first fraction
   under O'Brien–Fleming spending, say) the boundary is ``+inf``: nothing can be
   rejected at that look, and the untouched amount stays available to later
@@ -77,7 +78,7 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 from .errors import InvalidArgumentError
 from .spending import SpendingFunction, parse_spending
@@ -92,12 +93,19 @@ __all__ = [
     "futility_decision",
     "ALTERNATIVES",
     "NEGLIGIBLE_ALPHA",
+    "MIN_INCREMENT",
 ]
 
 ALTERNATIVES = ("two-sided", "greater", "less")
 
 #: A look allowed to spend less than this gets an infinite boundary.
 NEGLIGIBLE_ALPHA = 1e-12
+
+#: Looks must be at least this far apart in information fraction. Smaller
+#: steps carry no usable information and would need grids of millions of
+#: nodes; a caller whose fraction has not moved this much should not take a
+#: boundary look.
+MIN_INCREMENT = 1e-6
 
 # Gauss–Legendre panels per standard deviation of the narrower neighbouring
 # increment, and nodes per panel: 3.2 nodes per sd keep crossing
@@ -109,8 +117,8 @@ _PANEL_POINTS = 8
 _RANGE_SD = 8.0
 # Mixture terms farther than this many kernel sds from a point are dropped.
 _KERNEL_SD = 8.5
-# Bound on grid size (120,000 nodes): only information increments below
-# ~1e-7 reach it, and they lose some accuracy rather than time and memory.
+# Bound on grid size (120,000 nodes), a safety net: with increments of at
+# least MIN_INCREMENT the widest region needs about 6,400 panels.
 _MAX_PANELS = 15000
 # Working-array size for the banded mixture evaluation.
 _CHUNK_ENTRIES = 1_000_000
@@ -137,18 +145,19 @@ def _panel_rule(lo: float, hi: float, panels: int):
 def _mixture_density(points, nodes, weights, shift, sd):
     """Evaluate ``Σ_j weights_j φ((points − nodes_j − shift)/sd) / sd``.
 
-    ``nodes`` is sorted; only the nodes within ``_KERNEL_SD`` sds of each point
-    are summed, which turns an n×m product into a band about 55 nodes wide.
+    ``nodes`` is sorted; only a window of nodes covering ``_KERNEL_SD`` sds
+    around each point is summed, which turns an n×m product into a band about
+    55 nodes wide when neighbouring increments are alike.
     """
     m = nodes.size
     n = points.size
     out = np.zeros(n)
     if m == 0 or n == 0:
         return out
-    centre = points - shift
-    reach = _KERNEL_SD * sd
-    first = np.searchsorted(nodes, centre - reach, side="left")
-    stop = np.searchsorted(nodes, centre + reach, side="right")
+    centre = (points - shift) / sd
+    scaled = nodes / sd
+    first = np.searchsorted(scaled, centre - _KERNEL_SD, side="left")
+    stop = np.searchsorted(scaled, centre + _KERNEL_SD, side="right")
     width = int((stop - first).max())
     if width == 0:
         return out
@@ -156,19 +165,27 @@ def _mixture_density(points, nodes, weights, shift, sd):
         # The band covers most nodes anyway: a dense product is quicker.
         rows = max(1, _CHUNK_ENTRIES // m)
         for start in range(0, n, rows):
-            x = (centre[start:start + rows, None] - nodes[None, :]) / sd
-            out[start:start + rows] = np.exp(-0.5 * x * x) @ weights
+            x = centre[start:start + rows, None] - scaled[None, :]
+            np.square(x, out=x)
+            x *= -0.5
+            np.exp(x, out=x)
+            out[start:start + rows] = x @ weights
         return out / (sd * _SQRT_2PI)
+    # Pad with zero-weight nodes so every window of ``width`` nodes is in
+    # range; windows may then include a few real nodes beyond the reach,
+    # which only adds (negligible) exact terms.
+    scaled = np.concatenate([scaled, np.full(width, scaled[-1])])
+    weights = np.concatenate([weights, np.zeros(width)])
     offsets = np.arange(width)
     rows = max(1, _CHUNK_ENTRIES // width)
     for start in range(0, n, rows):
         sl = slice(start, start + rows)
         idx = first[sl, None] + offsets
-        inside = idx < stop[sl, None]
-        np.minimum(idx, m - 1, out=idx)
-        x = (centre[sl, None] - nodes[idx]) / sd
-        terms = np.exp(-0.5 * x * x) * weights[idx]
-        out[sl] = np.where(inside, terms, 0.0).sum(axis=1)
+        x = centre[sl, None] - scaled[idx]
+        np.square(x, out=x)
+        x *= -0.5
+        np.exp(x, out=x)
+        out[sl] = np.einsum("ij,ij->i", x, weights[idx])
     return out / (sd * _SQRT_2PI)
 
 
@@ -212,16 +229,29 @@ class _Path:
         )
         return grid, density * quad
 
-    def crossing(self, nodes, weights, next_fraction, upper_s, lower_s):
-        """P(continue so far, S_next ≥ upper_s) and P(continue so far, S_next ≤ lower_s)."""
+    def crossing(self, nodes, weights, next_fraction, upper_s, lower_s, slopes=False):
+        """P(continue so far, S_next ≥ upper_s) and P(continue so far, S_next ≤ lower_s).
+
+        With ``slopes`` also the derivatives of the two with respect to
+        ``upper_s`` and ``lower_s`` (for Newton's method).
+        """
         if nodes.size == 0:
-            return 0.0, 0.0
+            return (0.0, 0.0, 0.0, 0.0) if slopes else (0.0, 0.0)
         var = next_fraction - self.fraction
         sd = math.sqrt(var)
         moved = nodes + self.drift * var
-        up = float(weights @ special.ndtr((moved - upper_s) / sd)) if upper_s < math.inf else 0.0
-        low = float(weights @ special.ndtr((lower_s - moved) / sd)) if lower_s > -math.inf else 0.0
-        return up, low
+        up = low = up_slope = low_slope = 0.0
+        if upper_s < math.inf:
+            x = (moved - upper_s) / sd
+            up = float(weights @ special.ndtr(x))
+            if slopes:
+                up_slope = -float(weights @ np.exp(-0.5 * x * x)) / (sd * _SQRT_2PI)
+        if lower_s > -math.inf:
+            x = (lower_s - moved) / sd
+            low = float(weights @ special.ndtr(x))
+            if slopes:
+                low_slope = float(weights @ np.exp(-0.5 * x * x)) / (sd * _SQRT_2PI)
+        return (up, low, up_slope, low_slope) if slopes else (up, low)
 
     def advance(self, nodes, weights, next_fraction, low_s, high_s):
         """Move to the look at ``next_fraction`` whose continuation region is ``(low_s, high_s)``."""
@@ -237,44 +267,51 @@ def _scaled(z: float, root_t: float) -> float:
     return z * root_t if math.isfinite(z) else z
 
 
-def _solve_decreasing(prob, target, start, floor):
-    """Root of ``prob(z) = target`` for ``prob`` decreasing in z, searched at or above ``floor``.
+def _solve_monotone(value_and_slope, target, start, *, increasing, floor=-math.inf, ceiling=math.inf):
+    """Root of ``p(x) = target`` for a monotone ``p``, kept within ``[floor, ceiling]``.
 
-    Works on the log scale, where tail probabilities are close to linear.
+    Newton's method on ``log p`` (tail probabilities are close to log-linear,
+    so it converges in a few steps), safeguarded by the bracket that the signs
+    seen so far imply; steps are limited to 1 in x. Returns ``floor`` or
+    ``ceiling`` when the root lies beyond them.
     """
     log_target = math.log(target)
-
-    def gap(z):
-        return math.log(max(prob(z), 1e-300)) - log_target
-
-    hi = start
-    while gap(hi) > 0:
-        hi += 1.0
-    lo = hi - 1.0
-    while lo > floor and gap(lo) < 0:
-        lo -= 1.0
-    if lo <= floor:
-        lo = floor
-        if gap(lo) <= 0:
-            return lo
-    return optimize.brentq(gap, lo, hi, xtol=1e-12, rtol=1e-13)
-
-
-def _solve_increasing(prob, target, start, ceiling):
-    """Root of ``prob(f) = target`` for ``prob`` increasing in f, at or below ``ceiling``."""
-    log_target = math.log(target)
-
-    def gap(f):
-        return math.log(max(prob(f), 1e-300)) - log_target
-
-    lo = min(start, ceiling - 1.0)
-    while gap(lo) > 0:
-        lo -= 1.0
-    hi = lo + 1.0
-    while hi < ceiling and gap(hi) < 0:
-        hi += 1.0
-    hi = min(hi, ceiling)
-    return optimize.brentq(gap, lo, hi, xtol=1e-12, rtol=1e-13)
+    # Bracket from points actually evaluated (the limits are not evaluated).
+    lo, hi = -math.inf, math.inf
+    x = min(max(start, floor), ceiling)
+    for _ in range(100):
+        p, slope = value_and_slope(x)
+        gap = math.log(p) - log_target if p > 0 else -math.inf
+        # A relative error of 1e-11 in the probability is far below the
+        # integration error; asking for less makes rounding noise chase itself.
+        if abs(gap) < 1e-11:
+            return x
+        # The root lies above x when p is too small and increasing, or too
+        # large and decreasing.
+        root_above = (gap < 0) == increasing
+        if root_above:
+            lo = x
+            if x >= ceiling:
+                return ceiling
+        else:
+            hi = x
+            if x <= floor:
+                return floor
+        if p > 0 and slope != 0 and math.isfinite(gap):
+            step = -gap * p / slope
+        else:
+            step = 1.0 if root_above else -1.0
+        new = x + max(-1.0, min(1.0, step))
+        if not lo < new < hi:
+            if math.isfinite(lo) and math.isfinite(hi):
+                new = 0.5 * (lo + hi)
+            else:
+                new = lo + 1.0 if root_above else hi - 1.0
+        new = min(max(new, floor), ceiling)
+        if hi - lo <= 1e-13 * max(1.0, abs(x)):
+            return new
+        x = new
+    return x
 
 
 # --------------------------------------------------------------------------
@@ -385,6 +422,11 @@ def _check_fraction(fraction, previous) -> float:
     if previous is not None and not t > previous:
         raise InvalidArgumentError(
             f"fraction: information fractions must strictly increase, got {fraction!r} after {previous!r}"
+        )
+    if previous is not None and t - previous < MIN_INCREMENT:
+        raise InvalidArgumentError(
+            f"fraction: {fraction!r} is less than {MIN_INCREMENT:g} above the previous look's "
+            f"{previous!r}; too little new information for a look"
         )
     return t
 
@@ -570,8 +612,14 @@ class SequentialBoundary:
             )
             return up + low
 
+        def spent_and_slope(z):
+            upper_s = z * root_t
+            lower_s = -upper_s if self._two_sided else -math.inf
+            up, low, up_slope, low_slope = self._null.crossing(nodes, weights, t, upper_s, lower_s, slopes=True)
+            return up + low, root_t * (up_slope - low_slope)
+
         if z_recorded is None:
-            z = self._solve_efficacy(spent_at, allowed - self._alpha_used, sides)
+            z = self._solve_efficacy(spent_and_slope, allowed - self._alpha_used, sides)
         else:
             z = z_recorded
         self._alpha_used += spent_at(z) if math.isfinite(z) else 0.0
@@ -596,14 +644,16 @@ class SequentialBoundary:
         self._looks.append(look)
         return look
 
-    def _solve_efficacy(self, spent_at, amount, sides):
+    def _solve_efficacy(self, spent_and_slope, amount, sides):
         if amount <= NEGLIGIBLE_ALPHA:
             return math.inf
-        # Ignoring earlier looks over-states the crossing chance, so the
-        # fixed-sample value for this amount is an upper bracket.
-        start = float(-special.ndtri(amount / sides)) + 0.25
+        # Boundaries move smoothly from look to look, so the last one is the
+        # best first guess; at the first look the fixed-sample value is exact.
+        start = float(-special.ndtri(amount / sides))
+        if self._looks and math.isfinite(self._looks[-1].z):
+            start = self._looks[-1].z
         floor = 0.0 if self._two_sided else -40.0
-        return float(_solve_decreasing(spent_at, amount, start, floor))
+        return float(_solve_monotone(spent_and_slope, amount, start, increasing=False, floor=floor, ceiling=40.0))
 
     def _futility_look(self, t, z, f_recorded, final):
         path = self._planned
@@ -612,6 +662,10 @@ class SequentialBoundary:
 
         def below(f):
             return path.crossing(nodes, weights, t, math.inf, _scaled(f, root_t))[1]
+
+        def below_and_slope(f):
+            _, low, _, low_slope = path.crossing(nodes, weights, t, math.inf, f * root_t, slopes=True)
+            return low, root_t * low_slope
 
         if f_recorded is not None:
             f = f_recorded
@@ -626,8 +680,12 @@ class SequentialBoundary:
                 f = z
             else:
                 # Without earlier looks the chance would be Φ(f − θ√t): a lower bracket.
-                start = path.drift * root_t + float(special.ndtri(amount)) - 0.25
-                f = float(_solve_increasing(below, amount, start, z if math.isfinite(z) else start + 60.0))
+                start = path.drift * root_t + float(special.ndtri(amount))
+                if self._looks and self._looks[-1].futility_z is not None and math.isfinite(self._looks[-1].futility_z):
+                    start = self._looks[-1].futility_z
+                ceiling = z if math.isfinite(z) else 40.0
+                f = float(_solve_monotone(below_and_slope, amount, min(start, ceiling), increasing=True,
+                                          floor=-40.0, ceiling=ceiling))
         if f > z:
             f = z
         self._beta_used += below(f) if f > -math.inf else 0.0

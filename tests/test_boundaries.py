@@ -386,6 +386,28 @@ def test_fractions_must_strictly_increase(bad):
     assert repr(bad) in str(info.value)
 
 
+def test_looks_closer_than_the_minimum_increment_are_refused():
+    boundary = SequentialBoundary(0.05, "pocock", "two-sided")
+    boundary.add_look(0.5)
+    with pytest.raises(InvalidArgumentError, match="0.5000004"):
+        boundary.add_look(0.5000004)
+    with pytest.raises(InvalidArgumentError, match="too little new information"):
+        crossing_probabilities([0.5, 0.5000004], [2.0, 2.0])
+
+
+def test_smallest_allowed_increment_is_accurate_and_harmless():
+    # A look a hair after another spends next to nothing, so later boundaries
+    # barely move compared with the design that skips it.
+    with_tiny = efficacy_boundaries([0.3, 0.3 + 1.5e-6, 0.6, 1.0], 0.05, "pocock", "two-sided")
+    without = efficacy_boundaries([0.3, 0.6, 1.0], 0.05, "pocock", "two-sided")
+    assert math.isfinite(with_tiny[1].z)
+    assert with_tiny[2].z == pytest.approx(without[1].z, abs=1e-4)
+    assert with_tiny[3].z == pytest.approx(without[2].z, abs=1e-4)
+    z = [b.z for b in with_tiny]
+    up, low = crossing_probabilities([0.3, 0.3 + 1.5e-6, 0.6, 1.0], z, [-x for x in z])
+    assert up.sum() + low.sum() == pytest.approx(0.05, abs=1e-8)
+
+
 @pytest.mark.parametrize("alpha", [0.0, 1.0, -0.1, 1.5, "x"])
 def test_alpha_must_be_in_open_unit_interval(alpha):
     with pytest.raises(InvalidArgumentError, match="alpha"):
@@ -454,6 +476,16 @@ def test_futility_capped_at_efficacy_and_absent_without_spec():
     b = boundary.add_look(0.5)
     assert b.futility_z <= b.z
     assert SequentialBoundary(0.025, "pocock", "greater").add_look(0.5).futility_z is None
+
+
+def test_less_futility_is_on_the_planned_direction_scale():
+    # For "less" the planned direction is -Z: bounds equal those of "greater".
+    spec = FutilitySpec("hsd:-2", 0.1, -2.9)
+    less = SequentialBoundary(0.025, "hsd:-4", "less", futility=spec)
+    greater = SequentialBoundary(0.025, "hsd:-4", "greater", futility=FutilitySpec("hsd:-2", 0.1, 2.9))
+    assert less.futility_direction == -1
+    for t in (0.3, 0.6, 1.0):
+        assert less.add_look(t).futility_z == pytest.approx(greater.add_look(t).futility_z, abs=1e-12)
 
 
 def test_futility_before_any_beta_is_minus_infinity():

@@ -74,6 +74,10 @@ def _fractions(text):
             raise InvalidArgumentError(
                 f"--fractions: fractions must strictly increase, got {parts[k]!r} after {parts[k - 1]!r}"
             )
+        if k and value - values[k - 1] < boundaries.MIN_INCREMENT:
+            raise InvalidArgumentError(
+                f"--fractions: {parts[k]!r} is less than {boundaries.MIN_INCREMENT:g} above {parts[k - 1]!r}"
+            )
         if k < len(values) - 1 and value >= 1:
             raise InvalidArgumentError(
                 f"--fractions: {parts[k]!r} is a final look (>= 1) but more fractions follow it"
