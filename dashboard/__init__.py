@@ -1,0 +1,1 @@
+"""The gapwatch dashboard (Streamlit): run it with ``gapwatch dashboard``."""

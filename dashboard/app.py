@@ -1,0 +1,23 @@
+"""Entry point of the gapwatch dashboard: page navigation only; the pages do the work."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+# Streamlit puts only this folder on sys.path; the pages import the monitor and dashboard packages.
+_ROOT = str(Path(__file__).resolve().parent.parent)
+if _ROOT not in sys.path:
+    sys.path.insert(0, _ROOT)
+
+import streamlit as st  # noqa: E402
+
+st.set_page_config(page_title="gapwatch", page_icon="◷", layout="wide")
+
+pages = st.navigation([
+    st.Page("views/board.py", title="Board", icon=":material/dashboard:", url_path="board", default=True),
+    st.Page("views/comparison.py", title="Comparison", icon=":material/query_stats:", url_path="comparison"),
+    st.Page("views/alerts.py", title="Alerts", icon=":material/notifications:", url_path="alerts"),
+    st.Page("views/review.py", title="Review", icon=":material/history:", url_path="review"),
+], position="top")
+pages.run()
