@@ -349,12 +349,16 @@ class Service:
 
     # ------------------------------------------------------------------ scheduling
 
-    def _add_look_job(self, comparison, *, first_run=None):
+    def _add_look_job(self, comparison):
+        extra = {}
+        if isinstance(comparison.schedule, (int, float)):
+            # An interval comparison looks at once; a cron one waits for its next time.
+            extra["next_run_time"] = datetime.now(timezone.utc)
         self.scheduler.add_job(
             self.look_once, _trigger_for(comparison), args=[comparison.name],
             id=f"look:{comparison.name}", name=f"look at {comparison.name}",
             coalesce=True, max_instances=1, misfire_grace_time=_misfire_grace(comparison),
-            replace_existing=True, next_run_time=first_run or datetime.now(timezone.utc),
+            replace_existing=True, **extra,
         )
 
     def start_scheduler(self):

@@ -461,3 +461,33 @@ def test_secrets_are_redacted_from_log_records(tmp_path):
     message = record.getMessage()
     assert not any(v in message for v in env.values())
     assert message == "failed postgresql://gw:***@h/gw with key *** ***"
+
+
+@pytest.mark.parametrize(
+    "every, zone, now, expected",
+    [
+        ("90s", "UTC", datetime(2026, 3, 2, 8, 0, 10, tzinfo=UTC), None),
+        ("*/5 * * * *", "UTC", datetime(2026, 3, 2, 8, 1, 10, tzinfo=UTC), datetime(2026, 3, 2, 8, 5, tzinfo=UTC)),
+        # 06:30 in Lisbon is 06:30 UTC in winter (WET, UTC+0) and 05:30 UTC in summer (WEST).
+        ("30 6 * * *", "Europe/Lisbon", datetime(2026, 3, 2, 7, 0, tzinfo=UTC), datetime(2026, 3, 3, 6, 30, tzinfo=UTC)),
+        ("30 6 * * *", "Europe/Lisbon", datetime(2026, 7, 2, 7, 0, tzinfo=UTC), datetime(2026, 7, 3, 5, 30, tzinfo=UTC)),
+    ],
+    ids=["interval", "cron-utc", "cron-lisbon-winter", "cron-lisbon-summer"],
+)
+def test_triggers_follow_every(every, zone, now, expected):
+    from types import SimpleNamespace
+
+    from monitor.config import parse_duration
+    from monitor.scheduler import _misfire_grace, _trigger_for
+
+    try:
+        schedule = parse_duration(every)
+    except ValueError:
+        schedule = every
+    comparison = SimpleNamespace(schedule=schedule, timezone=zone, every=every)
+    trigger = _trigger_for(comparison)
+    if expected is None:
+        assert trigger.interval.total_seconds() == 90 and _misfire_grace(comparison) == 45
+    else:
+        assert trigger.get_next_fire_time(None, now) == expected
+        assert _misfire_grace(comparison) == 60
