@@ -324,9 +324,6 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None):
     if not isinstance(comparison, ComparisonConfig):
         raise InvalidArgumentError(f"comparison must be a ComparisonConfig or a name; got {comparison!r}")
     as_of = _aware(as_of, "as_of")
-    from .store import ensure_current
-
-    ensure_current(engine)
     if holder is None:
         return _look(config, comparison, as_of, engine, source, started)
     from .claims import claim
@@ -394,8 +391,11 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, started):
 
 def _read_state(engine, name):
     """The active comparison row, its cells and its testing looks (one short read)."""
+    from .store import ensure_current
+
     try:
         with engine.connect() as conn:
+            ensure_current(conn)
             comp = conn.execute(
                 sa.select(Comparison.id, Comparison.version, Comparison.design, Comparison.state,
                           Comparison.looks_taken, Comparison.watermark, Comparison.stopped_at)
@@ -407,25 +407,25 @@ def _read_state(engine, name):
                 top = conn.execute(sa.select(sa.func.max(Comparison.version))
                                    .where(Comparison.name == name)).scalar()
                 return {"comparison": None, "next_version": (top or 0) + 1, "cells": {},
-                        "boundary_looks": [], "last_excluded": {}}
+                        "last_boundary_look": None, "last_excluded": {}}
             cells = {
                 (r.kind, r.group_index, r.key): (r.n, r.sum_dev, r.sum_dev2)
                 for r in conn.execute(
                     sa.select(Cell.kind, Cell.group_index, Cell.key, Cell.n, Cell.sum_dev, Cell.sum_dev2)
                     .where(Cell.comparison_id == comp["id"]))
             }
-            boundary_looks = conn.execute(
+            last_boundary_look = conn.execute(
                 sa.select(Look.boundary_look, Look.fraction, Look.boundary_z, Look.futility_z)
                 .where(Look.comparison_id == comp["id"], Look.boundary_look.is_not(None))
-                .order_by(Look.boundary_look)
-            ).all()
+                .order_by(Look.boundary_look.desc()).limit(1)
+            ).first()
             last_excluded = conn.execute(
                 sa.select(Look.excluded).where(Look.comparison_id == comp["id"],
                                                Look.look_number == comp["looks_taken"])
             ).scalar()
     except OperationalError as exc:
         raise StoreUnavailableError(f"cannot read the history store: {str(exc.orig).splitlines()[0]}") from None
-    return {"comparison": dict(comp), "cells": cells, "boundary_looks": list(boundary_looks),
+    return {"comparison": dict(comp), "cells": cells, "last_boundary_look": last_boundary_look,
             "last_excluded": last_excluded or {}}
 
 
@@ -476,11 +476,19 @@ def _of_kind(cells, kind):
 
 
 def _one_sided_ps(statistic, df):
-    from scipy import stats
+    """(P[T >= t], P[T <= t]) under no difference; scipy.special keeps this to microseconds."""
+    from scipy import special
 
     if df is None:
-        return float(stats.norm.sf(statistic)), float(stats.norm.cdf(statistic))
-    return float(stats.t.sf(statistic, df)), float(stats.t.cdf(statistic, df))
+        return float(special.ndtr(-statistic)), float(special.ndtr(statistic))
+    return float(special.stdtr(df, -statistic)), float(special.stdtr(df, statistic))
+
+
+def _t_critical(nominal_p, df):
+    """The t value with upper tail ``nominal_p`` (``-stdtrit(df, p)`` keeps tiny tails exact)."""
+    from scipy import special
+
+    return float(-special.stdtrit(df, nominal_p))
 
 
 def _statistic(c: ComparisonConfig, design, cells, s1, s2, cutoff, excluded_total) -> _Stat:
@@ -634,8 +642,8 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
 
-    recorded = state["boundary_looks"]
-    last_fraction = recorded[-1].fraction if recorded else 0.0
+    last_boundary = state["last_boundary_look"]
+    last_fraction = last_boundary.fraction if last_boundary is not None else 0.0
     if st.problem:
         decision = "data_problem"
         warnings.append(st.problem)
@@ -646,9 +654,9 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         warnings.append(st.waiting)
     elif st.testable and fraction > last_fraction:
         futility = _futility_spec(design)
-        seq = _resumed_boundary(row, design, recorded, futility)
+        seq = _resumed_boundary(engine, row, design, state, futility)
         boundary = seq.add_look(fraction)
-        boundary_number = len(recorded) + 1
+        boundary_number = len(seq.looks)
         if design["method"] in _Z_METHODS and not c.clustered:
             z = st.statistic
             alt = design["alternative"]
@@ -664,14 +672,12 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         elif boundary.final:
             decision = "plan_complete"
         # Repeated confidence interval: the boundary on the statistic's own scale.
-        from scipy import stats
-
         if math.isfinite(boundary.z):
-            critical = (boundary.z if st.df is None else float(stats.t.isf(boundary.nominal_p, st.df)))
+            critical = boundary.z if st.df is None else _t_critical(boundary.nominal_p, st.df)
             ci = repeated_confidence_interval(st.estimate, st.standard_error, critical, design["alternative"])
             ci = tuple(_finite_or_none(x) for x in ci)
         if decision in STOPPING_DECISIONS:
-            detail["after_stop"] = _after_stop(recorded, boundary, st, fraction, design,
+            detail["after_stop"] = _after_stop(seq, st, fraction, design,
                                                stagewise_p_value, median_unbiased_estimate)
     elif st.testable:
         warnings.append("no new information since the last testing look; nothing spent at this look")
@@ -740,40 +746,55 @@ _BOUNDARY_CACHE: dict = {}
 _BOUNDARY_CACHE_SIZE = 256
 
 
-def _resumed_boundary(row, design, recorded, futility):
-    """A SequentialBoundary standing at the recorded testing looks (a fresh copy)."""
-    import copy
+def _resumed_boundary(engine, row, design, state, futility):
+    """A SequentialBoundary standing at the recorded testing looks.
 
+    The cached object is taken out of the cache (so no other look can use it
+    meanwhile) and put back only once this look is recorded.
+    """
     from .boundaries import SequentialBoundary
 
-    fractions = [r.fraction for r in recorded]
-    upper = [r.boundary_z for r in recorded]
+    last = state["last_boundary_look"]
+    count = last.boundary_look if last is not None else 0
     key = (row["id"], design_hash(_comparable(design))) if row is not None else None
-    cached = _BOUNDARY_CACHE.get(key) if key is not None else None
+    cached = _BOUNDARY_CACHE.pop(key, None) if key is not None else None
     if cached is not None:
         looks = cached.looks
-        if (len(looks) == len(recorded)
-                and all(b.fraction == f and b.z == z for b, f, z in zip(looks, fractions, upper))):
-            return copy.deepcopy(cached)
+        if len(looks) == count and (count == 0 or (looks[-1].fraction == last.fraction
+                                                   and looks[-1].z == last.boundary_z)):
+            return cached
+    # Only the looks this look's read saw: another process may have recorded more since.
+    recorded = _boundary_looks(engine, row["id"], count) if count else []
     return SequentialBoundary.resume(
-        design["alpha"], design["spending"], design["alternative"], fractions, upper,
+        design["alpha"], design["spending"], design["alternative"],
+        [r.fraction for r in recorded], [r.boundary_z for r in recorded],
         futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
         if futility is not None else None,
         futility=futility)
 
 
+def _boundary_looks(engine, comparison_id, count):
+    with engine.connect() as conn:
+        return conn.execute(
+            sa.select(Look.boundary_look, Look.fraction, Look.boundary_z, Look.futility_z)
+            .where(Look.comparison_id == comparison_id, Look.boundary_look.is_not(None),
+                   Look.boundary_look <= count)
+            .order_by(Look.boundary_look)
+        ).all()
+
+
 def _remember_boundary(comparison_id, design, seq):
     if len(_BOUNDARY_CACHE) >= _BOUNDARY_CACHE_SIZE:
-        _BOUNDARY_CACHE.pop(next(iter(_BOUNDARY_CACHE)))
+        _BOUNDARY_CACHE.pop(next(iter(_BOUNDARY_CACHE)), None)
     _BOUNDARY_CACHE[(comparison_id, design_hash(_comparable(design)))] = seq
 
 
-def _after_stop(recorded, boundary, st, fraction, design, stagewise_p_value, median_unbiased_estimate):
+def _after_stop(seq, st, fraction, design, stagewise_p_value, median_unbiased_estimate):
     """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
     from scipy import special
 
-    fractions = [r.fraction for r in recorded] + [fraction]
-    upper = [r.boundary_z for r in recorded] + [boundary.z]
+    fractions = [b.fraction for b in seq.looks]
+    upper = [b.z for b in seq.looks]
     # t statistics enter the z-scale calculation through their one-sided p-value.
     if st.df is None:
         z = st.statistic

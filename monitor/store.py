@@ -32,6 +32,7 @@ __all__ = [
 _SQLITE_BUSY_SECONDS = 30
 
 
+@functools.lru_cache(maxsize=1)
 def _migrations_folder() -> Path:
     import migrations
 
@@ -121,18 +122,20 @@ def head_revision() -> str:
 _VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
 
 
-def current_revision(engine: Engine) -> str | None:
-    """The store's revision (None for an empty store)."""
+def _revision_on(connection) -> str | None:
+    if not sa.inspect(connection).has_table("alembic_version"):
+        return None
+    # A plain read of Alembic's version table: cheap enough for every look.
+    return connection.execute(sa.select(_VERSION_TABLE.c.version_num)).scalar()
+
+
+def current_revision(engine) -> str | None:
+    """The store's revision (None for an empty store); an engine or an open connection."""
     try:
+        if isinstance(engine, sa.engine.Connection):
+            return _revision_on(engine)
         with engine.connect() as connection:
-            try:
-                # A plain read of Alembic's version table: cheap enough for every look.
-                return connection.execute(sa.select(_VERSION_TABLE.c.version_num)).scalar()
-            except sa.exc.DBAPIError:
-                connection.rollback()
-                if not sa.inspect(connection).has_table("alembic_version"):
-                    return None
-                raise
+            return _revision_on(connection)
     except sa.exc.DBAPIError as exc:
         raise StoreUnavailableError(f"cannot reach the history store: {_brief(exc)}") from None
 
@@ -143,7 +146,7 @@ def migration_state(engine: Engine) -> dict:
     return {"current": current, "head": head, "up_to_date": current == head}
 
 
-def ensure_current(engine: Engine) -> str:
+def ensure_current(engine) -> str:
     """Refuse a store whose schema is not the one this gapwatch expects.
 
     Returns the revision; raises StoreBehindError naming ``gapwatch db upgrade``.
