@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import getpass
 import json
-import sys
 from datetime import datetime, timezone
 
 __all__ = ["register", "run"]
