@@ -307,6 +307,10 @@ def test_gapwatch_demo_runs_end_to_end(tmp_path):
     rows = json.loads(shown.stdout)
     rows = rows.get("comparisons", rows) if isinstance(rows, dict) else rows
     assert {row["name"] for row in rows} == set(status)
+    # Every recorded look replays from the raw rows (late rows and bad rows included).
+    for name in ("pick-seconds", "delivery-lateness"):
+        replay = _gapwatch(["verify", "--config", str(folder / CONFIG_NAME), name], cwd=elsewhere, timeout=120)
+        assert replay.returncode == 0, replay.stdout + replay.stderr
     assert sorted(p.name for p in elsewhere.iterdir()) == []
 
 
