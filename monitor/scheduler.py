@@ -454,10 +454,17 @@ class Service:
         log.info("service stopped holder=%s", self.holder)
 
 
+# Loggers whose handlers get the redacting filter (the root, and ours if a caller gave them handlers).
+_REDACTED_LOGGERS = ("", "gapwatch", "apscheduler", "sqlalchemy", "alembic")
+
+
 def _install_redactor(service):
-    handlers = list(logging.getLogger().handlers)
-    for handler in handlers:
-        handler.addFilter(service.redactor)
+    handlers = []
+    for name in _REDACTED_LOGGERS:
+        for handler in logging.getLogger(name).handlers:
+            if handler not in handlers:
+                handler.addFilter(service.redactor)
+                handlers.append(handler)
     return handlers
 
 

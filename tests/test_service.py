@@ -491,3 +491,43 @@ def test_triggers_follow_every(every, zone, now, expected):
     else:
         assert trigger.get_next_fire_time(None, now) == expected
         assert _misfire_grace(comparison) == 60
+
+
+def test_run_service_in_a_thread_stops_on_event_and_redacts_its_handlers(site, monkeypatch):
+    """How the demo runs it: a thread, an injected clock, a handler on the 'gapwatch' logger."""
+    import io
+    import logging
+
+    from monitor.scheduler import run_service
+
+    engine = site["engine"]
+    config = write_service_config(site["folder"], site["source_url"], site["store_url"], [calls()],
+                                  channels=hook_channel("http://127.0.0.1:9/never"))
+    stream = io.StringIO()
+    handler = logging.StreamHandler(stream)
+    logger = logging.getLogger("gapwatch")
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO)
+    # A clock an hour ahead: every look's as_of comes from it, not from the wall.
+    ahead = timedelta(hours=1)
+    stop = threading.Event()
+    result = []
+    monkeypatch.setenv("HOOK_SECRET", SECRET)
+    try:
+        thread = threading.Thread(target=lambda: result.append(
+            run_service(config, stop_event=stop, clock=lambda: datetime.now(UTC) + ahead, holder="demo-worker")))
+        thread.start()
+        deadline = time.monotonic() + 30
+        while len(looks_of(engine, "call-seconds")) < 2 and time.monotonic() < deadline:
+            time.sleep(0.2)
+        logging.getLogger("gapwatch.service").error("checking %s", SECRET)
+        stop.set()
+        thread.join(timeout=30)
+    finally:
+        logger.removeHandler(handler)
+    assert result == [0] and not thread.is_alive()
+    looks = looks_of(engine, "call-seconds")
+    assert len(looks) >= 2
+    assert all(lk.as_of - datetime.now(UTC) > timedelta(minutes=50) for lk in looks)
+    text = stream.getvalue()
+    assert "holder=demo-worker" in text and "checking ***" in text and SECRET not in text
