@@ -65,6 +65,7 @@ class Scenario:
     late_every: int = 0
     description: str = ""
     futility: bool = False
+    stop_at_crossing: bool = True  # False keeps every look (the scale benchmark wants exact counts)
 
 
 SCENARIOS = (
@@ -188,7 +189,7 @@ def _looks_for(scenario, rng, start, interval):
         if s.cluster_by is not None:
             row["decision"] = "awaiting_clusters"
         rows.append(row)
-        if s.state == "difference_found" and abs(statistic) >= boundary:
+        if s.stop_at_crossing and s.state == "difference_found" and abs(statistic) >= boundary:
             break  # a crossing stops the comparison at this look
     # The last look carries the scenario's final decision.
     last = rows[-1]
@@ -344,7 +345,7 @@ def seed_many(url, *, comparisons=200, looks=5000, now=NOW, seed=7):
                     f"{base.name}-{i:03d}", base.groups, base.metric, base.method, base.true_means,
                     base.sds, planned_per_group=per * 150, per_look=(100, 104), looks=per,
                     every=base.every, state=states[i % len(states)] if states[i % len(states)] != "data_problem" else "collecting",
-                    design_effect=base.design_effect,
+                    design_effect=base.design_effect, stop_at_crossing=False,
                 )
                 _add(session, s, rng, now=now, alerts=(i % 10 == 0))
     finally:
