@@ -14,7 +14,8 @@ from pathlib import Path
 from .feed import create_databases, database_path, fed_until
 from .scenario import COMPANY, DATABASES, DEFAULT_SEED, LIVE_START
 
-__all__ = ["CONFIG_NAME", "STORE_NAME", "LOG_NAME", "DemoFolder", "config_text", "prepare_folder", "is_demo_folder"]
+__all__ = ["CONFIG_NAME", "STORE_NAME", "LOG_NAME", "DemoFolder", "comparisons", "config_text", "prepare_folder",
+           "is_demo_folder", "folder_seed"]
 
 CONFIG_NAME = "gapwatch.toml"
 STORE_NAME = "gapwatch-store.sqlite"

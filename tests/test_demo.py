@@ -187,7 +187,7 @@ def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
 
 def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path):
     from monitor.config import load_config
-    from monitor.source import Source, Watermark
+    from monitor.source import Source
 
     create_databases(tmp_path)
     (tmp_path / CONFIG_NAME).write_text(config_text())
