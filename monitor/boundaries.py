@@ -375,6 +375,14 @@ class FutilitySpec:
     drift : float
         Expected z at fraction 1 under the planned difference (nonzero; its
         sign picks the side of a two-sided design).
+
+    Examples
+    --------
+    >>> spec = FutilitySpec("hsd:-2", 0.1, 2.9)
+    >>> b = SequentialBoundary(0.025, "hsd:-4", "greater", futility=spec)
+    >>> first = b.add_look(0.5)
+    >>> round(first.z, 3), round(first.futility_z, 3)
+    (2.75, 0.122)
     """
 
     spending: SpendingFunction
