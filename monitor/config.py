@@ -804,6 +804,10 @@ class _Checker:
         if planned is not None:
             if not isinstance(planned, int) or isinstance(planned, bool) or planned < 2:
                 p("planned_per_group", f"must be an integer of at least 2; got {planned!r}")
+            if v.get("futility") is True:
+                p("futility", "needs the planning inputs (difference + sd, or p1 + p2, and power) "
+                              "instead of planned_per_group: the futility boundary is built from the "
+                              "planned difference")
             if planning_keys:
                 p("planned_per_group", f"give planned_per_group or the planning inputs "
                                        f"({', '.join(planning_keys)}), not both")

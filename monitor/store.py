@@ -123,10 +123,17 @@ _VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
 
 
 def _revision_on(connection) -> str | None:
-    if not sa.inspect(connection).has_table("alembic_version"):
-        return None
-    # A plain read of Alembic's version table: cheap enough for every look.
-    return connection.execute(sa.select(_VERSION_TABLE.c.version_num)).scalar()
+    try:
+        # A plain read of Alembic's version table: cheap enough for every look.
+        return connection.execute(sa.select(_VERSION_TABLE.c.version_num)).scalar()
+    except sa.exc.DBAPIError:
+        # No version table (an empty store), or a real failure: tell them apart.
+        # Nothing was read yet, so rolling back loses nothing (and clears an
+        # aborted PostgreSQL transaction).
+        connection.rollback()
+        if not sa.inspect(connection).has_table("alembic_version"):
+            return None
+        raise
 
 
 def current_revision(engine) -> str | None:

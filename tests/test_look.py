@@ -398,3 +398,59 @@ def test_buckets_in_a_time_zone_across_daylight_saving():
     starts = ("06:00", "14:00", "22:00")
     assert bucket_key(int(at(3, 3).timestamp()), "shift", ZoneInfo("UTC"), starts) == "2026-03-02T22:00+00:00"
     assert bucket_end("2026-03-02T22:00+00:00", "shift", ZoneInfo("UTC"), starts) == at(3, 6)
+
+
+def test_futility_boundary_stops_for_no_material_difference(tmp_path):
+    from monitor.boundaries import FutilitySpec
+    from monitor.planning import plan_mean
+
+    rng = np.random.default_rng(17)
+    keys = dict(planned_per_group=None, alternative="greater", difference=5.0, sd=10.0, power=0.8, looks=4,
+                futility=True)
+    w = World(tmp_path, _rows(rng, 600, east=97.0, west=100.0), **keys)  # east is worse, not better
+    plan = plan_mean(5.0, 10.0, alpha=0.05, power=0.8, alternative="greater", looks=4, futility=True)
+    assert w.comparison.planned == plan.max_per_group
+    fresh = SequentialBoundary(0.05, "obrien-fleming", "greater", futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
+    decisions = []
+    for hours in (2, 4, 6, 8, 12, 16):
+        record = w.look(T0 + timedelta(hours=hours))
+        if record is None:
+            break
+        expected = fresh.add_look(record.fraction)
+        assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
+        assert w.looks()[-1].futility_z == pytest.approx(expected.futility_z, rel=1e-9)
+        z_equivalent = stats.norm.isf(stats.t.sf(record.statistic, record.df))
+        if record.decision == "no_material_difference":
+            assert z_equivalent < expected.futility_z
+        decisions.append(record.decision)
+    assert decisions[-1] == "no_material_difference"
+    assert decisions[:-1] == ["collecting"] * (len(decisions) - 1)
+
+
+def test_final_look_without_crossing_completes_the_plan(tmp_path):
+    rng = np.random.default_rng(18)
+    w = World(tmp_path, _rows(rng, 300), planned_per_group=100)
+    first = w.look(T0 + timedelta(hours=4))  # 80 events: fraction 0.4
+    assert first.decision == "collecting" and first.fraction == pytest.approx(0.4)
+    final = w.look(T0 + timedelta(hours=12))  # 120 per group: past the plan
+    assert final.fraction > 1 and final.p_value > 0.05
+    assert final.decision == "plan_complete"
+    last = w.looks()[-1]
+    assert last.cumulative_alpha == pytest.approx(0.05)
+    assert last.detail["after_stop"]["p_value"] > 0.05
+    with w.engine.connect() as conn:
+        alert = conn.execute(sa.select(Alert)).one()
+    assert alert.kind == "plan_complete" and "without a difference being found" in alert.payload["message"]
+
+
+def test_one_sided_less_reads_the_lower_tail(tmp_path):
+    rng = np.random.default_rng(19)
+    w = World(tmp_path, _rows(rng, 800, east=96.0), alternative="less", planned_per_group=300)
+    record = w.look(T0 + timedelta(hours=20))
+    raw = w.raw()
+    upto = raw[raw.done_at <= pd.Timestamp(record.cutoff)]
+    ref = stats.ttest_ind(upto[upto.site == "east"].seconds, upto[upto.site == "west"].seconds,
+                          equal_var=False, alternative="less")
+    assert record.p_value == pytest.approx(ref.pvalue, rel=1e-7)
+    assert record.ci_low is None and record.ci_high is not None
+    assert record.decision == "difference_found"
