@@ -454,3 +454,18 @@ def test_one_sided_less_reads_the_lower_tail(tmp_path):
     assert record.p_value == pytest.approx(ref.pvalue, rel=1e-7)
     assert record.ci_low is None and record.ci_high is not None
     assert record.decision == "difference_found"
+
+
+def test_holder_claims_the_comparison_for_the_look(tmp_path):
+    from monitor.claims import current_holder, try_claim
+    from monitor.errors import ClaimHeldError
+
+    w = World(tmp_path, _rows(np.random.default_rng(20), 100))
+    as_of = T0 + timedelta(hours=3)
+    assert try_claim(w.engine, "handle-time", "worker-b", now=as_of, seconds=60) is not None
+    with pytest.raises(ClaimHeldError):
+        w.look(as_of, holder="worker-a")
+    assert w.count(Look) == 0
+    later = as_of + timedelta(minutes=5)  # worker-b's claim has expired
+    assert w.look(later, holder="worker-a").look == 1
+    assert current_holder(w.engine, "handle-time", now=later) is None  # released after the look
