@@ -389,22 +389,22 @@ def test_fractions_must_strictly_increase(bad):
 def test_looks_closer_than_the_minimum_increment_are_refused():
     boundary = SequentialBoundary(0.05, "pocock", "two-sided")
     boundary.add_look(0.5)
-    with pytest.raises(InvalidArgumentError, match="0.5000004"):
-        boundary.add_look(0.5000004)
+    with pytest.raises(InvalidArgumentError, match="0.50000004"):
+        boundary.add_look(0.50000004)
     with pytest.raises(InvalidArgumentError, match="too little new information"):
-        crossing_probabilities([0.5, 0.5000004], [2.0, 2.0])
+        crossing_probabilities([0.5, 0.50000004], [2.0, 2.0])
 
 
 def test_smallest_allowed_increment_is_accurate_and_harmless():
     # A look a hair after another spends next to nothing, so later boundaries
     # barely move compared with the design that skips it.
-    with_tiny = efficacy_boundaries([0.3, 0.3 + 1.5e-6, 0.6, 1.0], 0.05, "pocock", "two-sided")
+    with_tiny = efficacy_boundaries([0.3, 0.3 + 1.5e-7, 0.6, 1.0], 0.05, "pocock", "two-sided")
     without = efficacy_boundaries([0.3, 0.6, 1.0], 0.05, "pocock", "two-sided")
     assert math.isfinite(with_tiny[1].z)
     assert with_tiny[2].z == pytest.approx(without[1].z, abs=1e-4)
     assert with_tiny[3].z == pytest.approx(without[2].z, abs=1e-4)
     z = [b.z for b in with_tiny]
-    up, low = crossing_probabilities([0.3, 0.3 + 1.5e-6, 0.6, 1.0], z, [-x for x in z])
+    up, low = crossing_probabilities([0.3, 0.3 + 1.5e-7, 0.6, 1.0], z, [-x for x in z])
     assert up.sum() + low.sum() == pytest.approx(0.05, abs=1e-8)
 
 

@@ -73,7 +73,7 @@ def test_table_explains_the_boundary(capsys):
         (["--fractions", "0.5,x"], "'x'"),
         (["--fractions", "0.5,,1"], "--fractions"),
         (["--fractions", "1,1.5"], "final look"),
-        (["--fractions", "0.5,0.5000001,1"], "'0.5000001'"),
+        (["--fractions", "0.5,0.50000001,1"], "'0.50000001'"),
         (["--fractions", "0.5,1", "--alpha", "1.5"], "'1.5'"),
         (["--fractions", "0.5,1", "--alpha", "0"], "--alpha"),
         (["--fractions", "0.5,1", "--alpha", "abc"], "'abc'"),
