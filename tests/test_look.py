@@ -469,3 +469,43 @@ def test_holder_claims_the_comparison_for_the_look(tmp_path):
     later = as_of + timedelta(minutes=5)  # worker-b's claim has expired
     assert w.look(later, holder="worker-a").look == 1
     assert current_holder(w.engine, "handle-time", now=later) is None  # released after the look
+
+
+def _cells(world):
+    with world.engine.connect() as conn:
+        return {(c.kind, c.group_index, c.key): (c.n, c.sum_dev, c.sum_dev2)
+                for c in conn.execute(sa.select(Cell))}
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_many_small_looks_add_up_to_one_big_look(tmp_path, seed):
+    rng = np.random.default_rng(seed)
+    rows = _rows(rng, 2000, step_minutes=4, day_sd=2.0)
+    keys = dict(method="paired", pair_by="hour", planned_per_group=100000, timezone="America/Chicago")
+    many = World(tmp_path / "many" if (tmp_path / "many").mkdir() is None else None, rows, **keys)
+    one = World(tmp_path / "one" if (tmp_path / "one").mkdir() is None else None, rows, **keys)
+    end = T0 + timedelta(days=5)
+    moments = sorted(T0 + timedelta(minutes=float(m)) for m in rng.uniform(0, 5 * 24 * 60, size=12))
+    for moment in moments + [end]:
+        last = many.look(moment)
+    single = one.look(end)
+    a, b = _cells(many), _cells(one)
+    assert a.keys() == b.keys()
+    for key in a:
+        assert a[key][0] == b[key][0]
+        assert a[key][1:] == pytest.approx(b[key][1:], rel=1e-9, abs=1e-6)
+    assert (last.n1, last.n2, last.pairs) == (single.n1, single.n2, single.pairs)
+    assert last.estimate == pytest.approx(single.estimate, rel=1e-9)
+
+
+def test_swapping_the_groups_flips_the_estimate(tmp_path):
+    rows = _rows(np.random.default_rng(22), 500, east=102.0)
+    forward = World(tmp_path / "f" if (tmp_path / "f").mkdir() is None else None, rows, planned_per_group=600)
+    backward = World(tmp_path / "b" if (tmp_path / "b").mkdir() is None else None, rows, planned_per_group=600,
+                     groups=["west", "east"])
+    a, b = forward.look(T0 + timedelta(hours=20)), backward.look(T0 + timedelta(hours=20))
+    assert (a.n1, a.n2) == (b.n2, b.n1)
+    assert a.estimate == pytest.approx(-b.estimate, rel=1e-9)
+    assert a.p_value == pytest.approx(b.p_value, rel=1e-9)
+    assert a.ci_low is not None and a.ci_low == pytest.approx(-b.ci_high, rel=1e-9)
+    assert a.decision == b.decision
