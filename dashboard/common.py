@@ -397,6 +397,18 @@ def history_frame(looks):
     return frame
 
 
+def futility_direction(row):
+    """``d`` of the futility rule ``d·Z < f``: the planned direction of the difference."""
+    alternative = row.get("alternative") or "two-sided"
+    if alternative in ("greater", "less"):
+        return 1 if alternative == "greater" else -1
+    inputs = ((row.get("design") or {}).get("plan") or {}).get("inputs") or {}
+    planned = inputs.get("difference")
+    if planned is None and inputs.get("p1") is not None and inputs.get("p2") is not None:
+        planned = inputs["p1"] - inputs["p2"]
+    return -1 if planned is not None and planned < 0 else 1
+
+
 def boundary_chart(row, frame):
     """Test statistic at each look against the efficacy (and futility) boundary, by information fraction."""
     data = frame.dropna(subset=["statistic", "fraction"])
@@ -415,7 +427,7 @@ def boundary_chart(row, frame):
                               "line": "efficacy boundary", "side": "lower"})
         f = look.get("futility_z")
         if f is not None and pd.notna(f):
-            sign = -1 if alternative == "less" else 1
+            sign = futility_direction(row)
             lines.append({"look": look["look"], "fraction": look["fraction"], "z": sign * f,
                           "line": "futility boundary", "side": "futility"})
     legend = ["test statistic", "efficacy boundary"]
@@ -628,15 +640,28 @@ def show_comparison(url, name, version=None):
         q[1].metric("Late events", f"{late_total:,}")
         q[2].metric("Effective n", fmt(row["effective_n"]) if row["effective_n"] is not None else "—",
                     help="events divided by the design effect")
-        st.caption(
-            f"n = {row['n1']:,} / {row['n2']:,} · clusters {fmt(row['clusters'])} · "
-            f"design effect {fmt(row['design_effect'], 3)} · effective n {fmt(row['effective_n'])}"
-        )
+        beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
+        if row["clusters"] is not None:
+            beside.append(f"{row['clusters']} clusters")
+        if row["design_effect"] is not None:
+            beside.append(f"day-level design effect {fmt(row['design_effect'], 3)}")
+        if row["effective_n"] is not None:
+            beside.append(f"effective n {fmt(row['effective_n'])}")
+        st.caption(" · ".join(beside))
         chart = excluded_chart(looks)
         if chart is not None:
             st.altair_chart(chart, width="stretch")
         else:
             st.caption("No rows excluded so far.")
+        days = cells(url, row["name"], row["version"]).get("day", [])
+        if days:
+            count = len({c["key"] for c in days})
+            with st.expander(f"Events per day ({count} {'day' if count == 1 else 'days'})"):
+                groups = row.get("groups") or ["group 1", "group 2"]
+                per_day = pd.DataFrame(days).pivot_table(index="key", columns="group", values=["n", "mean"])
+                per_day.columns = [f"{stat} {group}" for stat, group in per_day.columns]
+                order = [f"{stat} {g}" for stat in ("n", "mean") for g in groups if f"{stat} {g}" in per_day]
+                st.dataframe(per_day[order].rename_axis("day"), width="stretch")
 
     st.markdown("##### Look history")
     if looks:

@@ -89,7 +89,7 @@ SCENARIOS = (
     Scenario(
         "line-output-shift", ("line-1", "line-2"), "mean", "welch", (412.0, 410.5), (18.0, 19.0),
         planned_per_group=900, per_look=(60, 58), looks=4, every="*/30 * * * *", state="collecting",
-        version=2, description="Units per shift on the two packing lines",
+        version=2, futility=True, description="Units per shift on the two packing lines",
     ),
     Scenario(
         "dock-turnaround", ("north", "south"), "mean", "welch", (47.0, 47.2), (12.0, 12.5),
@@ -173,7 +173,9 @@ def _looks_for(scenario, rng, start, interval):
             mean1=means[0], mean2=means[1], sd1=math.sqrt(var[0]), sd2=math.sqrt(var[1]),
             estimate=estimate, standard_error=se, statistic=statistic, df=df, p_value=p_value,
             information=1.0 / se ** 2, boundary_z=boundary,
-            futility_z=(0.2 * k if s.futility else None),
+            # shaped like a beta-spending futility bound: low early, meeting the efficacy bound at t = 1
+            futility_z=(min(boundary, 2.8 * math.sqrt(fraction) - 0.84 / math.sqrt(fraction))
+                        if s.futility else None),
             nominal_p=float(stats.norm.sf(boundary)), cumulative_alpha=_spent(z_alpha, fraction),
             ci_low=estimate - boundary * se, ci_high=estimate + boundary * se,
             clusters=(s.clusters + k if s.clusters is not None else None),

@@ -105,9 +105,12 @@ def test_comparison_page_opens_from_the_query_and_shows_the_store(store):
     assert "never replaces, operational judgement" in reading
     assert any("design effect" in w.value for w in at.warning)
     assert len(at.get("download_button")) == 1
-    table = at.dataframe[0].value
+    table = at.dataframe[-1].value
     assert list(table["look"]) == list(range(1, 10))
     assert table["n1"].iloc[-1] == row["n1"]
+    per_day = at.dataframe[0].value  # the day cells, inside the data-quality expander
+    cells = readback.cells_by_kind(engine, "pick-seconds")["day"]
+    assert per_day["n east"].sum() == sum(c["n"] for c in cells if c["group"] == "east") == row["n1"]
 
 
 def test_comparison_page_switches_comparison_and_shows_the_stop(store):
@@ -127,6 +130,7 @@ def test_comparison_page_offers_versions(store):
     at = _app("views/comparison.py", name="line-output-shift")
     radio = at.radio(key="version_line-output-shift")
     assert radio.value == 2 and radio.options == ["v1 (archived)", "v2 (live)"]
+    assert "futility boundary" in at.get("vega_lite_chart")[0].proto.spec  # the live plan uses one
     radio.set_value(1).run()
     assert not at.exception
     assert _metrics(at)["Looks"] == "6"

@@ -20,7 +20,7 @@ import sqlalchemy as sa
 
 from monitor import readback
 from monitor.commands.status import fmt
-from monitor.models import Alert
+from monitor.models import Alert, Comparison, Look
 
 import store_seed
 
@@ -86,6 +86,23 @@ def served(tmp_path):
             proc.wait()
 
 
+def _record_next_look(engine, name, extra):
+    """Append one look to a comparison, as the service would: ``extra`` more events per group."""
+    with engine.begin() as conn:
+        comp = conn.execute(sa.select(Comparison.id, Comparison.looks_taken).where(
+            Comparison.name == name, Comparison.archived.is_(False))).one()
+        last = conn.execute(sa.select(*Look.__table__.columns).where(
+            Look.comparison_id == comp.id, Look.look_number == comp.looks_taken)).mappings().one()
+        row = {k: v for k, v in last.items() if k != "id"}
+        now = datetime.now(timezone.utc)
+        row.update(look_number=comp.looks_taken + 1, n1=last["n1"] + extra, n2=last["n2"] + extra,
+                   as_of=now, cutoff=now, recorded_at=now)
+        conn.execute(sa.insert(Look).values(**row))
+        conn.execute(sa.update(Comparison).where(Comparison.id == comp.id)
+                     .values(looks_taken=comp.looks_taken + 1, last_look_at=now))
+        return row["n1"], row["n2"]
+
+
 def _settled(page, timeout=60_000):
     """Wait until Streamlit has finished running the script and drawn its placeholders."""
     page.wait_for_function(
@@ -118,6 +135,17 @@ def test_board_comparison_and_acknowledgement_in_chromium(served):
                     assert f"{fmt(row['estimate'])} [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]" in text
             assert "design effect" in board.inner_text()
             page.screenshot(path=str(ARTIFACTS / "board.png"))
+
+            # the board refreshes itself: a new look appears without a reload, and the filter stays
+            page.get_by_label("Find a comparison").fill("pick")
+            page.get_by_label("Find a comparison").press("Enter")
+            page.wait_for_function(
+                "() => document.querySelectorAll('table.gw-board tr.gw-row').length === 1", timeout=30_000)
+            n1, n2 = _record_next_look(engine, "pick-seconds", 37)
+            page.wait_for_selector(f"table.gw-board >> text={n1:,} / {n2:,}", timeout=40_000)
+            assert page.get_by_label("Find a comparison").input_value() == "pick"
+            assert page.locator("table.gw-board tr.gw-row").count() == 1
+            rows["pick-seconds"] = next(r for r in readback.comparison_status(engine) if r["name"] == "pick-seconds")
 
             # open a comparison from its link on the board
             page.locator("table.gw-board a:text-is('pick-seconds')").click()
