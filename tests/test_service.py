@@ -245,7 +245,9 @@ def test_looks_on_schedule_and_alert_delivered_when_receiver_returns(site):
     looks = assert_looks_consistent(engine, site["source_path"], "call-seconds", "calls", min_looks=5)
     # The collecting comparison kept looking about once a second.
     gaps = [(b.as_of - a.as_of).total_seconds() for a, b in zip(looks, looks[1:])]
-    assert all(0.5 < g < 3.0 for g in gaps), gaps
+    # (A tick delayed by load is followed by the next one on the grid, so only an upper bound holds.)
+    assert all(0 < g < 5.0 for g in gaps), gaps
+    assert sum(gaps) / len(gaps) < 2.0, gaps
     assert alerts_of(engine, "call-seconds") == []
     # One structured line per look.
     look_lines = [ln for ln in log.splitlines() if " look comparison=call-seconds " in ln]
@@ -278,6 +280,8 @@ def test_source_taken_away_and_back(site):
                     when = (datetime.now(UTC) - timedelta(seconds=1)).replace(tzinfo=None).isoformat(sep=" ")
                     conn.executemany('INSERT INTO "calls_away" (site, seconds, done_at) VALUES (?, ?, ?)',
                                      [("east", 301.0, when), ("west", 299.0, when)] * 5)
+                # Keep it away for six seconds in all, to see the backoff at work.
+                time.sleep(max(0.0, 6.0 - (datetime.now(UTC) - away_at).total_seconds()))
                 during = len(looks_of(engine, "call-seconds"))
                 with sqlite3.connect(site["source_path"], timeout=30) as conn:
                     conn.execute('ALTER TABLE "calls_away" RENAME TO "calls"')
@@ -298,9 +302,10 @@ def test_source_taken_away_and_back(site):
     assert len(alerts_of(engine, kind="source_recovered")) == 1
     log = service.log()
     failures = [ln for ln in log.splitlines() if "look failed comparison=call-seconds reason=source" in ln]
-    # Backoff: fewer attempts than one-second ticks while the source was away.
+    # Backoff: attempts 1, 2, 4, ... seconds apart (capped at 4 s), not one per one-second tick.
     seconds_away = (back_at - away_at).total_seconds()
-    assert 1 <= len(failures) < seconds_away
+    assert seconds_away >= 6.0
+    assert 2 <= len(failures) <= 2 + seconds_away / 4, (len(failures), seconds_away)
 
 
 def _set_view(path, slow: bool):
