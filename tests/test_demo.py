@@ -250,6 +250,36 @@ def test_prepare_refuses_a_folder_of_other_files(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["notes.txt"]
 
 
+def test_rehearsal_tells_the_story_with_the_default_seed(tmp_path):
+    """The real look code on the demo data, in simulated time only (no waiting on real time)."""
+    from demo_db.rehearsal import rehearse
+
+    result = rehearse(tmp_path / "demo", hours=40, step_hours=2)
+    pick = result.stop("pick-seconds")
+    assert pick is not None and pick[1] == "difference_found" and pick[0] <= 24, pick
+    assert result.looks["pick-seconds"][-1][2].estimate < 0
+    assert "difference_found" not in result.decisions("desk-first-contact")
+    fill = result.stop("fill-giveaway")
+    assert fill is not None and fill[1] == "plan_complete", fill
+    assert "difference_found" not in result.decisions("fill-giveaway")
+    line = result.looks["line-daily-output"]
+    assert all(record.pairs is not None for _, _, record in line)
+    # Delivery drops are judged on days: none until four days are in.
+    delivery = result.looks["delivery-lateness"]
+    assert delivery[0][1] == "awaiting_clusters"
+    assert {d for _, d, r in delivery if (r.clusters or 0) >= 4} <= {"collecting", "difference_found"}
+    assert any(d == "collecting" for _, d, _ in delivery)
+    # Bench 2 opens on Thursday 09:00: a data problem before, a comparison after.
+    opens = EPOCH + timedelta(days=scenario.BENCH_TWO_OPENS_DAY, hours=scenario.BENCH_TWO_OPENS_HOUR)
+    returns = result.looks["returns-grading"]
+    assert {d for at, d, _ in returns if at < opens} == {"data_problem"}
+    assert returns[-1][1] == "collecting"
+    # Late rows are picked up and counted, bad rows excluded and counted.
+    late = sum(r.late_events for looks in result.looks.values() for _, _, r in looks)
+    excluded = sum(sum(r.excluded.values()) for looks in result.looks.values() for _, _, r in looks)
+    assert late > 0 and excluded > 0
+
+
 # ------------------------------------------------------------ gapwatch demo, end to end
 
 def _gapwatch(args, *, cwd, env=None, timeout=240):
