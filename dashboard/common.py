@@ -372,20 +372,6 @@ def reading(row, looks):
     return lines
 
 
-def adjusted_inference(detail):
-    """The adjusted estimate and p-value recorded at a stop, whatever the exact key names."""
-    if not isinstance(detail, dict):
-        return {}
-    found = {}
-    for key in ("adjusted", "after_stop", "inference"):
-        if isinstance(detail.get(key), dict):
-            found.update(detail[key])
-    for key, value in detail.items():
-        if any(word in key for word in ("median_unbiased", "stagewise", "adjusted_")) and not isinstance(value, dict):
-            found[key] = value
-    return found
-
-
 # ---------------------------------------------------------------------------
 # charts
 
@@ -515,7 +501,7 @@ def group_chart(row, frame):
 
 def excluded_chart(looks):
     rows = [{"look": h["look"], "reason": reason.replace("_", " "), "count": count}
-            for h in looks for reason, count in h["excluded"].items() if count]
+            for h in looks for reason, count in h["excluded_new"].items() if count]
     if not rows:
         return None
     return alt.Chart(pd.DataFrame(rows)).mark_bar(size=18).encode(
@@ -599,17 +585,17 @@ def show_comparison(url, name, version=None):
     st.markdown("##### What this means")
     st.html('<div class="gw-reading">' + "".join(f"<p>{html.escape(p)}</p>" for p in reading(row, looks)) + "</div>")
 
-    if row["stopped"] and looks:
-        adjusted = adjusted_inference(looks[-1]["detail"])
-        if adjusted:
-            st.markdown("##### After the stop")
-            a = st.columns(3)
-            est = adjusted.get("estimate", adjusted.get("median_unbiased_estimate"))
-            pval = adjusted.get("p_value", adjusted.get("stagewise_p_value"))
-            a[0].metric("Adjusted estimate", fmt(est), help="median-unbiased: corrects the overstatement of a stop")
-            a[1].metric("Adjusted p-value", fmt(pval, 3), help="stagewise ordering of the sample space")
-            lo, hi = adjusted.get("ci_low"), adjusted.get("ci_high")
-            a[2].metric("Adjusted interval", f"[{fmt(lo)}, {fmt(hi)}]" if lo is not None or hi is not None else "—")
+    adjusted = row.get("adjusted")
+    if row["stopped"] and adjusted:
+        st.markdown("##### After the stop")
+        a = st.columns(3)
+        a[0].metric("Adjusted estimate", fmt(adjusted["estimate"]),
+                    help="median-unbiased: corrects the overstatement of an estimate taken at a stop")
+        a[1].metric("Adjusted p-value", fmt(adjusted["p_value"], 3), help="stagewise ordering of the outcomes")
+        lo, hi = adjusted["ci_low"], adjusted["ci_high"]
+        a[2].metric("Adjusted interval", f"[{fmt(lo)}, {fmt(hi)}]" if lo is not None or hi is not None else "—")
+        if adjusted.get("note"):
+            st.caption(adjusted["note"])
 
     left, right = st.columns(2)
     with left:
@@ -633,7 +619,7 @@ def show_comparison(url, name, version=None):
         st.table(pd.DataFrame(_plan_lines(row), columns=["setting", "value"]).set_index("setting"))
     with quality_col:
         st.markdown("##### Data quality")
-        excluded_total = sum(h["excluded_total"] for h in looks)
+        excluded_total = looks[-1]["excluded_total"] if looks else 0  # running totals
         late_total = sum(h["late_events"] for h in looks)
         q = st.columns(3)
         q[0].metric("Rows excluded", f"{excluded_total:,}")

@@ -38,6 +38,7 @@ __all__ = [
     "list_alerts",
     "acknowledge_alert",
     "next_look_time",
+    "adjusted_inference",
     "store_url_from_config",
     "open_store",
 ]
@@ -278,6 +279,30 @@ def _rates(looks):
     return rate1, rate2, fraction_rate
 
 
+def adjusted_inference(detail):
+    """The inference recorded at a stop, in one shape: estimate, p_value, ci_low, ci_high, note.
+
+    ``estimate`` is the median-unbiased estimate and ``p_value`` the
+    stagewise-ordering p-value; ``None`` when the look recorded none.
+    """
+    if not isinstance(detail, dict):
+        return None
+    raw = detail.get("after_stop")
+    if not isinstance(raw, dict):
+        return None
+    ci = raw.get("adjusted_ci") or [None, None]
+    out = {
+        "estimate": _num(raw.get("median_unbiased_estimate")),
+        "p_value": _num(raw.get("p_value")),
+        "ci_low": _num(ci[0]) if len(ci) > 0 else None,
+        "ci_high": _num(ci[1]) if len(ci) > 1 else None,
+        "naive_estimate": _num(raw.get("naive_estimate")),
+        "stop_look": raw.get("stop_look"),
+        "note": raw.get("note"),
+    }
+    return out
+
+
 def _status_row(comp, looks, now):
     design = comp["design"] or {}
     settings = comp["settings"] or {}
@@ -357,7 +382,7 @@ def _status_row(comp, looks, now):
         "events_per_hour": [_num(rate1), _num(rate2)] if rate1 is not None else None,
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
-        "adjusted": _clean((last["detail"] or {}).get("adjusted")) if last is not None and stopped else None,
+        "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
     }
 
 
@@ -452,8 +477,17 @@ def look_history(engine, name, version=None):
             .order_by(Look.look_number)
         ).mappings().all()
     history = []
+    previous = {}
     for r in rows:
+        # Look.excluded holds running totals by reason; what this look added is in the detail
+        # (or, for looks written without it, the change from the look before).
         excluded = _clean(r["excluded"] or {})
+        detail = r["detail"] or {}
+        if isinstance(detail.get("excluded_new"), dict):
+            excluded_new = _clean(detail["excluded_new"])
+        else:
+            excluded_new = {k: v - previous.get(k, 0) for k, v in excluded.items() if v - previous.get(k, 0) > 0}
+        previous = excluded
         history.append({
             "name": comp["name"],
             "version": comp["version"],
@@ -472,6 +506,7 @@ def look_history(engine, name, version=None):
             "late_events": r["late_events"],
             "excluded": excluded,
             "excluded_total": int(sum(v for v in excluded.values() if isinstance(v, (int, float)))),
+            "excluded_new": excluded_new,
             "estimate": _num(r["estimate"]),
             "standard_error": _num(r["standard_error"]),
             "statistic": _num(r["statistic"]),
@@ -490,18 +525,20 @@ def look_history(engine, name, version=None):
             "effective_n": _num(r["effective_n"]),
             "decision": r["decision"],
             "warnings": [str(w) for w in (r["warnings"] or [])],
-            "detail": _clean(r["detail"] or {}),
+            "detail": _clean(detail),
+            "adjusted": adjusted_inference(detail),
             "duration_ms": _num(r["duration_ms"]),
         })
     return history
 
 
 def excluded_by_reason(engine, name, version=None):
-    """Excluded rows per look and reason, as long rows: look, as_of, reason, count."""
+    """Rows excluded by each look, per reason, as long rows: look, as_of, reason, count, running_total."""
     out = []
     for look in look_history(engine, name, version):
-        for reason, count in sorted(look["excluded"].items()):
-            out.append({"look": look["look"], "as_of": look["as_of"], "reason": reason, "count": count})
+        for reason, count in sorted(look["excluded_new"].items()):
+            out.append({"look": look["look"], "as_of": look["as_of"], "reason": reason, "count": count,
+                        "running_total": look["excluded"].get(reason, count)})
     return out
 
 

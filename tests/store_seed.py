@@ -121,8 +121,13 @@ def _looks_for(scenario, rng, start, interval):
     shift = float(round(s.true_means[0])) if s.metric == "mean" else 0.0
     rows = []
     days = {}
+    excluded = {}
     for k in range(1, s.looks + 1):
         as_of = start + interval * k
+        # Look.excluded holds running totals by reason; detail["excluded_new"] what the look added.
+        new_excluded = dict(s.excluded) if k == 1 or k % 2 == 0 else {}
+        for reason, count in new_excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
         for g in (0, 1):
             m = s.per_look[g]
             if m == 0:
@@ -144,8 +149,8 @@ def _looks_for(scenario, rng, start, interval):
             look_number=k, as_of=as_of, cutoff=as_of - timedelta(seconds=30),
             recorded_at=as_of + timedelta(seconds=2), n1=n[0], n2=n[1],
             new_events=sum(s.per_look), late_events=(2 if s.late_every and k % s.late_every == 0 else 0),
-            excluded=dict(s.excluded) if k == 1 or k % 2 == 0 else {},
-            fraction=fraction, warnings=[], detail={}, duration_ms=float(3.0 + rng.random()),
+            fraction=fraction, warnings=[], duration_ms=float(3.0 + rng.random()),
+            excluded=dict(excluded), detail={"shift": shift, "excluded_new": new_excluded},
         )
         if min(n) < 2:
             row.update(decision="data_problem", warnings=["group crew-red has no events"])
@@ -197,16 +202,14 @@ def _looks_for(scenario, rng, start, interval):
     last = rows[-1]
     last["decision"] = s.state
     if s.state in ("difference_found", "plan_complete", "no_material_difference"):
-        last["detail"] = {
-            "fixed": {"p_value": last.get("p_value")},
-            "adjusted": {
-                "estimate": last["estimate"] * 0.93,
-                "p_value": min(1.0, (last.get("p_value") or 0.0) * 1.6),
-                "ci_low": last["ci_low"],
-                "ci_high": last["ci_high"],
-                "ordering": "stagewise",
-            },
-        }
+        # The shape monitor.look records; the numbers are a plausible shrinkage, not computed.
+        last["detail"] = dict(last["detail"], after_stop={
+            "stop_look": last["look_number"], "z_observed": last["statistic"],
+            "p_value": min(1.0, (last.get("p_value") or 0.0) * 1.6),
+            "median_unbiased_estimate": last["estimate"] * 0.93,
+            "adjusted_ci": [last["ci_low"] * 0.95, last["ci_high"] * 0.97],
+            "naive_estimate": last["estimate"],
+        })
     cells = [(g, "", n[g], sums[g], sums2[g]) for g in (0, 1) if n[g]]
     day_cells = [(g, day, c[0], c[1], c[2]) for (g, day), c in sorted(days.items())]
     return rows, shift, cells, day_cells

@@ -106,6 +106,7 @@ def test_history_csv_and_table(config, capsys):
     rows = list(csv.DictReader(io.StringIO(capsys.readouterr().out)))
     assert [r["look"] for r in rows] == ["1", "2", "3"]
     assert rows[0]["excluded_unknown_group"] == "14" and rows[0]["excluded_null_time"] == "3"
+    assert rows[1]["excluded_unknown_group"] == "28"  # running totals, as recorded
     assert rows[0]["n1"] == "0" and rows[0]["decision"] == "data_problem"
     assert main(["history", "pick-seconds", "--config", str(path)]) == 0
     table = capsys.readouterr().out.splitlines()

@@ -195,12 +195,41 @@ def test_cells_recover_the_group_means(seeded):
     assert sum(c["n"] for c in cells["day"] if c["group_index"] == 0) == last["n1"]
 
 
-def test_excluded_by_reason_is_long_and_complete(seeded):
+def test_excluded_rows_running_totals_and_per_look(seeded):
     engine, _ = seeded
     rows = readback.excluded_by_reason(engine, "repair-visit-minutes")
     assert {r["reason"] for r in rows} == {"unknown_group", "null_time"}
     history = readback.look_history(engine, "repair-visit-minutes")
-    assert sum(r["count"] for r in rows) == sum(h["excluded_total"] for h in history)
+    # Look.excluded holds running totals: what the looks added sums to the last total
+    assert sum(r["count"] for r in rows) == history[-1]["excluded_total"]
+    last_unknown = [r for r in rows if r["reason"] == "unknown_group"][-1]
+    assert last_unknown["running_total"] == history[-1]["excluded"]["unknown_group"]
+
+
+def test_excluded_per_look_without_the_detail_falls_back_to_differences(seeded):
+    engine, _ = seeded
+    before = readback.look_history(engine, "pick-seconds")
+    with engine.begin() as conn:
+        cid = conn.execute(sa.select(Comparison.id).where(Comparison.name == "pick-seconds")).scalar_one()
+        conn.execute(sa.update(Look).where(Look.comparison_id == cid).values(detail={}))
+    after = readback.look_history(engine, "pick-seconds")
+    assert [h["excluded_new"] for h in after] == [{k: v for k, v in h["excluded_new"].items() if v}
+                                                  for h in before]
+
+
+def test_adjusted_inference_after_a_stop(seeded):
+    engine, _ = seeded
+    row = readback.get_comparison(engine, "first-contact-rate")
+    with engine.connect() as conn:
+        detail = conn.execute(
+            sa.select(Look.detail).join(Comparison).where(Comparison.name == "first-contact-rate")
+            .order_by(Look.look_number.desc()).limit(1)).scalar_one()
+    raw = detail["after_stop"]
+    assert row["adjusted"]["estimate"] == pytest.approx(raw["median_unbiased_estimate"])
+    assert row["adjusted"]["p_value"] == pytest.approx(raw["p_value"])
+    assert [row["adjusted"]["ci_low"], row["adjusted"]["ci_high"]] == pytest.approx(raw["adjusted_ci"])
+    assert readback.get_comparison(engine, "pick-seconds")["adjusted"] is None
+    assert readback.adjusted_inference({"after_stop": {"note": "adjusted inference unavailable"}})["estimate"] is None
 
 
 def test_list_alerts_and_filters(seeded):
@@ -266,3 +295,49 @@ def test_status_and_acknowledge_on_postgres(pg_database_url):
         assert len(readback.look_history(engine, "pick-seconds")) == 9
     finally:
         engine.dispose()
+
+
+def test_reads_back_what_real_looks_recorded(tmp_path):
+    """Looks taken by monitor.look on a real source table, read back by the same functions the CLI uses."""
+    import numpy as np
+    from live_helpers import LiveWorld, at, event_rows, insert_events
+
+    rng = np.random.default_rng(11)
+    start = at(1, 6)
+    rows = event_rows(rng, 240, start, step_minutes=6, east=112.0, west=100.0, sd=10.0, day_sd=6.0)
+    rows += [{"site": "east", "seconds": None, "done_at": start + timedelta(minutes=7)},
+             {"site": "north", "seconds": 5.0, "done_at": start + timedelta(minutes=8)}]
+    world = LiveWorld(tmp_path, rows, planned_per_group=300, every="6h", description="pick seconds, real looks")
+    as_of = start
+    states = []
+    for _ in range(6):
+        as_of += timedelta(hours=6)
+        if world.look(as_of) is None:
+            break
+        states.append(readback.comparison_status(world.engine, now=as_of)[0]["state"])
+    status = readback.comparison_status(world.engine, include_archived=True, now=as_of)
+    json.dumps(status, allow_nan=False)
+    row = status[0]
+    history = readback.look_history(world.engine, "handle-time")
+    json.dumps(history, allow_nan=False)
+    raw = world.raw().dropna()
+    cutoff = datetime.fromisoformat(history[-1]["cutoff"])
+    seen = raw[raw["done_at"] <= cutoff]
+    assert row["n1"] == int((seen["site"] == "east").sum())
+    assert row["n2"] == int((seen["site"] == "west").sum())
+    assert row["looks"] == len(history) and row["groups"] == ["east", "west"]
+    assert row["planned_per_group"] == 300 and row["description"] == "pick seconds, real looks"
+    # Bad rows: counted once, as running totals, and per look where they were read
+    assert history[-1]["excluded"] == {"null_value": 1, "unknown_group": 1}
+    assert sum(sum(h["excluded_new"].values()) for h in history) == 2
+    # the estimate matches the raw rows (Welch difference of means)
+    east, west = seen[seen["site"] == "east"]["seconds"], seen[seen["site"] == "west"]["seconds"]
+    assert row["estimate"] == pytest.approx(east.mean() - west.mean(), rel=1e-9)
+    spent = [h["cumulative_alpha"] for h in history if h["cumulative_alpha"] is not None]
+    assert spent == sorted(spent)
+    if row["stopped"]:
+        assert row["adjusted"] is not None and row["adjusted"]["p_value"] is not None
+        assert row["next_look_at"] is None
+    else:
+        assert row["next_look_at"] == (as_of + timedelta(hours=6)).isoformat()
+    assert row["state"] == states[-1]
