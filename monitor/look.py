@@ -724,7 +724,7 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         engine, c, config, state, design, look_values, cells, changes, batch, new_state, alert_kind, as_of)
     if boundary is not None:
         # Recorded values as stored (a float column may round): the cache must match them.
-        _remember_boundary(comparison_id, design, seq)
+        _remember_boundary(engine, comparison_id, design, seq)
     timings["write"] = (_time.perf_counter() - t_write) * 1000.0
     return LookRecord(
         comparison=c.name, version=version, look=look_number, as_of=as_of, cutoff=cutoff,
@@ -756,7 +756,7 @@ def _resumed_boundary(engine, row, design, state, futility):
 
     last = state["last_boundary_look"]
     count = last.boundary_look if last is not None else 0
-    key = (row["id"], design_hash(_comparable(design))) if row is not None else None
+    key = (str(engine.url), row["id"], design_hash(_comparable(design))) if row is not None else None
     cached = _BOUNDARY_CACHE.pop(key, None) if key is not None else None
     if cached is not None:
         looks = cached.looks
@@ -783,10 +783,11 @@ def _boundary_looks(engine, comparison_id, count):
         ).all()
 
 
-def _remember_boundary(comparison_id, design, seq):
+def _remember_boundary(engine, comparison_id, design, seq):
     if len(_BOUNDARY_CACHE) >= _BOUNDARY_CACHE_SIZE:
         _BOUNDARY_CACHE.pop(next(iter(_BOUNDARY_CACHE)), None)
-    _BOUNDARY_CACHE[(comparison_id, design_hash(_comparable(design)))] = seq
+    # Keyed by store too: two stores may both hold a comparison with id 1.
+    _BOUNDARY_CACHE[(str(engine.url), comparison_id, design_hash(_comparable(design)))] = seq
 
 
 def _after_stop(seq, st, fraction, design, stagewise_p_value, median_unbiased_estimate):

@@ -509,3 +509,19 @@ def test_swapping_the_groups_flips_the_estimate(tmp_path):
     assert a.p_value == pytest.approx(b.p_value, rel=1e-9)
     assert a.ci_low is not None and a.ci_low == pytest.approx(-b.ci_high, rel=1e-9)
     assert a.decision == b.decision
+
+
+def test_boundary_resumed_from_the_store_equals_the_one_kept_in_memory(tmp_path):
+    rows = _rows(np.random.default_rng(23), 900, east=100.5)
+    kept = World(tmp_path / "k" if (tmp_path / "k").mkdir() is None else None, rows, planned_per_group=500)
+    resumed = World(tmp_path / "r" if (tmp_path / "r").mkdir() is None else None, rows, planned_per_group=500)
+    for hours in (5, 10, 15, 20, 25):
+        a = kept.look(T0 + timedelta(hours=hours))
+        look_module._BOUNDARY_CACHE.clear()  # as a freshly started process would
+        b = resumed.look(T0 + timedelta(hours=hours))
+        look_module._BOUNDARY_CACHE.clear()
+        if a is None:
+            assert b is None
+            break
+        assert (a.boundary_look, a.decision) == (b.boundary_look, b.decision)
+        assert a.boundary_z == b.boundary_z and a.nominal_p == b.nominal_p
