@@ -12,9 +12,11 @@ turns a late second writer into ``LookAlreadyRecordedError``.
 
 from __future__ import annotations
 
+import logging
 import os
 import secrets
 import socket
+import threading
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timedelta
@@ -26,6 +28,8 @@ from sqlalchemy.dialects import postgresql, sqlite
 
 from .errors import ClaimHeldError, InvalidArgumentError
 from .models import Lease
+
+log = logging.getLogger("gapwatch.claims")
 
 __all__ = ["Claim", "claim", "try_claim", "release", "renew", "current_holder", "make_holder"]
 
@@ -128,8 +132,20 @@ def current_holder(engine, name: str, *, now: datetime) -> str | None:
     return row.holder
 
 
+def _keep_renewed(engine, taken, seconds, clock, stop):
+    """Extend the claim every third of its length until ``stop`` is set."""
+    while not stop.wait(seconds / 3.0):
+        try:
+            if try_claim(engine, taken.name, taken.holder, now=clock(), seconds=seconds) is None:
+                log.warning("claim lost comparison=%s holder=%s (it expired and another worker took it)",
+                            taken.name, taken.holder)
+                return
+        except Exception as exc:  # noqa: BLE001 - a failed renewal only lets the claim expire
+            log.warning("claim renewal failed comparison=%s error=%s", taken.name, type(exc).__name__)
+
+
 @contextmanager
-def claim(engine, name: str, holder: str, *, now: datetime, seconds: float):
+def claim(engine, name: str, holder: str, *, now: datetime, seconds: float, renew_clock=None):
     """Hold the claim on comparison ``name`` for the ``with`` block.
 
     Parameters
@@ -145,6 +161,11 @@ def claim(engine, name: str, holder: str, *, now: datetime, seconds: float):
     seconds : float
         How long the claim lasts if never released (a crashed worker's claim
         frees itself after this).
+    renew_clock : callable, optional
+        When given (a function returning the aware "now"), a background thread
+        extends the claim every ``seconds / 3`` while the block runs, so a
+        look slower than ``seconds`` keeps its claim; a dead worker's claim
+        still expires, since nobody renews it.
 
     Raises
     ------
@@ -159,9 +180,18 @@ def claim(engine, name: str, holder: str, *, now: datetime, seconds: float):
     taken = try_claim(engine, name, holder, now=now, seconds=seconds)
     if taken is None:
         raise ClaimHeldError(f"comparison {name!r} is claimed by another worker")
+    stop = threading.Event()
+    renewer = None
+    if renew_clock is not None:
+        renewer = threading.Thread(target=_keep_renewed, args=(engine, taken, seconds, renew_clock, stop),
+                                   name=f"claim-renewal:{name}", daemon=True)
+        renewer.start()
     try:
         yield taken
     finally:
+        stop.set()
+        if renewer is not None:
+            renewer.join()
         try:
             release(engine, name, holder)
         except Exception:  # noqa: BLE001 - an unreleased claim only expires later

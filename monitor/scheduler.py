@@ -274,7 +274,8 @@ class Service:
                 if until is not None and (until - started).total_seconds() > slack:
                     log.debug("look skipped comparison=%s reason=source_backoff until=%s", name, until.isoformat())
                     return "backoff"
-            with claim(self.engine, name, self.holder, now=wall_clock(), seconds=service.lease_seconds):
+            with claim(self.engine, name, self.holder, now=wall_clock(), seconds=service.lease_seconds,
+                       renew_clock=wall_clock):
                 as_of = self.clock()
                 began = time.perf_counter()
                 # holder=None: the claim is ours already (take_look would claim again).

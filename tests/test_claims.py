@@ -210,3 +210,18 @@ def test_expiry_on_postgres(pg_database_url):
     assert try_claim(engine, "x", "b", now=T0 + timedelta(seconds=5), seconds=10) is None
     assert try_claim(engine, "x", "b", now=T0 + timedelta(seconds=10, microseconds=1), seconds=10)
     engine.dispose()
+
+
+def test_renewed_claim_outlives_its_length(sqlite_url):
+    engine, _ = _prepare(sqlite_url)
+    wall = lambda: datetime.now(timezone.utc)  # noqa: E731
+    with claim(engine, "slow-look", "a", now=wall(), seconds=0.6, renew_clock=wall):
+        for _ in range(5):
+            time.sleep(0.3)
+            # Well past the claim's own 0.6 s, the other worker still cannot take it.
+            assert try_claim(engine, "slow-look", "b", now=wall(), seconds=0.6) is None
+    assert current_holder(engine, "slow-look", now=wall()) is None
+    # Unrenewed (a dead worker), it expires.
+    try_claim(engine, "slow-look", "a", now=wall(), seconds=0.3)
+    time.sleep(0.4)
+    assert try_claim(engine, "slow-look", "b", now=wall(), seconds=0.3) is not None
