@@ -376,14 +376,22 @@ def _seconds(value, default):
     return float(text)
 
 
-def build_channels(channel_configs) -> dict[str, Channel]:
-    """Channels from ``Config.channels`` (name -> object with ``type`` and ``options``)."""
+def build_channels(channel_configs, base_dir=None) -> dict[str, Channel]:
+    """Channels from ``Config.channels`` (name -> object with ``type`` and ``options``).
+
+    A relative log ``path`` is taken from ``base_dir`` (the configuration file's folder).
+    """
+    from pathlib import Path
+
     channels = {}
     for name, cfg in dict(channel_configs or {}).items():
         kind = getattr(cfg, "type", None)
         options = dict(getattr(cfg, "options", None) or {})
         if kind == "log":
-            channels[name] = LogChannel(name, options.get("path"), options.get("level", "warning"))
+            path = options.get("path")
+            if path and base_dir is not None and not Path(path).is_absolute():
+                path = str(Path(base_dir) / path)
+            channels[name] = LogChannel(name, path, options.get("level", "warning"))
         elif kind == "webhook":
             channels[name] = WebhookChannel(
                 name, options.get("url"), options.get("secret"), _seconds(options.get("timeout"), 5.0),

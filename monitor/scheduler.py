@@ -189,7 +189,7 @@ class Service:
         config = load_config(self.config_path)
         if self.config_path is None:
             self.config_path = Path(config.path)
-        channels = build_channels(config.channels)
+        channels = build_channels(config.channels, Path(config.path).parent)
         sources = self._build_sources(config, {})
         with self._lock:
             self.config, self.channels, self.sources = config, channels, sources
@@ -392,7 +392,7 @@ class Service:
             if new.store_url != self.config.store_url:
                 raise ConfigError(["[store] url changed; restart the service to move to another store"],
                                   path=new.path)
-            channels = build_channels(new.channels)
+            channels = build_channels(new.channels, Path(new.path).parent)
             sources = self._build_sources(new, self.sources)
         except (ConfigError, InvalidArgumentError, OSError, GapwatchError) as exc:
             log.error("configuration refused (%s); the running configuration is kept: %s", reason,

@@ -384,6 +384,8 @@ def test_build_channels_from_config():
     assert channels["hook"].timeout == 3.0 and channels["hook"].secret == "s"
     assert channels["hook"].extra_headers == {"X-Team": "ops"}
     assert channels["mail"].port == 2525 and channels["mail"].starttls is True
+    relative = build_channels({"f": SimpleNamespace(type="log", options={"path": "alerts.jsonl"})}, "/srv/gw")
+    assert relative["f"].path == "/srv/gw/alerts.jsonl"
     with pytest.raises(InvalidArgumentError, match="pager"):
         build_channels({"x": SimpleNamespace(type="pager", options={})})
     with pytest.raises(InvalidArgumentError, match="url"):
