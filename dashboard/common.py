@@ -69,8 +69,26 @@ def engine():
     return _engine(store_url())
 
 
+@st.cache_data(ttl=5, show_spinner=False)
+def _newest_look(url):
+    moment = readback.latest_look_time(_engine(url))
+    return moment.isoformat() if moment is not None else None
+
+
+def clock_ahead():
+    """The newest look's time when the store's clock runs ahead of this machine's, else None.
+
+    A simulated clock (the demo) or a skewed server records looks "in the future"; times on
+    the pages are then read against the newest look so "ago" and "in" stay meaningful.
+    """
+    newest = _newest_look(store_url())
+    if newest and datetime.fromisoformat(newest) > datetime.now(timezone.utc):
+        return datetime.fromisoformat(newest)
+    return None
+
+
 def now():
-    return datetime.now(timezone.utc)
+    return clock_ahead() or datetime.now(timezone.utc)
 
 
 @st.cache_data(ttl=5, show_spinner=False)
@@ -113,7 +131,7 @@ def alerts(url, states=()):
 
 def forget_cached_reads():
     """After a write, so the next read shows it."""
-    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts):
+    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _newest_look):
         fn.clear()
 
 
@@ -162,10 +180,15 @@ def plan_eta_text(row):
     return f"about {readback.describe_seconds(row['seconds_to_plan'])}"
 
 
+def bounds_text(low, high):
+    """``[low, high]`` with an open end (one-sided designs) shown as infinity."""
+    return f"[{'−∞' if low is None else fmt(low)}, {'∞' if high is None else fmt(high)}]"
+
+
 def interval_text(row):
     if row.get("estimate") is None:
         return "—"
-    return f"{fmt(row['estimate'])} [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]"
+    return f"{fmt(row['estimate'])} {bounds_text(row['ci_low'], row['ci_high'])}"
 
 
 def fraction_text(row):
@@ -465,8 +488,12 @@ def estimate_chart(row, frame):
     later = later if not later.empty else data
     bounds = [null, *later["estimate"].dropna(), *later["ci_low"].dropna(), *later["ci_high"].dropna()]
     pad = 0.08 * ((max(bounds) - min(bounds)) or 1.0)
-    y_scale = alt.Scale(domain=[min(bounds) - pad, max(bounds) + pad])
-    band = alt.Chart(data.dropna(subset=["ci_low", "ci_high"])).mark_area(
+    domain = [min(bounds) - pad, max(bounds) + pad]
+    y_scale = alt.Scale(domain=domain)
+    # An open end (one-sided design) fills to the edge of the chart.
+    banded = data.assign(ci_low=data["ci_low"].fillna(domain[0]),
+                         ci_high=data["ci_high"].fillna(domain[1]))
+    band = alt.Chart(banded).mark_area(
         opacity=0.22, color=GROUP_COLOURS[0], clip=True).encode(
         x=x, y=alt.Y("ci_low:Q", title=f"difference ({groups_text(row)})", scale=y_scale), y2="ci_high:Q",
         tooltip=[alt.Tooltip("look:Q"), alt.Tooltip("ci_low:Q", format=".4g"), alt.Tooltip("ci_high:Q", format=".4g")])
@@ -562,7 +589,7 @@ def show_comparison(url, name, version=None):
 
     cols = st.columns(4)
     cols[0].metric(f"Estimate ({groups_text(row)})", fmt(row["estimate"]),
-                   help=f"{confidence_percent(row)} repeated confidence interval: [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]")
+                   help=f"{confidence_percent(row)} repeated confidence interval: {bounds_text(row['ci_low'], row['ci_high'])}")
     cols[1].metric("Events per group", f"{row['n1']:,} / {row['n2']:,}")
     cols[2].metric("Plan reached", fraction_text(row), help=f"of {row['planned_per_group'] or '?'} planned per group")
     cols[3].metric("Looks", row["looks"])
@@ -572,7 +599,7 @@ def show_comparison(url, name, version=None):
     elif not row["archived"]:
         timing += f" · next look {next_look_text(row)} · plan complete in {plan_eta_text(row)}"
     st.caption(f"{confidence_percent(row)} repeated confidence interval: "
-               f"[{fmt(row['ci_low'])}, {fmt(row['ci_high'])}] · {timing}")
+               f"{bounds_text(row['ci_low'], row['ci_high'])} · {timing}")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
 

@@ -33,6 +33,7 @@ __all__ = [
     "look_history",
     "get_comparison",
     "list_versions",
+    "latest_look_time",
     "cells_by_kind",
     "excluded_by_reason",
     "list_alerts",
@@ -431,6 +432,12 @@ def _find_comparison(conn, name, version):
         hint = f"; known: {', '.join(known)}" if known else "; the store holds no comparisons yet"
         raise UnknownComparisonError(f"no comparison {what} in the store{hint}")
     return row
+
+
+def latest_look_time(engine):
+    """The ``as_of`` of the newest look in the store (aware UTC), or ``None`` when there is none."""
+    with engine.connect() as conn:
+        return conn.execute(sa.select(sa.func.max(Look.as_of))).scalar()
 
 
 def list_versions(engine, name):

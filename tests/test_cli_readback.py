@@ -176,3 +176,22 @@ def test_dashboard_parser_defaults_and_bad_port(capsys):
     with pytest.raises(SystemExit) as stop:
         build_parser().parse_args(["dashboard", "--port", "99999"])
     assert stop.value.code == 2 and "--port" in capsys.readouterr().err
+
+
+def test_status_reads_times_against_a_clock_running_ahead(tmp_path, capsys):
+    from datetime import timedelta
+
+    url = f"sqlite:///{tmp_path / 'store.sqlite'}"
+    store_seed.migrate(url)
+    store_seed.seed_store(url, now=datetime.now(timezone.utc) + timedelta(days=2))
+    engine = sa.create_engine(url)
+    with engine.begin() as conn:  # a one-sided ("less") design records no lower end
+        cid = conn.execute(sa.select(Comparison.id).where(Comparison.name == "pick-seconds")).scalar_one()
+        conn.execute(sa.update(Look).where(Look.comparison_id == cid).values(ci_low=None))
+    engine.dispose()
+    path = tmp_path / "gapwatch.toml"
+    path.write_text('[store]\nurl = "sqlite:///store.sqlite"\n')
+    assert main(["status", "--config", str(path)]) == 0
+    pick = next(line for line in capsys.readouterr().out.splitlines() if line.startswith("pick-seconds"))
+    assert "[-inf, " in pick
+    assert pick.rstrip().endswith("in 10 min")  # every 10m after the newest look, not "in 2 days"

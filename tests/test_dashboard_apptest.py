@@ -204,3 +204,29 @@ def test_review_filters_by_date(store):
     at.date_input(key="review_dates").set_value((today.replace(year=today.year - 1),
                                                 today.replace(year=today.year - 1))).run()
     assert any("No comparison matches" in i.value for i in at.info)
+
+
+def test_open_interval_ends_and_a_clock_running_ahead(tmp_path, monkeypatch):
+    from datetime import timedelta
+
+    from monitor.models import Comparison, Look
+
+    url = f"sqlite:///{tmp_path / 'store.sqlite'}"
+    store_seed.migrate(url)
+    ahead = datetime.now(timezone.utc) + timedelta(days=3)  # as a simulated demo clock would be
+    store_seed.seed_store(url, now=ahead)
+    engine = sa.create_engine(url)
+    with engine.begin() as conn:  # a one-sided ("greater") design records no upper end
+        cid = conn.execute(sa.select(Comparison.id).where(Comparison.name == "pick-seconds")).scalar_one()
+        conn.execute(sa.update(Look).where(Look.comparison_id == cid).values(ci_high=None))
+    engine.dispose()
+    path = tmp_path / "gapwatch.toml"
+    path.write_text('[store]\nurl = "sqlite:///store.sqlite"\n')
+    monkeypatch.setenv("GAPWATCH_CONFIG", str(path))
+    at = _app()
+    table = _html(at)
+    assert ", ∞]" in table
+    assert "clock is ahead" in " ".join(c.value for c in at.caption)
+    assert "s ago" in table or "min ago" in table  # read against the newest look, not "in 3 days"
+    at = _app("views/comparison.py", name="pick-seconds")
+    assert len(at.get("vega_lite_chart")) == 4

@@ -52,7 +52,9 @@ def fmt(value, digits=4):
 def _interval(row):
     if row["estimate"] is None:
         return "-"
-    return f"{fmt(row['estimate'])} [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]"
+    low = "-inf" if row["ci_low"] is None else fmt(row["ci_low"])
+    high = "inf" if row["ci_high"] is None else fmt(row["ci_high"])
+    return f"{fmt(row['estimate'])} [{low}, {high}]"
 
 
 def _fraction(row):
@@ -103,6 +105,10 @@ def run(args) -> int:
     engine = engine_from_args(args)
     try:
         now = datetime.now(timezone.utc)
+        # A simulated clock (the demo) records looks ahead of this machine: read times against it.
+        newest = readback.latest_look_time(engine)
+        if newest is not None and newest > now:
+            now = newest
         rows = readback.comparison_status(engine, include_archived=args.all, now=now)
     finally:
         engine.dispose()
