@@ -153,6 +153,12 @@ class DemoFolder:
     rows: dict               # rows inserted by creation ({} when resumed)
 
 
+# From the top of a checkout the default folder `demo_db/` is this package's own folder: the
+# demo then writes its databases beside the generator's code, and leaves the code alone.
+PACKAGE_FOLDER = Path(__file__).resolve().parent
+PACKAGE_FILES = {p.name for p in PACKAGE_FOLDER.iterdir() if p.suffix == ".py" or p.name == "__pycache__"}
+
+
 def is_demo_folder(path: Path) -> bool:
     return (Path(path) / MARKER_NAME).exists()
 
@@ -184,7 +190,8 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
     path = Path(folder).resolve()
     if path.exists() and not path.is_dir():
         raise NotADirectoryError(f"{path} is not a folder")
-    existing = path.exists() and any(path.iterdir())
+    inside_package = path == PACKAGE_FOLDER
+    existing = path.exists() and any(p.name not in PACKAGE_FILES or not inside_package for p in path.iterdir())
     if existing and not is_demo_folder(path):
         raise FileExistsError(f"{path} holds files that are not a gapwatch demo; choose an empty or new folder")
     if existing and reset:
@@ -196,7 +203,9 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
     if created:
         _clear(path)
         (path / MARKER_NAME).write_text(f"seed = {seed}\n")
-        (path / ".gitignore").write_text("# written by gapwatch demo: nothing here belongs in version control\n*\n")
+        if not inside_package:
+            # In the scenario's own source folder the repository's .gitignore covers these files.
+            (path / ".gitignore").write_text("# written by gapwatch demo: nothing here belongs in version control\n*\n")
         rows = create_databases(path, seed=seed)
         start = LIVE_START
     else:

@@ -20,7 +20,7 @@ from pathlib import Path
 __all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
 
 # Not "demo_db": run from a checkout, that is the scenario's own package folder.
-DEFAULT_FOLDER = "gapwatch-demo"
+DEFAULT_FOLDER = "demo_db"
 # One simulated hour per real second: a working day passes in a quarter of a minute.
 DEFAULT_SPEED = 3600.0
 DEFAULT_PORT = 8501
