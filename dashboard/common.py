@@ -70,25 +70,20 @@ def engine():
 
 
 @st.cache_data(ttl=5, show_spinner=False)
-def _newest_look(url):
-    moment = readback.latest_look_time(_engine(url))
-    return moment.isoformat() if moment is not None else None
+def _reference(url):
+    moment, note = readback.reference_time(_engine(url), datetime.now(timezone.utc))
+    return moment.isoformat(), note
 
 
-def clock_ahead():
-    """The newest look's time when the store's clock runs ahead of this machine's, else None.
-
-    A simulated clock (the demo) or a skewed server records looks "in the future"; times on
-    the pages are then read against the newest look so "ago" and "in" stay meaningful.
-    """
-    newest = _newest_look(store_url())
-    if newest and datetime.fromisoformat(newest) > datetime.now(timezone.utc):
-        return datetime.fromisoformat(newest)
-    return None
+def clock_note():
+    """Why times are read against the newest look instead of this machine's clock, or None."""
+    return _reference(store_url())[1]
 
 
 def now():
-    return clock_ahead() or datetime.now(timezone.utc)
+    """The "now" of relative times: this machine's clock, unless the store's looks say otherwise."""
+    moment, note = _reference(store_url())
+    return datetime.fromisoformat(moment) if note else datetime.now(timezone.utc)
 
 
 @st.cache_data(ttl=5, show_spinner=False)
@@ -131,7 +126,7 @@ def alerts(url, states=()):
 
 def forget_cached_reads():
     """After a write, so the next read shows it."""
-    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _newest_look):
+    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _reference):
         fn.clear()
 
 

@@ -34,6 +34,7 @@ __all__ = [
     "get_comparison",
     "list_versions",
     "latest_look_time",
+    "reference_time",
     "cells_by_kind",
     "excluded_by_reason",
     "list_alerts",
@@ -438,6 +439,32 @@ def latest_look_time(engine):
     """The ``as_of`` of the newest look in the store (aware UTC), or ``None`` when there is none."""
     with engine.connect() as conn:
         return conn.execute(sa.select(sa.func.max(Look.as_of))).scalar()
+
+
+# How far behind this machine's clock the newest look may be before times are read against it.
+_STALE_STORE = timedelta(days=1)
+
+
+def reference_time(engine, now):
+    """The "now" that relative times ("5 min ago", "in 10 min") are read against, and why.
+
+    Normally ``now`` itself. When the newest look in the store is ahead of
+    ``now``, or more than a day behind it (a simulated clock such as the demo's,
+    a skewed server, or a service that stopped looking), the newest look's time
+    is used instead and the second value is a sentence saying so; otherwise it
+    is ``None``.
+    """
+    now = _aware(now, "now")
+    newest = latest_look_time(engine)
+    if newest is None or timedelta(0) <= now - newest <= _STALE_STORE:
+        return now, None
+    if newest > now:
+        gap = f"{describe_seconds((newest - now).total_seconds())} ahead of"
+    else:
+        gap = f"{describe_seconds((now - newest).total_seconds())} behind"
+    note = (f"The newest look in the store ({newest.strftime('%Y-%m-%d %H:%M UTC')}) is {gap} this "
+            "machine's clock (a simulated clock, or no looks lately): times are read against that look.")
+    return newest, note
 
 
 def list_versions(engine, name):

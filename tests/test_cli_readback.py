@@ -192,6 +192,8 @@ def test_status_reads_times_against_a_clock_running_ahead(tmp_path, capsys):
     path = tmp_path / "gapwatch.toml"
     path.write_text('[store]\nurl = "sqlite:///store.sqlite"\n')
     assert main(["status", "--config", str(path)]) == 0
-    pick = next(line for line in capsys.readouterr().out.splitlines() if line.startswith("pick-seconds"))
+    out = capsys.readouterr().out
+    pick = next(line for line in out.splitlines() if line.startswith("pick-seconds"))
     assert "[-inf, " in pick
     assert pick.rstrip().endswith("in 10 min")  # every 10m after the newest look, not "in 2 days"
+    assert out.splitlines()[-1].startswith("note: The newest look in the store")

@@ -226,7 +226,7 @@ def test_open_interval_ends_and_a_clock_running_ahead(tmp_path, monkeypatch):
     at = _app()
     table = _html(at)
     assert ", ∞]" in table
-    assert "clock is ahead" in " ".join(c.value for c in at.caption)
+    assert "ahead of this machine's clock" in " ".join(c.value for c in at.caption)
     assert "s ago" in table or "min ago" in table  # read against the newest look, not "in 3 days"
     at = _app("views/comparison.py", name="pick-seconds")
     assert len(at.get("vega_lite_chart")) == 4

@@ -67,9 +67,10 @@ def served(tmp_path):
     port = _free_port()
     env = dict(os.environ, GAPWATCH_DASHBOARD_PASSWORD=PASSWORD, PYTHONPATH=str(ROOT))
     env.pop("GAPWATCH_CONFIG", None)
+    log = open(tmp_path / "dashboard.log", "wb")
     proc = subprocess.Popen(
         [sys.executable, "-m", "monitor", "dashboard", "--config", str(config), "--port", str(port)],
-        cwd=tmp_path, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
+        cwd=tmp_path, env=env, stdout=log, stderr=subprocess.STDOUT,
     )
     base = f"http://127.0.0.1:{port}"
     engine = sa.create_engine(url)
@@ -78,12 +79,15 @@ def served(tmp_path):
         yield base, engine, info
     finally:
         engine.dispose()
-        proc.terminate()
+        proc.terminate()  # the command has become the Streamlit server, so this stops it
         try:
             proc.wait(timeout=20)
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait()
+        log.close()
+    # nothing of the server is left behind
+    assert proc.returncode is not None
 
 
 def _record_next_look(engine, name, extra):

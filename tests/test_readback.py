@@ -341,3 +341,23 @@ def test_reads_back_what_real_looks_recorded(tmp_path):
     else:
         assert row["next_look_at"] == (as_of + timedelta(hours=6)).isoformat()
     assert row["state"] == states[-1]
+
+
+@pytest.mark.parametrize(
+    "newest_offset, expect_note",
+    [(timedelta(minutes=-5), False), (timedelta(hours=-20), False), (timedelta(days=-3), True),
+     (timedelta(hours=2), True)],
+    ids=["recent", "same-day", "days-behind", "ahead"],
+)
+def test_reference_time(tmp_path, newest_offset, expect_note):
+    url = f"sqlite:///{tmp_path / 'store.sqlite'}"
+    store_seed.migrate(url)
+    now = store_seed.NOW
+    store_seed.seed_store(url, now=now + newest_offset)
+    engine = sa.create_engine(url)
+    moment, note = readback.reference_time(engine, now)
+    newest = readback.latest_look_time(engine)
+    engine.dispose()
+    assert newest == now + newest_offset
+    assert (note is not None) == expect_note
+    assert moment == (newest if expect_note else now)

@@ -31,10 +31,8 @@ def board():
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return
     st.html(common.board_table(shown))
-    ahead = common.clock_ahead()
-    if ahead is not None:
-        st.caption(f"The store's clock is ahead of this machine's (a simulated clock?): times are read "
-                   f"against the newest look, {ahead.strftime('%Y-%m-%d %H:%M UTC')}.")
+    if common.clock_note():
+        st.caption(common.clock_note())
     st.caption(f"{len(shown)} of {len(rows)} comparisons shown · read {common.when(common.now().isoformat())}")
 
 

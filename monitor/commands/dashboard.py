@@ -78,8 +78,16 @@ def run(args) -> int:
     engine = readback.open_store(readback.store_url_from_config(args.config))
     engine.dispose()
     command = streamlit_command(port=args.port, address=args.address)
+    env = dashboard_environment(args.config)
     print(f"gapwatch dashboard on http://{args.address}:{args.port} (Ctrl+C stops it)", file=sys.stderr)
+    sys.stdout.flush()
+    sys.stderr.flush()
+    if os.name == "posix":
+        # Become the server: a signal from a supervisor (or Ctrl+C) then reaches Streamlit
+        # itself, and no server can outlive this command as an orphan.
+        os.chdir(app_path().parent)
+        os.execve(sys.executable, command, env)
     try:
-        return subprocess.call(command, env=dashboard_environment(args.config), cwd=app_path().parent)
+        return subprocess.call(command, env=env, cwd=app_path().parent)
     except KeyboardInterrupt:
         return 130

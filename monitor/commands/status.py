@@ -104,11 +104,7 @@ def table_lines(rows, now):
 def run(args) -> int:
     engine = engine_from_args(args)
     try:
-        now = datetime.now(timezone.utc)
-        # A simulated clock (the demo) records looks ahead of this machine: read times against it.
-        newest = readback.latest_look_time(engine)
-        if newest is not None and newest > now:
-            now = newest
+        now, note = readback.reference_time(engine, datetime.now(timezone.utc))
         rows = readback.comparison_status(engine, include_archived=args.all, now=now)
     finally:
         engine.dispose()
@@ -120,4 +116,6 @@ def run(args) -> int:
         print("no comparisons in the store yet (the first look records one)")
         return 0
     print("\n".join(table_lines(rows, now)))
+    if note:
+        print(f"note: {note}")
     return 0
