@@ -177,12 +177,17 @@ def plan_eta_text(row):
 
 def bounds_text(low, high):
     """``[low, high]`` with an open end (one-sided designs) shown as infinity."""
+    if low is None and high is None:
+        return "none at this look"
     return f"[{'−∞' if low is None else fmt(low)}, {'∞' if high is None else fmt(high)}]"
 
 
 def interval_text(row):
     if row.get("estimate") is None:
         return "—"
+    if row.get("ci_low") is None and row.get("ci_high") is None:
+        # a look that tested nothing (no new information) records no interval
+        return f"{fmt(row['estimate'])} (no interval at this look)"
     return f"{fmt(row['estimate'])} {bounds_text(row['ci_low'], row['ci_high'])}"
 
 
@@ -646,7 +651,7 @@ def show_comparison(url, name, version=None):
         q = st.columns(3)
         q[0].metric("Rows excluded", f"{excluded_total:,}")
         q[1].metric("Late events", f"{late_total:,}")
-        q[2].metric("Effective n", fmt(row["effective_n"]) if row["effective_n"] is not None else "—",
+        q[2].metric("Effective n", f"{row['effective_n']:,.0f}" if row["effective_n"] is not None else "—",
                     help="events divided by the design effect")
         beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
         if row["clusters"] is not None:
@@ -654,7 +659,7 @@ def show_comparison(url, name, version=None):
         if row["design_effect"] is not None:
             beside.append(f"day-level design effect {fmt(row['design_effect'], 3)}")
         if row["effective_n"] is not None:
-            beside.append(f"effective n {fmt(row['effective_n'])}")
+            beside.append(f"effective n {row['effective_n']:,.0f}")
         st.caption(" · ".join(beside))
         chart = excluded_chart(looks)
         if chart is not None:

@@ -197,3 +197,15 @@ def test_status_reads_times_against_a_clock_running_ahead(tmp_path, capsys):
     assert "[-inf, " in pick
     assert pick.rstrip().endswith("in 10 min")  # every 10m after the newest look, not "in 2 days"
     assert out.splitlines()[-1].startswith("note: The newest look in the store")
+
+
+def test_a_look_without_an_interval_says_so(config, capsys):
+    path, url = config
+    engine = sa.create_engine(url)
+    with engine.begin() as conn:  # a look that tested nothing records no interval
+        cid = conn.execute(sa.select(Comparison.id).where(Comparison.name == "pick-seconds")).scalar_one()
+        conn.execute(sa.update(Look).where(Look.comparison_id == cid).values(ci_low=None, ci_high=None))
+    engine.dispose()
+    main(["status", "--config", str(path)])
+    pick = next(line for line in capsys.readouterr().out.splitlines() if line.startswith("pick-seconds"))
+    assert "[no interval]" in pick and "inf" not in pick

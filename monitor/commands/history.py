@@ -75,11 +75,15 @@ def table_lines(history):
     lines = ["  ".join(hd.ljust(w) for hd, w in zip(headers, widths)).rstrip()]
     lines += ["  ".join(c.ljust(w) for c, w in zip(b, widths)).rstrip() for b in body]
     last = history[-1]
-    if last["clusters"] is not None or last["design_effect"] is not None:
-        lines.append(
-            f"latest look: {fmt(last['clusters'])} clusters, design effect {fmt(last['design_effect'], 3)}, "
-            f"effective n {fmt(last['effective_n'])}"
-        )
+    figures = []
+    if last["clusters"] is not None:
+        figures.append(f"{last['clusters']} clusters")
+    if last["design_effect"] is not None:
+        figures.append(f"design effect {fmt(last['design_effect'], 3)}")
+    if last["effective_n"] is not None:
+        figures.append(f"effective n {last['effective_n']:.0f}")
+    if figures:
+        lines.append("latest look: " + ", ".join(figures))
     for warning in last["warnings"]:
         lines.append(f"warning: {warning}")
     return lines

@@ -52,6 +52,9 @@ def fmt(value, digits=4):
 def _interval(row):
     if row["estimate"] is None:
         return "-"
+    if row["ci_low"] is None and row["ci_high"] is None:
+        # a look that tested nothing (no new information) records no interval
+        return f"{fmt(row['estimate'])} [no interval]"
     low = "-inf" if row["ci_low"] is None else fmt(row["ci_low"])
     high = "inf" if row["ci_high"] is None else fmt(row["ci_high"])
     return f"{fmt(row['estimate'])} [{low}, {high}]"
