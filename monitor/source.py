@@ -27,7 +27,13 @@ Requirements on the source table
   column): increases with insertion; used to find late events. On SQLite the
   implicit rowid serves when no arrival column is configured (a ``VACUUM`` may
   renumber the rowids of tables without an ``INTEGER PRIMARY KEY``). Elsewhere,
-  without one, events arriving after their slot was read are missed.
+  without one, events arriving after their slot was read are missed. The values
+  should follow commit order: with several concurrent writers a transaction
+  that commits after a larger id was already read is missed unless its events
+  are younger than the comparison's lateness allowance.
+* Values: any numeric type (PostgreSQL ``double precision``, ``real``,
+  ``numeric``, integers, ``boolean`` for rates); in SQLite also numeric text.
+  SQLite stores a NaN as NULL, so there it is counted as ``null_value``.
 
 Exclusion reasons (each bad row is counted once, under the first that applies,
 in this order): ``null_time`` (NULL or unreadable time), ``unknown_group``
