@@ -151,7 +151,7 @@ def when(iso, *, relative_to=None):
     return f"{stamp} ({rel})"
 
 
-def next_look_text(row):
+def next_look_text(row, ref=None):
     if row["stopped"]:
         return "stopped"
     if row["archived"]:
@@ -159,7 +159,7 @@ def next_look_text(row):
     if not row["next_look_at"]:
         return "—"
     moment = datetime.fromisoformat(row["next_look_at"])
-    delta = (moment - now()).total_seconds()
+    delta = (moment - (ref or now())).total_seconds()
     if delta <= 0:
         return f"due ({moment.strftime('%H:%M UTC')})"
     return f"{moment.strftime('%H:%M UTC')} (in {readback.describe_seconds(delta)})"
@@ -250,16 +250,16 @@ def style():
     st.html(STYLE)
 
 
-def _clock(iso):
-    """``22:49 UTC`` today, ``03-02 22:49 UTC`` on another day."""
+def _clock(iso, ref):
+    """``22:49 UTC`` on the reference day, ``2026-03-02 22:49 UTC`` on another."""
     moment = datetime.fromisoformat(iso)
-    if moment.date() == now().date():
+    if moment.date() == ref.date():
         return moment.strftime("%H:%M UTC")
     return moment.strftime("%Y-%m-%d %H:%M UTC")
 
 
-def _ago(iso):
-    delta = (now() - datetime.fromisoformat(iso)).total_seconds()
+def _ago(iso, ref):
+    delta = (ref - datetime.fromisoformat(iso)).total_seconds()
     return "just now" if abs(delta) < 1 else (
         f"{readback.describe_seconds(delta)} ago" if delta > 0 else f"in {readback.describe_seconds(-delta)}")
 
@@ -272,6 +272,7 @@ def board_table(rows):
     """The overview as an HTML table (plain DOM text, so it reads well and can be checked)."""
     head = "<tr>" + "".join(f"<th>{c}</th>" for c in BOARD_COLUMNS) + "</tr>"
     body = []
+    ref = now()  # once per table: the same reference for every row
     for r in rows:
         name = html.escape(r["name"])
         version = f' <span class="gw-sub">v{r["version"]}</span>' if r["version"] != 1 else ""
@@ -285,13 +286,13 @@ def board_table(rows):
         if r["effective_n"] is not None:
             clusters.append(f"effective n {r['effective_n']:,.0f}")
         cluster_line = "".join(f'<div class="gw-sub">{html.escape(c)}</div>' for c in clusters)
-        last = (f'{_clock(r["last_look_at"])}<div class="gw-sub">{_ago(r["last_look_at"])} · look {r["looks"]}</div>'
+        last = (f'{_clock(r["last_look_at"], ref)}<div class="gw-sub">{_ago(r["last_look_at"], ref)} · look {r["looks"]}</div>'
                 if r["last_look_at"] else "—")
         if r["stopped"] or r["archived"] or not r["next_look_at"]:
-            upcoming = html.escape(next_look_text(r))
+            upcoming = html.escape(next_look_text(r, ref))
         else:
-            due = (datetime.fromisoformat(r["next_look_at"]) - now()).total_seconds()
-            upcoming = (f'{_clock(r["next_look_at"])}<div class="gw-sub">'
+            due = (datetime.fromisoformat(r["next_look_at"]) - ref).total_seconds()
+            upcoming = (f'{_clock(r["next_look_at"], ref)}<div class="gw-sub">'
                         f'{"due now" if due <= 0 else "in " + readback.describe_seconds(due)}</div>')
         level = ("" if r["estimate"] is None
                  else f'<div class="gw-sub">{confidence_percent(r)} repeated interval</div>')

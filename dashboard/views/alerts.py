@@ -2,6 +2,7 @@
 
 import hmac
 import os
+from datetime import datetime, timezone
 
 import pandas as pd
 import streamlit as st
@@ -63,7 +64,8 @@ if submitted:
     elif not who.strip():
         st.error("Say who is acknowledging (your name).")
     else:
-        done = readback.acknowledge_alert(common.engine(), alert_id, by=who, now=common.now())
+        # A person acknowledges at the real time, whatever clock the looks were taken on.
+        done = readback.acknowledge_alert(common.engine(), alert_id, by=who, now=datetime.now(timezone.utc))
         common.forget_cached_reads()
         st.session_state["ack_done"] = (f"Acknowledged: {done['comparison']} ({done['kind'].replace('_', ' ')}) "
                                         f"by {done['acknowledged_by']}.")
