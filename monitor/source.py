@@ -633,34 +633,57 @@ class Source:
         return sa.case((column == _literal(g0), 0), (column == _literal(g1), 1), else_=None)
 
     def _value_parts(self, spec, cols):
-        """(numeric value expression, list of (condition, reason) for value problems)."""
+        """(raw value, numeric value expression, reason expression: NULL for a valid value)."""
         raw = cols.query_table.c[spec.value_column]
         vtype = cols.table.c[spec.value_column].type
-        checks = []
+
+        def number_checks(x):
+            checks = []
+            if spec.metric == "proportion":
+                checks.append((x.not_in(_literals((0.0, 1.0))), "not_binary"))
+            if spec.valid_range is not None:
+                low, high = spec.valid_range
+                if low is not None:
+                    checks.append((x < float(low), "out_of_range"))
+                if high is not None:
+                    checks.append((x > float(high), "out_of_range"))
+            return checks
+
         if self.dialect == "sqlite":
+            # SQLite keeps each value with its own storage class: branch once on typeof(),
+            # so a plain REAL or INTEGER row costs a few comparisons and no conversion.
             stored = sa.func.typeof(raw)
             trimmed = sa.func.trim(raw)
-            checks.append(
-                (sa.and_(stored == "text", sa.func.lower(trimmed).in_(_literals(_NON_FINITE_TEXT))), "not_finite")
-            )
-            checks.append((stored == "blob", "non_numeric"))
-            checks.append(
+            from_text = sa.cast(trimmed, sa.Float)
+            text_reason = sa.case(
+                (sa.func.lower(trimmed).in_(_literals(_NON_FINITE_TEXT)), "not_finite"),
                 (
-                    sa.and_(
-                        stored == "text",
-                        sa.not_(
-                            sa.and_(
-                                sa.func.json_valid(trimmed) == 1,
-                                sa.func.json_type(trimmed).in_(_literals(("integer", "real"))),
-                            )
-                        ),
+                    sa.not_(
+                        sa.and_(
+                            sa.func.json_valid(trimmed) == 1,
+                            sa.func.json_type(trimmed).in_(_literals(("integer", "real"))),
+                        )
                     ),
                     "non_numeric",
-                )
+                ),
+                (sa.or_(from_text > _FLOAT_MAX, from_text < -_FLOAT_MAX), "not_finite"),
+                *number_checks(from_text),
+                else_=None,
             )
-            value = sa.cast(sa.case((stored == "text", trimmed), else_=raw), sa.Float)
-            checks.append((sa.or_(value > _FLOAT_MAX, value < -_FLOAT_MAX), "not_finite"))
-        elif isinstance(vtype, sa.Boolean):
+            number_reason = sa.case(
+                (sa.or_(raw > _FLOAT_MAX, raw < -_FLOAT_MAX), "not_finite"),
+                *number_checks(raw),
+                else_=None,
+            )
+            reason = sa.case(
+                {"null": "null_value", "blob": "non_numeric", "text": text_reason},
+                value=stored,
+                else_=number_reason,
+            )
+            value = sa.case((stored == "text", from_text), else_=raw)
+            return raw, value, reason
+        checks = [(raw.is_(None), "null_value")]
+        if isinstance(vtype, sa.Boolean):
             value = sa.case((raw.is_(True), 1.0), else_=0.0)
         else:
             value = sa.cast(raw, sa.Float)
@@ -668,15 +691,8 @@ class Source:
                 limit = Decimal(repr(_FLOAT_MAX)) if not isinstance(vtype, sa.Float) else _FLOAT_MAX
                 # PostgreSQL sorts NaN above every number, so the upper test catches NaN as well.
                 checks.append((sa.or_(raw > sa.literal(limit), raw < sa.literal(-limit)), "not_finite"))
-        if spec.metric == "proportion":
-            checks.append((value.not_in(_literals((0.0, 1.0))), "not_binary"))
-        if spec.valid_range is not None:
-            low, high = spec.valid_range
-            if low is not None:
-                checks.append((value < float(low), "out_of_range"))
-            if high is not None:
-                checks.append((value > float(high), "out_of_range"))
-        return raw, value, checks
+        checks.extend(number_checks(value))
+        return raw, value, sa.case(*checks, else_=None)
 
     def _filters(self, spec, cols):
         clauses = []
@@ -743,13 +759,13 @@ class Source:
         time_raw = cols.query_table.c[spec.time_column]
         epoch = self._epoch_expr(kind, time_raw)
         group_index = self._group_index(spec, cols)
-        raw_value, value, value_checks = self._value_parts(spec, cols)
+        _raw_value, value, value_reason = self._value_parts(spec, cols)
         # The epoch of a NULL time is NULL, so one test covers NULL and unreadable times.
-        conditions = [(epoch.is_(None), "null_time")]
-        conditions.append((group_index.is_(None), "unknown_group"))
-        conditions.append((raw_value.is_(None), "null_value"))
-        conditions.extend(value_checks)
-        reason = sa.case(*conditions, else_=None)
+        reason = sa.case(
+            (epoch.is_(None), "null_time"),
+            (group_index.is_(None), "unknown_group"),
+            else_=value_reason,
+        )
         key = sa.cast(cols.query_table.c[spec.key_column], sa.String) if spec.key_column else sa.null()
         arrival, atype = self._arrival(spec, cols)
         return cols, kind, time_raw, epoch, group_index, value, reason, key, arrival, atype
@@ -890,26 +906,23 @@ class Source:
             raise
         except sa_exc.SQLAlchemyError as error:
             raise self._unavailable(spec, error) from None
-        cells = []
         excluded = {}
         arrival_max = None
+        merged = {}
         for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival in rows:
             if row_arrival is not None and (arrival_max is None or row_arrival > arrival_max):
                 arrival_max = row_arrival
             if reason is not None:
                 excluded[reason] = excluded.get(reason, 0) + int(count)
                 continue
-            cells.append(
-                SlotCell(
-                    group_index=int(gi),
-                    slot=int(slot),
-                    key=key,
-                    n=int(count),
-                    sum_dev=float(sum_dev),
-                    sum_dev2=float(sum_dev2),
-                    late=int(late or 0),
-                )
-            )
+            # The same cell can come from the new-range and the late branch: add them up.
+            cell = (int(gi), int(slot), key)
+            n0, l0, s0, q0 = merged.get(cell, (0, 0, 0.0, 0.0))
+            merged[cell] = (n0 + int(count), l0 + int(late or 0), s0 + float(sum_dev), q0 + float(sum_dev2))
+        cells = [
+            SlotCell(group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late)
+            for (gi, slot, key), (n, late, s1, s2) in merged.items()
+        ]
         cells.sort(key=lambda c: (c.group_index, c.slot, "" if c.key is None else c.key))
         arrival = since.arrival if since is not None else None
         arrival_max = self._arrival_out(arrival_max)
@@ -948,16 +961,28 @@ class Source:
         bound = {name: sa.bindparam(name, type_=_bind_type(v)) for name, v in params.items()}
         upper = bound["upper"]
 
+        dev = self._summand(spec, cols, value) - float(spec.shift)
+        # Grouped by output position: the CASE expressions are evaluated once per row
+        # (bound parameters make each repeated expression text distinct to the database).
+        by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
+
         def part(where, late):
-            return sa.select(
-                gi.label("gi"),
-                self._slot_expr(kind, epoch).label("slot"),
-                key.label("key"),
-                reason.label("reason"),
-                value.label("x"),
-                (arrival if arrival is not None else sa.null()).label("arrival"),
-                sa.literal(late).label("late"),
-            ).where(*where, *filters)
+            return (
+                sa.select(
+                    gi.label("gi"),
+                    self._slot_expr(kind, epoch).label("slot"),
+                    key.label("key"),
+                    reason.label("reason"),
+                    sa.func.count().label("n"),
+                    (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
+                    # Sums of bad groups are ignored; only valid groups' sums are used.
+                    sa.func.sum(dev).label("sum_dev"),
+                    sa.func.sum(dev * dev).label("sum_dev2"),
+                    sa.func.max(arrival if arrival is not None else sa.null()).label("arrival"),
+                )
+                .where(*where, *filters)
+                .group_by(*by_position)
+            )
 
         parts = []
         if "lower" not in bound:
@@ -973,19 +998,16 @@ class Source:
                 newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
                 parts.append(part([time_raw <= lower, newer], 1))
                 parts.append(part([time_raw.is_(None), newer], 0))
-        rows = sa.union_all(*parts).subquery("new_rows")
-        valid_dev = sa.case((rows.c.reason.is_(None), rows.c.x - float(spec.shift)), else_=None)
-        return sa.select(
-            rows.c.gi,
-            rows.c.slot,
-            rows.c.key,
-            rows.c.reason,
-            sa.func.count().label("n"),
-            sa.func.sum(rows.c.late).label("late"),
-            sa.func.sum(valid_dev).label("sum_dev"),
-            sa.func.sum(valid_dev * valid_dev).label("sum_dev2"),
-            sa.func.max(rows.c.arrival).label("arrival"),
-        ).group_by(rows.c.gi, rows.c.slot, rows.c.key, rows.c.reason)
+        return sa.union_all(*parts)
+
+    def _summand(self, spec, cols, value):
+        """The value as summed: NULL where a cast could fail (PostgreSQL numeric beyond float)."""
+        vtype = cols.table.c[spec.value_column].type
+        if self.dialect == "sqlite" or isinstance(vtype, (sa.Integer, sa.Boolean)):
+            return value
+        raw = cols.query_table.c[spec.value_column]
+        limit = Decimal(repr(_FLOAT_MAX)) if not isinstance(vtype, sa.Float) else _FLOAT_MAX
+        return sa.case((sa.and_(raw <= sa.literal(limit), raw >= sa.literal(-limit)), value), else_=None)
 
     def read_rows(self, spec: SourceSpec, cutoff: datetime, arrival_max=None):
         """Valid rows with time <= ``cutoff`` (and arrival <= ``arrival_max``), for verification.

@@ -192,7 +192,7 @@ def test_queries_use_the_indexes_on_a_big_table(pg_writer, source):
     first = source.read_cells(spec, None, START + timedelta(days=6))
     assert first.new_events == 172_800
     seen = captured_statements(source, lambda: source.read_cells(spec, first.watermark, START + timedelta(days=6, minutes=50)))
-    statement, parameters = next((s, p) for s, p in seen if "new_rows" in s)
+    statement, parameters = next((s, p) for s, p in seen if "sum_dev2" in s)
     raw = pg_writer.raw_connection()
     try:
         cursor = raw.cursor()
