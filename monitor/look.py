@@ -610,7 +610,7 @@ def _design_effect(design, cells, s1, s2):
 
 def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, started, timings):
     t_compute = _time.perf_counter()
-    from .boundaries import SequentialBoundary, futility_decision, nominal_decision
+    from .boundaries import MIN_INCREMENT, SequentialBoundary, futility_decision, nominal_decision
     from .inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
 
     row = state["comparison"]
@@ -652,7 +652,7 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         warnings.append(st.waiting)
     elif st.waiting:
         warnings.append(st.waiting)
-    elif st.testable and fraction > last_fraction:
+    elif st.testable and fraction - last_fraction >= MIN_INCREMENT:
         futility = _futility_spec(design)
         seq = _resumed_boundary(engine, row, design, state, futility)
         boundary = seq.add_look(fraction)
@@ -810,7 +810,8 @@ def _after_stop(seq, st, fraction, design, stagewise_p_value, median_unbiased_es
                                            design["alternative"], alpha=design["alpha"])
             out["median_unbiased_estimate"] = est.estimate
             out["adjusted_ci"] = list(est.ci)
-            out["naive_estimate"] = est.naive_estimate
+            # The look's own estimate: for t statistics the z-scale figure differs slightly.
+            out["naive_estimate"] = st.estimate
     except (InvalidArgumentError, ValueError, RuntimeError) as exc:  # numerical trouble: keep the look
         out["note"] = f"adjusted inference unavailable: {exc}"
     return out
