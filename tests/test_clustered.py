@@ -7,6 +7,7 @@ import pytest
 from scipy import stats
 
 from monitor import clustered
+from monitor.config import DEFAULT_MIN_CLUSTERS
 from monitor.errors import InvalidArgumentError
 from monitor.fixed import welch_t
 
@@ -286,18 +287,37 @@ def test_planned_inflation_restores_precision_by_simulation():
 # validation by simulation (small; the full run is tests/benchmarks/clustered_false_alarm.py)
 
 
-def test_sequential_false_alarm_rate_by_simulation():
+# Allowance for the nominal-level approach with t statistics (measured excess
+# 0.0016 to 0.0029 at the default min_clusters; see the benchmark docstring).
+NOMINAL_LEVEL_EXCESS = 0.004
+
+
+@pytest.mark.parametrize("spending", ["obrien-fleming", "pocock"])
+def test_sequential_false_alarm_rate_by_simulation(spending):
     pytest.importorskip("monitor.boundaries")
     from benchmarks import clustered_false_alarm as bench
 
-    streams, alpha = 400, 0.05
-    r = bench.run(streams, seed=20261201, alpha=alpha)
+    # 20,000 streams (about 6 s each): a Monte Carlo s.e. of 0.0015 on the rate.
+    streams, alpha = 20_000, 0.05
+    r = bench.run(streams, seed=20261201, alpha=alpha, spending=spending)
     mc = math.sqrt(alpha * (1 - alpha) / streams)
-    # The vectorised simulation computes exactly what the library computes.
+    # The vectorised simulation computes exactly what the library computes,
+    # and decides from the config's default number of clusters on, as the look does.
     assert r["library_gap"] < 1e-9
-    # Clustered monitoring holds the level; event-level monitoring does not.
-    assert abs(r["clustered"] - alpha) < 3 * mc
+    assert r["min_clusters"] == DEFAULT_MIN_CLUSTERS
+    # The same looks with the true variance check the boundary and the data,
+    # and one look at day D checks the CR1 t test alone: both exact.
+    assert abs(r["clustered_known_variance"] - alpha) < 3 * mc
+    assert abs(r["fixed_clustered"] - alpha) < 3 * mc
+    # Clustered monitoring holds the level up to the nominal-level approach's
+    # own approximation: t p-values at many looks with an estimated variance
+    # cross a little more often than the z boundary they come from (measured
+    # with 100,000 streams in the benchmark docstring: +0.002 to +0.0025, and
+    # the same on independent normal data with exact t statistics).
+    assert -3 * mc < r["clustered"] - alpha < 3 * mc + NOMINAL_LEVEL_EXCESS
+    # Event-level monitoring ignores the day effects: false alarms in most streams.
     assert r["event_level"] > 0.5
+    assert r["fixed_event_level"] > 0.3
     assert r["median_design_effect"] > 2
 
 
