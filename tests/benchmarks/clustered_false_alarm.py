@@ -63,11 +63,17 @@ with days of equal size is exactly the paired t on day differences). It is the
 nominal-level approach itself: t statistics whose variance estimate is
 re-estimated at every look cross the transformed boundary slightly more often
 than the z statistics it was built for. The same excess appears with
-independent normal day differences and exact t statistics (looks at days
-10..60: O'Brien-Fleming 0.0519 with t against 0.0503 with z on the same
-paths; Pocock 0.0531 against 0.0498). Deciding from more clusters shrinks
-Pocock's share, which comes from the early low-df looks (min_clusters 20:
-Pocock 0.0504, O'Brien-Fleming 0.0522, seed 1).
+independent normal day differences and exact t statistics (``--idealised``,
+100,000 paths, seed 3, looks at days 10..60: O'Brien-Fleming 0.0517 with t
+against 0.0495 with z on the same paths; Pocock 0.0527 against 0.0495), so a
+small-sample variance correction (CR2 and the like) cannot remove it. Deciding
+from more clusters shrinks Pocock's share, which comes from the early low-df
+looks, but not O'Brien-Fleming's (``--min-clusters 20``, seed 1: Pocock 0.0504,
+O'Brien-Fleming 0.0522).
+
+Reproduce:  for s in obrien-fleming pocock; do for seed in 1 2; do
+            python tests/benchmarks/clustered_false_alarm.py --streams 100000 --seed $seed --spending $s;
+            done; done
 """
 
 from __future__ import annotations
@@ -269,6 +275,35 @@ def run(streams, seed, alpha=0.05, spending="obrien-fleming", min_clusters=DEFAU
     return out
 
 
+def idealised_nominal_level(streams, seed, alpha=0.05, spending="obrien-fleming", first_look=DEFAULT_MIN_CLUSTERS,
+                            days=60):
+    """The nominal-level approach on independent N(0, 1) day differences, t against z on the same paths.
+
+    Daily looks from ``first_look`` to ``days`` (fraction k / days); the t
+    statistic is the exact one-sample t on k − 1 df, the z statistic uses the
+    known variance. Returns ``(t_rate, z_rate)``.
+    """
+    boundary = SequentialBoundary(alpha, parse_spending(spending), "two-sided")
+    looks = [boundary.add_look(k / days) for k in range(first_look, days + 1)]
+    rng = np.random.default_rng(seed)
+    stopped_t = np.zeros(streams, bool)
+    stopped_z = np.zeros(streams, bool)
+    total = np.zeros(streams)
+    squares = np.zeros(streams)
+    for k in range(1, days + 1):
+        e = rng.normal(size=streams)
+        total += e
+        squares += e * e
+        if k < first_look:
+            continue
+        look = looks[k - first_look]
+        mean = total / k
+        t = mean / np.sqrt((squares - k * mean * mean) / (k - 1) / k)
+        stopped_t |= np.abs(t) >= _t_critical(look.nominal_p, k - 1.0)
+        stopped_z |= np.abs(mean) * math.sqrt(k) >= look.z
+    return float(stopped_t.mean()), float(stopped_z.mean())
+
+
 def monte_carlo_se(rate, streams):
     return math.sqrt(rate * (1 - rate) / streams)
 
@@ -282,7 +317,18 @@ def main(argv=None):
     parser.add_argument("--min-clusters", type=int, default=DEFAULT_MIN_CLUSTERS,
                         help=f"clustered looks decide from this many days on (default {DEFAULT_MIN_CLUSTERS}, "
                              f"the config default)")
+    parser.add_argument("--idealised", action="store_true",
+                        help="instead: the nominal-level approach on independent normal day differences "
+                             "(exact t against known-variance z, looks from day --min-clusters to day 60)")
     args = parser.parse_args(argv)
+    if args.idealised:
+        t_rate, z_rate = idealised_nominal_level(args.streams, args.seed, args.alpha, args.spending,
+                                                 args.min_clusters)
+        print(f"{args.streams} streams, seed {args.seed}, {args.spending} spending, independent N(0, 1) day "
+              f"differences, daily looks from day {args.min_clusters} to day 60")
+        print(f"exact t, nominal-level approach: {t_rate:.4f} (s.e. {monte_carlo_se(t_rate, args.streams):.4f}); "
+              f"known-variance z, same paths: {z_rate:.4f}")
+        return 0
     r = run(args.streams, args.seed, args.alpha, args.spending, args.min_clusters)
     print(f"{r['streams']} streams, seed {r['seed']}, two-sided alpha {r['alpha']}, {r['spending']} spending, "
           f"daily looks (clustered decisions from day {r['min_clusters']}); no true difference")
