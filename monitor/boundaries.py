@@ -82,6 +82,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy import special
 
+from ._checks import ALTERNATIVES, check_alternative, finite, open_unit
 from .errors import InvalidArgumentError
 from .spending import SpendingFunction, parse_spending
 
@@ -98,7 +99,6 @@ __all__ = [
     "MIN_INCREMENT",
 ]
 
-ALTERNATIVES = ("two-sided", "greater", "less")
 
 #: A look allowed to spend less than this gets an infinite boundary.
 NEGLIGIBLE_ALPHA = 1e-12
@@ -394,33 +394,11 @@ class FutilitySpec:
 
     def __post_init__(self):
         object.__setattr__(self, "spending", parse_spending(self.spending))
-        beta = _check_open_unit("beta", self.beta)
-        object.__setattr__(self, "beta", beta)
-        try:
-            drift = float(self.drift)
-        except (TypeError, ValueError):
-            raise InvalidArgumentError(f"drift: must be a number, got {self.drift!r}") from None
-        if not math.isfinite(drift) or drift == 0.0:
-            raise InvalidArgumentError(f"drift: must be finite and nonzero, got {self.drift!r}")
+        object.__setattr__(self, "beta", open_unit(self.beta, "beta"))
+        drift = finite(self.drift, "drift")
+        if drift == 0.0:
+            raise InvalidArgumentError(f"drift must not be zero; got {self.drift!r}")
         object.__setattr__(self, "drift", drift)
-
-
-def _check_open_unit(name, value) -> float:
-    try:
-        x = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name}: must be a number in (0, 1), got {value!r}") from None
-    if not (0.0 < x < 1.0):
-        raise InvalidArgumentError(f"{name}: must be in (0, 1), got {value!r}")
-    return x
-
-
-def _check_alternative(alternative) -> str:
-    if alternative not in ALTERNATIVES:
-        raise InvalidArgumentError(
-            f"alternative: must be one of {', '.join(ALTERNATIVES)}, got {alternative!r}"
-        )
-    return alternative
 
 
 def _check_fraction(fraction, previous) -> float:
@@ -474,9 +452,9 @@ class SequentialBoundary:
     """
 
     def __init__(self, alpha, spending, alternative, *, futility=None):
-        self.alpha = _check_open_unit("alpha", alpha)
+        self.alpha = open_unit(alpha, "alpha")
         self.spending = parse_spending(spending)
-        self.alternative = _check_alternative(alternative)
+        self.alternative = check_alternative(alternative)
         if futility is not None and not isinstance(futility, FutilitySpec):
             raise InvalidArgumentError(f"futility: must be a FutilitySpec or None, got {futility!r}")
         self.futility = futility
@@ -794,12 +772,7 @@ def crossing_probabilities(fractions, upper_z, lower_z=None, drift=0.0):
         raise InvalidArgumentError(
             f"lower_z: must not exceed upper_z at a look, got {lower[k]!r} > {upper[k]!r} at look {k + 1}"
         )
-    try:
-        drift = float(drift)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"drift: must be a number, got {drift!r}") from None
-    if not math.isfinite(drift):
-        raise InvalidArgumentError(f"drift: must be finite, got {drift!r}")
+    drift = finite(drift, "drift")
 
     path = _Path(drift)
     up = np.zeros(ts.size)
@@ -855,7 +828,7 @@ def nominal_decision(p_one_sided_upper, p_one_sided_lower, look_boundary, altern
     """
     upper = _check_p("p_one_sided_upper", p_one_sided_upper)
     lower = _check_p("p_one_sided_lower", p_one_sided_lower)
-    alternative = _check_alternative(alternative)
+    alternative = check_alternative(alternative)
     level = look_boundary.nominal_p
     if alternative == "greater":
         return upper <= level

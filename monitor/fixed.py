@@ -43,6 +43,11 @@ from dataclasses import dataclass, field, fields
 import numpy as np
 from scipy import special
 
+from ._checks import ALTERNATIVES
+# Under the names monitor.clustered imports from here.
+from ._checks import check_alternative as _check_alternative
+from ._checks import finite as _check_finite
+from ._checks import open_unit as _check_probability
 from .errors import InvalidArgumentError
 from .summaries import MomentSummary
 
@@ -61,7 +66,6 @@ __all__ = [
 ]
 
 METHODS = ("z", "pooled", "welch", "paired", "proportions")
-ALTERNATIVES = ("two-sided", "greater", "less")
 INTERVALS = ("newcombe", "wald")
 DEGENERATE_NOTE = "degenerate: both groups have zero variance"
 
@@ -178,36 +182,8 @@ class FixedSampleResult:
 # validation
 
 
-def _check_alternative(alternative):
-    if alternative not in ALTERNATIVES:
-        raise InvalidArgumentError(
-            f"alternative must be one of {', '.join(ALTERNATIVES)}; got {alternative!r}"
-        )
-    return alternative
-
-
-def _check_probability(value, name):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a number in (0, 1); got {value!r}") from None
-    if not (0.0 < v < 1.0):
-        raise InvalidArgumentError(f"{name} must be in (0, 1); got {value!r}")
-    return v
-
-
-def _check_finite(value, name):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a finite number; got {value!r}") from None
-    if not math.isfinite(v):
-        raise InvalidArgumentError(f"{name} must be a finite number; got {value!r}")
-    return v
-
-
 def _check_count(value, name, minimum):
-    if isinstance(value, bool) or not isinstance(value, (numbers.Integral, numbers.Real)):
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):
         raise InvalidArgumentError(f"{name} must be a whole number; got {value!r}")
     if isinstance(value, numbers.Real) and not isinstance(value, numbers.Integral):
         if not math.isfinite(value) or value != math.floor(value):
@@ -438,6 +414,12 @@ def _two_sample_inputs(n1, mean1, sd1, n2, mean2, sd2):
             _check_count(n2, "n2", 2), _check_finite(mean2, "mean2"), _check_sd(sd2, "sd2"))
 
 
+def _pooled_variance(n1, sd1, n2, sd2):
+    """Pooled variance of two groups and its degrees of freedom, ``n1 + n2 − 2``."""
+    df = n1 + n2 - 2
+    return ((n1 - 1) * sd1 ** 2 + (n2 - 1) * sd2 ** 2) / df, df
+
+
 def pooled_t(n1, mean1, sd1, n2, mean2, sd2, *, null_difference=0.0,
              alternative="two-sided", alpha=0.05) -> FixedSampleResult:
     """Two-sample Student t test with a pooled variance (df = n1 + n2 − 2).
@@ -474,8 +456,7 @@ def pooled_t(n1, mean1, sd1, n2, mean2, sd2, *, null_difference=0.0,
     """
     null_difference, alternative, alpha = _common(null_difference, alternative, alpha)
     n1, mean1, sd1, n2, mean2, sd2 = _two_sample_inputs(n1, mean1, sd1, n2, mean2, sd2)
-    df = n1 + n2 - 2
-    pooled_var = ((n1 - 1) * sd1 ** 2 + (n2 - 1) * sd2 ** 2) / df
+    pooled_var, df = _pooled_variance(n1, sd1, n2, sd2)
     se = math.sqrt(pooled_var * (1.0 / n1 + 1.0 / n2))
     estimate = mean1 - mean2
     ratio, ratio_p = _variance_ratio(sd1, n1, sd2, n2)
@@ -527,12 +508,11 @@ def welch_t(n1, mean1, sd1, n2, mean2, sd2, *, null_difference=0.0,
     else:
         df = math.nan
     estimate = mean1 - mean2
-    pooled_df = n1 + n2 - 2
-    pooled_sd = math.sqrt(((n1 - 1) * sd1 ** 2 + (n2 - 1) * sd2 ** 2) / pooled_df)
+    pooled_var, pooled_df = _pooled_variance(n1, sd1, n2, sd2)
     ratio, ratio_p = _variance_ratio(sd1, n1, sd2, n2)
     notes = ["unequal variances allowed (Welch–Satterthwaite degrees of freedom)"]
     return _finish("welch", alternative, alpha, null_difference, estimate, se, df,
-                   _mean_effect(estimate, pooled_sd, pooled_df), notes,
+                   _mean_effect(estimate, math.sqrt(pooled_var), pooled_df), notes,
                    ("se", se, df), ratio, ratio_p)
 
 

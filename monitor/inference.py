@@ -37,6 +37,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy import optimize
 
+from ._checks import check_alternative, finite, open_unit
 from .boundaries import crossing_probabilities
 from .errors import InvalidArgumentError
 
@@ -47,29 +48,10 @@ __all__ = [
     "median_unbiased_estimate",
 ]
 
-_ALTERNATIVES = ("two-sided", "greater", "less")
-
 # Below the observed z at the stop look the lower limit only has to sit under the
 # upper one: the first-crossing probability of the upper limit at the last look
 # does not depend on it.
 _LAST_LOOK_LOWER_GAP = 12.0
-
-
-def _check_alternative(alternative):
-    if alternative not in _ALTERNATIVES:
-        raise InvalidArgumentError(
-            f"alternative must be one of {', '.join(_ALTERNATIVES)}; got {alternative!r}"
-        )
-
-
-def _finite(name, value):
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a number; got {value!r}") from None
-    if not math.isfinite(number):
-        raise InvalidArgumentError(f"{name} must be finite; got {value!r}")
-    return number
 
 
 def _check_looks(fractions, upper_z, stop_look):
@@ -151,7 +133,7 @@ def repeated_confidence_interval(estimate, standard_error, boundary_z, alternati
     >>> repeated_confidence_interval(1.5, 0.5, 2.0, "greater")
     (0.5, None)
     """
-    _check_alternative(alternative)
+    check_alternative(alternative)
     estimate = float(estimate)
     z = float(boundary_z)
     if math.isnan(z) or z <= 0:
@@ -207,9 +189,9 @@ def stagewise_p_value(fractions, upper_z, stop_look, z_observed, alternative="tw
     >>> 0.03 < p < 0.05
     True
     """
-    _check_alternative(alternative)
+    check_alternative(alternative)
     t, b = _check_looks(fractions, upper_z, stop_look)
-    z = _finite("z_observed", z_observed)
+    z = finite(z_observed, "z_observed")
     if alternative == "greater":
         return _at_or_beyond(t, b, z, 0.0, two_sided=False)
     if alternative == "less":
@@ -318,15 +300,13 @@ def median_unbiased_estimate(
     >>> round(late.estimate, 3), late.naive_estimate, round(late.p_value, 4)
     (1.235, 1.25, 0.0159)
     """
-    _check_alternative(alternative)
+    check_alternative(alternative)
     t, b = _check_looks(fractions, upper_z, stop_look)
-    z = _finite("z_observed", z_observed)
-    info = _finite("information", information)
+    z = finite(z_observed, "z_observed")
+    info = finite(information, "information")
     if info <= 0:
         raise InvalidArgumentError(f"information must be positive; got {information!r}")
-    alpha = _finite("alpha", alpha)
-    if not 0 < alpha < 1:
-        raise InvalidArgumentError(f"alpha must be in (0, 1); got {alpha!r}")
+    alpha = open_unit(alpha, "alpha")
 
     two_sided = alternative == "two-sided"
     # "less" designs are solved in the mirrored frame where the boundary is upper.

@@ -24,6 +24,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 from scipy import optimize, stats
 
+from ._checks import check_alternative, finite, open_unit, whole
 from .boundaries import FutilitySpec, SequentialBoundary, crossing_probabilities, efficacy_boundaries
 from .errors import InvalidArgumentError
 from .spending import parse_spending
@@ -38,9 +39,6 @@ __all__ = [
     "sequential_drift",
     "inflation_for_boundaries",
 ]
-
-_ALTERNATIVES = ("two-sided", "greater", "less")
-
 
 @dataclass(frozen=True)
 class Plan:
@@ -125,32 +123,13 @@ class Plan:
 # ----------------------------------------------------------------- validation
 
 
-def _number(name, value):
-    if isinstance(value, bool):
-        raise InvalidArgumentError(f"{name} must be a number; got {value!r}")
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a number; got {value!r}") from None
-    if not math.isfinite(number):
-        raise InvalidArgumentError(f"{name} must be finite; got {value!r}")
-    return number
-
-
 def _check_common(alpha, power, alternative, looks):
-    alpha = _number("alpha", alpha)
-    if not 0 < alpha < 1:
-        raise InvalidArgumentError(f"alpha must be in (0, 1); got {alpha!r}")
-    power = _number("power", power)
+    alpha = open_unit(alpha, "alpha")
+    power = finite(power, "power")
     if not alpha < power < 1:
         raise InvalidArgumentError(f"power must be in (alpha, 1) = ({alpha}, 1); got {power!r}")
-    if alternative not in _ALTERNATIVES:
-        raise InvalidArgumentError(
-            f"alternative must be one of {', '.join(_ALTERNATIVES)}; got {alternative!r}"
-        )
-    if isinstance(looks, bool) or not isinstance(looks, (int, np.integer)) or looks < 1:
-        raise InvalidArgumentError(f"looks must be a whole number of at least 1; got {looks!r}")
-    return alpha, power, int(looks)
+    check_alternative(alternative)
+    return alpha, power, whole(looks, "looks", 1)
 
 
 def _check_direction(difference, alternative, name):
@@ -186,8 +165,8 @@ def fixed_sample_mean(difference, sd, *, alpha=0.05, power=0.8, alternative="two
     >>> round(fixed_sample_mean(0.5, 1.0), 2)   # 2 (1.95996 + 0.84162)² / 0.25
     62.79
     """
-    difference = _number("difference", difference)
-    sd = _number("sd", sd)
+    difference = finite(difference, "difference")
+    sd = finite(sd, "sd")
     if sd <= 0:
         raise InvalidArgumentError(f"sd must be positive; got {sd!r}")
     alpha, power, _ = _check_common(alpha, power, alternative, 1)
@@ -213,11 +192,8 @@ def fixed_sample_proportion(p1, p2, *, alpha=0.05, power=0.8, alternative="two-s
     >>> round(fixed_sample_proportion(0.6, 0.4), 1)
     96.9
     """
-    p1 = _number("p1", p1)
-    p2 = _number("p2", p2)
-    for name, p in (("p1", p1), ("p2", p2)):
-        if not 0 < p < 1:
-            raise InvalidArgumentError(f"{name} must be in (0, 1); got {p!r}")
+    p1 = open_unit(p1, "p1")
+    p2 = open_unit(p2, "p2")
     if p1 == p2:
         raise InvalidArgumentError(f"p1 and p2 must differ; got p1={p1!r}, p2={p2!r}")
     alpha, power, _ = _check_common(alpha, power, alternative, 1)

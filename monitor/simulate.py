@@ -27,6 +27,7 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
+from ._checks import whole
 from .errors import InvalidArgumentError
 from .planning import design_boundaries
 
@@ -123,12 +124,6 @@ class OperatingCharacteristics:
         out["events_null"] = self.events_null.to_dict()
         out["events_alternative"] = self.events_alternative.to_dict()
         return out
-
-
-def _whole(name, value, minimum):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
-        raise InvalidArgumentError(f"{name} must be a whole number of at least {minimum}; got {value!r}")
-    return int(value)
 
 
 def _random_schedules(rng, count, looks):
@@ -234,11 +229,11 @@ def simulate_design(
     for attribute in ("alpha", "power", "alternative", "spending", "futility", "drift", "max_per_group", "looks"):
         if not hasattr(plan, attribute):
             raise InvalidArgumentError(f"plan must be a Plan from monitor.planning; got {plan!r}")
-    streams = _whole("streams", streams, 2)
-    looks = plan.looks if looks is None else _whole("looks", looks, 1)
+    streams = whole(streams, "streams", 2)
+    looks = plan.looks if looks is None else whole(looks, "looks", 1)
     if schedule not in ("regular", "irregular"):
         raise InvalidArgumentError(f"schedule must be 'regular' or 'irregular'; got {schedule!r}")
-    schedules = _whole("schedules", schedules, 1)
+    schedules = whole(schedules, "schedules", 1)
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer))):
         raise InvalidArgumentError(f"seed must be a whole number; got {seed!r}")
     rng = np.random.default_rng(seed)

@@ -43,6 +43,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from ._checks import open_unit
 from .errors import InvalidArgumentError, UnknownSpendingError
 
 __all__ = [
@@ -105,7 +106,7 @@ class SpendingFunction(ABC):
         >>> f.cumulative([0.0, 1.0, 2.0], 0.025).tolist()
         [0.0, 0.025, 0.025]
         """
-        level = _check_level(level)
+        level = open_unit(level, "level")
         arr = np.asarray(t, dtype=float)
         if np.any(np.isnan(arr)) or np.any(arr < 0):
             raise InvalidArgumentError(f"t: information fractions must be >= 0, got {t!r}")
@@ -121,16 +122,6 @@ class SpendingFunction(ABC):
 
     def __str__(self) -> str:
         return self.spec
-
-
-def _check_level(level) -> float:
-    try:
-        value = float(level)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"level: must be a number in (0, 1), got {level!r}") from None
-    if not (0.0 < value < 1.0):
-        raise InvalidArgumentError(f"level: must be in (0, 1), got {level!r}")
-    return value
 
 
 @dataclass(frozen=True)

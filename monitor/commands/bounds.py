@@ -7,6 +7,7 @@ import json
 import math
 
 from .. import boundaries
+from .._checks import finite, open_unit
 from ..errors import InvalidArgumentError, UnknownSpendingError
 from ..spending import parse_spending
 
@@ -52,35 +53,26 @@ def register(subparsers) -> None:
 # parsing
 
 
-def _number(text, option):
-    try:
-        value = float(text)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{option}: not a number: {text!r}") from None
-    if not math.isfinite(value):
-        raise InvalidArgumentError(f"{option}: must be finite, got {text!r}")
-    return value
-
-
 def _fractions(text):
     parts = [part.strip() for part in str(text).split(",")]
     if not parts or any(part == "" for part in parts):
-        raise InvalidArgumentError(f"--fractions: expected numbers separated by commas, got {text!r}")
-    values = [_number(part, "--fractions") for part in parts]
+        raise InvalidArgumentError(f"--fractions must be numbers separated by commas; got {text!r}")
+    values = [finite(part, "--fractions") for part in parts]
     for k, value in enumerate(values):
         if value <= 0:
-            raise InvalidArgumentError(f"--fractions: each fraction must be > 0, got {parts[k]!r}")
+            raise InvalidArgumentError(f"--fractions must each be > 0; got {parts[k]!r}")
         if k and value <= values[k - 1]:
             raise InvalidArgumentError(
-                f"--fractions: fractions must strictly increase, got {parts[k]!r} after {parts[k - 1]!r}"
+                f"--fractions must strictly increase; got {parts[k]!r} after {parts[k - 1]!r}"
             )
         if k and value - values[k - 1] < boundaries.MIN_INCREMENT:
             raise InvalidArgumentError(
-                f"--fractions: {parts[k]!r} is less than {boundaries.MIN_INCREMENT:g} above {parts[k - 1]!r}"
+                f"--fractions must rise by at least {boundaries.MIN_INCREMENT:g} a look; "
+                f"got {parts[k]!r} after {parts[k - 1]!r}"
             )
         if k < len(values) - 1 and value >= 1:
             raise InvalidArgumentError(
-                f"--fractions: {parts[k]!r} is a final look (>= 1) but more fractions follow it"
+                f"--fractions may not go on after a final look (>= 1); got {parts[k]!r} before the end"
             )
     return values
 
@@ -96,20 +88,16 @@ def _spending(text, option):
 
 def _design(args):
     spending = _spending(args.spending, "--spending")
-    alpha = _number(args.alpha, "--alpha")
-    if not 0 < alpha < 1:
-        raise InvalidArgumentError(f"--alpha: must be in (0, 1), got {args.alpha!r}")
+    alpha = open_unit(args.alpha, "--alpha")
     fractions = _fractions(args.fractions)
     futility = None
     if args.futility is not None:
-        beta = _number(args.beta, "--beta")
-        if not 0 < beta < 1:
-            raise InvalidArgumentError(f"--beta: must be in (0, 1), got {args.beta!r}")
+        beta = open_unit(args.beta, "--beta")
         if args.drift is None:
-            raise InvalidArgumentError("--drift: required with --futility (expected z at fraction 1)")
-        drift = _number(args.drift, "--drift")
+            raise InvalidArgumentError("--drift is required with --futility (expected z at fraction 1)")
+        drift = finite(args.drift, "--drift")
         if drift == 0:
-            raise InvalidArgumentError(f"--drift: must be nonzero, got {args.drift!r}")
+            raise InvalidArgumentError(f"--drift must not be zero; got {args.drift!r}")
         futility = boundaries.FutilitySpec(_spending(args.futility, "--futility"), beta, drift)
     return spending, alpha, fractions, futility
 
