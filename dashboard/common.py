@@ -19,7 +19,7 @@ import streamlit as st
 
 from monitor import readback
 from monitor.commands.history import csv_rows
-from monitor.commands.status import fmt
+from monitor.readback import format_number as fmt
 
 # Our palette: one colour per state and per group, the same on every page.
 STATE_COLOURS = {
@@ -264,6 +264,9 @@ def _ago(iso, ref):
         f"{readback.describe_seconds(delta)} ago" if delta > 0 else f"in {readback.describe_seconds(-delta)}")
 
 
+_BOARD_CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "design effect {:.2f}".format,
+                       "effective_n": "effective n {:,.0f}".format}
+
 BOARD_COLUMNS = ("State", "Comparison", "Estimate [repeated CI]", "Events per group", "Plan reached",
                  "Last look", "Next look", "Plan complete in")
 
@@ -278,14 +281,8 @@ def board_table(rows):
         version = f' <span class="gw-sub">v{r["version"]}</span>' if r["version"] != 1 else ""
         fraction = r["fraction"] or 0.0
         bar = f'<div class="gw-bar"><div style="width:{min(fraction, 1.0) * 100:.0f}%"></div></div>'
-        clusters = []
-        if r["clusters"] is not None:
-            clusters.append(f"{r['clusters']} clusters")
-        if r["design_effect"] is not None:
-            clusters.append(f"design effect {r['design_effect']:.2f}")
-        if r["effective_n"] is not None:
-            clusters.append(f"effective n {r['effective_n']:,.0f}")
-        cluster_line = "".join(f'<div class="gw-sub">{html.escape(c)}</div>' for c in clusters)
+        cluster_line = "".join(f'<div class="gw-sub">{html.escape(c)}</div>'
+                               for c in readback.clustering_figures(r, _BOARD_CLUSTER_TEXT))
         last = (f'{_clock(r["last_look_at"], ref)}<div class="gw-sub">{_ago(r["last_look_at"], ref)} · look {r["looks"]}</div>'
                 if r["last_look_at"] else "—")
         if r["stopped"] or r["archived"] or not r["next_look_at"]:
@@ -576,6 +573,12 @@ def _plan_lines(row):
     return lines
 
 
+# The data-quality caption names the day level: that is where the look measures clustering.
+_QUALITY_CLUSTER_TEXT = {"clusters": "{} clusters".format,
+                         "design_effect": lambda value: f"day-level design effect {fmt(value, 3)}",
+                         "effective_n": "effective n {:,.0f}".format}
+
+
 def show_comparison(url, name, version=None):
     """Every view of one comparison: headline, charts, reading, plan, data quality, history."""
     row = comparison(url, name, version)
@@ -655,12 +658,7 @@ def show_comparison(url, name, version=None):
         q[2].metric("Effective n", f"{row['effective_n']:,.0f}" if row["effective_n"] is not None else "—",
                     help="events divided by the design effect")
         beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
-        if row["clusters"] is not None:
-            beside.append(f"{row['clusters']} clusters")
-        if row["design_effect"] is not None:
-            beside.append(f"day-level design effect {fmt(row['design_effect'], 3)}")
-        if row["effective_n"] is not None:
-            beside.append(f"effective n {row['effective_n']:,.0f}")
+        beside += readback.clustering_figures(row, _QUALITY_CLUSTER_TEXT)
         st.caption(" · ".join(beside))
         chart = excluded_chart(looks)
         if chart is not None:

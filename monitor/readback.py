@@ -12,13 +12,13 @@ Only SQLAlchemy Core queries; every function opens one short connection.
 from __future__ import annotations
 
 import math
-import os
 import re
 from datetime import datetime, timedelta, timezone
-from pathlib import Path
 
 import sqlalchemy as sa
 
+from . import store
+from .config import load_config
 from .errors import InvalidArgumentError, UnknownComparisonError
 from .models import Alert, Cell, Comparison, Delivery, Look
 
@@ -28,6 +28,8 @@ __all__ = [
     "ALERT_STATES",
     "state_label",
     "describe_seconds",
+    "format_number",
+    "clustering_figures",
     "comparison_status",
     "list_comparisons",
     "look_history",
@@ -87,6 +89,34 @@ def describe_seconds(seconds):
     if seconds < 36 * 3600:
         return f"{sign}{seconds / 3600:.1f} h"
     return f"{sign}{seconds / 86400:.1f} days"
+
+
+def format_number(value, digits=4):
+    """A number with ``digits`` significant digits, never in exponent form above 1e-3; ``-`` if missing."""
+    if value is None:
+        return "-"
+    if isinstance(value, int):
+        return str(value)
+    value = float(value)
+    if not math.isfinite(value):
+        return "-"
+    if value != 0 and abs(value) < 1e-3:
+        return f"{value:.{max(digits - 2, 1)}e}"
+    if abs(value) >= 10 ** digits:
+        return f"{value:.0f}"
+    return f"{value:.{digits}g}"
+
+
+_CLUSTERING_KEYS = ("clusters", "design_effect", "effective_n")
+
+
+def clustering_figures(row, formats):
+    """The clustering figures a status or look row carries, as text, in the order they are shown.
+
+    ``formats`` maps ``"clusters"``, ``"design_effect"`` and ``"effective_n"`` to a function
+    writing that value; a figure the row does not carry (``None``) is left out.
+    """
+    return [formats[key](row[key]) for key in _CLUSTERING_KEYS if row[key] is not None]
 
 
 # ---------------------------------------------------------------------------
@@ -708,49 +738,17 @@ def acknowledge_alert(engine, alert_id, *, by, now):
 # opening the store from a configuration file
 
 
-def _config_path(path):
-    if path:
-        return Path(path)
-    if os.environ.get("GAPWATCH_CONFIG"):
-        return Path(os.environ["GAPWATCH_CONFIG"])
-    return Path("gapwatch.toml")
-
-
 def store_url_from_config(path=None):
     """The ``[store] url`` of a configuration file (argument, ``$GAPWATCH_CONFIG``, ``./gapwatch.toml``)."""
-    try:
-        from .config import load_config
-    except ImportError:
-        load_config = None
-    if load_config is not None:
-        return load_config(path).store_url
-    import tomllib
-
-    from .errors import ConfigError
-
-    config_path = _config_path(path)
-    try:
-        with open(config_path, "rb") as fh:
-            data = tomllib.load(fh)
-    except FileNotFoundError:
-        raise ConfigError([f"configuration file not found (pass --config FILE)"], path=config_path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError([f"not valid TOML: {exc}"], path=config_path) from None
-    url = (data.get("store") or {}).get("url")
-    if not url:
-        raise ConfigError(["[store] url is missing"], path=config_path)
-    return url
+    return load_config(path).store_url
 
 
 def open_store(url):
     """An engine on the history store, checked to be at the schema this code expects."""
+    engine = store.make_engine(url)
     try:
-        from . import store
-    except ImportError:
-        store = None
-    if store is not None and hasattr(store, "make_engine"):
-        engine = store.make_engine(url)
-        if hasattr(store, "ensure_current"):
-            store.ensure_current(engine)
-        return engine
-    return sa.create_engine(url)
+        store.ensure_current(engine)
+    except BaseException:
+        engine.dispose()
+        raise
+    return engine

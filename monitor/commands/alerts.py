@@ -7,9 +7,12 @@ import getpass
 import json
 from datetime import datetime, timezone
 
+from .. import readback
+from ._common import add_config_option, open_store
+
 __all__ = ["register", "run"]
 
-STATES = ("pending", "delivered", "failed", "acknowledged")
+STATES = readback.ALERT_STATES
 
 
 def register(subparsers) -> None:
@@ -19,8 +22,7 @@ def register(subparsers) -> None:
         description="List alerts from the history store, newest first, with the state of each "
                     "delivery; 'gapwatch alerts ack ID' records that someone has seen an alert.",
     )
-    p.add_argument("--config", metavar="FILE",
-                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--state", action="append", choices=STATES,
                    help="only alerts in this state (repeat for several)")
     p.add_argument("--comparison", metavar="NAME", help="only alerts of this comparison")
@@ -37,10 +39,8 @@ def register(subparsers) -> None:
 
 
 def _engine(args):
-    from .. import readback
-
-    path = getattr(args, "ack_config", None) or args.config
-    return readback.open_store(readback.store_url_from_config(path))
+    # "alerts ack ID --config F" is accepted too, where users tend to put it.
+    return open_store(getattr(args, "ack_config", None) or args.config)
 
 
 def _short(text, width):
@@ -69,8 +69,6 @@ def _table(alerts) -> str:
 
 
 def run(args) -> int:
-    from .. import readback
-
     fmt = getattr(args, "ack_format", None) or args.format
     engine = _engine(args)
     try:

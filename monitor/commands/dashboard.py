@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import argparse
 import os
 import subprocess
 import sys
 from pathlib import Path
 
-from .. import readback
+from ._common import add_config_option, open_store, whole_number_type
 
 __all__ = ["register", "run", "app_path", "streamlit_command"]
 
@@ -22,22 +21,11 @@ def register(subparsers) -> None:
                     "Acknowledging alerts needs the password in $GAPWATCH_DASHBOARD_PASSWORD; "
                     "without it the dashboard is read-only.",
     )
-    p.add_argument("--config", metavar="FILE",
-                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
-    p.add_argument("--port", type=_port, default=8501, metavar="P", help="port (default 8501)")
+    add_config_option(p)
+    p.add_argument("--port", type=whole_number_type(1, 65535), default=8501, metavar="P", help="port (default 8501)")
     p.add_argument("--address", default="127.0.0.1", metavar="A",
                    help="address to bind (default 127.0.0.1; other addresses expose the dashboard)")
     p.set_defaults(func=run)
-
-
-def _port(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a whole number; got {text!r}") from None
-    if not 1 <= value <= 65535:
-        raise argparse.ArgumentTypeError(f"must be between 1 and 65535; got {text!r}")
-    return value
 
 
 def app_path() -> Path:
@@ -75,8 +63,7 @@ def dashboard_environment(config_path, environ=None):
 
 def run(args) -> int:
     # Fail here, with the CLI's one-line message, rather than inside the browser.
-    engine = readback.open_store(readback.store_url_from_config(args.config))
-    engine.dispose()
+    open_store(args.config).dispose()
     command = streamlit_command(port=args.port, address=args.address)
     env = dashboard_environment(args.config)
     print(f"gapwatch dashboard on http://{args.address}:{args.port} (Ctrl+C stops it)", file=sys.stderr)

@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import argparse
 import csv
-import json
 import sys
 
 from .. import readback
-from .status import engine_from_args, fmt
+from ..readback import format_number as fmt
+from ._common import add_config_option, aligned_lines, open_store, print_json, whole_number_type
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
 
@@ -29,23 +28,12 @@ def register(subparsers) -> None:
                     "boundary, alpha spent, decision and excluded rows.",
     )
     p.add_argument("name", metavar="NAME", help="comparison name")
-    p.add_argument("--config", metavar="FILE",
-                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--format", choices=["table", "json", "csv"], default="table",
                    help="table (default), json (a list of looks) or csv")
-    p.add_argument("--version", type=_version, default=None, metavar="V",
+    p.add_argument("--version", type=whole_number_type(1), default=None, metavar="V",
                    help="a stored version (default: the live one)")
     p.set_defaults(func=run)
-
-
-def _version(text):
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a whole number; got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be 1 or more; got {text!r}")
-    return value
 
 
 def csv_rows(history):
@@ -60,6 +48,11 @@ def csv_rows(history):
     return header, rows
 
 
+_CLUSTER_TEXT = {"clusters": "{} clusters".format,
+                 "design_effect": lambda value: f"design effect {fmt(value, 3)}",
+                 "effective_n": "effective n {:.0f}".format}
+
+
 def table_lines(history):
     headers = ["look", "as of (UTC)", "n1", "n2", "estimate", "statistic", "boundary", "p-value",
                "plan", "alpha spent", "excluded", "decision"]
@@ -71,17 +64,9 @@ def table_lines(history):
             "-" if h["fraction"] is None else f"{100 * h['fraction']:.0f}%",
             fmt(h["cumulative_alpha"], 3), str(h["excluded_total"]), h["decision"],
         ])
-    widths = [max(len(hd), *(len(b[i]) for b in body)) for i, hd in enumerate(headers)]
-    lines = ["  ".join(hd.ljust(w) for hd, w in zip(headers, widths)).rstrip()]
-    lines += ["  ".join(c.ljust(w) for c, w in zip(b, widths)).rstrip() for b in body]
+    lines = aligned_lines(headers, body)
     last = history[-1]
-    figures = []
-    if last["clusters"] is not None:
-        figures.append(f"{last['clusters']} clusters")
-    if last["design_effect"] is not None:
-        figures.append(f"design effect {fmt(last['design_effect'], 3)}")
-    if last["effective_n"] is not None:
-        figures.append(f"effective n {last['effective_n']:.0f}")
+    figures = readback.clustering_figures(last, _CLUSTER_TEXT)
     if figures:
         lines.append("latest look: " + ", ".join(figures))
     for warning in last["warnings"]:
@@ -90,14 +75,13 @@ def table_lines(history):
 
 
 def run(args) -> int:
-    engine = engine_from_args(args)
+    engine = open_store(args.config)
     try:
         history = readback.look_history(engine, args.name, version=args.version)
     finally:
         engine.dispose()
     if args.format == "json":
-        json.dump(history, sys.stdout, indent=2, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(history)
     elif args.format == "csv":
         header, rows = csv_rows(history)
         writer = csv.writer(sys.stdout, lineterminator="\n")

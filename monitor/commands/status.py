@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import json
-import math
-import sys
 from datetime import datetime, timezone
 
 from .. import readback
+# fmt keeps the name the dashboard tests import from here.
+from ..readback import format_number as fmt
+from ._common import add_config_option, aligned_lines, open_store, print_json
 
-__all__ = ["register", "run", "engine_from_args", "fmt"]
+__all__ = ["register", "run", "fmt"]
 
 
 def register(subparsers) -> None:
@@ -20,33 +20,11 @@ def register(subparsers) -> None:
                     "per group, the latest estimate with its repeated confidence interval, the "
                     "fraction of the plan reached, clustering figures and warnings.",
     )
-    p.add_argument("--config", metavar="FILE",
-                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--format", choices=["table", "json"], default="table",
                    help="table (default) or json (a list of objects)")
     p.add_argument("--all", action="store_true", help="include archived versions")
     p.set_defaults(func=run)
-
-
-def engine_from_args(args):
-    """The store engine named by ``--config`` (shared by the read-side commands)."""
-    return readback.open_store(readback.store_url_from_config(getattr(args, "config", None)))
-
-
-def fmt(value, digits=4):
-    """A number with ``digits`` significant digits, never in exponent form above 1e-3; ``-`` if missing."""
-    if value is None:
-        return "-"
-    if isinstance(value, int):
-        return str(value)
-    value = float(value)
-    if not math.isfinite(value):
-        return "-"
-    if value != 0 and abs(value) < 1e-3:
-        return f"{value:.{max(digits - 2, 1)}e}"
-    if abs(value) >= 10 ** digits:
-        return f"{value:.0f}"
-    return f"{value:.{digits}g}"
 
 
 def _interval(row):
@@ -64,15 +42,13 @@ def _fraction(row):
     return "-" if row["fraction"] is None else f"{100 * row['fraction']:.0f}%"
 
 
+# Short forms: the status table has one line per comparison.
+_CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "deff {:.2f}".format,
+                 "effective_n": "eff n {:.0f}".format}
+
+
 def _clusters(row):
-    parts = []
-    if row["clusters"] is not None:
-        parts.append(f"{row['clusters']} clusters")
-    if row["design_effect"] is not None:
-        parts.append(f"deff {row['design_effect']:.2f}")
-    if row["effective_n"] is not None:
-        parts.append(f"eff n {row['effective_n']:.0f}")
-    return ", ".join(parts) or "-"
+    return ", ".join(readback.clustering_figures(row, _CLUSTER_TEXT)) or "-"
 
 
 def _when(row, now):
@@ -95,25 +71,23 @@ def table_lines(rows, now):
         to_plan = "-" if r["seconds_to_plan"] is None else readback.describe_seconds(r["seconds_to_plan"])
         body.append([name, r["state_label"], str(r["looks"]), f"{r['n1']} / {r['n2']}", _interval(r),
                      _fraction(r), to_plan, _clusters(r), _when(r, now)])
-    widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(headers)]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(headers, widths)).rstrip()]
-    for r, b in zip(rows, body):
-        lines.append("  ".join(c.ljust(w) for c, w in zip(b, widths)).rstrip())
-        for warning in r["warnings"]:
-            lines.append(f"    warning: {warning}")
+    header, *row_lines = aligned_lines(headers, body)
+    lines = [header]
+    for r, line in zip(rows, row_lines):
+        lines.append(line)
+        lines.extend(f"    warning: {warning}" for warning in r["warnings"])
     return lines
 
 
 def run(args) -> int:
-    engine = engine_from_args(args)
+    engine = open_store(args.config)
     try:
         now, note = readback.reference_time(engine, datetime.now(timezone.utc))
         rows = readback.comparison_status(engine, include_archived=args.all, now=now)
     finally:
         engine.dispose()
     if args.format == "json":
-        json.dump(rows, sys.stdout, indent=2, allow_nan=False)
-        sys.stdout.write("\n")
+        print_json(rows)
         return 0
     if not rows:
         print("no comparisons in the store yet (the first look records one)")
