@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from ..config import load_config
 from ..errors import SourceUnavailableError
+from ._common import add_config_option
 
 
 def register(subparsers) -> None:
@@ -11,7 +12,7 @@ def register(subparsers) -> None:
         "check", help="validate the configuration, the sources' tables and columns, and the store",
         description="Validate the configuration file, connect to each source and confirm the tables and "
                     "columns exist with usable types, and report the history store's migration state.")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.set_defaults(func=run)
 
 

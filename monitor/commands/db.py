@@ -6,6 +6,7 @@ import sys
 
 from .. import store
 from ..config import load_config
+from ._common import add_config_option
 
 
 def register(subparsers) -> None:
@@ -16,7 +17,7 @@ def register(subparsers) -> None:
                    help="upgrade: to the newest (or --revision); downgrade: to REV; current: show the revision")
     p.add_argument("revision", nargs="?", default=None,
                    help="target revision (downgrade needs one, e.g. base; upgrade defaults to head)")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--store", default=None, metavar="URL", help="store URL instead of the configuration's [store] url")
     p.set_defaults(func=run)
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from ..config import load_config
+from ._common import add_config_option
 
 
 def register(subparsers) -> None:
@@ -11,7 +12,7 @@ def register(subparsers) -> None:
         description="Archive the current version of a comparison (its looks, cells and alerts stay as "
                     "they are). The next look creates version + 1 with the configured design.")
     p.add_argument("name", metavar="NAME", help="comparison name")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.set_defaults(func=run)
 
 

@@ -5,6 +5,8 @@ from __future__ import annotations
 import logging
 import sys
 
+from ._common import add_config_option
+
 __all__ = ["register", "run", "configure_logging"]
 
 
@@ -18,8 +20,7 @@ def register(subparsers) -> None:
                     "a change to the file, reloads the configuration. --once takes one look at "
                     "every comparison, delivers pending alerts and exits (for cron).",
     )
-    p.add_argument("--config", metavar="FILE",
-                   help="configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--once", action="store_true",
                    help="one look at every comparison and one alert-delivery pass, then exit "
                         "(exit status 1 if any look failed)")

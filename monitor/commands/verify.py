@@ -16,6 +16,7 @@ import sqlalchemy as sa
 
 from ..config import load_config
 from ..errors import UnknownComparisonError
+from ._common import add_config_option
 
 __all__ = ["verify_looks"]
 
@@ -29,7 +30,7 @@ def register(subparsers) -> None:
                     "and arrival watermarks) and report any look whose figures differ. Exit 1 on a mismatch.")
     p.add_argument("name", metavar="NAME", help="comparison name")
     p.add_argument("--version", type=int, default=None, help="comparison version (default: the newest)")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.set_defaults(func=run)
 
 
