@@ -7,9 +7,11 @@ import json
 import math
 
 from .. import planning
+from .._checks import ALTERNATIVES
 from ..errors import InvalidArgumentError
 
-ALTERNATIVES = ("two-sided", "greater", "less")
+# The two numbers each metric is planned from, as option destinations.
+_METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}
 
 
 def _finite_number(text):
@@ -64,21 +66,17 @@ def plan_from_args(args):
     """Build the :class:`monitor.planning.Plan` the options describe."""
     common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative,
                   spending=args.spending, looks=args.looks, futility=args.futility)
-    if args.metric == "mean":
-        for option, value in (("--p1", args.p1), ("--p2", args.p2)):
-            if value is not None:
-                raise InvalidArgumentError(f"{option} is for --metric proportion; got {value!r}")
-        for option, value in (("--difference", args.difference), ("--sd", args.sd)):
-            if value is None:
-                raise InvalidArgumentError(f"{option} is required with --metric mean")
-        return planning.plan_mean(args.difference, args.sd, **common)
-    for option, value in (("--difference", args.difference), ("--sd", args.sd)):
-        if value is not None:
-            raise InvalidArgumentError(f"{option} is for --metric mean; got {value!r}")
-    for option, value in (("--p1", args.p1), ("--p2", args.p2)):
-        if value is None:
-            raise InvalidArgumentError(f"{option} is required with --metric proportion")
-    return planning.plan_proportion(args.p1, args.p2, **common)
+    for metric, names in _METRIC_OPTIONS.items():
+        for name in names:
+            value = getattr(args, name)
+            if metric != args.metric and value is not None:
+                raise InvalidArgumentError(f"--{name} is for --metric {metric}; got {value!r}")
+    chosen = _METRIC_OPTIONS[args.metric]
+    for name in chosen:
+        if getattr(args, name) is None:
+            raise InvalidArgumentError(f"--{name} is required with --metric {args.metric}")
+    build = planning.plan_mean if args.metric == "mean" else planning.plan_proportion
+    return build(*(getattr(args, name) for name in chosen), **common)
 
 
 def json_safe(value):
