@@ -27,18 +27,20 @@ def check_alternative(alternative):
     return alternative
 
 
-def finite(value, name):
-    """``value`` as a finite float.
-
-    A bool is refused although ``float(True)`` works: a flag where a number
-    belongs is a caller's mistake, not the number 1.
-    """
+def _float(value, name, expected):
+    # A bool is refused although float(True) works: a flag where a number belongs is a
+    # caller's mistake, not the number 1.
     if isinstance(value, bool):
-        raise InvalidArgumentError(f"{name} must be a number; got {value!r}")
+        raise InvalidArgumentError(f"{name} must be {expected}; got {value!r}")
     try:
-        number = float(value)
+        return float(value)
     except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a number; got {value!r}") from None
+        raise InvalidArgumentError(f"{name} must be {expected}; got {value!r}") from None
+
+
+def finite(value, name):
+    """``value`` as a finite float."""
+    number = _float(value, name, "a number")
     if not math.isfinite(number):
         raise InvalidArgumentError(f"{name} must be finite; got {value!r}")
     return number
@@ -46,12 +48,7 @@ def finite(value, name):
 
 def open_unit(value, name):
     """``value`` as a float strictly between 0 and 1 (a level, a power, a rate)."""
-    if isinstance(value, bool):
-        raise InvalidArgumentError(f"{name} must be a number in (0, 1); got {value!r}")
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InvalidArgumentError(f"{name} must be a number in (0, 1); got {value!r}") from None
+    number = _float(value, name, "a number in (0, 1)")
     if not 0.0 < number < 1.0:
         raise InvalidArgumentError(f"{name} must be in (0, 1); got {value!r}")
     return number

@@ -40,7 +40,6 @@ import math
 import numbers
 from dataclasses import dataclass, field, fields
 
-import numpy as np
 from scipy import special
 
 from ._checks import ALTERNATIVES
