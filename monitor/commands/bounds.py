@@ -8,6 +8,7 @@ import math
 
 from .. import boundaries
 from .._checks import finite, open_unit
+from ._common import json_safe
 from ..errors import InvalidArgumentError, UnknownSpendingError
 from ..spending import parse_spending
 
@@ -106,28 +107,24 @@ def _design(args):
 # output
 
 
-def _finite_or_none(x):
-    return x if x is not None and math.isfinite(x) else None
-
-
 def _as_json(spending, alpha, alternative, looks, futility):
     rows = []
     for b in looks:
         row = {
             "look": b.look,
             "fraction": b.fraction,
-            "z": _finite_or_none(b.z),
+            "z": b.z,
             "nominal_p": b.nominal_p,
             "cumulative_alpha": b.cumulative_alpha,
             "alpha_spent": b.alpha_spent,
         }
         if futility is not None:
-            row["futility_z"] = _finite_or_none(b.futility_z)
+            row["futility_z"] = b.futility_z
         rows.append(row)
     out = {"spending": spending.spec, "alpha": alpha, "alternative": alternative, "looks": rows}
     if futility is not None:
         out["futility"] = {"spending": futility.spending.spec, "beta": futility.beta, "drift": futility.drift}
-    return out
+    return json_safe(out)
 
 
 def _z_text(z, alternative):

@@ -9,6 +9,7 @@ import math
 from .. import planning
 from .._checks import ALTERNATIVES
 from ..errors import InvalidArgumentError
+from ._common import json_safe
 
 # The two numbers each metric is planned from, as option destinations.
 _METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}
@@ -77,17 +78,6 @@ def plan_from_args(args):
             raise InvalidArgumentError(f"--{name} is required with --metric {args.metric}")
     build = planning.plan_mean if args.metric == "mean" else planning.plan_proportion
     return build(*(getattr(args, name) for name in chosen), **common)
-
-
-def json_safe(value):
-    # JSON has no infinity; an infinite boundary means "this look cannot stop", shown as null.
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, dict):
-        return {k: json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    return value
 
 
 def describe_design(plan) -> str:

@@ -7,7 +7,8 @@ import json
 import sys
 
 from .. import simulate
-from .plan import _whole_number, add_plan_arguments, describe_design, json_safe, plan_from_args
+from ._common import json_safe
+from .plan import _whole_number, add_plan_arguments, describe_design, plan_from_args
 
 
 def register(subparsers) -> None:

@@ -9,6 +9,7 @@ import sys
 
 from ..errors import InvalidArgumentError
 from .. import fixed
+from ._common import json_safe
 
 METHOD_HELP = {
     "z": "two-sample z with known population standard deviations",
@@ -151,16 +152,6 @@ def _explain(exc, args, given):
 # output
 
 
-def _json_safe(value):
-    if isinstance(value, float) and not math.isfinite(value):
-        return None  # JSON has no inf/nan; the notes say why a number is missing.
-    if isinstance(value, dict):
-        return {k: _json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_safe(v) for v in value]
-    return value
-
-
 def _fmt(x, digits=4):
     if x is None:
         return "open"
@@ -237,7 +228,7 @@ def run(args) -> int:
     if args.json:
         out = result.to_dict()
         out["conclusion"] = conclusion(result)
-        print(json.dumps(_json_safe(out), allow_nan=False, indent=2))
+        print(json.dumps(json_safe(out), allow_nan=False, indent=2))
     else:
         print(render(result))
     return 0
