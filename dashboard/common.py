@@ -140,15 +140,18 @@ def when(iso, *, relative_to=None):
         return "—"
     moment = datetime.fromisoformat(iso)
     base = relative_to or now()
-    delta = (moment - base).total_seconds()
-    if abs(delta) < 1:
-        rel = "now"
-    elif delta < 0:
-        rel = f"{readback.describe_seconds(-delta)} ago"
-    else:
-        rel = f"in {readback.describe_seconds(delta)}"
+    rel = _relative((moment - base).total_seconds(), "now")
     stamp = moment.strftime("%Y-%m-%d %H:%M UTC")
     return f"{stamp} ({rel})"
+
+
+def _relative(seconds_ahead, present):
+    """``"in 12 min"`` ahead, ``"12 min ago"`` behind, ``present`` within a second."""
+    if abs(seconds_ahead) < 1:
+        return present
+    if seconds_ahead < 0:
+        return f"{readback.describe_seconds(-seconds_ahead)} ago"
+    return f"in {readback.describe_seconds(seconds_ahead)}"
 
 
 def next_look_text(row, ref=None):
@@ -259,9 +262,7 @@ def _clock(iso, ref):
 
 
 def _ago(iso, ref):
-    delta = (ref - datetime.fromisoformat(iso)).total_seconds()
-    return "just now" if abs(delta) < 1 else (
-        f"{readback.describe_seconds(delta)} ago" if delta > 0 else f"in {readback.describe_seconds(-delta)}")
+    return _relative((datetime.fromisoformat(iso) - ref).total_seconds(), "just now")
 
 
 _BOARD_CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "design effect {:.2f}".format,
@@ -290,7 +291,7 @@ def board_table(rows):
         else:
             due = (datetime.fromisoformat(r["next_look_at"]) - ref).total_seconds()
             upcoming = (f'{_clock(r["next_look_at"], ref)}<div class="gw-sub">'
-                        f'{"due now" if due <= 0 else "in " + readback.describe_seconds(due)}</div>')
+                        f'{readback.describe_wait(due)}</div>')
         level = ("" if r["estimate"] is None
                  else f'<div class="gw-sub">{confidence_percent(r)} repeated interval</div>')
         rate = ""

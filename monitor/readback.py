@@ -28,6 +28,7 @@ __all__ = [
     "ALERT_STATES",
     "state_label",
     "describe_seconds",
+    "describe_wait",
     "format_number",
     "clustering_figures",
     "comparison_status",
@@ -89,6 +90,11 @@ def describe_seconds(seconds):
     if seconds < 36 * 3600:
         return f"{sign}{seconds / 3600:.1f} h"
     return f"{sign}{seconds / 86400:.1f} days"
+
+
+def describe_wait(seconds):
+    """How long until a look is due, in words: ``"in 12 min"``, or ``"due now"`` once its time has come."""
+    return "due now" if seconds <= 0 else f"in {describe_seconds(seconds)}"
 
 
 def format_number(value, digits=4):

@@ -56,8 +56,7 @@ def _when(row, now):
         return "stopped"
     if row["next_look_at"] is None:
         return "-"
-    delta = (datetime.fromisoformat(row["next_look_at"]) - now).total_seconds()
-    return "due now" if delta <= 0 else f"in {readback.describe_seconds(delta)}"
+    return readback.describe_wait((datetime.fromisoformat(row["next_look_at"]) - now).total_seconds())
 
 
 def table_lines(rows, now):
