@@ -16,7 +16,7 @@ import sqlalchemy as sa
 
 from ..config import load_config
 from ..errors import UnknownComparisonError
-from ._common import add_config_option
+from ._common import add_config_option, whole_number_type
 
 __all__ = ["verify_looks"]
 
@@ -29,7 +29,8 @@ def register(subparsers) -> None:
         description="Recompute every recorded look of a comparison from the raw source rows (same cutoffs "
                     "and arrival watermarks) and report any look whose figures differ. Exit 1 on a mismatch.")
     p.add_argument("name", metavar="NAME", help="comparison name")
-    p.add_argument("--version", type=int, default=None, help="comparison version (default: the newest)")
+    p.add_argument("--version", type=whole_number_type(1), default=None, metavar="V",
+                   help="comparison version (default: the newest)")
     add_config_option(p)
     p.set_defaults(func=run)
 
