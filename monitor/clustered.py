@@ -34,8 +34,10 @@ from typing import Mapping
 import numpy as np
 
 from .errors import InvalidArgumentError
-from .fixed import (_check_alternative, _check_finite, _check_probability, _critical_values,
-                    _interval, _p_value)
+from ._checks import check_alternative as _check_alternative
+from ._checks import finite as _check_finite
+from ._checks import open_unit as _check_probability
+from .fixed import _critical_values, _interval, _p_value
 
 __all__ = [
     "ClusteredResult",

@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
-PURE = ["summaries", "fixed", "spending", "boundaries", "inference", "planning", "simulate", "clustered"]
+PURE = ["summaries", "_checks", "fixed", "spending", "boundaries", "inference", "planning", "simulate", "clustered"]
 FORBIDDEN = ["sqlalchemy", "apscheduler", "streamlit"]
 
 PROBE = """
