@@ -28,19 +28,32 @@ Choices worth knowing
   proportions) compare the statistic with the boundary directly.
 * **Time** is passed in (``as_of``); the clock is read only to measure the
   look's duration. The cutoff is ``as_of − lateness``.
+* **NULL pair or cluster keys.** With a ``pair_column`` or ``cluster_column``,
+  events whose key is NULL belong to no pair or cluster: they are left out of
+  every cell (the totals too, so n matches the statistic) and counted as
+  excluded with reason ``null_key``.
+* **Kept state.** Every look reads the schema revision, the comparison row and
+  its newest look in one statement (so the store-behind refusal is checked at
+  every look). The cells and the last testing look are kept in the process
+  after each look it records, and the next look uses them only when the
+  store's newest look still carries the random state token written with them;
+  anything else (another worker's look, a restart, a re-created store, a
+  failed write) makes the look read them from the store.
 """
 
 from __future__ import annotations
 
 import json
 import math
+import threading
 import time as _time
 import uuid
+from collections import namedtuple
 from dataclasses import asdict, dataclass, field
 from datetime import date, datetime, time as clock_time, timedelta, timezone
 
 import sqlalchemy as sa
-from sqlalchemy.exc import IntegrityError, OperationalError
+from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 
 from .config import ComparisonConfig, design_hash
 from .errors import (DesignChangedError, InvalidArgumentError, LookAlreadyRecordedError,
@@ -56,6 +69,7 @@ __all__ = [
     "bucket_key",
     "bucket_end",
     "design_differences",
+    "NULL_KEY",
 ]
 
 UTC = timezone.utc
@@ -63,9 +77,60 @@ STOPPING_DECISIONS = ("difference_found", "no_material_difference", "plan_comple
 _Z_METHODS = ("z", "proportions")
 _QUIET_STATES = ("collecting", "awaiting_clusters")
 DESIGN_EFFECT_WARNING = 1.5
-# Core tables: statements with bound parameters compile once and are cached.
+# Exclusion reason of events whose pair or cluster column is NULL (the source's reasons
+# cover the value, group and time; this one is the look's, as only pairing gives it meaning).
+NULL_KEY = "null_key"
+# Core tables and statements built once: with bound parameters they compile once and
+# SQLAlchemy's statement cache serves every later look (no ORM on the hot path).
 _COMPARISON = Comparison.__table__
 _LOOK = Look.__table__
+_CELL = Cell.__table__
+_VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
+_COMPARISON_FIELDS = ("id", "version", "design", "state", "looks_taken", "watermark", "stopped_at")
+# The schema revision, the active comparison and its newest look in one round trip: the
+# version table has one row, so the outer joins always return exactly one row.
+_STATE_STATEMENT = (
+    sa.select(_VERSION_TABLE.c.version_num.label("revision"),
+              *(_COMPARISON.c[f] for f in _COMPARISON_FIELDS),
+              _LOOK.c.excluded.label("last_excluded"),
+              _LOOK.c.detail["state_token"].as_string().label("state_token"))
+    .select_from(
+        _VERSION_TABLE
+        .outerjoin(_COMPARISON, sa.and_(_COMPARISON.c.name == sa.bindparam("name"),
+                                        _COMPARISON.c.archived.is_(False)))
+        .outerjoin(_LOOK, sa.and_(_LOOK.c.comparison_id == _COMPARISON.c.id,
+                                  _LOOK.c.look_number == _COMPARISON.c.looks_taken)))
+    .order_by(_COMPARISON.c.version.desc())
+    .limit(1)
+)
+_TOP_VERSION_STATEMENT = sa.select(sa.func.max(_COMPARISON.c.version)).where(
+    _COMPARISON.c.name == sa.bindparam("name"))
+_CELLS_STATEMENT = sa.select(
+    _CELL.c.kind, _CELL.c.group_index, _CELL.c.key, _CELL.c.n, _CELL.c.sum_dev, _CELL.c.sum_dev2
+).where(_CELL.c.comparison_id == sa.bindparam("cid"))
+_LAST_BOUNDARY_STATEMENT = (
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None))
+    .order_by(_LOOK.c.boundary_look.desc())
+    .limit(1)
+)
+_BOUNDARY_LOOKS_STATEMENT = (
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None),
+           _LOOK.c.boundary_look <= sa.bindparam("count"))
+    .order_by(_LOOK.c.boundary_look)
+)
+_INSERT_COMPARISON = sa.insert(_COMPARISON).returning(_COMPARISON.c.id)
+_GUARDED_UPDATE = sa.update(_COMPARISON).where(
+    _COMPARISON.c.id == sa.bindparam("guard_id"),
+    _COMPARISON.c.looks_taken == sa.bindparam("guard_looks"),
+    _COMPARISON.c.archived.is_(False))
+_INSERT_LOOK = sa.insert(_LOOK).returning(_LOOK.c.id)
+
+# The last testing look as the boundary needs it (a stored row or the one just written).
+_BoundaryLook = namedtuple("_BoundaryLook", "boundary_look fraction boundary_z futility_z")
+# Guards the in-process caches below (the service looks from several threads).
+_STATE_LOCK = threading.Lock()
 
 
 @dataclass(frozen=True)
@@ -208,6 +273,24 @@ def _comparable(design: dict) -> dict:
     return d
 
 
+# The configured design in JSON normal form, per ComparisonConfig object (frozen, so the
+# design cannot change under it); a reloaded configuration brings new objects.
+_CONFIGURED: dict = {}
+_CONFIGURED_SIZE = 256
+
+
+def _configured_design(c: ComparisonConfig) -> dict:
+    entry = _CONFIGURED.get(id(c))
+    if entry is None or entry[0] is not c:
+        entry = (c, _normalised(c.design()))
+        with _STATE_LOCK:
+            if len(_CONFIGURED) >= _CONFIGURED_SIZE:
+                _CONFIGURED.pop(next(iter(_CONFIGURED)), None)
+            _CONFIGURED[id(c)] = entry
+    # Shared: callers copy before adding the shift (nothing else in a design is changed).
+    return entry[1]
+
+
 def design_differences(frozen: dict, configured: dict) -> list[str]:
     """Keys whose values differ between a frozen design and the configured one."""
     a, b = _comparable(_normalised(frozen)), _comparable(_normalised(configured))
@@ -335,14 +418,17 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None):
 def _look(config, c: ComparisonConfig, as_of, engine, source, started):
     timings = {}
     t_read = _time.perf_counter()
-    configured = _normalised(c.design())
+    configured = _configured_design(c)
     state = _read_state(engine, c.name)
     timings["store_read"] = (_time.perf_counter() - t_read) * 1000.0
     row = state["comparison"]
     if row is not None:
         if row["state"] in STOPPING_DECISIONS or row["stopped_at"] is not None:
             return None
-        changed = design_differences(row["design"], configured)
+        # The stored design came back from JSON, so it is already in normal form: compare
+        # directly, and name the differing keys only when there are some.
+        same = _comparable(row["design"]) == _comparable(configured)
+        changed = [] if same else design_differences(row["design"], configured)
         if changed:
             raise DesignChangedError(
                 f"comparison {c.name!r}: the design frozen at its first look (version {row['version']}) "
@@ -390,50 +476,72 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, started):
 
 
 def _read_state(engine, name):
-    """The active comparison row, its cells and its testing looks (one short read)."""
-    from .store import ensure_current
+    """The active comparison row, its cells and its last testing look (one short read).
+
+    One statement reads the store's schema revision, the comparison row and
+    its newest look together, so the schema check costs no extra round trip.
+    The cells and the last testing look come from the state this process kept
+    after its own previous look when that look is still the newest in the
+    store (same comparison row, look count and the look's random state token);
+    otherwise they are read.
+    """
+    from .store import ensure_current, head_revision
 
     try:
         with engine.connect() as conn:
-            ensure_current(conn)
-            comp = conn.execute(
-                sa.select(Comparison.id, Comparison.version, Comparison.design, Comparison.state,
-                          Comparison.looks_taken, Comparison.watermark, Comparison.stopped_at)
-                .where(Comparison.name == name, Comparison.archived.is_(False))
-                .order_by(Comparison.version.desc())
-                .limit(1)
-            ).mappings().first()
-            if comp is None:
-                top = conn.execute(sa.select(sa.func.max(Comparison.version))
-                                   .where(Comparison.name == name)).scalar()
-                return {"comparison": None, "next_version": (top or 0) + 1, "cells": {},
+            try:
+                top = conn.execute(_STATE_STATEMENT, {"name": name}).mappings().first()
+            except DBAPIError:
+                # No version table or missing columns (a store behind) or a real failure:
+                # the schema check tells them apart and names the command to run.
+                conn.rollback()
+                ensure_current(conn)
+                raise
+            if top is None or top["revision"] != head_revision():
+                ensure_current(conn)  # raises StoreBehindError with the right message
+            if top["id"] is None:
+                latest = conn.execute(_TOP_VERSION_STATEMENT, {"name": name}).scalar()
+                return {"comparison": None, "next_version": (latest or 0) + 1, "cells": {},
                         "last_boundary_look": None, "last_excluded": {}}
-            cells = {
-                (r.kind, r.group_index, r.key): (r.n, r.sum_dev, r.sum_dev2)
-                for r in conn.execute(
-                    sa.select(Cell.kind, Cell.group_index, Cell.key, Cell.n, Cell.sum_dev, Cell.sum_dev2)
-                    .where(Cell.comparison_id == comp["id"]))
-            }
-            last_boundary_look = conn.execute(
-                sa.select(Look.boundary_look, Look.fraction, Look.boundary_z, Look.futility_z)
-                .where(Look.comparison_id == comp["id"], Look.boundary_look.is_not(None))
-                .order_by(Look.boundary_look.desc()).limit(1)
-            ).first()
-            last_excluded = conn.execute(
-                sa.select(Look.excluded).where(Look.comparison_id == comp["id"],
-                                               Look.look_number == comp["looks_taken"])
-            ).scalar()
-    except OperationalError as exc:
+            comp = {k: top[k] for k in _COMPARISON_FIELDS}
+            kept = _take_kept_state(engine, comp["id"])
+            if (kept is not None and top["state_token"] is not None and kept.token == top["state_token"]
+                    and kept.looks_taken == comp["looks_taken"]):
+                cells, last_boundary_look = kept.cells, kept.last_boundary_look
+            else:
+                cells = {(kind, gi, key): (n, s1, s2)
+                         for kind, gi, key, n, s1, s2 in conn.execute(_CELLS_STATEMENT, {"cid": comp["id"]})}
+                found = conn.execute(_LAST_BOUNDARY_STATEMENT, {"cid": comp["id"]}).first()
+                last_boundary_look = None if found is None else _BoundaryLook(*found)
+    except DBAPIError as exc:
         raise StoreUnavailableError(f"cannot read the history store: {str(exc.orig).splitlines()[0]}") from None
-    return {"comparison": dict(comp), "cells": cells, "last_boundary_look": last_boundary_look,
-            "last_excluded": last_excluded or {}}
+    return {"comparison": comp, "cells": cells, "last_boundary_look": last_boundary_look,
+            "last_excluded": top["last_excluded"] or {}}
 
 
-def _roll_up(c: ComparisonConfig, batch):
-    """Slot cells → changes to stored cells, keyed (kind, group_index, key)."""
+@dataclass(frozen=True)
+class _RolledUp:
+    """A batch's slot cells rolled into changes of stored cells, keyed (kind, group_index, key)."""
+
+    changes: dict
+    null_key: int = 0        # events whose pair/cluster column is NULL: excluded, not rolled up
+    null_key_late: int = 0   # of those, late events
+
+
+def _roll_up(c: ComparisonConfig, batch) -> _RolledUp:
+    """Slot cells → changes to stored cells.
+
+    With a pair or cluster column, an event whose key is NULL belongs to no
+    pair or cluster. Filing it under an empty key would invent a pair (or a
+    cluster) of unrelated events, so it is left out of every cell, the total
+    included (n then matches the paired or clustered statistic), and counted
+    as excluded with reason ``null_key``.
+    """
     zone = c.zone
     changes: dict = {}
     memo: dict = {}
+    needs_key = c.key_column is not None
+    null_key = null_key_late = 0
 
     def bucket(slot, kind):
         k = (slot, kind)
@@ -447,15 +555,21 @@ def _roll_up(c: ComparisonConfig, batch):
         entry[1] += cell.sum_dev
         entry[2] += cell.sum_dev2
 
+    clustered, cluster_column, cluster_by = c.clustered, c.cluster_column, c.cluster_by
+    paired, pair_column, pair_by = c.paired, c.pair_column, c.pair_by
     for cell in batch.cells:
+        if needs_key and cell.key is None:
+            null_key += cell.n
+            null_key_late += cell.late
+            continue
         add("total", cell.group_index, "", cell)
         add("day", cell.group_index, bucket(cell.slot, "day"), cell)
         column_key = "" if cell.key is None else str(cell.key)
-        if c.clustered:
-            add("cluster", cell.group_index, column_key if c.cluster_column else bucket(cell.slot, c.cluster_by), cell)
-        if c.paired:
-            add("pair", cell.group_index, column_key if c.pair_column else bucket(cell.slot, c.pair_by), cell)
-    return changes
+        if clustered:
+            add("cluster", cell.group_index, column_key if cluster_column else bucket(cell.slot, cluster_by), cell)
+        if paired:
+            add("pair", cell.group_index, column_key if pair_column else bucket(cell.slot, pair_by), cell)
+    return _RolledUp(changes, null_key, null_key_late)
 
 
 def _merge(stored: dict, changes: dict) -> dict:
@@ -591,16 +705,17 @@ def _design_effect(design, cells, s1, s2):
     """Day-level design effect and effective n (None when it cannot be measured)."""
     if s1.n < 2 or s2.n < 2:
         return None
-    rows = [(gi, key, v) for gi, key, v in _of_kind(cells, "day") if v[0] > 0]
-    if len({key for _gi, key, _v in rows}) < 2:
+    # Sorted by (group, day) so the sums run in one order whatever order the cells came in.
+    rows = sorted((gi, key, v[0], v[1], v[2]) for (kind, gi, key), v in cells.items()
+                  if kind == "day" and v[0] > 0)
+    if len({r[1] for r in rows}) < 2:
         return None
     from .clustered import design_effect
 
-    rows.sort(key=lambda r: (r[0], r[1]))
+    groups, keys, n, sum_dev, sum_dev2 = zip(*rows)
     try:
-        de = design_effect({"groups": [r[0] for r in rows], "keys": [r[1] for r in rows],
-                            "n": [r[2][0] for r in rows], "sum_dev": [r[2][1] for r in rows],
-                            "sum_dev2": [r[2][2] for r in rows], "shift": design["shift"] or 0.0})
+        de = design_effect({"groups": groups, "keys": keys, "n": n, "sum_dev": sum_dev,
+                            "sum_dev2": sum_dev2, "shift": design["shift"] or 0.0})
     except InvalidArgumentError:
         return None
     if not math.isfinite(de.design_effect):
@@ -610,19 +725,25 @@ def _design_effect(design, cells, s1, s2):
 
 def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, started, timings):
     t_compute = _time.perf_counter()
-    from .boundaries import MIN_INCREMENT, SequentialBoundary, futility_decision, nominal_decision
+    from .boundaries import MIN_INCREMENT, futility_decision, nominal_decision
     from .inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
 
     row = state["comparison"]
     shift = design["shift"] or 0.0
-    changes = _roll_up(c, batch)
+    rolled = _roll_up(c, batch)
+    changes = rolled.changes
     cells = _merge(state["cells"], changes)
     s1 = _summary(cells, "total", 0, "", shift)
     s2 = _summary(cells, "total", 1, "", shift)
 
+    excluded_new = {reason: int(count) for reason, count in batch.excluded.items()}
+    if rolled.null_key:
+        excluded_new[NULL_KEY] = rolled.null_key
+    new_events = int(batch.new_events) - rolled.null_key
+    late_events = int(batch.late_events) - rolled.null_key_late
     excluded = dict(state["last_excluded"])
-    for reason, count in batch.excluded.items():
-        excluded[reason] = excluded.get(reason, 0) + int(count)
+    for reason, count in excluded_new.items():
+        excluded[reason] = excluded.get(reason, 0) + count
     warnings = []
     st = _statistic(c, design, cells, s1, s2, cutoff, sum(excluded.values()))
 
@@ -636,7 +757,7 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
     boundary = None
     boundary_number = None
     ci = (None, None)
-    detail = {"shift": shift, "planned_per_group": planned, "excluded_new": dict(batch.excluded)}
+    detail = {"shift": shift, "planned_per_group": planned, "excluded_new": excluded_new}
     if st.fixed is not None:
         detail["fixed"] = st.fixed
     if st.cluster_design_effect is not None:
@@ -654,7 +775,8 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         warnings.append(st.waiting)
     elif st.testable and fraction - last_fraction >= MIN_INCREMENT:
         futility = _futility_spec(design)
-        seq = _resumed_boundary(engine, row, design, state, futility)
+        design_key = design_hash(_comparable(design))  # once per look: both cache steps need it
+        seq = _resumed_boundary(engine, row, design, design_key, state, futility)
         boundary = seq.add_look(fraction)
         boundary_number = len(seq.looks)
         if design["method"] in _Z_METHODS and not c.clustered:
@@ -686,8 +808,8 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
     if de is not None and not c.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
-    if batch.late_events:
-        detail["late_events"] = int(batch.late_events)
+    if late_events:
+        detail["late_events"] = late_events
 
     new_state = decision
     information = (1.0 / st.standard_error ** 2) if st.standard_error else None
@@ -697,7 +819,7 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         arrival_watermark=None if batch.watermark.arrival is None else json.dumps(batch.watermark.arrival),
         n1=s1.n, n2=s2.n, mean1=_finite_or_none(s1.mean), mean2=_finite_or_none(s2.mean),
         sd1=_finite_or_none(s1.sd), sd2=_finite_or_none(s2.sd), pairs=st.pairs,
-        new_events=int(batch.new_events), late_events=int(batch.late_events), excluded=excluded,
+        new_events=new_events, late_events=late_events, excluded=excluded,
         estimate=_float_col(st.estimate), standard_error=_float_col(st.standard_error),
         statistic=_float_col(st.statistic), df=_float_col(st.df), p_value=_float_col(st.p_value),
         information=_float_col(information), fraction=fraction,
@@ -718,13 +840,20 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
     look_values["duration_ms"] = (_time.perf_counter() - started) * 1000.0
     timings["compute"] = (_time.perf_counter() - t_compute) * 1000.0
     detail["timings_ms"] = {k: round(v, 3) for k, v in timings.items()}
+    # Random, not from the clock: tells the next look whether the store's newest look is this one.
+    detail["state_token"] = uuid.uuid4().hex
     look_values["detail"] = _json_safe(detail)
     t_write = _time.perf_counter()
     look_id, alert_id, version, comparison_id = _record(
         engine, c, config, state, design, look_values, cells, changes, batch, new_state, alert_kind, as_of)
     if boundary is not None:
         # Recorded values as stored (a float column may round): the cache must match them.
-        _remember_boundary(engine, comparison_id, design, seq)
+        _remember_boundary(engine, comparison_id, design_key, seq)
+    if engine.dialect.name in _EXACT_FLOAT_STORES:
+        last_boundary_look = state["last_boundary_look"] if boundary is None else _BoundaryLook(
+            boundary_number, look_values["fraction"], look_values["boundary_z"], look_values["futility_z"])
+        _keep_state(engine, comparison_id,
+                    _KeptState(detail["state_token"], look_number, cells, last_boundary_look))
     timings["write"] = (_time.perf_counter() - t_write) * 1000.0
     return LookRecord(
         comparison=c.name, version=version, look=look_number, as_of=as_of, cutoff=cutoff,
@@ -734,7 +863,7 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
         ci_low=ci[0], ci_high=ci[1], fraction=fraction, boundary_z=look_values["boundary_z"],
         nominal_p=look_values["nominal_p"], boundary_look=boundary_number, clusters=st.clusters,
         design_effect=look_values["design_effect"], effective_n=look_values["effective_n"],
-        new_events=int(batch.new_events), late_events=int(batch.late_events), excluded=excluded,
+        new_events=new_events, late_events=late_events, excluded=excluded,
         warnings=tuple(warnings), look_id=look_id, alert_id=alert_id,
         duration_ms=(_time.perf_counter() - started) * 1000.0, detail=look_values["detail"],
     )
@@ -745,8 +874,40 @@ def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, s
 _BOUNDARY_CACHE: dict = {}
 _BOUNDARY_CACHE_SIZE = 256
 
+# The cells and last testing look as this process wrote them, per (store, comparison id),
+# so the next look need not read hundreds of day cells back. An entry is used only when
+# the store's newest look still carries the random state token written with it: a look
+# recorded by another process, a restart (new comparison row) or a re-created store
+# (same ids, different token) all make the next look read the store instead.
+_STATE_CACHE: dict = {}
+_STATE_CACHE_SIZE = 256
+# Stores whose float columns give back exactly the double written (the kept state must
+# equal what a read would return); elsewhere every look reads its state.
+_EXACT_FLOAT_STORES = ("sqlite", "postgresql")
 
-def _resumed_boundary(engine, row, design, state, futility):
+
+@dataclass(frozen=True)
+class _KeptState:
+    token: str
+    looks_taken: int
+    cells: dict
+    last_boundary_look: object
+
+
+def _keep_state(engine, comparison_id, kept: _KeptState):
+    with _STATE_LOCK:
+        if len(_STATE_CACHE) >= _STATE_CACHE_SIZE:
+            _STATE_CACHE.pop(next(iter(_STATE_CACHE)), None)
+        _STATE_CACHE[(str(engine.url), comparison_id)] = kept
+
+
+def _take_kept_state(engine, comparison_id):
+    """The kept state, taken out so no other look can use it meanwhile (put back after the write)."""
+    with _STATE_LOCK:
+        return _STATE_CACHE.pop((str(engine.url), comparison_id), None)
+
+
+def _resumed_boundary(engine, row, design, design_key, state, futility):
     """A SequentialBoundary standing at the recorded testing looks.
 
     The cached object is taken out of the cache (so no other look can use it
@@ -756,7 +917,7 @@ def _resumed_boundary(engine, row, design, state, futility):
 
     last = state["last_boundary_look"]
     count = last.boundary_look if last is not None else 0
-    key = (str(engine.url), row["id"], design_hash(_comparable(design))) if row is not None else None
+    key = (str(engine.url), row["id"], design_key) if row is not None else None
     cached = _BOUNDARY_CACHE.pop(key, None) if key is not None else None
     if cached is not None:
         looks = cached.looks
@@ -775,19 +936,15 @@ def _resumed_boundary(engine, row, design, state, futility):
 
 def _boundary_looks(engine, comparison_id, count):
     with engine.connect() as conn:
-        return conn.execute(
-            sa.select(Look.boundary_look, Look.fraction, Look.boundary_z, Look.futility_z)
-            .where(Look.comparison_id == comparison_id, Look.boundary_look.is_not(None),
-                   Look.boundary_look <= count)
-            .order_by(Look.boundary_look)
-        ).all()
+        return conn.execute(_BOUNDARY_LOOKS_STATEMENT, {"cid": comparison_id, "count": count}).all()
 
 
-def _remember_boundary(engine, comparison_id, design, seq):
-    if len(_BOUNDARY_CACHE) >= _BOUNDARY_CACHE_SIZE:
-        _BOUNDARY_CACHE.pop(next(iter(_BOUNDARY_CACHE)), None)
-    # Keyed by store too: two stores may both hold a comparison with id 1.
-    _BOUNDARY_CACHE[(str(engine.url), comparison_id, design_hash(_comparable(design)))] = seq
+def _remember_boundary(engine, comparison_id, design_key, seq):
+    with _STATE_LOCK:
+        if len(_BOUNDARY_CACHE) >= _BOUNDARY_CACHE_SIZE:
+            _BOUNDARY_CACHE.pop(next(iter(_BOUNDARY_CACHE)), None)
+        # Keyed by store too: two stores may both hold a comparison with id 1.
+        _BOUNDARY_CACHE[(str(engine.url), comparison_id, design_key)] = seq
 
 
 def _after_stop(seq, st, fraction, design, stagewise_p_value, median_unbiased_estimate):
@@ -820,6 +977,25 @@ def _after_stop(seq, st, fraction, design, stagewise_p_value, median_unbiased_es
 # --------------------------------------------------------------------------- the write
 
 
+_UPSERTS: dict = {}
+
+
+def _upsert_statement(dialect_name):
+    """INSERT … ON CONFLICT DO UPDATE for the cell key (SQLite and PostgreSQL), built once."""
+    stmt = _UPSERTS.get(dialect_name)
+    if stmt is None:
+        if dialect_name == "sqlite":
+            from sqlalchemy.dialects.sqlite import insert
+        else:
+            from sqlalchemy.dialects.postgresql import insert
+        stmt = insert(_CELL)
+        stmt = stmt.on_conflict_do_update(
+            index_elements=["comparison_id", "kind", "group_index", "key"],
+            set_={"n": stmt.excluded.n, "sum_dev": stmt.excluded.sum_dev, "sum_dev2": stmt.excluded.sum_dev2})
+        _UPSERTS[dialect_name] = stmt
+    return stmt
+
+
 def _upsert_cells(conn, comparison_id, cells, changes):
     """Write the cells this look changed (absolute values; the look's guard makes them safe)."""
     if not changes:
@@ -829,15 +1005,7 @@ def _upsert_cells(conn, comparison_id, cells, changes):
             for k in changes]
     name = conn.dialect.name
     if name in ("sqlite", "postgresql"):
-        if name == "sqlite":
-            from sqlalchemy.dialects.sqlite import insert
-        else:
-            from sqlalchemy.dialects.postgresql import insert
-        stmt = insert(Cell.__table__)
-        stmt = stmt.on_conflict_do_update(
-            index_elements=["comparison_id", "kind", "group_index", "key"],
-            set_={"n": stmt.excluded.n, "sum_dev": stmt.excluded.sum_dev, "sum_dev2": stmt.excluded.sum_dev2})
-        conn.execute(stmt, rows)
+        conn.execute(_upsert_statement(name), rows)
         return
     for r in rows:  # other databases: update, else insert
         done = conn.execute(
@@ -880,7 +1048,7 @@ def _record(engine, c, config, state, design, values, cells, changes, batch, new
             if row is None:
                 version = state["next_version"]
                 comparison_id = conn.execute(
-                    sa.insert(_COMPARISON).returning(_COMPARISON.c.id), dict(
+                    _INSERT_COMPARISON, dict(
                         name=c.name, version=version, design=design,
                         design_hash=design_hash(_comparable(design)), settings=settings,
                         state=new_state, looks_taken=1, watermark=batch.watermark.to_dict(),
@@ -899,18 +1067,12 @@ def _record(engine, c, config, state, design, values, cells, changes, batch, new
                     update["design"] = design  # the shift is fixed at the first look with data
                 # The guard: only the look that follows the one we read may be written.
                 done = conn.execute(
-                    sa.update(_COMPARISON)
-                    .where(_COMPARISON.c.id == sa.bindparam("guard_id"),
-                           _COMPARISON.c.looks_taken == sa.bindparam("guard_looks"),
-                           _COMPARISON.c.archived.is_(False)),
-                    {**update, "guard_id": comparison_id, "guard_looks": row["looks_taken"]})
+                    _GUARDED_UPDATE, {**update, "guard_id": comparison_id, "guard_looks": row["looks_taken"]})
                 if done.rowcount != 1:
                     raise LookAlreadyRecordedError(
                         f"comparison {c.name!r}: look {values['look_number']} was recorded by another "
                         f"process first (or the comparison was restarted); nothing was written")
-            look_id = conn.execute(
-                sa.insert(_LOOK).returning(_LOOK.c.id), {"comparison_id": comparison_id, **values}
-            ).scalar_one()
+            look_id = conn.execute(_INSERT_LOOK, {"comparison_id": comparison_id, **values}).scalar_one()
             _upsert_cells(conn, comparison_id, cells, changes)
             alert_id = None
             if alert_kind is not None:
