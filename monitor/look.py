@@ -602,7 +602,9 @@ def _t_critical(nominal_p, df):
     """The t value with upper tail ``nominal_p`` (``-stdtrit(df, p)`` keeps tiny tails exact)."""
     from scipy import special
 
-    return float(-special.stdtrit(df, nominal_p))
+    critical = float(-special.stdtrit(df, nominal_p))
+    # stdtrit gives +inf for a tail of 0 (or ~1e-300 at small df): the boundary is then out of reach.
+    return critical if critical > 0 else math.inf
 
 
 def _statistic(c: ComparisonConfig, design, cells, s1, s2, cutoff, excluded_total) -> _Stat:

@@ -119,6 +119,23 @@ def test_null_pair_keys_never_form_a_pair(tmp_path):
     assert (record.n1, record.n2) == ((keyed.site == "east").sum(), (keyed.site == "west").sum())
 
 
+@pytest.mark.parametrize("keys", [dict(cluster_column="crew", min_clusters=10, planned_per_group=5000),
+                                  dict(method="paired", pair_column="crew", planned_per_group=200)],
+                         ids=["clustered", "paired"])
+def test_verify_replays_looks_with_null_keys(tmp_path, keys):
+    from monitor.commands.verify import verify_looks
+
+    rng = np.random.default_rng(45)
+    crews = [f"crew-{k:02d}" for k in range(12)]
+    w = KeyedWorld(tmp_path, _keyed_rows(rng, 500, T0, crews, null_every=6), **keys)
+    w.look(T0 + timedelta(days=2))
+    insert_events(w.source_url, "events", _keyed_rows(rng, 150, T0 + timedelta(days=2, minutes=1), crews, 4))
+    w.look(T0 + timedelta(days=4))
+    results = verify_looks(w.config, w.config.comparisons[0].name, w.engine)
+    assert [r["look"] for r in results] == [1, 2]
+    assert all(r["ok"] for r in results), results
+
+
 def test_null_keys_without_a_key_column_are_not_a_reason(tmp_path):
     rng = np.random.default_rng(43)
     w = LiveWorld(tmp_path, event_rows(rng, 200, T0), cluster_by="day", min_clusters=2, planned_per_group=5000)

@@ -143,6 +143,7 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
     Returns one dict per look: ``look``, ``ok`` and ``mismatches`` (a list of
     ``{"field", "recorded", "recomputed"}``).
     """
+    from ..look import NULL_KEY
     from ..models import Comparison, Look
     from ..source import Source
 
@@ -171,6 +172,13 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
         for look in looks:
             arrival = json.loads(look.arrival_watermark) if look.arrival_watermark else None
             frame = source.read_rows(spec, look.cutoff, arrival_max=arrival)
+            excluded = dict(frame.attrs.get("excluded", {}))
+            if spec.key_column:
+                # As the look does: an event without a pair or cluster key cannot join the statistic.
+                no_key = frame["key"].isna()
+                if no_key.any():
+                    excluded[NULL_KEY] = int(no_key.sum())
+                    frame = frame[~no_key]
             figures = _recompute(design, frame, look.cutoff)
             mismatches = []
             for field in ("n1", "n2", "pairs", "estimate", "statistic", "p_value"):
@@ -179,8 +187,7 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
                 recorded = getattr(look, field)
                 if not _close(recorded, figures[field]):
                     mismatches.append({"field": field, "recorded": recorded, "recomputed": figures[field]})
-            excluded = frame.attrs.get("excluded", {})
-            if dict(look.excluded or {}) != dict(excluded):
+            if dict(look.excluded or {}) != excluded:
                 mismatches.append({"field": "excluded", "recorded": look.excluded, "recomputed": excluded})
             results.append({"look": look.look_number, "ok": not mismatches, "mismatches": mismatches})
     finally:
