@@ -28,8 +28,7 @@ OBRIEN_FLEMING_INFLATION = {2: 1.008, 3: 1.017, 4: 1.024, 5: 1.028}
 LAN_DEMETS_OBF_INFLATION_5 = 1.026
 
 # Lan-DeMets O'Brien-Fleming-type boundaries, 5 equally spaced looks, two-sided 0.05.
-# Source: Jennison & Turnbull (2000), ch. 7 examples; the same values appear in the
-# documentation of most group-sequential software (from memory).
+# Source: Jennison & Turnbull (2000), ch. 7 examples (from memory).
 LAN_DEMETS_OBF_BOUNDARIES_5 = (4.877, 3.357, 2.680, 2.290, 2.031)
 
 # Fixed-sample sizes per group, two-sample comparison of proportions.
@@ -37,8 +36,8 @@ LAN_DEMETS_OBF_BOUNDARIES_5 = (4.877, 3.357, 2.680, 2.290, 2.031)
 # p1 = 0.45, p2 = 0.25, two-sided alpha = 0.05, power 0.90 -> n = 127.2343 per group.
 # That figure includes the Fleiss, Tytun & Ury (1980) continuity correction
 # n_cc = n/4 * (1 + sqrt(1 + 4 / (n |p1 - p2|)))^2 applied to the uncorrected
-# pooled/unpooled normal-approximation size n (value as reproduced in the Unistat
-# user guide, section 6.7.6.1).
+# pooled/unpooled normal-approximation size n (value taken from a secondary
+# reproduction of the example, not checked against the printed book).
 ZAR_24_26 = {"p1": 0.45, "p2": 0.25, "alpha": 0.05, "power": 0.90, "n_corrected": 127.2343}
 
 # Armitage, McPherson & Rowe (1969), J. R. Statist. Soc. A 132, 235-244, Table 2:
