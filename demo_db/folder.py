@@ -11,6 +11,8 @@ from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
 
+from monitor.config import toml_value
+
 from .feed import create_databases, database_path, fed_until
 from .scenario import COMPANY, DATABASES, DEFAULT_SEED, LIVE_START
 
@@ -95,16 +97,6 @@ _COMPARISONS = [
 _COMMON = {"arrival_column": "id", "lateness": "10m"}
 
 
-def _toml_value(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return repr(value)
-    if isinstance(value, str):
-        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
-    if isinstance(value, list):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {value!r} as TOML")
 
 
 def comparisons() -> list[dict]:
@@ -138,7 +130,7 @@ def config_text() -> str:
     for comparison in comparisons():
         lines.append("[[comparison]]")
         for key, value in comparison.items():
-            lines.append(f"{key} = {_toml_value(value)}")
+            lines.append(f"{key} = {toml_value(value)}")
         lines.append("")
     return "\n".join(lines)
 

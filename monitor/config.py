@@ -90,6 +90,22 @@ _COMPARISON_KEYS = {
 }
 
 
+def toml_value(value) -> str:
+    """``value`` (bool, number, string, list or tuple of these) written as a TOML value.
+
+    For the files gapwatch writes itself (the demo's configuration, test fixtures).
+    """
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    if isinstance(value, str):
+        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {value!r} as TOML")
+
+
 def parse_duration(text) -> float:
     """Seconds in ``"30s"``, ``"10m"``, ``"1h"``, ``"1d"`` (a bare number is seconds).
 

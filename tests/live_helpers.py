@@ -13,6 +13,8 @@ from pathlib import Path
 
 import sqlalchemy as sa
 
+from monitor.config import toml_value
+
 __all__ = [
     "UTC",
     "write_config",
@@ -36,16 +38,6 @@ def at(day: int = 1, hour: int = 0, minute: int = 0, second: int = 0, *, month: 
     return datetime(year, month, day, hour, minute, second, tzinfo=UTC)
 
 
-def _toml_value(value) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return repr(value)
-    if isinstance(value, str):
-        return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
-    if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {value!r} as TOML")
 
 
 def comparison_toml(**keys) -> str:
@@ -67,7 +59,7 @@ def comparison_toml(**keys) -> str:
             base.pop(key, None)
         else:
             base[key] = value
-    lines = ["[[comparison]]"] + [f"{k} = {_toml_value(v)}" for k, v in base.items()]
+    lines = ["[[comparison]]"] + [f"{k} = {toml_value(v)}" for k, v in base.items()]
     return "\n".join(lines) + "\n"
 
 
