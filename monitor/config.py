@@ -251,7 +251,7 @@ class ComparisonConfig:
         """
         if self.planned_per_group is not None:
             return {"planned_per_group": int(self.planned_per_group)}
-        from .planning import plan_mean, plan_proportion
+        from .stats.planning import plan_mean, plan_proportion
 
         common = dict(alpha=self.alpha, power=self.power, alternative=self.alternative,
                       spending=self.spending, looks=self.looks, futility=self.futility)
@@ -654,7 +654,7 @@ class _Checker:
 
         spending = v.get("spending", "obrien-fleming")
         try:
-            from .spending import parse_spending
+            from .stats.spending import parse_spending
 
             spending = parse_spending(spending).spec
         except Exception as exc:  # noqa: BLE001 - the spending module's own message is the problem

@@ -59,7 +59,7 @@ from .config import ComparisonConfig, design_hash
 from .errors import (DesignChangedError, InvalidArgumentError, LookAlreadyRecordedError,
                      StoreUnavailableError, UnknownComparisonError)
 from .models import Alert, Cell, Comparison, Delivery, Look
-from .summaries import MomentSummary
+from .stats.summaries import MomentSummary
 
 __all__ = [
     "LookRecord",
@@ -608,7 +608,7 @@ def _t_critical(nominal_p, df):
 
 
 def _statistic(c: ComparisonConfig, design, cells, s1, s2, cutoff, excluded_total) -> _Stat:
-    from . import fixed
+    from .stats import fixed
 
     common = dict(null_difference=design["null_difference"], alternative=design["alternative"],
                   alpha=design["alpha"])
@@ -644,7 +644,7 @@ def _statistic(c: ComparisonConfig, design, cells, s1, s2, cutoff, excluded_tota
             return st
         result = fixed.from_summaries("paired", MomentSummary.from_values(diffs), None, **common)
     elif c.clustered:
-        from .clustered import cluster_robust_difference
+        from .stats.clustered import cluster_robust_difference
 
         rows = [(gi, key, v) for gi, key, v in _of_kind(cells, "cluster") if v[0] > 0]
         rows.sort(key=lambda r: (r[0], r[1]))
@@ -692,7 +692,7 @@ def _statistic(c: ComparisonConfig, design, cells, s1, s2, cutoff, excluded_tota
 def _futility_spec(design):
     if not design.get("futility"):
         return None
-    from .boundaries import FutilitySpec
+    from .stats.boundaries import FutilitySpec
 
     plan = design["plan"]
     figures = plan.get("figures") or {}
@@ -712,7 +712,7 @@ def _design_effect(design, cells, s1, s2):
                   if kind == "day" and v[0] > 0)
     if len({r[1] for r in rows}) < 2:
         return None
-    from .clustered import design_effect
+    from .stats.clustered import design_effect
 
     groups, keys, n, sum_dev, sum_dev2 = zip(*rows)
     try:
@@ -727,8 +727,8 @@ def _design_effect(design, cells, s1, s2):
 
 def _decide_and_record(config, c, as_of, engine, state, design, batch, cutoff, started, timings):
     t_compute = _time.perf_counter()
-    from .boundaries import MIN_INCREMENT, futility_decision, nominal_decision
-    from .inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
+    from .stats.boundaries import MIN_INCREMENT, futility_decision, nominal_decision
+    from .stats.inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
 
     row = state["comparison"]
     shift = design["shift"] or 0.0
@@ -915,7 +915,7 @@ def _resumed_boundary(engine, row, design, design_key, state, futility):
     The cached object is taken out of the cache (so no other look can use it
     meanwhile) and put back only once this look is recorded.
     """
-    from .boundaries import SequentialBoundary
+    from .stats.boundaries import SequentialBoundary
 
     last = state["last_boundary_look"]
     count = last.boundary_look if last is not None else 0

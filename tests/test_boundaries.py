@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import optimize, stats
 
-from monitor.boundaries import (
+from monitor.stats.boundaries import (
     FutilitySpec,
     LookBoundary,
     SequentialBoundary,
@@ -20,7 +20,7 @@ from monitor.boundaries import (
     nominal_decision,
 )
 from monitor.errors import InvalidArgumentError, UnknownSpendingError
-from monitor.spending import parse_spending
+from monitor.stats.spending import parse_spending
 from tests import reference_boundaries as ref
 
 # --------------------------------------------------------------------------

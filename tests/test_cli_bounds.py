@@ -6,7 +6,7 @@ import json
 
 import pytest
 
-from monitor.boundaries import FutilitySpec, SequentialBoundary, efficacy_boundaries
+from monitor.stats.boundaries import FutilitySpec, SequentialBoundary, efficacy_boundaries
 from monitor.cli import main
 from tests import reference_boundaries as ref
 

@@ -8,7 +8,7 @@ import math
 import pytest
 
 from monitor import cli
-from monitor.planning import fixed_sample_mean, plan_mean, plan_proportion
+from monitor.stats.planning import fixed_sample_mean, plan_mean, plan_proportion
 
 
 def _run(capsys, *argv):

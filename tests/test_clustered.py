@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from monitor import clustered
+from monitor.stats import clustered
 from monitor.config import DEFAULT_MIN_CLUSTERS
 from monitor.errors import InvalidArgumentError
-from monitor.fixed import welch_t
+from monitor.stats.fixed import welch_t
 
 import reference_clustered as ref
 
@@ -294,7 +294,7 @@ NOMINAL_LEVEL_EXCESS = 0.004
 
 @pytest.mark.parametrize("spending", ["obrien-fleming", "pocock"])
 def test_sequential_false_alarm_rate_by_simulation(spending):
-    pytest.importorskip("monitor.boundaries")
+    pytest.importorskip("monitor.stats.boundaries")
     from benchmarks import clustered_false_alarm as bench
 
     # 20,000 streams (about 6 s each): a Monte Carlo s.e. of 0.0015 on the rate.

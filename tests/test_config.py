@@ -222,7 +222,7 @@ def test_design_holds_what_is_measured_and_not_the_settings(tmp_path):
 
 
 def test_planning_inputs_give_the_plan(tmp_path):
-    from monitor.planning import plan_mean
+    from monitor.stats.planning import plan_mean
 
     path = write_config(tmp_path, config_toml("sqlite:///o.sqlite", "sqlite:///s.sqlite", [comparison_toml(
         planned_per_group=None, difference=5.0, sd=20.0, power=0.9, looks=4)]))

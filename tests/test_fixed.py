@@ -8,9 +8,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from monitor import fixed
+from monitor.stats import fixed
 from monitor.errors import InvalidArgumentError
-from monitor.summaries import MomentSummary
+from monitor.stats.summaries import MomentSummary
 
 from reference_fixed import NEWCOMBE_EXAMPLES, QUANTILES, SLEEP_EXAMPLES, SLEEP_GROUP1, SLEEP_GROUP2
 

@@ -15,10 +15,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import optimize, stats
 
-from monitor import inference
-from monitor.boundaries import efficacy_boundaries
+from monitor.stats import inference
+from monitor.stats.boundaries import efficacy_boundaries
 from monitor.errors import InvalidArgumentError
-from monitor.inference import (
+from monitor.stats.inference import (
     median_unbiased_estimate,
     repeated_confidence_interval,
     stagewise_p_value,

@@ -14,7 +14,7 @@ from scipy import stats
 from live_helpers import (CHANNELS, event_rows, LiveWorld as World, at, comparison_toml, config_toml,
                           create_events_table, file_digest, insert_events, migrated_store, write_config)
 from monitor import look as look_module
-from monitor.boundaries import SequentialBoundary
+from monitor.stats.boundaries import SequentialBoundary
 from monitor.config import load_config
 from monitor.errors import (DesignChangedError, LookAlreadyRecordedError, SourceUnavailableError,
                             StoreBehindError)
@@ -401,8 +401,8 @@ def test_buckets_in_a_time_zone_across_daylight_saving():
 
 
 def test_futility_boundary_stops_for_no_material_difference(tmp_path):
-    from monitor.boundaries import FutilitySpec
-    from monitor.planning import plan_mean
+    from monitor.stats.boundaries import FutilitySpec
+    from monitor.stats.planning import plan_mean
 
     rng = np.random.default_rng(17)
     keys = dict(planned_per_group=None, alternative="greater", difference=5.0, sd=10.0, power=0.8, looks=4,

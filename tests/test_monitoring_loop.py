@@ -20,8 +20,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from monitor.boundaries import SequentialBoundary, crossing_probabilities, nominal_decision
-from monitor.planning import plan_mean
+from monitor.stats.boundaries import SequentialBoundary, crossing_probabilities, nominal_decision
+from monitor.stats.planning import plan_mean
 from tests.reference_planning import ARMITAGE_5_LOOKS
 
 ALPHA = 0.05

@@ -17,9 +17,9 @@ from scipy import stats
 from statsmodels.stats.power import NormalIndPower, zt_ind_solve_power
 from statsmodels.stats.proportion import proportion_effectsize, samplesize_proportions_2indep_onetail
 
-from monitor.boundaries import crossing_probabilities
+from monitor.stats.boundaries import crossing_probabilities
 from monitor.errors import InvalidArgumentError, UnknownSpendingError
-from monitor.planning import (
+from monitor.stats.planning import (
     Plan,
     fixed_sample_mean,
     fixed_sample_proportion,

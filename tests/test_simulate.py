@@ -12,8 +12,8 @@ import json
 import pytest
 
 from monitor.errors import InvalidArgumentError
-from monitor.planning import plan_mean, plan_proportion
-from monitor.simulate import OperatingCharacteristics, simulate_design
+from monitor.stats.planning import plan_mean, plan_proportion
+from monitor.stats.simulate import OperatingCharacteristics, simulate_design
 
 
 @pytest.fixture(scope="module")

@@ -14,7 +14,7 @@ import sqlalchemy as sa
 
 from monitor.errors import InvalidArgumentError, SourceSchemaError, SourceUnavailableError
 from monitor.source import EXCLUSION_REASONS, SLOT_SECONDS, Batch, Source, SourceSpec, Watermark
-from monitor.summaries import MomentSummary
+from monitor.stats.summaries import MomentSummary
 
 from source_helpers import START, append_events, create_events_table, make_events, sqlite_url, stored_time
 

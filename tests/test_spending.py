@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from scipy import stats
 
 from monitor.errors import InvalidArgumentError, UnknownSpendingError
-from monitor.spending import (
+from monitor.stats.spending import (
     HwangShihDeCaniSpending,
     OBrienFlemingSpending,
     PocockSpending,

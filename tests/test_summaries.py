@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from monitor.errors import InvalidArgumentError
-from monitor.summaries import MomentSummary
+from monitor.stats.summaries import MomentSummary
 
 
 def exact_variance(values):

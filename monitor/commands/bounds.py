@@ -6,11 +6,11 @@ import argparse
 import json
 import math
 
-from .. import boundaries
-from .._checks import finite, open_unit
+from ..stats import boundaries
+from ..stats._checks import finite, open_unit
 from ._common import json_safe
 from ..errors import InvalidArgumentError, UnknownSpendingError
-from ..spending import parse_spending
+from ..stats.spending import parse_spending
 
 ALTERNATIVE_RULE = {
     "two-sided": "|z| at or beyond the boundary",

@@ -6,8 +6,8 @@ import argparse
 import json
 import math
 
-from .. import planning
-from .._checks import ALTERNATIVES
+from ..stats import planning
+from ..stats._checks import ALTERNATIVES
 from ..errors import InvalidArgumentError
 from ._common import json_safe
 
@@ -64,7 +64,7 @@ def add_plan_arguments(parser) -> None:
 
 
 def plan_from_args(args):
-    """Build the :class:`monitor.planning.Plan` the options describe."""
+    """Build the :class:`monitor.stats.planning.Plan` the options describe."""
     common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative,
                   spending=args.spending, looks=args.looks, futility=args.futility)
     for metric, names in _METRIC_OPTIONS.items():

@@ -6,7 +6,7 @@ import argparse
 import json
 import sys
 
-from .. import simulate
+from ..stats import simulate
 from ._common import json_safe
 from .plan import _whole_number, add_plan_arguments, describe_design, plan_from_args
 

@@ -8,7 +8,7 @@ import math
 import sys
 
 from ..errors import InvalidArgumentError
-from .. import fixed
+from ..stats import fixed
 from ._common import json_safe
 
 METHOD_HELP = {

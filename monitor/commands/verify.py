@@ -71,7 +71,7 @@ def _local_bucket(times, kind, zone_name, shift_starts):
 
 def _recompute(design, frame, cutoff):
     """Figures of one look from its raw rows: dict of n1, n2, pairs, estimate, statistic, p_value."""
-    from .. import fixed
+    from ..stats import fixed
 
     common = dict(null_difference=design["null_difference"], alternative=design["alternative"],
                   alpha=design["alpha"])
@@ -98,7 +98,7 @@ def _recompute(design, frame, cutoff):
             return out
         r = fixed.paired_t(len(diffs), float(diffs.mean()), float(diffs.std(ddof=1)), **common)
     elif design.get("clustering"):
-        from ..clustered import cluster_robust_difference
+        from ..stats.clustered import cluster_robust_difference
 
         clustering = design["clustering"]
         keys = (frame["key"].fillna("").astype(str) if clustering.get("cluster_column")

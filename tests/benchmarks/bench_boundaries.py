@@ -27,7 +27,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from monitor.boundaries import (  # noqa: E402
+from monitor.stats.boundaries import (  # noqa: E402
     FutilitySpec,
     SequentialBoundary,
     crossing_probabilities,

@@ -15,7 +15,7 @@ Per stream (one monitored comparison):
 * mean events per site per day m uniform on 50..500, daily counts Poisson(m);
 * intra-day correlation rho uniform on 0.02..0.10 (unit total variance);
 * information fraction = elapsed days / D, the look at day D final (it spends
-  what is left; monitor.boundaries.SequentialBoundary, two-sided).
+  what is left; monitor.stats.boundaries.SequentialBoundary, two-sided).
 
 The monitors, each as the live look (monitor.look) runs it:
 
@@ -42,7 +42,7 @@ Two reference rows separate the causes of any gap from alpha:
 
 The daily sufficient statistics are drawn exactly (day mean and within-day sum
 of squares) instead of event by event, so the simulation is fast. The vectorised
-CR1 here is checked against monitor.clustered.cluster_robust_difference.
+CR1 here is checked against monitor.stats.clustered.cluster_robust_difference.
 
 Run:  python tests/benchmarks/clustered_false_alarm.py --streams 100000 --seed 1 --spending pocock
 
@@ -90,10 +90,10 @@ from scipy import special
 # Run as a script from anywhere in the checkout.
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from monitor.boundaries import SequentialBoundary  # noqa: E402
-from monitor.clustered import cluster_robust_difference  # noqa: E402
+from monitor.stats.boundaries import SequentialBoundary  # noqa: E402
+from monitor.stats.clustered import cluster_robust_difference  # noqa: E402
 from monitor.config import DEFAULT_MIN_CLUSTERS  # noqa: E402
-from monitor.spending import parse_spending  # noqa: E402
+from monitor.stats.spending import parse_spending  # noqa: E402
 
 
 DAYS = tuple(range(30, 91))

@@ -33,7 +33,7 @@ from typing import Mapping
 
 import numpy as np
 
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
 from ._checks import open_unit as _check_probability

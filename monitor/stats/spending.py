@@ -44,7 +44,7 @@ import numpy as np
 from scipy import special
 
 from ._checks import open_unit
-from .errors import InvalidArgumentError, UnknownSpendingError
+from ..errors import InvalidArgumentError, UnknownSpendingError
 
 __all__ = [
     "SpendingFunction",
@@ -99,7 +99,7 @@ class SpendingFunction(ABC):
 
         Examples
         --------
-        >>> from monitor.spending import parse_spending
+        >>> from monitor.stats.spending import parse_spending
         >>> f = parse_spending("pocock")
         >>> round(f.cumulative(0.5, 0.025), 6)
         0.015503

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 
 __all__ = ["MomentSummary"]
 

@@ -12,13 +12,13 @@ Three things are needed around a sequential design:
   stagewise p-value is one half, with the matching adjusted confidence interval.
 
 All probabilities come from the boundary engine's
-:func:`monitor.boundaries.crossing_probabilities` (recursive numerical
+:func:`monitor.stats.boundaries.crossing_probabilities` (recursive numerical
 integration with Brownian-motion covariance), so they are exact up to its
 quadrature error.
 
 Conventions shared by the functions below:
 
-* looks are numbered from 1, as in :class:`monitor.boundaries.LookBoundary`;
+* looks are numbered from 1, as in :class:`monitor.stats.boundaries.LookBoundary`;
 * ``upper_z`` holds the efficacy boundaries as positive z values, exactly as the
   boundary engine reports them (for ``"less"`` a look rejects when Z <= -z);
 * a non-binding futility boundary is ignored: the continuation region before the
@@ -39,7 +39,7 @@ from scipy import optimize
 
 from ._checks import check_alternative, finite, open_unit
 from .boundaries import crossing_probabilities
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 
 __all__ = [
     "SequentialEstimate",

@@ -32,7 +32,7 @@ Conventions
   (reject when ``Z ≤ −z``) or ``"two-sided"`` (reject when ``|Z| ≥ z``); the
   reported boundary ``z`` is the magnitude.
 * A two-sided design at ``α`` spends ``α/2`` per side with the one-sided
-  spending function (see :mod:`monitor.spending`); ``cumulative_alpha``
+  spending function (see :mod:`monitor.stats.spending`); ``cumulative_alpha``
   counts both sides.
 * A fraction ``>= 1`` is the final look and spends all that is left.
 * Fractions must strictly increase, by at least ``MIN_INCREMENT`` (1e-7). A
@@ -83,7 +83,7 @@ import numpy as np
 from scipy import special
 
 from ._checks import ALTERNATIVES, check_alternative, finite, open_unit
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 from .spending import SpendingFunction, parse_spending
 
 __all__ = [

@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 import numbers
 
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 
 ALTERNATIVES = ("two-sided", "greater", "less")
 

@@ -43,11 +43,11 @@ from dataclasses import dataclass, field, fields
 from scipy import special
 
 from ._checks import ALTERNATIVES
-# Under the names monitor.clustered imports from here.
+# Under the names monitor.stats.clustered imports from here.
 from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
 from ._checks import open_unit as _check_probability
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 from .summaries import MomentSummary
 
 __all__ = [
@@ -679,7 +679,7 @@ def _successes(summary, name):
 
 def from_summaries(method, s1, s2, *, sigmas=None, null_difference=0.0,
                    alternative="two-sided", alpha=0.05, interval="newcombe") -> FixedSampleResult:
-    """Run one of the tests on running :class:`~monitor.summaries.MomentSummary` objects.
+    """Run one of the tests on running :class:`~monitor.stats.summaries.MomentSummary` objects.
 
     Parameters
     ----------
@@ -703,7 +703,7 @@ def from_summaries(method, s1, s2, *, sigmas=None, null_difference=0.0,
 
     Examples
     --------
-    >>> from monitor.summaries import MomentSummary
+    >>> from monitor.stats.summaries import MomentSummary
     >>> a = MomentSummary.from_values([12.1, 11.8, 12.6, 13.0, 12.2])
     >>> b = MomentSummary.from_values([11.2, 11.9, 11.5, 11.0, 11.6])
     >>> r = from_summaries("welch", a, b)

@@ -28,7 +28,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from ._checks import whole
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 from .planning import design_boundaries
 
 __all__ = ["EventsAtDecision", "OperatingCharacteristics", "simulate_design"]
@@ -197,7 +197,7 @@ def simulate_design(
 
     Parameters
     ----------
-    plan : monitor.planning.Plan
+    plan : monitor.stats.planning.Plan
         The design (alpha, spending, alternative, futility, drift, events).
     streams : int, default 20000
         Simulated comparisons per scenario.
@@ -219,7 +219,7 @@ def simulate_design(
 
     Examples
     --------
-    >>> from monitor.planning import plan_mean
+    >>> from monitor.stats.planning import plan_mean
     >>> oc = simulate_design(plan_mean(0.5, 1.0, looks=3), streams=4000, seed=1)
     >>> abs(oc.false_alarm_rate - 0.05) < 4 * oc.false_alarm_rate_se
     True
@@ -228,7 +228,7 @@ def simulate_design(
     """
     for attribute in ("alpha", "power", "alternative", "spending", "futility", "drift", "max_per_group", "looks"):
         if not hasattr(plan, attribute):
-            raise InvalidArgumentError(f"plan must be a Plan from monitor.planning; got {plan!r}")
+            raise InvalidArgumentError(f"plan must be a Plan from monitor.stats.planning; got {plan!r}")
     streams = whole(streams, "streams", 2)
     looks = plan.looks if looks is None else whole(looks, "looks", 1)
     if schedule not in ("regular", "irregular"):

@@ -26,7 +26,7 @@ from scipy import optimize, stats
 
 from ._checks import check_alternative, finite, open_unit, whole
 from .boundaries import FutilitySpec, SequentialBoundary, crossing_probabilities, efficacy_boundaries
-from .errors import InvalidArgumentError
+from ..errors import InvalidArgumentError
 from .spending import parse_spending
 
 __all__ = [
