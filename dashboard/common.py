@@ -1,7 +1,7 @@
 """What every dashboard page shares: the store engine, cached reads, formatting, charts, readings.
 
 Pages stay thin: they pick what to show and call these helpers. Every number
-comes from ``monitor.readback``, the same functions the CLI prints.
+comes from ``monitor.store.readback``, the same functions the CLI prints.
 """
 
 from __future__ import annotations
@@ -17,9 +17,9 @@ import altair as alt
 import pandas as pd
 import streamlit as st
 
-from monitor import readback
+from monitor.store import readback
 from monitor.commands.history import csv_rows
-from monitor.readback import format_number as fmt
+from monitor.store.readback import format_number as fmt
 
 # Our palette: one colour per state and per group, the same on every page.
 STATE_COLOURS = {

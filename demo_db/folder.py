@@ -177,7 +177,7 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
     the later of where the feed stopped and the store's latest look, so no
     look is ever taken at an earlier ``as_of`` than one already recorded.
     """
-    from monitor.store import upgrade
+    from monitor.store.engine import upgrade
 
     path = Path(folder).resolve()
     if path.exists() and not path.is_dir():
@@ -216,8 +216,8 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
 
 
 def _latest_look(store_url):
-    from monitor.readback import comparison_status
-    from monitor.store import make_engine
+    from monitor.store.readback import comparison_status
+    from monitor.store.engine import make_engine
 
     engine = make_engine(store_url)
     try:

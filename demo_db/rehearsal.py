@@ -47,8 +47,8 @@ def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hour
     """Build the demo in the empty ``folder`` and run it for ``hours`` of simulated time."""
     from monitor.config import load_config
     from monitor.look import take_look
-    from monitor.source import Source
-    from monitor.store import make_engine
+    from monitor.source.reader import Source
+    from monitor.store.engine import make_engine
 
     demo = prepare_folder(folder, reset=True, seed=seed)
     config = load_config(demo.config_path)

@@ -2,7 +2,7 @@
 
 from alembic import context
 
-from monitor.models import Base
+from monitor.store.models import Base
 
 config = context.config
 target_metadata = Base.metadata
@@ -36,7 +36,7 @@ def run_migrations_online():
         with context.begin_transaction():
             context.run_migrations()
         return
-    from monitor.store import make_engine
+    from monitor.store.engine import make_engine
 
     engine = make_engine(config.get_main_option("sqlalchemy.url"))
     try:

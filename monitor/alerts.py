@@ -30,7 +30,7 @@ from sqlalchemy import and_, func, select, update
 from sqlalchemy.dialects import postgresql, sqlite
 
 from .errors import AlertDeliveryError, InvalidArgumentError
-from .models import Alert, Comparison, Delivery, SourceHealth
+from .store.models import Alert, Comparison, Delivery, SourceHealth
 
 __all__ = [
     "Channel",

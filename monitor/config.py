@@ -317,8 +317,8 @@ class ComparisonConfig:
         }
 
     def source_spec(self, shift: float = 0.0):
-        """The :class:`monitor.source.SourceSpec` for this comparison."""
-        from .source import SourceSpec
+        """The :class:`monitor.source.reader.SourceSpec` for this comparison."""
+        from .source.reader import SourceSpec
 
         return SourceSpec(
             table=self.table,

@@ -58,7 +58,7 @@ from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 from .config import ComparisonConfig, design_hash
 from .errors import (DesignChangedError, InvalidArgumentError, LookAlreadyRecordedError,
                      StoreUnavailableError, UnknownComparisonError)
-from .models import Alert, Cell, Comparison, Delivery, Look
+from .store.models import Alert, Cell, Comparison, Delivery, Look
 from .stats.summaries import MomentSummary
 
 __all__ = [
@@ -378,7 +378,7 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None):
         Aware "now" of the look; the cutoff is ``as_of − lateness``.
     engine : sqlalchemy.engine.Engine
         The history store (must be at the current migration).
-    source : monitor.source.Source, optional
+    source : monitor.source.reader.Source, optional
         An open source; by default one is opened for the comparison's source
         and disposed of afterwards.
     holder : str, optional
@@ -409,7 +409,7 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None):
     as_of = _aware(as_of, "as_of")
     if holder is None:
         return _look(config, comparison, as_of, engine, source, started)
-    from .claims import claim
+    from .store.claims import claim
 
     with claim(engine, comparison.name, holder, now=as_of, seconds=config.service.lease_seconds):
         return _look(config, comparison, as_of, engine, source, started)
@@ -440,7 +440,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, started):
         design = dict(configured)
         design["shift"] = None
 
-    from .source import Source, Watermark
+    from .source.reader import Source, Watermark
 
     t_source = _time.perf_counter()
     own_source = source is None
@@ -485,7 +485,7 @@ def _read_state(engine, name):
     store (same comparison row, look count and the look's random state token);
     otherwise they are read.
     """
-    from .store import ensure_current, head_revision
+    from .store.engine import ensure_current, head_revision
 
     try:
         with engine.connect() as conn:
@@ -1120,7 +1120,7 @@ def restart_comparison(engine, name: str) -> dict:
     History is never rewritten: the archived version keeps its looks, cells and alerts.
     Returns ``{"name", "archived_version", "next_version"}``.
     """
-    from .store import ensure_current
+    from .store.engine import ensure_current
 
     ensure_current(engine)
     with engine.begin() as conn:

@@ -126,7 +126,7 @@ def insert_events(url: str, table: str, rows) -> None:
 
 def migrated_store(url: str):
     """Upgrade the store at ``url`` to head and return an engine on it."""
-    from monitor.store import make_engine, upgrade
+    from monitor.store.engine import make_engine, upgrade
 
     upgrade(url)
     return make_engine(url)
@@ -187,7 +187,7 @@ class LiveWorld:
         return frame
 
     def looks(self):
-        from monitor.models import Look
+        from monitor.store.models import Look
 
         with self.engine.connect() as conn:
             return conn.execute(sa.select(Look).order_by(Look.id)).all()

@@ -22,7 +22,7 @@ import numpy as np
 import sqlalchemy as sa
 from scipy import stats
 
-from monitor.models import Alert, Base, Cell, Comparison, Delivery, Look
+from monitor.store.models import Alert, Base, Cell, Comparison, Delivery, Look
 
 __all__ = ["SCENARIOS", "Scenario", "migrate", "seed_store", "seed_many", "NOW"]
 

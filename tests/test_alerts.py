@@ -28,7 +28,7 @@ from monitor.alerts import (
     source_backoff_until,
 )
 from monitor.errors import InvalidArgumentError
-from monitor.models import Alert, Base, Comparison, Delivery, SourceHealth
+from monitor.store.models import Alert, Base, Comparison, Delivery, SourceHealth
 
 from endpoints import MailReceiver, WebhookReceiver, free_port, verify_signature
 

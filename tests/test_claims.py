@@ -10,9 +10,9 @@ from datetime import datetime, timedelta, timezone
 import pytest
 import sqlalchemy as sa
 
-from monitor.claims import claim, current_holder, make_holder, release, try_claim
+from monitor.store.claims import claim, current_holder, make_holder, release, try_claim
 from monitor.errors import ClaimHeldError, InvalidArgumentError
-from monitor.models import Base
+from monitor.store.models import Base
 
 T0 = datetime(2026, 3, 2, 8, 0, tzinfo=timezone.utc)
 

@@ -16,7 +16,7 @@ import sqlalchemy as sa
 
 from monitor.cli import main
 from monitor.commands import dashboard as dashboard_command
-from monitor.models import Comparison, Look
+from monitor.store.models import Comparison, Look
 
 import store_seed
 

@@ -9,9 +9,9 @@ import pytest
 import sqlalchemy as sa
 from streamlit.testing.v1 import AppTest
 
-from monitor import readback
+from monitor.store import readback
 from monitor.commands.status import fmt
-from monitor.models import Alert
+from monitor.store.models import Alert
 
 import store_seed
 
@@ -209,7 +209,7 @@ def test_review_filters_by_date(store):
 def test_open_interval_ends_and_a_clock_running_ahead(tmp_path, monkeypatch):
     from datetime import timedelta
 
-    from monitor.models import Comparison, Look
+    from monitor.store.models import Comparison, Look
 
     url = f"sqlite:///{tmp_path / 'store.sqlite'}"
     store_seed.migrate(url)

@@ -18,9 +18,9 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
-from monitor import readback
+from monitor.store import readback
 from monitor.commands.status import fmt
-from monitor.models import Alert, Comparison, Look
+from monitor.store.models import Alert, Comparison, Look
 
 import store_seed
 

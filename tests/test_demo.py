@@ -165,7 +165,7 @@ def test_databases_have_integer_keys_time_indexes_and_the_backlog(tmp_path):
 def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
     """What the monitor itself counts as excluded on the first look, per comparison."""
     from monitor.config import load_config
-    from monitor.source import Source
+    from monitor.source.reader import Source
 
     create_databases(tmp_path)
     (tmp_path / CONFIG_NAME).write_text(config_text())
@@ -187,7 +187,7 @@ def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
 
 def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path):
     from monitor.config import load_config
-    from monitor.source import Source
+    from monitor.source.reader import Source
 
     create_databases(tmp_path)
     (tmp_path / CONFIG_NAME).write_text(config_text())
@@ -292,8 +292,8 @@ def _gapwatch(args, *, cwd, env=None, timeout=240):
 
 @pytest.mark.slow
 def test_gapwatch_demo_runs_end_to_end(tmp_path):
-    from monitor.readback import comparison_status, look_history
-    from monitor.store import make_engine
+    from monitor.store.readback import comparison_status, look_history
+    from monitor.store.engine import make_engine
 
     folder = tmp_path / "demo"
     elsewhere = tmp_path / "elsewhere"
@@ -370,8 +370,8 @@ def test_a_folder_of_other_files_is_refused_by_the_command(tmp_path, capsys):
 
 
 def _looks(store_path):
-    from monitor.readback import comparison_status
-    from monitor.store import make_engine
+    from monitor.store.readback import comparison_status
+    from monitor.store.engine import make_engine
 
     engine = make_engine(f"sqlite:///{store_path}")
     try:

@@ -33,7 +33,7 @@ def test_look_unknown_name_and_bad_time(tmp_path, capsys):
     assert "no comparison named 'nope'" in capsys.readouterr().err
     assert main(["look", "--config", config, "--as-of", "yesterday"]) == 2
     assert "--as-of must be an ISO timestamp" in capsys.readouterr().err
-    from monitor.models import Look
+    from monitor.store.models import Look
 
     assert world.count(Look) == 0
 
@@ -45,7 +45,7 @@ def test_look_unreachable_source_records_nothing(tmp_path, capsys):
     assert main(["look", "--config", str(path), "--as-of", "2026-03-02T12:00:00Z"]) == 1
     err = capsys.readouterr().err
     assert "handle-time" in err and "nothing recorded" in err
-    from monitor.models import Look
+    from monitor.store.models import Look
 
     assert world.count(Look) == 0
 

@@ -19,8 +19,8 @@ from monitor.config import load_config
 from monitor.errors import (DesignChangedError, LookAlreadyRecordedError, SourceUnavailableError,
                             StoreBehindError)
 from monitor.look import bucket_end, bucket_key, restart_comparison, take_look
-from monitor.models import Alert, Cell, Comparison, Delivery, Look
-from monitor.source import Source
+from monitor.store.models import Alert, Cell, Comparison, Delivery, Look
+from monitor.source.reader import Source
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
 
@@ -249,7 +249,7 @@ def test_source_unreachable_records_nothing_then_next_look_is_fine(tmp_path):
 
 
 def test_store_a_migration_behind_is_refused(tmp_path):
-    from monitor.store import downgrade
+    from monitor.store.engine import downgrade
 
     w = World(tmp_path, _rows(np.random.default_rng(1), 20))
     downgrade(w.store_url, "0001")
@@ -457,7 +457,7 @@ def test_one_sided_less_reads_the_lower_tail(tmp_path):
 
 
 def test_holder_claims_the_comparison_for_the_look(tmp_path):
-    from monitor.claims import current_holder, try_claim
+    from monitor.store.claims import current_holder, try_claim
     from monitor.errors import ClaimHeldError
 
     w = World(tmp_path, _rows(np.random.default_rng(20), 100))

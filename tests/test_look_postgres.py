@@ -16,7 +16,7 @@ from monitor import look as look_module
 from monitor.commands.verify import verify_looks
 from monitor.errors import DesignChangedError, LookAlreadyRecordedError, StoreBehindError
 from monitor.look import restart_comparison
-from monitor.models import Cell, Comparison, Look
+from monitor.store.models import Cell, Comparison, Look
 
 pytestmark = pytest.mark.postgres
 T0 = at(2, 6)
@@ -113,7 +113,7 @@ def test_concurrent_looks_on_postgres(pg_world):
 
 
 def test_store_behind_on_postgres(pg_world):
-    from monitor.store import downgrade
+    from monitor.store.engine import downgrade
 
     w = pg_world(event_rows(np.random.default_rng(34), 50, T0))
     downgrade(w.store_url, "0001")

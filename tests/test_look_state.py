@@ -24,7 +24,7 @@ from live_helpers import (CHANNELS, LiveWorld, at, comparison_toml, config_toml,
 from monitor import look as look_module
 from monitor.config import load_config
 from monitor.look import NULL_KEY, take_look
-from monitor.source import Source
+from monitor.source.reader import Source
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
 
@@ -215,7 +215,7 @@ def test_kept_state_is_not_used_after_another_writer_or_a_new_store(tmp_path):
 
 def test_service_keeps_one_source_per_configured_source_across_looks(tmp_path, monkeypatch):
     from monitor import source as source_module
-    from monitor.scheduler import Service
+    from monitor.service.scheduler import Service
 
     rows = event_rows(np.random.default_rng(46), 200, T0)
     w = LiveWorld(tmp_path, rows, planned_per_group=5000)

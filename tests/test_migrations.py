@@ -7,8 +7,8 @@ import sqlalchemy as sa
 from alembic.autogenerate import compare_metadata
 from alembic.migration import MigrationContext
 
-from monitor import store
-from monitor.models import Base
+from monitor.store import engine as store
+from monitor.store.models import Base
 
 
 def _tables(engine):

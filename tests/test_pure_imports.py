@@ -36,6 +36,6 @@ def test_pure_module_imports_no_io_stack(name):
 
 def test_probe_detects_a_leak():
     # The probe itself must be able to fail: importing the store schema loads sqlalchemy.
-    proc = subprocess.run([sys.executable, "-c", PROBE.format(forbidden=set(FORBIDDEN)), "monitor.models"],
+    proc = subprocess.run([sys.executable, "-c", PROBE.format(forbidden=set(FORBIDDEN)), "monitor.store.models"],
                           cwd=ROOT, capture_output=True, text=True, timeout=120)
     assert "sqlalchemy" in json.loads(proc.stdout.strip().splitlines()[-1])

@@ -8,9 +8,9 @@ from datetime import datetime, timedelta, timezone
 import pytest
 import sqlalchemy as sa
 
-from monitor import readback
+from monitor.store import readback
 from monitor.errors import InvalidArgumentError, UnknownComparisonError
-from monitor.models import Alert, Cell, Comparison, Look
+from monitor.store.models import Alert, Cell, Comparison, Look
 
 import store_seed
 

@@ -13,7 +13,7 @@ import pytest
 import sqlalchemy as sa
 
 from monitor.errors import InvalidArgumentError, SourceSchemaError, SourceUnavailableError
-from monitor.source import EXCLUSION_REASONS, SLOT_SECONDS, Batch, Source, SourceSpec, Watermark
+from monitor.source.reader import EXCLUSION_REASONS, SLOT_SECONDS, Batch, Source, SourceSpec, Watermark
 from monitor.stats.summaries import MomentSummary
 
 from source_helpers import START, append_events, create_events_table, make_events, sqlite_url, stored_time

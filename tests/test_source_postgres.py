@@ -12,7 +12,7 @@ import pytest
 import sqlalchemy as sa
 
 from monitor.errors import SourceSchemaError, SourceUnavailableError
-from monitor.source import Source, SourceSpec
+from monitor.source.reader import Source, SourceSpec
 
 from source_helpers import START, append_events, create_events_table, events_table, make_events
 from test_source import GROUPS, as_dict, assert_cells_equal, captured_statements, group_summaries, reference_cells, spec_for, stored_epoch

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 import sqlalchemy as sa
 
-from monitor import store
+from monitor.store import engine as store
 from monitor.errors import StoreBehindError
 
 

@@ -8,7 +8,7 @@ import pandas as pd
 import streamlit as st
 
 from dashboard import common
-from monitor import readback
+from monitor.store import readback
 
 common.style()
 st.title("Alerts")

@@ -3,7 +3,7 @@
 import streamlit as st
 
 from dashboard import common
-from monitor import readback
+from monitor.store import readback
 
 common.style()
 st.title("Board")

@@ -7,7 +7,7 @@ import json
 import math
 import sys
 
-from .. import readback
+from ..store import readback
 
 CONFIG_HELP = "configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)"
 

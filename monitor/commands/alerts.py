@@ -7,7 +7,7 @@ import getpass
 import json
 from datetime import datetime, timezone
 
-from .. import readback
+from ..store import readback
 from ._common import add_config_option, open_store
 
 __all__ = ["register", "run"]

@@ -17,8 +17,8 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
-    from ..source import Source
-    from ..store import make_engine, migration_state
+    from ..source.reader import Source
+    from ..store.engine import make_engine, migration_state
 
     config = load_config(args.config)  # every problem at once, as a ConfigError
     print(f"{config.path}: configuration valid ({len(config.comparisons)} comparisons, "

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from .. import store
+from ..store import engine as store
 from ..config import load_config
 from ._common import add_config_option
 

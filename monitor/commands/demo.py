@@ -156,7 +156,7 @@ def _stop_dashboard(process):
 
 
 def _describe(row) -> str:
-    from monitor.readback import state_label
+    from monitor.store.readback import state_label
 
     parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
     if row.get("estimate") is not None:
@@ -174,14 +174,14 @@ class _Watcher:
     """Prints a line whenever a comparison's state changes (read from the store)."""
 
     def __init__(self, store_url, clock):
-        from monitor.store import make_engine
+        from monitor.store.engine import make_engine
 
         self.engine = make_engine(store_url)
         self.clock = clock
         self.states = {}
 
     def poll(self, *, final=False):
-        from monitor.readback import comparison_status
+        from monitor.store.readback import comparison_status
 
         try:
             rows = comparison_status(self.engine, now=self.clock())
@@ -208,7 +208,7 @@ def run(args) -> int:
     from demo_db.folder import folder_seed, prepare_folder
     from demo_db.scenario import COMPANY, DEFAULT_SEED
     from monitor.config import load_config
-    from monitor.scheduler import run_service
+    from monitor.service.scheduler import run_service
 
     folder_arg = Path(args.dir)
     try:

@@ -5,8 +5,8 @@ from __future__ import annotations
 import csv
 import sys
 
-from .. import readback
-from ..readback import format_number as fmt
+from ..store import readback
+from ..store.readback import format_number as fmt
 from ._common import add_config_option, aligned_lines, open_store, print_json, whole_number_type
 
 __all__ = ["register", "run", "CSV_COLUMNS"]

@@ -39,7 +39,7 @@ def parse_as_of(text) -> datetime:
 
 def run(args) -> int:
     from ..look import take_look
-    from ..store import ensure_current, make_engine
+    from ..store.engine import ensure_current, make_engine
 
     as_of = parse_as_of(args.as_of)
     config = load_config(args.config)

@@ -18,7 +18,7 @@ def register(subparsers) -> None:
 
 def run(args) -> int:
     from ..look import restart_comparison
-    from ..store import make_engine
+    from ..store.engine import make_engine
 
     config = load_config(args.config)
     engine = make_engine(config.store_url)

@@ -46,7 +46,7 @@ def configure_logging(level: str = "INFO") -> None:
 
 
 def run(args) -> int:
-    from ..scheduler import run_once, run_service
+    from ..service.scheduler import run_once, run_service
 
     configure_logging(args.log_level)
     if args.once:

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
-from .. import readback
+from ..store import readback
 # fmt keeps the name the dashboard tests import from here.
-from ..readback import format_number as fmt
+from ..store.readback import format_number as fmt
 from ._common import add_config_option, aligned_lines, open_store, print_json
 
 __all__ = ["register", "run", "fmt"]

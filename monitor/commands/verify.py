@@ -36,7 +36,7 @@ def register(subparsers) -> None:
 
 
 def _spec(design, settings):
-    from ..source import SourceSpec
+    from ..source.reader import SourceSpec
 
     pairing = design.get("pairing") or {}
     clustering = design.get("clustering") or {}
@@ -144,8 +144,8 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
     ``{"field", "recorded", "recomputed"}``).
     """
     from ..look import NULL_KEY
-    from ..models import Comparison, Look
-    from ..source import Source
+    from ..store.models import Comparison, Look
+    from ..source.reader import Source
 
     from sqlalchemy.orm import Session
 
@@ -197,7 +197,7 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
 
 
 def run(args) -> int:
-    from ..store import make_engine
+    from ..store.engine import make_engine
 
     config = load_config(args.config)
     engine = make_engine(config.store_url)

@@ -30,7 +30,7 @@ sys.path[:0] = [str(ROOT), str(ROOT / "tests")]
 import sqlalchemy as sa  # noqa: E402
 
 import store_seed  # noqa: E402
-from monitor import readback  # noqa: E402
+from monitor.store import readback  # noqa: E402
 
 
 def _timed(fn, repeat):
@@ -68,7 +68,7 @@ def main(argv=None):
 
         engine = readback.open_store(url)
         with engine.connect() as conn:
-            from monitor.models import Comparison, Look
+            from monitor.store.models import Comparison, Look
 
             counted = (conn.execute(sa.select(sa.func.count()).select_from(Comparison)).scalar_one(),
                        conn.execute(sa.select(sa.func.count()).select_from(Look)).scalar_one())

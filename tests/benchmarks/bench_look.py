@@ -219,8 +219,8 @@ every = "10m"
 def measure(label: str, url: str, pg: bool, rows: int, new: int, repeats: int, naive_repeats: int, folder: Path, build_seconds: float):
     from monitor.config import load_config
     from monitor.look import take_look
-    from monitor.source import Source, Watermark
-    from monitor.store import make_engine, upgrade
+    from monitor.source.reader import Source, Watermark
+    from monitor.store.engine import make_engine, upgrade
 
     store_url = f"sqlite:///{folder / f'store-{label}.sqlite'}"
     upgrade(store_url)

@@ -15,7 +15,7 @@ import sqlalchemy as sa
 from sqlalchemy import event
 from sqlalchemy.engine import Engine
 
-from .errors import StoreBehindError, StoreUnavailableError
+from ..errors import StoreBehindError, StoreUnavailableError
 
 __all__ = [
     "make_engine",

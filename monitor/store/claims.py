@@ -26,7 +26,7 @@ from sqlalchemy import insert as core_insert
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.dialects import postgresql, sqlite
 
-from .errors import ClaimHeldError, InvalidArgumentError
+from ..errors import ClaimHeldError, InvalidArgumentError
 from .models import Lease
 
 log = logging.getLogger("gapwatch.claims")

@@ -27,7 +27,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy.exc import DBAPIError, OperationalError
 
-from .alerts import (
+from ..alerts import (
     build_channels,
     deliver_pending,
     record_source_recovered,
@@ -35,8 +35,8 @@ from .alerts import (
     redact,
     source_backoff_until,
 )
-from .claims import claim, make_holder
-from .errors import (
+from ..store.claims import claim, make_holder
+from ..errors import (
     ClaimHeldError,
     ConfigError,
     DesignChangedError,
@@ -184,7 +184,7 @@ class Service:
 
     def load(self):
         """Read and validate the configuration; build sources and channels. Raises ConfigError."""
-        from .config import load_config
+        from ..config import load_config
 
         config = load_config(self.config_path)
         if self.config_path is None:
@@ -199,7 +199,7 @@ class Service:
         return config
 
     def _build_sources(self, config, current):
-        from .source import Source
+        from ..source.reader import Source
 
         # Keep the open Source of every source whose address did not change.
         sources = {}
@@ -217,7 +217,7 @@ class Service:
         With ``wait`` an unreachable store is retried until it answers or the
         service is asked to stop; a store that is behind raises StoreBehindError.
         """
-        from .store import ensure_current, make_engine
+        from ..store.engine import ensure_current, make_engine
 
         engine = make_engine(self.config.store_url)
         while True:
@@ -256,7 +256,7 @@ class Service:
         Outcomes: recorded, stopped, held, backoff, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
-        from .look import take_look
+        from ..look import take_look
 
         with self._lock:
             config, sources = self.config, self.sources
@@ -384,7 +384,7 @@ class Service:
 
     def reload(self, reason: str) -> bool:
         """Adopt the configuration file as it is now, or keep the running one if it is invalid."""
-        from .config import load_config
+        from ..config import load_config
 
         self._file_stamp = self._file_state()
         try:

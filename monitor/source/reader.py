@@ -59,7 +59,7 @@ from decimal import Decimal
 import sqlalchemy as sa
 from sqlalchemy import exc as sa_exc
 
-from .errors import InvalidArgumentError, SourceSchemaError, SourceUnavailableError
+from ..errors import InvalidArgumentError, SourceSchemaError, SourceUnavailableError
 
 __all__ = [
     "SLOT_SECONDS",

@@ -17,9 +17,9 @@ from datetime import datetime, timedelta, timezone
 
 import sqlalchemy as sa
 
-from . import store
-from .config import load_config
-from .errors import InvalidArgumentError, UnknownComparisonError
+from . import engine as store
+from ..config import load_config
+from ..errors import InvalidArgumentError, UnknownComparisonError
 from .models import Alert, Cell, Comparison, Delivery, Look
 
 __all__ = [

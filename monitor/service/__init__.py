@@ -1,0 +1,1 @@
+"""The always-on service (``gapwatch run``): scheduler, claims of comparisons, alert delivery."""

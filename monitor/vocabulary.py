@@ -1,0 +1,124 @@
+"""Shared meaning, said once: states and their words, thresholds, durations, JSON-safe values, UTC.
+
+Every layer reads these from here (the import contracts allow any module to import this one,
+and this one imports nothing of gapwatch but the errors), so a word, a threshold or a rule can
+never disagree between the look, the command line, the alerts and the dashboard.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from datetime import datetime, timezone
+
+__all__ = [
+    "UTC",
+    "STATES",
+    "STOPPED_STATES",
+    "QUIET_STATES",
+    "STATE_ORDER",
+    "ALERT_STATES",
+    "DESIGN_EFFECT_WARNING",
+    "NULL_KEY",
+    "state_label",
+    "state_words",
+    "parse_duration",
+    "json_safe",
+    "as_utc",
+]
+
+UTC = timezone.utc
+
+# state -> (symbol, words). The symbol lets a reader tell states apart without colour.
+STATES = {
+    "collecting": ("◷", "collecting"),
+    "awaiting_clusters": ("◌", "waiting for clusters"),
+    "difference_found": ("◆", "difference found"),
+    "no_material_difference": ("≈", "no material difference"),
+    "plan_complete": ("■", "plan complete"),
+    "data_problem": ("⚠", "data problem"),
+}
+STATE_ORDER = tuple(STATES)
+# The decisions that end a comparison; data_problem keeps looking.
+STOPPED_STATES = frozenset({"difference_found", "no_material_difference", "plan_complete"})
+# Moving between these raises no alert.
+QUIET_STATES = frozenset({"collecting", "awaiting_clusters"})
+ALERT_STATES = ("pending", "delivered", "failed", "acknowledged")
+
+# A day-level design effect above this, on a comparison that is not clustered, means the
+# event-level standard error is materially too small (the comparison should be clustered).
+DESIGN_EFFECT_WARNING = 1.5
+
+# The exclusion reason for an event whose pair or cluster key is NULL.
+NULL_KEY = "null_key"
+
+
+def state_words(state) -> str:
+    """The plain words for a state (an unknown state is shown as it is)."""
+    return STATES.get(state, ("?", str(state)))[1]
+
+
+def state_label(state) -> str:
+    """``"SYMBOL words"`` for a state (unknown states are shown as they are)."""
+    symbol, words = STATES.get(state, ("?", str(state)))
+    return f"{symbol} {words}"
+
+
+_DURATION = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(s|m|h|d)\s*$")
+_DURATION_UNITS = {"s": 1, "m": 60, "h": 3600, "d": 86400}
+_DURATION_HINT = "a duration like 30s, 10m, 1h or 1d"
+
+
+def parse_duration(text) -> float:
+    """Seconds in ``"30s"``, ``"10m"``, ``"1h"``, ``"1d"``; a number (not text) is seconds.
+
+    The one duration rule of gapwatch: text must carry a unit (``"600"`` and ``"2w"`` are
+    refused), a number is taken as seconds. Raises ValueError naming the value.
+    """
+    if isinstance(text, bool):
+        raise ValueError(f"{text!r} is not {_DURATION_HINT}")
+    if isinstance(text, (int, float)):
+        if not math.isfinite(text) or text < 0:
+            raise ValueError(f"{text!r} is not a non-negative number of seconds")
+        return float(text)
+    if not isinstance(text, str):
+        raise ValueError(f"{text!r} is not {_DURATION_HINT}")
+    match = _DURATION.match(text)
+    if not match:
+        raise ValueError(f"{text!r} is not {_DURATION_HINT}")
+    return float(match.group(1)) * _DURATION_UNITS[match.group(2)]
+
+
+def json_safe(value):
+    """A value JSON can carry and every reader understands: non-finite floats become None.
+
+    Dict keys become text, tuples lists, numpy scalars Python numbers, datetimes ISO-8601
+    text, anything else its ``str``. The one JSON rule of gapwatch (store, CLI, alerts).
+    """
+    if isinstance(value, bool) or value is None or isinstance(value, (str, int)):
+        return value
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, datetime):
+        return value.isoformat()
+    if hasattr(value, "item"):  # numpy scalars
+        return json_safe(value.item())
+    return str(value)
+
+
+def as_utc(moment, name: str = "time", *, naive_zone=UTC) -> datetime:
+    """An aware UTC datetime: the one time-zone rule of gapwatch.
+
+    A time with a zone is converted to UTC; a time without one is read in ``naive_zone``
+    (UTC unless the caller passes the comparison's own zone). Anything that is not a
+    datetime raises ValueError naming ``name`` and the value.
+    """
+    if not isinstance(moment, datetime):
+        raise ValueError(f"{name} must be a date-time; got {moment!r}")
+    if moment.tzinfo is None or moment.utcoffset() is None:
+        moment = moment.replace(tzinfo=naive_zone)
+    return moment.astimezone(UTC)
