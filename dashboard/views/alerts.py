@@ -7,19 +7,19 @@ from datetime import datetime, timezone
 import pandas as pd
 import streamlit as st
 
-from dashboard import common
-from monitor.store import readback
+from dashboard import data, style
+from monitor.vocabulary import ALERT_STATES, state_label
 
-common.style()
+style.apply()
 st.title("Alerts")
-url = common.store_url()
+url = data.store_url()
 if "ack_done" in st.session_state:
     # Shown after the rerun that follows a write, so the table below already includes it.
     st.success(st.session_state.pop("ack_done"))
 
-states = st.multiselect("Alert states", list(readback.ALERT_STATES), key="alert_states",
+states = st.multiselect("Alert states", list(ALERT_STATES), key="alert_states",
                         placeholder="all states")
-alerts = common.alerts(url, tuple(states))
+alerts = data.alerts(url, tuple(states))
 if not alerts:
     st.info("No alerts match.")
 else:
@@ -27,7 +27,7 @@ else:
         "raised (UTC)": a["created_at"][:16].replace("T", " "),
         "comparison": a["comparison"],
         "kind": a["kind"].replace("_", " "),
-        "decision": readback.state_label(a["decision"]) if a["decision"] else "—",
+        "decision": state_label(a["decision"]) if a["decision"] else "—",
         "state": a["state"],
         "channels": ", ".join(
             f"{d['channel']}: {d['state']} ({d['attempts']} {'try' if d['attempts'] == 1 else 'tries'})"
@@ -45,7 +45,7 @@ if not password:
             "acknowledging alerts.")
     st.stop()
 
-open_alerts = [a for a in common.alerts(url, ()) if a["state"] != "acknowledged"]
+open_alerts = [a for a in data.alerts(url, ()) if a["state"] != "acknowledged"]
 if not open_alerts:
     st.success("Every alert has been acknowledged.")
     st.stop()
@@ -65,8 +65,7 @@ if submitted:
         st.error("Say who is acknowledging (your name).")
     else:
         # A person acknowledges at the real time, whatever clock the looks were taken on.
-        done = readback.acknowledge_alert(common.engine(), alert_id, by=who, now=datetime.now(timezone.utc))
-        common.forget_cached_reads()
+        done = data.acknowledge(alert_id, by=who, now=datetime.now(timezone.utc))
         st.session_state["ack_done"] = (f"Acknowledged: {done['comparison']} ({done['kind'].replace('_', ' ')}) "
                                         f"by {done['acknowledged_by']}.")
         st.rerun()

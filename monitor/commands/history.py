@@ -6,18 +6,11 @@ import csv
 import sys
 
 from ..store import readback
+from ..store.export import CSV_COLUMNS, csv_rows  # noqa: F401  (still importable from here)
 from ..store.readback import format_number as fmt
 from ._common import add_config_option, aligned_lines, open_store, print_json, whole_number_type
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
-
-# The flat columns of the CSV export (excluded rows are spread into one column per reason).
-CSV_COLUMNS = [
-    "look", "as_of", "cutoff", "n1", "n2", "mean1", "mean2", "estimate", "standard_error",
-    "statistic", "df", "p_value", "fraction", "boundary_z", "futility_z", "nominal_p",
-    "cumulative_alpha", "ci_low", "ci_high", "decision", "late_events", "excluded_total",
-    "clusters", "design_effect", "effective_n",
-]
 
 
 def register(subparsers) -> None:
@@ -34,18 +27,6 @@ def register(subparsers) -> None:
     p.add_argument("--version", type=whole_number_type(1), default=None, metavar="V",
                    help="a stored version (default: the live one)")
     p.set_defaults(func=run)
-
-
-def csv_rows(history):
-    reasons = sorted({reason for look in history for reason in look["excluded"]})
-    header = CSV_COLUMNS + [f"excluded_{reason}" for reason in reasons] + ["warnings"]
-    rows = []
-    for look in history:
-        row = [look[c] for c in CSV_COLUMNS]
-        row += [look["excluded"].get(reason, 0) for reason in reasons]
-        row.append("; ".join(look["warnings"]))
-        rows.append(row)
-    return header, rows
 
 
 _CLUSTER_TEXT = {"clusters": "{} clusters".format,

@@ -1,0 +1,74 @@
+"""The dashboard's own look: one palette for states and groups, the page CSS, the state badge."""
+
+from __future__ import annotations
+
+import html
+
+import streamlit as st
+
+from monitor.vocabulary import STATES
+
+__all__ = [
+    "STATE_COLOURS",
+    "GROUP_COLOURS",
+    "BOUNDARY_COLOUR",
+    "FUTILITY_COLOUR",
+    "NULL_COLOUR",
+    "REASON_COLOURS",
+    "CSS",
+    "apply",
+    "badge",
+]
+
+# One colour per state and per group, the same on every page.
+STATE_COLOURS = {
+    "collecting": "#3E6A8A",
+    "awaiting_clusters": "#7D6FA3",
+    "difference_found": "#B4532A",
+    "no_material_difference": "#4F8A5B",
+    "plan_complete": "#5A616C",
+    "data_problem": "#B0304A",
+}
+GROUP_COLOURS = ("#1F6F78", "#C9852F")
+BOUNDARY_COLOUR = "#7A3E65"
+FUTILITY_COLOUR = "#4F8A5B"
+NULL_COLOUR = "#8C8C8C"
+REASON_COLOURS = ("#8A5A44", "#C9852F", "#7D6FA3", "#3E6A8A", "#B0304A", "#6B8F71", "#5A616C")
+
+CSS = """
+<style>
+.gw-badge {display:inline-block;border:1.5px solid;border-radius:0.8em;padding:0.05em 0.6em;
+  font-weight:600;font-size:0.9em;white-space:nowrap;background:#fff;}
+.gw-symbol {font-size:1.05em;}
+.gw-scroll {overflow-x:auto;}
+table.gw-board {border-collapse:collapse;width:100%;font-size:0.9rem;}
+table.gw-board th {text-align:left;font-weight:600;color:#34414b;border-bottom:2px solid #cfd8dc;
+  padding:0.45em 0.5em;vertical-align:bottom;}
+table.gw-board td {border-bottom:1px solid #e3e8eb;padding:0.5em 0.5em;vertical-align:top;}
+table.gw-board tr.gw-row:has(+ tr.gw-warnrow) td {border-bottom:none;}
+table.gw-board tr.gw-warnrow td {padding-top:0;}
+table.gw-board td.gw-name {white-space:nowrap;}
+table.gw-board td.num {font-variant-numeric:tabular-nums;white-space:nowrap;}
+table.gw-board a {color:#1F6F78;font-weight:600;text-decoration:none;}
+.gw-warn {color:#8a4b08;font-size:0.85em;}
+.gw-sub {color:#5f6b73;font-size:0.85em;}
+.gw-bar {background:#e3e8eb;border-radius:3px;height:6px;width:7em;margin-top:4px;}
+.gw-bar > div {background:#1F6F78;height:6px;border-radius:3px;}
+.gw-reading {border-left:4px solid #1F6F78;background:#f4f8f8;padding:0.8em 1em;border-radius:4px;}
+</style>
+"""
+
+
+def apply():
+    """Put the dashboard's CSS on the page (once per page run)."""
+    st.html(CSS)
+
+
+def badge(state):
+    """State as a symbol AND words, coloured; readable without the colour."""
+    symbol, words = STATES.get(state, ("?", str(state)))
+    colour = STATE_COLOURS.get(state, "#555")
+    return (
+        f'<span class="gw-badge" style="border-color:{colour};color:{colour}">'
+        f'<span class="gw-symbol">{html.escape(symbol)}</span> {html.escape(words)}</span>'
+    )
