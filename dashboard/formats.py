@@ -7,8 +7,10 @@ can be checked without a clock.
 
 from __future__ import annotations
 
+import math
 from datetime import datetime
 from urllib.parse import quote
+from zoneinfo import ZoneInfo
 
 from monitor.store.readback import describe_seconds
 from monitor.store.readback import format_number as fmt
@@ -28,6 +30,8 @@ __all__ = [
     "group_names",
     "confidence_percent",
     "comparison_link",
+    "zone_name",
+    "p_text",
 ]
 
 
@@ -126,3 +130,30 @@ def comparison_link(row):
     if row.get("archived"):
         query += f"&version={row['version']}"
     return f"comparison?{query}"
+
+
+def zone_name(row):
+    """The comparison's own time zone (its settings, else its design), UTC when none is known."""
+    name = (row.get("settings") or {}).get("timezone") or (row.get("design") or {}).get("timezone") or "UTC"
+    try:
+        ZoneInfo(str(name))
+    except (KeyError, ValueError):  # an unknown or malformed zone name
+        return "UTC"
+    return str(name)
+
+
+def p_text(p):
+    """A p-value or a level in plain decimals with two significant digits: ``0.0041``, ``0.00010``.
+
+    Below one in a million it reads ``below 0.000001`` (no exponent a lead has to decode).
+    """
+    if p is None or not math.isfinite(p):
+        return "—"
+    if p == 0:
+        return "0"
+    if p >= 0.01:
+        return f"{p:.2f}" if p >= 0.1 else f"{p:.3f}"
+    if p < 1e-6:
+        return "below 0.000001"
+    decimals = -math.floor(math.log10(p)) + 1
+    return f"{p:.{decimals}f}"

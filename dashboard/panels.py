@@ -12,9 +12,9 @@ from monitor.store.readback import clustering_figures
 
 from . import charts, data, tables
 from .formats import bounds_text, confidence_percent, fmt, fraction_text, groups_text, next_look_text
-from .formats import plan_eta_text, when
+from .formats import plan_eta_text, when, zone_name
 from .reading import reading
-from .style import badge
+from .style import badge, pair, tiles
 
 __all__ = ["show_comparison"]
 
@@ -28,12 +28,12 @@ def show_comparison(url, name, version=None):
     """Headline, the decision chart and its reading, after the stop, charts, plan, quality, history."""
     row = data.comparison(url, name, version)
     looks = data.history(url, name, row["version"])
-    frame = charts.history_frame(looks)
+    frame = charts.history_frame(looks, zone_name(row))
     _headline(row)
     _decision(row, looks, frame)
     _after_stop(row)
     _over_time(row, frame)
-    plan_col, quality_col = st.columns(2)
+    plan_col, quality_col = pair("plan")
     with plan_col:
         st.markdown("##### The plan")
         st.table(pd.DataFrame(tables.plan_lines(row), columns=["setting", "value"]).set_index("setting"))
@@ -49,18 +49,22 @@ def _headline(row):
             + (' <span class="gw-sub">archived</span>' if row["archived"] else "")
             + f' <span class="gw-sub">{html.escape(row.get("description") or "")}</span></div>')
     interval = bounds_text(row["ci_low"], row["ci_high"])
-    cols = st.columns(4)
-    cols[0].metric(f"Estimate ({groups_text(row)})", fmt(row["estimate"]),
-                   help=f"{confidence_percent(row)} repeated confidence interval: {interval}")
-    cols[1].metric("Events per group", f"{row['n1']:,} / {row['n2']:,}")
-    cols[2].metric("Plan reached", fraction_text(row), help=f"of {row['planned_per_group'] or '?'} planned per group")
-    cols[3].metric("Looks", row["looks"])
+    tiles([
+        (f"Estimate ({groups_text(row)})", fmt(row["estimate"]),
+         f"{confidence_percent(row)} repeated confidence interval: {interval}"),
+        ("Events per group", f"{row['n1']:,} / {row['n2']:,}"),
+        ("Plan reached", fraction_text(row),
+         f"of {row['planned_per_group']:,.0f} planned per group" if row.get("planned_per_group") else None),
+        ("Looks", row["looks"]),
+    ])
     ref = data.now()
     timing = f"last look {when(row['last_look_at'], ref)}"
     if row["stopped"]:
         timing += f" · stopped {when(row['stopped_at'], ref)}"
     elif not row["archived"]:
-        timing += f" · next look {next_look_text(row, ref)} · plan complete in {plan_eta_text(row)}"
+        eta = plan_eta_text(row)
+        timing += f" · next look {next_look_text(row, ref)} · " + (
+            "plan completion not yet known" if eta == "unknown yet" else f"plan complete in {eta}")
     st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
@@ -68,13 +72,25 @@ def _headline(row):
 
 def _decision(row, looks, frame):
     chart = charts.boundary_chart(row, frame)
-    st.markdown("##### Test statistic against the boundary")
+    st.markdown("##### The evidence against the boundary")
     if chart is not None:
         st.altair_chart(chart, width="stretch")
+        st.caption(_decision_caption(frame))
+        note = charts.off_scale_note(frame, row)
+        if note:
+            st.caption(note)
     else:
         st.info("No test statistic recorded yet.")
     st.markdown("##### What this means")
-    st.html('<div class="gw-reading">' + "".join(f"<p>{html.escape(p)}</p>" for p in reading(row, looks)) + "</div>")
+    st.html('<div class="gw-reading">' + "".join(f"<p>{html.escape(p, quote=False)}</p>" for p in reading(row, looks)) + "</div>")
+
+
+def _decision_caption(frame):
+    if charts.uses_t(frame):
+        return ("Each look is drawn on the scale its decision is taken on: a t statistic is shown as the "
+                "normal value with the same one-sided p-value (its z-equivalent), so a point beyond the "
+                "dashed boundary is a look that crossed it.")
+    return "Each look's z statistic against the boundary it had to cross at that look."
 
 
 def _after_stop(row):
@@ -82,25 +98,29 @@ def _after_stop(row):
     if not (row["stopped"] and adjusted):
         return
     st.markdown("##### After the stop")
-    a = st.columns(3)
-    a[0].metric("Adjusted estimate", fmt(adjusted["estimate"]),
-                help="median-unbiased: corrects the overstatement of an estimate taken at a stop")
-    a[1].metric("Adjusted p-value", fmt(adjusted["p_value"], 3), help="stagewise ordering of the outcomes")
-    lo, hi = adjusted["ci_low"], adjusted["ci_high"]
-    a[2].metric("Adjusted interval", f"[{fmt(lo)}, {fmt(hi)}]" if lo is not None or hi is not None else "—")
+    tiles([
+        ("Adjusted estimate", fmt(adjusted["estimate"]),
+         "median-unbiased: corrects the overstatement of an estimate taken at a stop"),
+        ("Adjusted p-value", fmt(adjusted["p_value"], 3), "stagewise ordering of the outcomes"),
+        ("Adjusted interval", bounds_text(adjusted["ci_low"], adjusted["ci_high"])
+         if adjusted["ci_low"] is not None or adjusted["ci_high"] is not None else "—"),
+    ])
     if adjusted.get("note"):
         st.caption(adjusted["note"])
 
 
 def _over_time(row, frame):
-    left, right = st.columns(2)
+    left, right = pair("over-time")
     with left:
         st.markdown("##### Estimate over time")
         chart = charts.estimate_chart(row, frame)
         if chart is not None:
             st.altair_chart(chart, width="stretch")
-        st.caption(f"Shaded: the {confidence_percent(row)} repeated confidence interval at each look. "
-                   "Dashed grey: the null difference.")
+        st.caption(f"Shaded: the {confidence_percent(row)} repeated confidence interval at each look that "
+                   "has one (a look that tested nothing new has none). Dashed grey: the null difference.")
+        note = charts.cut_intervals_note(row, frame)
+        if note:
+            st.caption(note)
     with right:
         st.markdown("##### Each group over time")
         chart = charts.group_chart(row, frame)
@@ -114,11 +134,12 @@ def _data_quality(url, row, looks):
     st.markdown("##### Data quality")
     excluded_total = looks[-1]["excluded_total"] if looks else 0  # running totals
     late_total = sum(h["late_events"] for h in looks)
-    q = st.columns(3)
-    q[0].metric("Rows excluded", f"{excluded_total:,}")
-    q[1].metric("Late events", f"{late_total:,}")
-    q[2].metric("Effective n", f"{row['effective_n']:,.0f}" if row["effective_n"] is not None else "—",
-                help="events divided by the design effect")
+    tiles([
+        ("Rows excluded", f"{excluded_total:,}"),
+        ("Late events", f"{late_total:,}"),
+        ("Effective n", f"{row['effective_n']:,.0f}" if row["effective_n"] is not None else "—",
+         "events divided by the design effect"),
+    ])
     beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
     beside += clustering_figures(row, _QUALITY_CLUSTER_TEXT)
     st.caption(" · ".join(beside))

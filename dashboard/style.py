@@ -14,10 +14,14 @@ __all__ = [
     "BOUNDARY_COLOUR",
     "FUTILITY_COLOUR",
     "NULL_COLOUR",
+    "OFF_SCALE_COLOUR",
     "REASON_COLOURS",
     "CSS",
     "apply",
     "badge",
+    "tiles",
+    "pair",
+    "filter_row",
 ]
 
 # One colour per state and per group, the same on every page.
@@ -33,6 +37,8 @@ GROUP_COLOURS = ("#1F6F78", "#C9852F")
 BOUNDARY_COLOUR = "#7A3E65"
 FUTILITY_COLOUR = "#4F8A5B"
 NULL_COLOUR = "#8C8C8C"
+# A look drawn at the chart's edge because its value is far off the scale.
+OFF_SCALE_COLOUR = "#B0304A"
 REASON_COLOURS = ("#8A5A44", "#C9852F", "#7D6FA3", "#3E6A8A", "#B0304A", "#6B8F71", "#5A616C")
 
 CSS = """
@@ -55,6 +61,18 @@ table.gw-board a {color:#1F6F78;font-weight:600;text-decoration:none;}
 .gw-bar {background:#e3e8eb;border-radius:3px;height:6px;width:7em;margin-top:4px;}
 .gw-bar > div {background:#1F6F78;height:6px;border-radius:3px;}
 .gw-reading {border-left:4px solid #1F6F78;background:#f4f8f8;padding:0.8em 1em;border-radius:4px;}
+.gw-alert-head {font-size:0.9rem;color:#34414b;}
+.gw-alert-head a {color:#1F6F78;font-weight:600;text-decoration:none;}
+.gw-alert-state {font-weight:600;border-radius:0.6em;padding:0.05em 0.5em;background:#EEF2F1;}
+.gw-alert-failed {color:#B0304A;}
+.gw-alert-pending {color:#8a4b08;}
+.gw-alert-acknowledged {color:#4F8A5B;}
+.gw-alert-message {margin:0.35em 0;white-space:pre-wrap;overflow-wrap:anywhere;}
+/* Side-by-side sections stack when the screen is too narrow for both (an 800 px window). */
+[class*="st-key-gw-pair"] [data-testid="stHorizontalBlock"] {flex-wrap:wrap;}
+[class*="st-key-gw-pair"] [data-testid="stColumn"] {min-width:min(100%, 24rem);}
+[class*="st-key-gw-filters"] [data-testid="stHorizontalBlock"] {flex-wrap:wrap;}
+[class*="st-key-gw-filters"] [data-testid="stColumn"] {min-width:min(100%, 14rem);}
 </style>
 """
 
@@ -72,3 +90,25 @@ def badge(state):
         f'<span class="gw-badge" style="border-color:{colour};color:{colour}">'
         f'<span class="gw-symbol">{html.escape(symbol)}</span> {html.escape(words)}</span>'
     )
+
+
+def tiles(items):
+    """Figures side by side that wrap onto a new line rather than cut a label on a narrow screen.
+
+    ``items``: ``(label, value)`` or ``(label, value, help)`` tuples.
+    """
+    with st.container(horizontal=True, gap="large"):
+        for label, value, *help_text in items:
+            st.metric(label, value, help=help_text[0] if help_text else None, width="content")
+
+
+def pair(key):
+    """Two side-by-side columns that stack when the screen is too narrow for both (an 800 px window)."""
+    with st.container(key=f"gw-pair-{key}"):
+        return st.columns(2, gap="large")
+
+
+def filter_row(key, spec):
+    """A row of filters (``st.columns(spec)``) that wraps onto two lines on a narrow screen."""
+    with st.container(key=f"gw-filters-{key}"):
+        return st.columns(spec)

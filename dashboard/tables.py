@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import html
+import math
 from datetime import datetime
 
 import pandas as pd
@@ -12,12 +13,12 @@ from monitor.store.readback import clustering_figures, describe_wait
 from monitor.vocabulary import state_label
 
 from .formats import (
-    ago, clock, comparison_link, confidence_percent, fmt, fraction_text, group_names, groups_text,
-    interval_text, next_look_text, plan_eta_text,
+    ago, bounds_text, clock, comparison_link, confidence_percent, fmt, fraction_text, group_names, groups_text,
+    interval_text, next_look_text, p_text, plan_eta_text,
 )
 from .style import badge
 
-__all__ = ["BOARD_COLUMNS", "board_table", "plan_lines", "look_table", "per_day_table"]
+__all__ = ["BOARD_COLUMNS", "REVIEW_COLUMNS", "board_table", "review_table", "plan_lines", "look_table", "per_day_table"]
 
 _BOARD_CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "design effect {:.2f}".format,
                        "effective_n": "effective n {:,.0f}".format}
@@ -73,6 +74,38 @@ def _board_row(r, ref):
     )
 
 
+REVIEW_COLUMNS = ("State", "Comparison", "Version", "Looks", "Estimate [repeated CI]", "Events per group",
+                  "Plan reached", "Stopped (UTC)")
+
+
+def review_table(rows):
+    """Stopped and archived versions as an HTML table; each name opens that version's page."""
+    head = "<tr>" + "".join(f"<th>{c}</th>" for c in REVIEW_COLUMNS) + "</tr>"
+    body = []
+    for r in rows:
+        kept = "archived" if r["archived"] else ("live" if not r["stopped"] else "stopped, live version")
+        link = comparison_link(dict(r, archived=True))  # always pin the version reviewed
+        body.append(
+            '<tr class="gw-row">'
+            f"<td>{badge(r['state'])}</td>"
+            f'<td class="gw-name"><a href="{html.escape(link)}" target="_self">{html.escape(r["name"])}</a>'
+            f'<div class="gw-sub">{html.escape(groups_text(r))}</div></td>'
+            f'<td class="num">v{r["version"]}<div class="gw-sub">{kept}</div></td>'
+            f'<td class="num">{r["looks"]}</td>'
+            f'<td class="num">{html.escape(interval_text(r))}</td>'
+            f'<td class="num">{r["n1"]:,} / {r["n2"]:,}</td>'
+            f'<td class="num">{fraction_text(r)}</td>'
+            f'<td class="num">{html.escape(_stamp(r["stopped_at"]))}</td>'
+            "</tr>"
+        )
+    return (f'<div class="gw-scroll"><table class="gw-board gw-review"><thead>{head}</thead>'
+            f'<tbody>{"".join(body)}</tbody></table></div>')
+
+
+def _stamp(iso):
+    return iso[:16].replace("T", " ") if iso else "—"
+
+
 def plan_lines(row):
     """``(setting, value)`` pairs describing the frozen design, in the order a reviewer reads them."""
     design = row.get("design") or {}
@@ -105,28 +138,54 @@ def plan_lines(row):
     return lines
 
 
-_LOOK_COLUMNS = ["look", "as_of", "n1", "n2", "estimate", "ci_low", "ci_high", "statistic", "boundary_z",
-                 "p_value", "fraction", "cumulative_alpha", "excluded_total", "late_events", "decision"]
-
-
 def look_table(frame):
-    """The look history as shown: ``(DataFrame, column_config)`` for ``st.dataframe``."""
-    table = frame[_LOOK_COLUMNS].copy()
-    table["decision"] = table["decision"].map(state_label)
-    config = {
-        "as_of": st.column_config.DatetimeColumn("as of (UTC)", format="YYYY-MM-DD HH:mm"),
-        "estimate": st.column_config.NumberColumn("estimate", format="%.4g"),
-        "ci_low": st.column_config.NumberColumn("interval low", format="%.4g"),
-        "ci_high": st.column_config.NumberColumn("interval high", format="%.4g"),
-        "late_events": st.column_config.NumberColumn("late"),
-        "fraction": st.column_config.NumberColumn("plan", format="percent"),
-        "boundary_z": st.column_config.NumberColumn("boundary", format="%.3f"),
-        "statistic": st.column_config.NumberColumn("statistic", format="%.3f"),
-        "p_value": st.column_config.NumberColumn("p-value", format="%.4f"),
-        "cumulative_alpha": st.column_config.NumberColumn("alpha spent", format="%.5f"),
-        "excluded_total": st.column_config.NumberColumn("excluded"),
-    }
+    """The look history as shown: ``(DataFrame, column_config)`` for ``st.dataframe``.
+
+    Figures are written as text with the dashboard's rules (a missing value is ``—``, never
+    ``None``); look, events and counts stay numbers. A comparison decided through t gets its
+    z-equivalent beside t, the figure its boundary is compared with.
+    """
+    t_based = "df" in frame and frame["df"].notna().any()
+    table = pd.DataFrame({
+        "look": frame["look"],
+        "as of (UTC)": [t.strftime("%Y-%m-%d %H:%M") for t in frame["as_of"]],
+        "n1": frame["n1"],
+        "n2": frame["n2"],
+        "estimate": [_figure(v) for v in frame["estimate"]],
+        "interval": [_interval(lo, hi) for lo, hi in zip(frame["ci_low"], frame["ci_high"])],
+        "statistic": [_figure(v) for v in frame["statistic"]],
+    })
+    if t_based:
+        table["df"] = [_figure(v, 3) for v in frame["df"]]
+        table["z-equivalent"] = [_figure(v) for v in frame["decision_z"]]
+    table["boundary"] = [_figure(v) for v in frame["boundary_z"]]
+    table["p-value"] = [p_text(_finite(v)) for v in frame["p_value"]]
+    table["plan"] = [fraction_text({"fraction": _finite(v)}) for v in frame["fraction"]]
+    table["alpha spent"] = [p_text(_finite(v)) for v in frame["cumulative_alpha"]]
+    table["excluded"] = frame["excluded_total"]
+    table["late"] = frame["late_events"]
+    table["decision"] = frame["decision"].map(state_label)
+    config = {"look": st.column_config.NumberColumn("look", format="%d"),
+              "n1": st.column_config.NumberColumn("n1", format="localized"),
+              "n2": st.column_config.NumberColumn("n2", format="localized")}
     return table, config
+
+
+def _finite(value):
+    if value is None:
+        return None
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def _figure(value, digits=4):
+    value = _finite(value)
+    return "—" if value is None else fmt(value, digits)
+
+
+def _interval(low, high):
+    low, high = _finite(low), _finite(high)
+    return "—" if low is None and high is None else bounds_text(low, high)
 
 
 def per_day_table(days, row):

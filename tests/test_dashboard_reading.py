@@ -83,3 +83,49 @@ def test_pure_text_modules_do_not_load_streamlit():
             "print('streamlit' in sys.modules, 'altair' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.split() == ["False", "False"]
+
+
+def _t_look(look, statistic, df, boundary, warnings=()):
+    return {"look": look, "statistic": statistic, "df": df, "boundary_z": boundary, "warnings": list(warnings)}
+
+
+def test_a_t_look_is_read_on_the_scale_its_decision_is_taken_on():
+    # t = 5.924 on 4 df is above the z boundary 3.301, but its one-sided p-value 0.0020 is not at or
+    # below the nominal level 0.00048: the look did not cross, and the reading must say inside.
+    text = reading.reading(_row(looks=4), [_t_look(4, 5.924, 4.0, 3.301)])
+    assert "t = 5.924 on 4 degrees of freedom (one-sided p-value 0.0020, the same tail as z = 2.873)" in text[0]
+    assert "is inside this look's boundary of ±3.301" in text[0]
+    assert "at or below 0.00048" in text[0]
+
+
+def test_a_look_that_tested_nothing_is_not_read_as_a_boundary():
+    looks = [_t_look(3, 4.03, 3.0, 3.39), _t_look(4, 4.03, 3.0, None, ["no new information since the last testing look"])]
+    text = reading.reading(_row(looks=4), looks)
+    assert "boundary of ±3.39" in text[0]
+    assert "Look 4 took no test (no new information since the last testing look), so look 3 is the one read here" in text[0]
+    assert "±-" not in " ".join(text)
+
+
+def test_no_testing_look_yet():
+    looks = [_t_look(1, None, None, None, ["1 complete pair(s) so far; a paired test needs at least 2"])]
+    text = reading.reading(_row(looks=1, estimate=None, ci_low=None, ci_high=None), looks)
+    assert "no test has been taken yet (1 complete pair(s) so far" in text[0]
+    assert "there is no estimate of east minus west yet" in text[0]
+
+
+def test_one_sided_boundaries_are_worded_with_their_sign():
+    assert reading.boundary_phrase(2.5, "greater") == "2.5"
+    assert reading.boundary_phrase(2.5, "less") == "−2.5"
+    assert reading.boundary_phrase(2.5, "two-sided") == "±2.5"
+
+
+@pytest.mark.parametrize("alternative", ["two-sided", "greater", "less"])
+@pytest.mark.parametrize("statistic, df, boundary", [
+    (461.0, 1.0, 5.367), (10.73, 2.0, 4.333), (-3.2, None, 3.1), (3.0, None, 3.1), (2.2, 40.0, 2.1),
+])
+def test_the_reading_never_calls_a_crossing_inside(statistic, df, boundary, alternative):
+    from dashboard import scale
+
+    text = reading.reading(_row(alternative=alternative), [_t_look(5, statistic, df, boundary)])[0]
+    crossed = scale.crossed(scale.z_equivalent(statistic, df), boundary, alternative)
+    assert ("is inside this look's boundary" in text) == (not crossed)

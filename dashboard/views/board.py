@@ -12,7 +12,7 @@ st.caption("Every live comparison in the history store. The table refreshes itse
            f"{data.REFRESH_SECONDS} seconds; filters stay as you set them.")
 
 url = data.store_url()
-filter_col, state_col = st.columns([2, 3])
+filter_col, state_col = style.filter_row("board", [2, 3])
 needle = filter_col.text_input("Find a comparison", key="board_find", placeholder="part of a name")
 chosen = state_col.multiselect("States", list(STATES), key="board_states", format_func=state_label,
                                placeholder="all states")
@@ -23,9 +23,7 @@ def board():
     rows = data.status_rows(url)
     shown = [r for r in rows
              if (not needle or needle.lower() in r["name"].lower()) and (not chosen or r["state"] in chosen)]
-    counts = st.columns(len(STATES))
-    for col, state in zip(counts, STATES):
-        col.metric(state_label(state), sum(r["state"] == state for r in rows))
+    style.tiles([(state_label(state), sum(r["state"] == state for r in rows)) for state in STATES])
     if not rows:
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return

@@ -1,4 +1,7 @@
-"""Comparison: every view of one comparison; ?name=...&version=... opens it directly."""
+"""Comparison: every view of one comparison; ?name=...&version=... opens it directly.
+
+The views refresh themselves (a fragment) while the choice of comparison and version stays put.
+"""
 
 import streamlit as st
 
@@ -33,4 +36,4 @@ if version is not None:
 elif "version" in st.query_params:
     del st.query_params["version"]
 
-show_comparison(url, name, version)
+st.fragment(show_comparison, run_every=data.REFRESH_SECONDS)(url, name, version)
