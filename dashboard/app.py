@@ -7,7 +7,9 @@ open it and the board's tab is marked wherever one arrives from.
 
 from __future__ import annotations
 
+import importlib
 import sys
+import threading
 from pathlib import Path
 
 # Streamlit puts only this folder on sys.path; the pages import the monitor and dashboard packages.
@@ -34,3 +36,21 @@ pages = st.navigation([
     st.Page("views/review.py", title="Review", icon=":material/history:", url_path="review"),
 ], position="top")
 pages.run()
+
+
+@st.cache_resource(show_spinner=False)
+def _warm_up_chart_stack():
+    """Once per server, after the first page is drawn: import what the comparison pages need.
+
+    pandas, Altair and scipy take seconds to import on a busy machine; loading them while the
+    reader looks at the first page keeps the first comparison page as quick as the board.
+    """
+    def load():
+        for module in ("pandas", "altair", "scipy.special", "dashboard.charts", "dashboard.look_tables"):
+            importlib.import_module(module)
+
+    threading.Thread(target=load, name="gapwatch-warm-up", daemon=True).start()
+    return True
+
+
+_warm_up_chart_stack()

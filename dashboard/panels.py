@@ -10,10 +10,10 @@ import streamlit as st
 from monitor.store.export import csv_text
 from monitor.store.readback import clustering_figures
 
-from . import charts, data, tables
+from . import charts, data, look_tables, tables
 from .formats import bounds_text, confidence_percent, fmt, fraction_text, groups_text, next_look_text
 from .formats import plan_eta_text, when, zone_name
-from .reading import reading
+from .reading import reading, testing_look
 from .style import badge, pair, tiles
 
 __all__ = ["show_comparison"]
@@ -29,7 +29,7 @@ def show_comparison(url, name, version=None):
     row = data.comparison(url, name, version)
     looks = data.history(url, name, row["version"])
     frame = charts.history_frame(looks, zone_name(row))
-    _headline(row)
+    _headline(row, looks)
     _decision(row, looks, frame)
     _after_stop(row)
     _over_time(row, frame)
@@ -42,15 +42,15 @@ def show_comparison(url, name, version=None):
     _look_history(row, looks, frame)
 
 
-def _headline(row):
+def _headline(row, looks):
     title = f"{row['name']}" + (f" · version {row['version']}" if row["version"] != 1 else "")
     st.subheader(title)
     st.html(f'<div>{badge(row["state"])}'
             + (' <span class="gw-sub">archived</span>' if row["archived"] else "")
             + f' <span class="gw-sub">{html.escape(row.get("description") or "")}</span></div>')
-    interval = bounds_text(row["ci_low"], row["ci_high"])
+    interval = _newest_interval(row, looks)
     tiles([
-        (f"Estimate ({groups_text(row)})", fmt(row["estimate"]),
+        (f"Estimate ({groups_text(row)})", "—" if row["estimate"] is None else fmt(row["estimate"]),
          f"{confidence_percent(row)} repeated confidence interval: {interval}"),
         ("Events per group", f"{row['n1']:,} / {row['n2']:,}"),
         ("Plan reached", fraction_text(row),
@@ -68,6 +68,17 @@ def _headline(row):
     st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
+
+
+def _newest_interval(row, looks):
+    """This look's interval; when it tested nothing new, the newest look's that did, named."""
+    if row["ci_low"] is not None or row["ci_high"] is not None:
+        return bounds_text(row["ci_low"], row["ci_high"])
+    tested = testing_look(looks)
+    if tested is None or (tested["ci_low"] is None and tested["ci_high"] is None):
+        return "none yet"
+    return (f"{bounds_text(tested['ci_low'], tested['ci_high'])} from look {tested['look']} "
+            "(the looks since found nothing new to test)")
 
 
 def _decision(row, looks, frame):
@@ -152,7 +163,7 @@ def _data_quality(url, row, looks):
     if days:
         count = len({c["key"] for c in days})
         with st.expander(f"Events per day ({count} {'day' if count == 1 else 'days'})"):
-            st.dataframe(tables.per_day_table(days, row), width="stretch")
+            st.dataframe(look_tables.per_day_table(days, row), width="stretch")
 
 
 def _look_history(row, looks, frame):
@@ -160,7 +171,7 @@ def _look_history(row, looks, frame):
     if not looks:
         st.info("No looks recorded yet.")
         return
-    table, config = tables.look_table(frame)
+    table, config = look_tables.look_table(frame)
     st.dataframe(table, hide_index=True, width="stretch", column_config=config)
     st.download_button("Download looks as CSV", csv_text(looks), file_name=f"{row['name']}-v{row['version']}-looks.csv",
                        mime="text/csv", key=f"csv-{row['name']}-{row['version']}")

@@ -23,6 +23,8 @@ st.title("Alerts")
 url = data.store_url()
 password = os.environ.get("GAPWATCH_DASHBOARD_PASSWORD")
 st.session_state.setdefault("ack_alert", None)
+# This run is the whole page already: nothing for the list to ask for (see alert_list).
+st.session_state.pop("ack_whole_page", None)
 if st.session_state["ack_alert"] is not None and not any(
         a["id"] == st.session_state["ack_alert"] and a["state"] != "acknowledged" for a in data.alerts(url, ())):
     st.session_state["ack_alert"] = None  # acknowledged meanwhile (elsewhere): nothing left to confirm
@@ -39,6 +41,8 @@ states = st.multiselect("Alert states", list(ALERT_STATES), key="alert_states", 
 def _choose(alert_id):
     st.session_state["ack_alert"] = alert_id
     st.session_state.pop("ack_error", None)
+    # The whole page runs next (not only the list), so refreshing pauses or resumes with the form.
+    st.session_state["ack_whole_page"] = True
 
 
 def _acknowledge():
@@ -59,6 +63,7 @@ def _acknowledge():
         # A person acknowledges at the real time, whatever clock the looks were taken on.
         done = data.acknowledge(alert_id, by=who, now=datetime.now(timezone.utc))
         st.session_state["ack_alert"] = None
+        st.session_state["ack_whole_page"] = True
         st.session_state["ack_done"] = (f"Acknowledged: {done['comparison']} ({done['kind'].replace('_', ' ')}) "
                                         f"by {done['acknowledged_by']}.")
 
@@ -68,15 +73,15 @@ def _acknowledge_form(alert):
         st.text_input("Your name", key="ack_by")
         st.text_input("Dashboard password", type="password", key="ack_password")
         left, right = st.columns([1, 1])
-        submitted = left.form_submit_button("Acknowledge alert", on_click=_acknowledge, key="ack_submit")
-        cancelled = right.form_submit_button("Cancel", on_click=_choose, args=(None,), key="ack_cancel")
+        left.form_submit_button("Acknowledge alert", on_click=_acknowledge, key="ack_submit")
+        right.form_submit_button("Cancel", on_click=_choose, args=(None,), key="ack_cancel")
     if "ack_error" in st.session_state:
         st.error(st.session_state.pop("ack_error"))
-    if (submitted and "ack_done" in st.session_state) or cancelled:
-        st.rerun()  # the whole page: the list refreshes again and says what was done
 
 
 def alert_list():
+    if st.session_state.pop("ack_whole_page", False):
+        st.rerun()  # a button in this list asked for the whole page (it says what was done, pauses or resumes)
     alerts = data.alerts(url, tuple(states))
     if not alerts:
         st.info("No alerts match.")
@@ -93,8 +98,8 @@ def alert_list():
                 continue
             if alert["id"] == st.session_state["ack_alert"]:
                 _acknowledge_form(alert)
-            elif st.button("Acknowledge…", key=f"ack-{alert['id']}", on_click=_choose, args=(alert["id"],)):
-                st.rerun()  # the whole page, so refreshing pauses while the form is open
+            else:
+                st.button("Acknowledge…", key=f"ack-{alert['id']}", on_click=_choose, args=(alert["id"],))
 
 
 st.fragment(alert_list, run_every=None if st.session_state["ack_alert"] else data.REFRESH_SECONDS)()
