@@ -170,7 +170,7 @@ def boundary_chart(row, frame):
         .mark_line(point=alt.OverlayMarkDef(size=60, filled=True), strokeWidth=2.5, clip=True)
         .encode(x=x, y=alt.Y("shown:Q", title=title, scale=y_scale), color=colour, tooltip=tooltip)
     )
-    layers += _off_scale_marks(shown, x, y_scale, "shown", "z_text", tooltip)
+    layers += _off_scale_marks(shown, x, y_scale, "shown", "z_text", tooltip, "decision_z")
     return alt.layer(*layers).properties(height=320)
 
 
@@ -205,12 +205,15 @@ def _statistic_reach(data, alternative):
     return low, high
 
 
-def _off_scale_marks(shown, x, y_scale, field, text_field, tooltip):
-    """A hollow triangle at the chart's edge, and the true value beside it, for each clipped look."""
+def _off_scale_marks(shown, x, y_scale, field, text_field, tooltip, value_field):
+    """A hollow triangle at the chart's edge, and the true value beside it, for each clipped look.
+
+    The triangle points the way the true value lies: up when it is above the chart, down below.
+    """
     off = shown[shown["off_scale"]]
     if off.empty:
         return []
-    off = off.assign(shape=["triangle-up" if v > 0 else "triangle-down" for v in off[field]],
+    off = off.assign(shape=["triangle-up" if v > c else "triangle-down" for v, c in zip(off[value_field], off[field])],
                      label=[f"look {k}: {t} (off scale)" for k, t in zip(off["look"], off[text_field])])
     base = alt.Chart(off)
     marks = base.mark_point(size=140, filled=False, strokeWidth=2, color=OFF_SCALE_COLOUR).encode(
@@ -281,7 +284,7 @@ def estimate_chart(row, frame):
                alt.Tooltip("estimate_text:N", title="estimate"), alt.Tooltip("interval_text:N", title="interval")]
     layers.append(alt.Chart(shown).mark_line(point=True, color=GROUP_COLOURS[0], strokeWidth=2.5, clip=True).encode(
         x=x, y=alt.Y("shown:Q", title=y_title, scale=y_scale), tooltip=tooltip))
-    layers += _off_scale_marks(shown, x, y_scale, "shown", "estimate_text", tooltip)
+    layers += _off_scale_marks(shown, x, y_scale, "shown", "estimate_text", tooltip, "estimate")
     layers.append(alt.Chart(pd.DataFrame({"null": [null], "label": [f"null difference {fmt(null)}"]})).mark_rule(
         color=NULL_COLOUR, strokeDash=[4, 3], strokeWidth=1.5).encode(y=alt.Y("null:Q", scale=y_scale),
                                                                         tooltip=["label:N"]))
@@ -326,7 +329,7 @@ def _look_ranges(numbers):
 
 
 def group_chart(row, frame):
-    """Each group's running mean (or rate) at each look."""
+    """Each group's running mean (or rate) at each look; a far early value is clipped and marked."""
     if frame.empty or "mean1" not in frame or frame[["mean1", "mean2"]].isna().all().all():
         return None
     groups = group_names(row)
@@ -334,17 +337,28 @@ def group_chart(row, frame):
         frame[["local_time", "look", "mean1", "n1"]].rename(columns={"mean1": "value", "n1": "n"}).assign(group=groups[0]),
         frame[["local_time", "look", "mean2", "n2"]].rename(columns={"mean2": "value", "n2": "n"}).assign(group=groups[1]),
     ]).dropna(subset=["value"])
-    long["value_text"] = [_text(v) for v in long["value"]]
+    newest = long[long["look"] == long["look"].max()]["value"]
+    low, high = robust_span(list(newest), list(long["value"]))
+    pad = 0.1 * ((high - low) or abs(high) or 1.0)
+    domain = [low - pad, high + pad]
+    long = long.assign(
+        shown=long["value"].clip(*domain),
+        off_scale=(long["value"] < domain[0]) | (long["value"] > domain[1]),
+        value_text=[_text(v) for v in long["value"]],
+    )
     proportion = row.get("metric") == "proportion"
     title = "rate" if proportion else "mean"
-    return alt.Chart(long).mark_line(point=True, strokeWidth=2.5).encode(
-        x=_time_axis(zone_name(row)),
-        y=alt.Y("value:Q", title=f"running {title}", scale=alt.Scale(zero=False),
-                axis=alt.Axis(format="%" if proportion else ",~r")),
-        color=alt.Color("group:N", title=None, scale=alt.Scale(domain=list(groups[:2]), range=list(GROUP_COLOURS))),
-        tooltip=["group:N", alt.Tooltip("look:Q"), alt.Tooltip("value_text:N", title=title),
-                 alt.Tooltip("n:Q", format=",", title="events")],
-    ).properties(height=260).configure_legend(orient="bottom")
+    x = _time_axis(zone_name(row))
+    y_scale = alt.Scale(domain=domain, nice=False)
+    colour = alt.Color("group:N", title=None, scale=alt.Scale(domain=list(groups[:2]), range=list(GROUP_COLOURS)))
+    tooltip = ["group:N", alt.Tooltip("look:Q"), alt.Tooltip("value_text:N", title=title),
+               alt.Tooltip("n:Q", format=",", title="events")]
+    lines = alt.Chart(long).mark_line(point=True, strokeWidth=2.5, clip=True).encode(
+        x=x, y=alt.Y("shown:Q", title=f"running {title}", scale=y_scale,
+                     axis=alt.Axis(format="%" if proportion else ",~r")),
+        color=colour, tooltip=tooltip)
+    layers = [lines, *_off_scale_marks(long, x, y_scale, "shown", "value_text", tooltip, "value")]
+    return alt.layer(*layers).properties(height=260).configure_legend(orient="bottom")
 
 
 def excluded_chart(looks):

@@ -60,6 +60,9 @@ table.gw-board a {color:#1F6F78;font-weight:600;text-decoration:none;}
 .gw-sub {color:#5f6b73;font-size:0.85em;}
 .gw-bar {background:#e3e8eb;border-radius:3px;height:6px;width:7em;margin-top:4px;}
 .gw-bar > div {background:#1F6F78;height:6px;border-radius:3px;}
+.gw-counts {display:flex;flex-wrap:wrap;gap:0.5em 1.4em;margin:0.2em 0 0.6em;}
+.gw-count {display:inline-flex;align-items:center;gap:0.45em;}
+.gw-count-n {font-size:1.6rem;font-weight:600;font-variant-numeric:tabular-nums;color:#1E2A30;}
 .gw-reading {border-left:4px solid #1F6F78;background:#f4f8f8;padding:0.8em 1em;border-radius:4px;}
 .gw-alert-head {font-size:0.9rem;color:#34414b;}
 .gw-alert-head a {color:#1F6F78;font-weight:600;text-decoration:none;}
@@ -68,6 +71,20 @@ table.gw-board a {color:#1F6F78;font-weight:600;text-decoration:none;}
 .gw-alert-pending {color:#8a4b08;}
 .gw-alert-acknowledged {color:#4F8A5B;}
 .gw-alert-message {margin:0.35em 0;white-space:pre-wrap;overflow-wrap:anywhere;}
+/* On a narrow screen each comparison becomes a card: its figures wrap under their column titles. */
+@media (max-width: 1000px) {
+  table.gw-board, table.gw-board tbody {display:block;}
+  table.gw-board thead {display:none;}
+  table.gw-board tr.gw-row {display:grid;grid-template-columns:repeat(auto-fill, minmax(10.5rem, 1fr));
+    gap:0.3em 0.8em;padding:0.5em 0;border-top:1px solid #e3e8eb;}
+  table.gw-board tr.gw-row td {border:none;padding:0.15em 0.3em;}
+  table.gw-board tr.gw-row td[data-label]::before {content:attr(data-label);display:block;font-size:0.75em;
+    color:#5f6b73;}
+  table.gw-board td.gw-name, table.gw-board td.num {white-space:normal;}
+  table.gw-board tr.gw-warnrow {display:block;}
+  table.gw-board tr.gw-warnrow td:first-child {display:none;}
+  table.gw-board tr.gw-warnrow td {display:block;border:none;padding:0 0.3em 0.5em;}
+}
 /* Side-by-side sections stack when the screen is too narrow for both (an 800 px window). */
 [class*="st-key-gw-pair"] [data-testid="stHorizontalBlock"] {flex-wrap:wrap;}
 [class*="st-key-gw-pair"] [data-testid="stColumn"] {min-width:min(100%, 24rem);}
@@ -97,7 +114,7 @@ def tiles(items):
 
     ``items``: ``(label, value)`` or ``(label, value, help)`` tuples.
     """
-    with st.container(horizontal=True, gap="large"):
+    with st.container(horizontal=True, gap="medium"):
         for label, value, *help_text in items:
             st.metric(label, value, help=help_text[0] if help_text else None, width="content")
 

@@ -10,6 +10,7 @@ import html
 from datetime import datetime
 
 from monitor.store.readback import clustering_figures, describe_wait
+from monitor.vocabulary import STATES
 
 from .formats import (
     ago, clock, comparison_link, confidence_percent, fmt, fraction_text, groups_text,
@@ -17,13 +18,22 @@ from .formats import (
 )
 from .style import badge
 
-__all__ = ["BOARD_COLUMNS", "REVIEW_COLUMNS", "board_table", "review_table", "plan_lines"]
+__all__ = ["BOARD_COLUMNS", "REVIEW_COLUMNS", "state_counts", "board_table", "review_table", "plan_lines"]
 
 _BOARD_CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "design effect {:.2f}".format,
                        "effective_n": "effective n {:,.0f}".format}
 
 BOARD_COLUMNS = ("State", "Comparison", "Estimate [repeated CI]", "Events per group", "Plan reached",
                  "Last look", "Next look", "Plan complete in")
+
+
+def state_counts(rows):
+    """How many comparisons are in each state, as a strip of badges that wraps on a narrow screen."""
+    counts = "".join(
+        f'<span class="gw-count" data-state="{state}">{badge(state)}'
+        f'<span class="gw-count-n">{sum(r["state"] == state for r in rows)}</span></span>'
+        for state in STATES)
+    return f'<div class="gw-counts">{counts}</div>'
 
 
 def board_table(rows, ref):
@@ -58,19 +68,25 @@ def _board_row(r, ref):
     if r.get("events_per_hour") and not r["stopped"]:
         rate = (f'<div class="gw-sub">{r["events_per_hour"][0]:,.0f} / {r["events_per_hour"][1]:,.0f} '
                 "an hour</div>")
-    return (
-        '<tr class="gw-row">'
-        f"<td>{badge(r['state'])}</td>"
-        f'<td class="gw-name"><a href="{html.escape(comparison_link(r))}" target="_self">{name}</a>{version}'
-        f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(str(r["method"] or ""))}</div></td>'
-        f'<td class="num">{html.escape(interval_text(r))}{level}</td>'
-        f'<td class="num">{r["n1"]:,} / {r["n2"]:,}{cluster_line}</td>'
-        f'<td class="num">{fraction_text(r)}{bar}</td>'
-        f'<td class="num">{last}</td>'
-        f'<td class="num">{upcoming}</td>'
-        f'<td class="num">{html.escape(plan_eta_text(r))}{rate}</td>'
-        "</tr>"
-    )
+    return _row(BOARD_COLUMNS, [
+        ("", badge(r["state"])),
+        ("gw-name", f'<a href="{html.escape(comparison_link(r))}" target="_self">{name}</a>{version}'
+                    f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(str(r["method"] or ""))}</div>'),
+        ("num", f"{html.escape(interval_text(r))}{level}"),
+        ("num", f'{r["n1"]:,} / {r["n2"]:,}{cluster_line}'),
+        ("num", f"{fraction_text(r)}{bar}"),
+        ("num", last),
+        ("num", upcoming),
+        ("num", f"{html.escape(plan_eta_text(r))}{rate}"),
+    ])
+
+
+def _row(columns, cells):
+    """One table row; each cell carries its column's title, shown above it when the table is
+    laid out as cards on a narrow screen (see ``style.CSS``)."""
+    tds = "".join(f'<td class="{css}" data-label="{html.escape(title)}">{content}</td>'
+                  for title, (css, content) in zip(columns, cells))
+    return f'<tr class="gw-row">{tds}</tr>'
 
 
 REVIEW_COLUMNS = ("State", "Comparison", "Version", "Looks", "Estimate [repeated CI]", "Events per group",
@@ -84,19 +100,17 @@ def review_table(rows):
     for r in rows:
         kept = "archived" if r["archived"] else ("live" if not r["stopped"] else "stopped, live version")
         link = comparison_link(dict(r, archived=True))  # always pin the version reviewed
-        body.append(
-            '<tr class="gw-row">'
-            f"<td>{badge(r['state'])}</td>"
-            f'<td class="gw-name"><a href="{html.escape(link)}" target="_self">{html.escape(r["name"])}</a>'
-            f'<div class="gw-sub">{html.escape(groups_text(r))}</div></td>'
-            f'<td class="num">v{r["version"]}<div class="gw-sub">{kept}</div></td>'
-            f'<td class="num">{r["looks"]}</td>'
-            f'<td class="num">{html.escape(interval_text(r))}</td>'
-            f'<td class="num">{r["n1"]:,} / {r["n2"]:,}</td>'
-            f'<td class="num">{fraction_text(r)}</td>'
-            f'<td class="num">{html.escape(_stamp(r["stopped_at"]))}</td>'
-            "</tr>"
-        )
+        body.append(_row(REVIEW_COLUMNS, [
+            ("", badge(r["state"])),
+            ("gw-name", f'<a href="{html.escape(link)}" target="_self">{html.escape(r["name"])}</a>'
+                        f'<div class="gw-sub">{html.escape(groups_text(r))}</div>'),
+            ("num", f'v{r["version"]}<div class="gw-sub">{kept}</div>'),
+            ("num", str(r["looks"])),
+            ("num", html.escape(interval_text(r))),
+            ("num", f'{r["n1"]:,} / {r["n2"]:,}'),
+            ("num", fraction_text(r)),
+            ("num", html.escape(_stamp(r["stopped_at"]))),
+        ]))
     return (f'<div class="gw-scroll"><table class="gw-board gw-review"><thead>{head}</thead>'
             f'<tbody>{"".join(body)}</tbody></table></div>')
 

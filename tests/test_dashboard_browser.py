@@ -188,9 +188,12 @@ def test_every_page_reads_whole_at_each_width(served, browser, width):
         text = page.locator("[data-testid=stMain]").inner_text()
         assert not UNREADABLE.search(text), (address, UNREADABLE.search(text).group(0))
         assert not _cut_labels(page), (address, width, _cut_labels(page))
-        # the page itself never scrolls sideways; a wide table scrolls inside its own box
+        # neither the page nor its HTML tables scroll sideways (narrow screens get cards instead)
         overflow = page.evaluate("() => document.documentElement.scrollWidth - window.innerWidth")
         assert overflow <= 1, (address, width, overflow)
+        cut_tables = page.evaluate(
+            "() => [...document.querySelectorAll('.gw-scroll')].filter(e => e.scrollWidth > e.clientWidth + 1).length")
+        assert cut_tables == 0, (address, width)
         _whole_page_screenshot(page, SCREENS / f"{name}-{width}.png", width)
     page.close()
 

@@ -138,3 +138,15 @@ def test_history_frame_handles_looks_without_any_statistic():
     frame = charts.history_frame(looks)
     assert np.isnan(frame.loc[0, "decision_z"])
     assert charts.boundary_chart({"alternative": "two-sided"}, frame) is None
+
+
+def test_a_far_early_group_mean_is_clipped_and_points_the_right_way(paired):
+    row, looks, frame = paired
+    frame = frame.copy()
+    frame.loc[0, "mean1"] = 5000.0  # three events from a miscounted first hour
+    frame.loc[0, "mean2"] = -4000.0
+    chart = charts.group_chart(row, frame).to_dict()
+    domain = chart["layer"][0]["encoding"]["y"]["scale"]["domain"]
+    assert domain[1] - domain[0] < 100
+    marks = [p for p in chart["datasets"][chart["layer"][1]["data"]["name"]]]
+    assert {(p["look"], p["shape"]) for p in marks} == {(1, "triangle-up"), (1, "triangle-down")}

@@ -23,7 +23,7 @@ def board():
     rows = data.status_rows(url)
     shown = [r for r in rows
              if (not needle or needle.lower() in r["name"].lower()) and (not chosen or r["state"] in chosen)]
-    style.tiles([(state_label(state), sum(r["state"] == state for r in rows)) for state in STATES])
+    st.html(tables.state_counts(rows))
     if not rows:
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return
