@@ -120,32 +120,35 @@ def _stamp(iso):
 
 
 def plan_lines(row):
-    """``(setting, value)`` pairs describing the frozen design, in the order a reviewer reads them."""
+    """``(setting, value)`` pairs describing the frozen design, in the order a reviewer reads them.
+
+    A setting the stored design does not carry is left out rather than shown as missing.
+    """
     design = row.get("design") or {}
     plan = design.get("plan") or {}
     inputs = plan.get("inputs") or {}
+    method = " on the ".join(str(v) for v in (design.get("method"), design.get("metric")) if v)
     lines = [
-        ("method", f"{design.get('method')} on the {design.get('metric')}"),
-        ("alternative", str(design.get("alternative"))),
-        ("alpha", fmt(design.get("alpha"))),
-        ("spending", str(design.get("spending"))),
-        ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else "—"),
+        ("method", method or None),
+        ("alternative", design.get("alternative")),
+        ("alpha", fmt(design["alpha"]) if design.get("alpha") is not None else None),
+        ("spending", design.get("spending")),
+        ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
         ("null difference", fmt(design.get("null_difference") or 0.0)),
     ]
     if inputs.get("difference") is not None:
         lines.append(("difference worth detecting", fmt(inputs["difference"])))
         if inputs.get("sd") is not None:
             lines.append(("assumed standard deviation", fmt(inputs["sd"])))
-    if inputs.get("p1") is not None:
-        lines.append(("rates worth telling apart", f"{fmt(inputs['p1'])} vs {fmt(inputs.get('p2'))}"))
+    if inputs.get("p1") is not None and inputs.get("p2") is not None:
+        lines.append(("rates worth telling apart", f"{fmt(inputs['p1'])} vs {fmt(inputs['p2'])}"))
     if inputs.get("power") is not None:
         lines.append(("power", fmt(inputs["power"])))
     lines.append(("futility boundary", "yes (non-binding)" if design.get("futility") else "no"))
     clustering = design.get("clustering") or {}
     if any(clustering.values()):
         lines.append(("clustered by", clustering.get("cluster_by") or clustering.get("cluster_column")))
-        lines.append(("minimum clusters", str(design.get("min_clusters"))))
+        lines.append(("minimum clusters", design.get("min_clusters")))
     every = (row.get("settings") or {}).get("every")
-    if every is not None:
-        lines.append(("looks every", str(every)))
-    return lines
+    lines.append(("looks every", every))
+    return [(setting, str(value)) for setting, value in lines if value is not None and value != ""]

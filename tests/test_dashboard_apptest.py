@@ -328,3 +328,24 @@ def test_open_interval_ends_and_a_clock_running_ahead(tmp_path, monkeypatch):
     at = _app("views/comparison.py", name="pick-seconds")
     assert len(at.get("vega_lite_chart")) == 4
     _assert_readable(at)
+
+
+def test_every_stored_version_opens_readably(store):
+    """Whatever its state or method (no looks yet, a data problem, waiting for clusters, stopped)."""
+    engine, _ = store
+    with engine.begin() as conn:  # a comparison registered but not looked at yet
+        from monitor.store.models import Comparison
+
+        conn.execute(sa.insert(Comparison).values(
+            name="a-new-one", version=1, design={"groups": ["left", "right"], "method": "welch",
+                                                 "metric": "mean", "alpha": 0.05, "alternative": "two-sided",
+                                                 "plan": {"planned_per_group": 100}},
+            design_hash="0" * 32, settings={"every": "1h"}, state="collecting", looks_taken=0,
+            watermark={}, created_at=datetime.now(timezone.utc), archived=False))
+    at = _app("views/comparison.py")
+    for row in readback.comparison_status(engine, include_archived=True):
+        at.query_params["name"] = row["name"]
+        at.query_params["version"] = str(row["version"])
+        at = _app("views/comparison.py", name=row["name"], version=str(row["version"]))
+        assert at.subheader[0].value.startswith(row["name"])
+        _assert_readable(at)
