@@ -50,7 +50,7 @@ def _headline(row, looks):
             + f' <span class="gw-sub">{html.escape(row.get("description") or "")}</span></div>')
     interval = _newest_interval(row, looks)
     tiles([
-        (f"Estimate ({groups_text(row)})", "—" if row["estimate"] is None else fmt(row["estimate"]),
+        (f"Estimate ({groups_text(row)})", _figure(row["estimate"]),
          f"{confidence_percent(row)} repeated confidence interval: {interval}"),
         ("Events per group", f"{row['n1']:,} / {row['n2']:,}"),
         ("Plan reached", fraction_text(row),
@@ -68,6 +68,10 @@ def _headline(row, looks):
     st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
+
+
+def _figure(value, digits=4):
+    return "—" if value is None else fmt(value, digits)
 
 
 def _newest_interval(row, looks):
@@ -110,9 +114,9 @@ def _after_stop(row):
         return
     st.markdown("##### After the stop")
     tiles([
-        ("Adjusted estimate", fmt(adjusted["estimate"]),
+        ("Adjusted estimate", _figure(adjusted["estimate"]),
          "median-unbiased: corrects the overstatement of an estimate taken at a stop"),
-        ("Adjusted p-value", fmt(adjusted["p_value"], 3), "stagewise ordering of the outcomes"),
+        ("Adjusted p-value", _figure(adjusted["p_value"], 3), "stagewise ordering of the outcomes"),
         ("Adjusted interval", bounds_text(adjusted["ci_low"], adjusted["ci_high"])
          if adjusted["ci_low"] is not None or adjusted["ci_high"] is not None else "—"),
     ])
