@@ -35,6 +35,7 @@ from ..alerts import (
     redact,
     source_backoff_until,
 )
+from ..look import LookMemory, take_look
 from ..store.claims import claim, make_holder
 from ..errors import (
     ClaimHeldError,
@@ -171,6 +172,8 @@ class Service:
         self._file_stamp = None
         self._reported: dict = {}
         self.redactor = _RedactingFilter()
+        # What this process keeps between its looks (cells, boundaries): one for all its threads.
+        self.memory = LookMemory()
 
     # ------------------------------------------------------------------ set-up
 
@@ -256,8 +259,6 @@ class Service:
         Outcomes: recorded, stopped, held, backoff, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
-        from ..look import take_look
-
         with self._lock:
             config, sources = self.config, self.sources
         comparison = next((c for c in config.comparisons if c.name == name), None)
@@ -280,7 +281,7 @@ class Service:
                 began = time.perf_counter()
                 # holder=None: the claim is ours already (take_look would claim again).
                 record = take_look(config, comparison, as_of=as_of, engine=self.engine,
-                                   source=sources.get(comparison.source), holder=None)
+                                   source=sources.get(comparison.source), holder=None, memory=self.memory)
                 duration_ms = (time.perf_counter() - began) * 1000.0
         except ClaimHeldError:
             log.debug("look skipped comparison=%s reason=claimed_by_another_worker", name)
