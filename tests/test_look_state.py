@@ -241,6 +241,8 @@ def test_service_keeps_one_source_per_configured_source_across_looks(tmp_path, m
             assert service.look_once(w.comparison.name, honour_backoff=False) == "recorded"
         # One Source for three looks: reflection and the built statement are reused.
         assert opened == [kept] and service.sources["ops"] is kept and kept._statements
+        # … and one memory: the cells of the newest look are kept for the next.
+        assert service.memory.holds(service.engine)["states"] == 1
         # A reload that leaves the source's address alone keeps the open Source …
         path = Path(w.config.path)
         path.write_text(path.read_text().replace('every = "10m"', 'every = "5m"'))

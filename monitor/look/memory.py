@@ -110,11 +110,13 @@ class LookMemory:
             return {"boundaries": sum(1 for k in self._boundaries.entries if k[0] == store),
                     "states": sum(1 for k in self._states.entries if k[0] == store)}
 
-    def forget(self, engine=None) -> None:
-        """Drop what is kept for one store (all stores when ``engine`` is None)."""
+    def forget(self, engine=None, *, boundaries: bool = True, states: bool = True) -> None:
+        """Drop the kept boundaries and/or states of one store (of every store when ``engine``
+        is None, the configured designs too)."""
         store = None if engine is None else _store(engine)
+        kinds = [kept for kept, chosen in ((self._boundaries, boundaries), (self._states, states)) if chosen]
         with self._lock:
-            for kept in (self._boundaries, self._states):
+            for kept in kinds:
                 for key in [k for k in kept.entries if store is None or k[0] == store]:
                     del kept.entries[key]
             if store is None:
