@@ -12,6 +12,8 @@ from datetime import datetime
 from pathlib import Path
 
 from monitor.config import toml_value
+from monitor.store.engine import make_engine, upgrade
+from monitor.store.readback import comparison_status
 
 from .feed import create_databases, database_path, fed_until
 from .scenario import COMPANY, DATABASES, DEFAULT_SEED, LIVE_START
@@ -177,8 +179,6 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
     the later of where the feed stopped and the store's latest look, so no
     look is ever taken at an earlier ``as_of`` than one already recorded.
     """
-    from monitor.store.engine import upgrade
-
     path = Path(folder).resolve()
     if path.exists() and not path.is_dir():
         raise NotADirectoryError(f"{path} is not a folder")
@@ -216,9 +216,6 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
 
 
 def _latest_look(store_url):
-    from monitor.store.readback import comparison_status
-    from monitor.store.engine import make_engine
-
     engine = make_engine(store_url)
     try:
         times = [row["last_look_at"] for row in comparison_status(engine, include_archived=True)]

@@ -18,6 +18,11 @@ from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
 
+from monitor.config import load_config
+from monitor.look import take_look
+from monitor.source.reader import Source
+from monitor.store.engine import make_engine
+
 from .feed import LiveFeed
 from .folder import prepare_folder
 from .scenario import DEFAULT_SEED, LIVE_START
@@ -45,11 +50,6 @@ class Rehearsal:
 
 def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hours: float = 2.0) -> Rehearsal:
     """Build the demo in the empty ``folder`` and run it for ``hours`` of simulated time."""
-    from monitor.config import load_config
-    from monitor.look import take_look
-    from monitor.source.reader import Source
-    from monitor.store.engine import make_engine
-
     demo = prepare_folder(folder, reset=True, seed=seed)
     config = load_config(demo.config_path)
     now = {"t": demo.start}

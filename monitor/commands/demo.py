@@ -17,6 +17,9 @@ import threading
 import time
 from pathlib import Path
 
+from ..vocabulary import state_label
+from . import SUMMARIES
+
 __all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
 
 # Not "demo_db": run from a checkout, that is the scenario's own package folder.
@@ -44,7 +47,7 @@ every look. A signal supports, never replaces, operational judgement and local r
 def register(subparsers):
     parser = subparsers.add_parser(
         "demo",
-        help="run the invented live demo (feed, monitor and dashboard) in one folder",
+        help=SUMMARIES["demo"],
         description="Create the demo databases and configuration in a folder, feed them live on a "
                     "simulated clock, take looks and show them on the dashboard. Stops on Ctrl-C "
                     "or after --duration seconds. Nothing is written outside --dir.",
@@ -84,14 +87,12 @@ def _check(args) -> int:
 _LOGGERS = {"gapwatch": logging.INFO, "apscheduler": logging.WARNING}
 
 
-def _setup_logging(folder: Path) -> list[logging.Handler]:
+def _setup_logging(log_path: Path) -> list[logging.Handler]:
     """Service, alert and scheduler logs go to the demo's log file, not the terminal.
 
     The terminal gets one line per change of state instead (see ``_Watcher``).
     """
-    from demo_db.folder import LOG_NAME
-
-    handler = logging.FileHandler(folder / LOG_NAME, encoding="utf-8")
+    handler = logging.FileHandler(log_path, encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s %(message)s"))
     for name, level in _LOGGERS.items():
         logger = logging.getLogger(name)
@@ -156,8 +157,6 @@ def _stop_dashboard(process):
 
 
 def _describe(row) -> str:
-    from monitor.store.readback import state_label
-
     parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
     if row.get("estimate") is not None:
         low, high = row.get("ci_low"), row.get("ci_high")
@@ -173,18 +172,15 @@ def _describe(row) -> str:
 class _Watcher:
     """Prints a line whenever a comparison's state changes (read from the store)."""
 
-    def __init__(self, store_url, clock):
-        from monitor.store.engine import make_engine
-
-        self.engine = make_engine(store_url)
+    def __init__(self, engine, read_status, clock):
+        self.engine = engine
+        self.read_status = read_status
         self.clock = clock
         self.states = {}
 
     def poll(self, *, final=False):
-        from monitor.store.readback import comparison_status
-
         try:
-            rows = comparison_status(self.engine, now=self.clock())
+            rows = self.read_status(self.engine, now=self.clock())
         except Exception as exc:  # noqa: BLE001 - a busy store must not end the demo
             logging.getLogger("gapwatch.demo").info("status read failed: %s", exc)
             return []
@@ -204,11 +200,14 @@ def run(args) -> int:
     if problem:
         return problem
 
+    # lazy: start-up time of the command line (the demo and the live stack load only here).
     from demo_db.feed import LiveFeed, SimulatedClock
-    from demo_db.folder import folder_seed, prepare_folder
+    from demo_db.folder import LOG_NAME, folder_seed, prepare_folder
     from demo_db.scenario import COMPANY, DEFAULT_SEED
-    from monitor.config import load_config
-    from monitor.service.scheduler import run_service
+    from ..config import load_config
+    from ..service.scheduler import run_service
+    from ..store.engine import make_engine
+    from ..store.readback import comparison_status
 
     folder_arg = Path(args.dir)
     try:
@@ -220,7 +219,7 @@ def run(args) -> int:
         return 2
     load_config(demo.config_path)  # a broken demo config fails here, with every problem listed
 
-    handlers = _setup_logging(demo.path)
+    handlers = _setup_logging(demo.path / LOG_NAME)
     clock = SimulatedClock(demo.start, args.speed)
     feed = LiveFeed(demo.path, clock, seed=seed)
     stop = threading.Event()
@@ -249,7 +248,7 @@ def run(args) -> int:
     previous_term = signal.getsignal(signal.SIGTERM)
     if threading.current_thread() is threading.main_thread():
         signal.signal(signal.SIGTERM, lambda *_: stop.set())
-    watcher = _Watcher(demo.store_url, clock)
+    watcher = _Watcher(make_engine(demo.store_url), comparison_status, clock)
     try:
         feed_thread.start()
         service_thread.start()
