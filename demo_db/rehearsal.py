@@ -6,7 +6,7 @@ feeds what has arrived and takes one look at every comparison per step, with
 the real look code and a real store. It answers "does the demo tell its story
 for this seed?" in seconds, and across many seeds from the command line::
 
-    python -m demo_db.rehearsal --seeds 1 2 3 4 5 --hours 96 --step 2
+    .venv/bin/python -m demo_db.rehearsal --seeds 1 2 3 4 5 --hours 144 --step 2
 """
 
 from __future__ import annotations

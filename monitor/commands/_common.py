@@ -65,7 +65,7 @@ def whole_number_type(low, high=None):
     return parse
 
 
-def _as_typed(path) -> str:
+def path_as_typed(path) -> str:
     """A path as the user would type it here: relative when inside the current folder."""
     absolute = os.path.abspath(path)
     relative = os.path.relpath(absolute)
@@ -82,7 +82,7 @@ def program() -> str:
     """
     started = Path(sys.argv[0]) if sys.argv and sys.argv[0] else None
     if started is not None and started.name == "__main__.py" and started.parent.name == "monitor":
-        return f"{_as_typed(sys.executable)} -m monitor"
+        return f"{path_as_typed(sys.executable)} -m monitor"
     if started is None or started.name != "gapwatch":
         return "gapwatch"  # called as a library (tests, an embedding program)
     on_path = shutil.which("gapwatch")
@@ -91,7 +91,7 @@ def program() -> str:
             return "gapwatch"
     except OSError:
         pass
-    return _as_typed(started)
+    return path_as_typed(started)
 
 
 def as_typed(text) -> str:

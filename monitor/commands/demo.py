@@ -10,15 +10,19 @@ from __future__ import annotations
 
 import logging
 import os
+import shlex
 import signal
 import subprocess
 import sys
 import threading
 import time
+from datetime import datetime, timezone
 from pathlib import Path
 
 from ..vocabulary import state_label
 from . import SUMMARIES
+from ._common import path_as_typed, program
+from .dashboard import free_port, port_is_free
 
 __all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
 
@@ -27,6 +31,8 @@ DEFAULT_FOLDER = "demo_db"
 # One simulated hour per real second: a working day passes in a quarter of a minute.
 DEFAULT_SPEED = 3600.0
 DEFAULT_PORT = 8501
+# The dashboard's address (the dashboard command's default: this machine only).
+DASHBOARD_ADDRESS = "127.0.0.1"
 
 EXPLANATION = """\
 What you are watching: {company} (an invented grocery distributor) compares pairs of
@@ -156,7 +162,16 @@ def _stop_dashboard(process):
             time.sleep(0.2)
 
 
-def _describe(row) -> str:
+def _bad_rows(excluded) -> str:
+    """``"bad rows 17 (null 5, out of range 12)"``; empty when nothing was excluded."""
+    counts = {reason: int(count) for reason, count in (excluded or {}).items() if count}
+    if not counts:
+        return ""
+    detail = ", ".join(f"{reason.replace('_', ' ')} {count}" for reason, count in sorted(counts.items()))
+    return f"bad rows {sum(counts.values())} ({detail})"
+
+
+def _describe(row, excluded=None) -> str:
     parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
     if row.get("estimate") is not None:
         low, high = row.get("ci_low"), row.get("ci_high")
@@ -166,33 +181,67 @@ def _describe(row) -> str:
         parts.append(f"difference {row['estimate']:.3g}{interval}")
     if row.get("fraction") is not None:
         parts.append(f"fraction {row['fraction']:.2f}")
+    bad = _bad_rows(excluded)
+    if bad:
+        parts.append(bad)
     return ", ".join(parts)
 
 
-class _Watcher:
-    """Prints a line whenever a comparison's state changes (read from the store)."""
+def _simulated(moment) -> str:
+    """A simulated time as the terminal shows it, zone included."""
+    return moment.astimezone(timezone.utc).strftime("%a %d %b %H:%M UTC")
 
-    def __init__(self, engine, read_status, clock):
+
+class _Watcher:
+    """Prints a line whenever a comparison's state changes (read from the store).
+
+    Each line is stamped with the simulated time of the look that brought the change
+    (its recorded ``as_of``) and carries the bad rows excluded so far.
+    """
+
+    def __init__(self, engine, read_status, read_history, clock):
         self.engine = engine
         self.read_status = read_status
+        self.read_history = read_history
         self.clock = clock
         self.states = {}
+
+    def _latest_look(self, name):
+        history = self.read_history(self.engine, name)
+        return history[-1] if history else None
 
     def poll(self, *, final=False):
         try:
             rows = self.read_status(self.engine, now=self.clock())
+            changed = [row for row in rows if final or self.states.get(row["name"]) != row["state"]]
+            latest = {row["name"]: self._latest_look(row["name"]) for row in changed}
         except Exception as exc:  # noqa: BLE001 - a busy store must not end the demo
             logging.getLogger("gapwatch.demo").info("status read failed: %s", exc)
             return []
-        for row in rows:
-            if final or self.states.get(row["name"]) != row["state"]:
-                self.states[row["name"]] = row["state"]
-                stamp = self.clock().strftime("%a %d %b %H:%M")
-                print(f"  [{stamp} simulated] {_describe(row)}", flush=True)
+        for row in changed:
+            self.states[row["name"]] = row["state"]
+            look = latest[row["name"]]
+            at = datetime.fromisoformat(look["as_of"]) if look else self.clock()
+            excluded = look["excluded"] if look else None
+            print(f"  [{_simulated(at)}, simulated] {_describe(row, excluded)}", flush=True)
         return rows
 
     def close(self):
         self.engine.dispose()
+
+
+def _demo_command(args) -> str:
+    return f"{program()} demo" + ("" if args.dir == DEFAULT_FOLDER else f" --dir {shlex.quote(args.dir)}")
+
+
+def _all_stopped_text(args, demo) -> str:
+    """What to say once every comparison has reached its decision."""
+    again = f"{_demo_command(args)} --reset"
+    return ("  every comparison has stopped at its decision; the feed goes on, but nothing more "
+            "will be decided.\n"
+            "  Press Ctrl-C to end. To watch one comparison again, archive its version from another "
+            f"terminal: GAPWATCH_CONFIG={shlex.quote(path_as_typed(demo.config_path))} {program()} restart NAME "
+            f"(its next look starts anew); or start the whole demo over: {again}")
 
 
 def run(args) -> int:
@@ -207,7 +256,7 @@ def run(args) -> int:
     from ..config import load_config
     from ..service.scheduler import run_service
     from ..store.engine import make_engine
-    from ..store.readback import comparison_status
+    from ..store.readback import comparison_status, look_history
 
     folder_arg = Path(args.dir)
     try:
@@ -242,19 +291,24 @@ def run(args) -> int:
         total = sum(demo.rows.values())
         print(f"  {total} events of history seeded in {len(demo.rows)} tables", flush=True)
     print(f"  config: {demo.config_path}", flush=True)
-    print(f"  from another terminal: GAPWATCH_CONFIG={demo.config_path} gapwatch status", flush=True)
+    print(f"  from another terminal in this folder: GAPWATCH_CONFIG={shlex.quote(path_as_typed(demo.config_path))} "
+          f"{program()} status", flush=True)
 
     dashboard = None
     previous_term = signal.getsignal(signal.SIGTERM)
     if threading.current_thread() is threading.main_thread():
         signal.signal(signal.SIGTERM, lambda *_: stop.set())
-    watcher = _Watcher(make_engine(demo.store_url), comparison_status, clock)
+    watcher = _Watcher(make_engine(demo.store_url), comparison_status, look_history, clock)
+    port = args.port
+    if not args.no_dashboard and not port_is_free(DASHBOARD_ADDRESS, port):
+        port = free_port(DASHBOARD_ADDRESS)
+        print(f"  port {args.port} is in use; the dashboard takes port {port} instead", flush=True)
     try:
         feed_thread.start()
         service_thread.start()
         if not args.no_dashboard:
-            dashboard = _start_dashboard(demo.config_path, args.port, demo.path)
-            print(f"  dashboard: http://127.0.0.1:{args.port}/  (log: {demo.path / 'dashboard.log'})", flush=True)
+            dashboard = _start_dashboard(demo.config_path, port, demo.path)
+            print(f"  dashboard: http://{DASHBOARD_ADDRESS}:{port}/  (log: {demo.path / 'dashboard.log'})", flush=True)
         print("", flush=True)
         print(EXPLANATION.format(company=COMPANY, speed=args.speed,
                                  start=demo.start.strftime("%A %d %B %Y %H:%M UTC")), flush=True)
@@ -262,13 +316,17 @@ def run(args) -> int:
         print("Press Ctrl-C to stop." if args.duration is None else
               f"Stopping after {args.duration:g} seconds (or Ctrl-C).", flush=True)
         deadline = None if args.duration is None else time.monotonic() + args.duration
+        all_stopped_told = False
         try:
             while not stop.is_set():
                 left = None if deadline is None else deadline - time.monotonic()
                 if left is not None and left <= 0:
                     break
                 stop.wait(2.0 if left is None else min(2.0, left))
-                watcher.poll()
+                rows = watcher.poll()
+                if rows and all(row["stopped"] for row in rows) and not all_stopped_told:
+                    all_stopped_told = True
+                    print(_all_stopped_text(args, demo), flush=True)
                 if dashboard is not None and dashboard.poll() is not None and not stop.is_set():
                     print(f"  the dashboard exited (code {dashboard.returncode}); see dashboard.log", flush=True)
                     dashboard = None
@@ -283,7 +341,7 @@ def run(args) -> int:
         if threading.current_thread() is threading.main_thread():
             signal.signal(signal.SIGTERM, previous_term)
 
-    print(f"\nwhere things stand (simulated time {clock().strftime('%a %d %b %H:%M')}):", flush=True)
+    print(f"\nwhere things stand (simulated time {_simulated(clock())}):", flush=True)
     watcher.poll(final=True)
     watcher.close()
     if feed.errors:
@@ -295,5 +353,6 @@ def run(args) -> int:
     if failures:
         print(f"gapwatch demo: the monitoring service stopped: {failures[0]}", file=sys.stderr)
         return 1
-    print(f"Run again to continue where it stopped, or add --reset to start over. Files: {demo.path}", flush=True)
+    print(f"Run `{_demo_command(args)}` again to continue where it stopped, or add --reset to start over. "
+          f"Files: {demo.path}", flush=True)
     return 0
