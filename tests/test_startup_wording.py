@@ -133,3 +133,12 @@ def test_hints_name_the_program_as_started(tmp_path, monkeypatch, argv0, on_path
                         lambda name: str(tmp_path / on_path) if on_path else None)
     assert _common.program().endswith(expected)
     assert _common.as_typed("run `gapwatch db upgrade`") == f"run `{_common.program()} db upgrade`"
+
+
+def test_demo_duration_takes_the_one_duration_rule(capsys):
+    parse = cli.build_parser(["demo"]).parse_args
+    assert parse(["demo", "--duration", "90"]).duration == 90.0
+    assert parse(["demo", "--duration", "2m"]).duration == 120.0
+    with pytest.raises(SystemExit) as stop:
+        parse(["demo", "--duration", "2 weeks"])
+    assert stop.value.code == 2 and "--duration" in capsys.readouterr().err

@@ -8,6 +8,7 @@ looks with that same clock as ``as_of``, and the dashboard (a subprocess).
 
 from __future__ import annotations
 
+import argparse
 import logging
 import os
 import shlex
@@ -19,7 +20,7 @@ import time
 from datetime import datetime, timezone
 from pathlib import Path
 
-from ..vocabulary import state_label
+from ..vocabulary import parse_duration, state_label
 from . import SUMMARIES
 from ._common import path_as_typed, program
 from .dashboard import free_port, port_is_free
@@ -64,13 +65,26 @@ def register(subparsers):
     parser.add_argument("--speed", type=float, default=DEFAULT_SPEED, metavar="X",
                         help=f"simulated seconds per real second (default {DEFAULT_SPEED:g})")
     parser.add_argument("--no-dashboard", action="store_true", help="do not start the dashboard")
-    parser.add_argument("--duration", type=float, default=None, metavar="SECONDS",
-                        help="stop after this many real seconds (default: run until Ctrl-C)")
+    parser.add_argument("--duration", type=_real_seconds, default=None, metavar="SECONDS",
+                        help="stop after this many real seconds, or a duration such as 90s or 10m "
+                             "(default: run until Ctrl-C)")
     parser.add_argument("--port", type=int, default=DEFAULT_PORT, metavar="P",
                         help=f"dashboard port (default {DEFAULT_PORT})")
     parser.add_argument("--seed", type=int, default=None, metavar="N",
                         help="random seed of a new demo (default: the scenario's own)")
     parser.set_defaults(func=run)
+
+
+def _real_seconds(text) -> float:
+    """argparse type of ``--duration``: a number of seconds, or a duration with its unit (``10m``)."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = text
+    try:
+        return parse_duration(value)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def _bad(option, value, why) -> int:
