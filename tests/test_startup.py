@@ -104,3 +104,10 @@ def test_only_the_named_command_is_registered_in_full(capsys):
     with pytest.raises(SystemExit) as stop:
         cli.main(["tset"])
     assert stop.value.code == 2 and "invalid choice: 'tset'" in capsys.readouterr().err
+
+
+def test_every_command_module_has_its_summary():
+    # --help lists commands from the summaries alone: a command module without one would be
+    # unreachable. Add a new command's one-line help to SUMMARIES in monitor/commands/__init__.py.
+    on_disk = {p.stem for p in (ROOT / "monitor" / "commands").glob("*.py") if not p.stem.startswith("_")}
+    assert on_disk == set(cli.COMMAND_MODULES)

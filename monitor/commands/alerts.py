@@ -87,7 +87,7 @@ def _acknowledge(engine, args, fmt) -> int:
     alert = readback().acknowledge_alert(engine, args.alert_id, by=by, now=now)
     if fmt == "json":
         print(json.dumps(alert, indent=2, sort_keys=True))
-    if alert["acknowledged_by"] != by[:200]:
+    if alert["acknowledged_by"] != by[:200]:  # the store keeps the first 200 characters of a name
         # The first acknowledgement is history; a second person is told, not silently ignored.
         print(f"gapwatch alerts ack: alert {alert['id']} was already acknowledged by "
               f"{alert['acknowledged_by']} at {_moment(alert['acknowledged_at'])}; that record is kept",
