@@ -114,24 +114,27 @@ def test_a_second_acknowledgement_by_someone_else_is_reported(tmp_path, capsys):
 
 
 @pytest.mark.parametrize(
-    "argv0, on_path, expected",
+    "argv0, on_path, interpreter, expected",
     [
-        (".venv/bin/gapwatch", None, ".venv/bin/gapwatch"),      # after the README's set-up
-        (".venv/bin/gapwatch", ".venv/bin/gapwatch", "gapwatch"),  # an activated environment
-        ("monitor/__main__.py", None, "-m monitor"),              # python -m monitor
-        ("/usr/lib/python3/pytest", None, "gapwatch"),            # called as a library
+        (".venv/bin/gapwatch", None, ".venv/bin/python", ".venv/bin/gapwatch"),  # after the set-up
+        (".venv/bin/gapwatch", ".venv/bin/gapwatch", ".venv/bin/python", "gapwatch"),  # activated
+        ("monitor/__main__.py", None, ".venv/bin/python", ".venv/bin/gapwatch"),  # python -m monitor
+        ("monitor/__main__.py", None, "bare/python", "bare/python -m monitor"),  # nothing installed
+        ("/usr/lib/python3/pytest", None, ".venv/bin/python", "gapwatch"),  # called as a library
     ],
 )
-def test_hints_name_the_program_as_started(tmp_path, monkeypatch, argv0, on_path, expected):
+def test_hints_name_the_program_as_started(tmp_path, monkeypatch, argv0, on_path, interpreter, expected):
     (tmp_path / ".venv" / "bin").mkdir(parents=True)
     (tmp_path / ".venv" / "bin" / "gapwatch").write_text("#!/bin/sh\n")
+    (tmp_path / "bare").mkdir()
     (tmp_path / "monitor").mkdir()
     (tmp_path / "monitor" / "__main__.py").write_text("")
     monkeypatch.chdir(tmp_path)
     monkeypatch.setattr(sys, "argv", [argv0])
+    monkeypatch.setattr(sys, "executable", str(tmp_path / interpreter))
     monkeypatch.setattr(_common.shutil, "which",
                         lambda name: str(tmp_path / on_path) if on_path else None)
-    assert _common.program().endswith(expected)
+    assert _common.program() == expected
     assert _common.as_typed("run `gapwatch db upgrade`") == f"run `{_common.program()} db upgrade`"
 
 

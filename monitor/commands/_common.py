@@ -78,11 +78,13 @@ def program() -> str:
     ``gapwatch`` when that name on the PATH is this very program; otherwise the program's
     path as started (``.venv/bin/gapwatch`` after the README's set-up, which puts nothing
     on the PATH), relative to the current folder when it lies inside it; for
-    ``python -m monitor``, that interpreter and ``-m monitor``.
+    ``python -m monitor``, the program installed beside that interpreter, else the
+    interpreter with ``-m monitor``.
     """
     started = Path(sys.argv[0]) if sys.argv and sys.argv[0] else None
     if started is not None and started.name == "__main__.py" and started.parent.name == "monitor":
-        return f"{path_as_typed(sys.executable)} -m monitor"
+        beside = Path(sys.executable).with_name("gapwatch")
+        return path_as_typed(beside) if beside.exists() else f"{path_as_typed(sys.executable)} -m monitor"
     if started is None or started.name != "gapwatch":
         return "gapwatch"  # called as a library (tests, an embedding program)
     on_path = shutil.which("gapwatch")
