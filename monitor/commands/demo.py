@@ -27,7 +27,8 @@ from .dashboard import free_port, port_is_free
 
 __all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
 
-# Not "demo_db": run from a checkout, that is the scenario's own package folder.
+# From the top of a checkout this is the scenario's own source folder: the demo writes its
+# databases beside the generator's code and leaves the code alone (see demo_db/folder.py).
 DEFAULT_FOLDER = "demo_db"
 # One simulated hour per real second: a working day passes in a quarter of a minute.
 DEFAULT_SPEED = 3600.0
