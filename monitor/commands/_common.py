@@ -4,10 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import sys
-
-from ..store import readback
 
 CONFIG_HELP = "configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)"
 
@@ -19,23 +16,16 @@ def add_config_option(parser, **kwargs) -> None:
 
 
 def open_store(config_path):
-    """The history store engine named by the configuration at ``config_path`` (None: the default search)."""
-    return readback.open_store(readback.store_url_from_config(config_path))
+    """The history store engine named by the configuration at ``config_path`` (None: the default search).
 
-
-def json_safe(value):
-    """``value`` with every non-finite float, nested or not, replaced by ``None``.
-
-    JSON has no infinity or nan; an infinite boundary means "this look cannot stop" and a
-    nan statistic comes with a note saying why, so ``null`` loses nothing.
+    Checked to be at the schema this code expects (``StoreBehindError`` otherwise).
     """
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, dict):
-        return {k: json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    return value
+    # Imported here: every command module is loaded to build the parser, and most commands
+    # never open the store, so the command line does not pay for SQLAlchemy at start.
+    from ..config import store_url_from_config
+    from ..store.engine import open_store as open_checked
+
+    return open_checked(store_url_from_config(config_path))
 
 
 def print_json(value) -> None:

@@ -8,7 +8,7 @@ import math
 
 from ..stats import boundaries
 from ..stats._checks import finite, open_unit
-from ._common import json_safe
+from ..vocabulary import json_safe
 from ..errors import InvalidArgumentError, UnknownSpendingError
 from ..stats.spending import parse_spending
 

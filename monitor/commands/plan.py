@@ -9,7 +9,7 @@ import math
 from ..stats import planning
 from ..stats._checks import ALTERNATIVES
 from ..errors import InvalidArgumentError
-from ._common import json_safe
+from ..vocabulary import json_safe
 
 # The two numbers each metric is planned from, as option destinations.
 _METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}

@@ -7,7 +7,7 @@ import json
 import sys
 
 from ..stats import simulate
-from ._common import json_safe
+from ..vocabulary import json_safe
 from .plan import _whole_number, add_plan_arguments, describe_design, plan_from_args
 
 

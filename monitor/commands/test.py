@@ -9,7 +9,7 @@ import sys
 
 from ..errors import InvalidArgumentError
 from ..stats import fixed
-from ._common import json_safe
+from ..vocabulary import json_safe
 
 METHOD_HELP = {
     "z": "two-sample z with known population standard deviations",
