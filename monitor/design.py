@@ -103,6 +103,10 @@ class Pairing:
         return {"pair_by": self.pair_by, "pair_column": self.pair_column,
                 "shift_starts": list(self.shift_starts)}
 
+    @classmethod
+    def from_stored(cls, stored: dict) -> Pairing:
+        return cls(stored.get("pair_by"), stored.get("pair_column"), tuple(stored.get("shift_starts") or ()))
+
 
 @dataclass(frozen=True)
 class Clustering:
@@ -113,7 +117,12 @@ class Clustering:
     min_clusters: int | None
 
     def to_stored(self) -> dict:
+        """The ``clustering`` entry (``min_clusters`` is stored beside it, at the top)."""
         return {"cluster_by": self.cluster_by, "cluster_column": self.cluster_column}
+
+    @classmethod
+    def from_stored(cls, stored: dict, min_clusters) -> Clustering:
+        return cls(stored.get("cluster_by"), stored.get("cluster_column"), min_clusters)
 
 
 @dataclass(frozen=True)
@@ -133,6 +142,19 @@ class Measure:
     @property
     def zone(self) -> ZoneInfo:
         return ZoneInfo(self.timezone)
+
+    @classmethod
+    def from_stored(cls, stored: dict) -> Measure:
+        """From the top level of a stored design, where these keys have always lived."""
+        valid_range = stored.get("valid_range")
+        return cls(
+            table=stored["table"], group_column=stored["group_column"], value_column=stored["value_column"],
+            time_column=stored["time_column"], schema=stored.get("schema"),
+            time_format=stored.get("time_format", "auto"), timezone=stored.get("timezone", "UTC"),
+            filters=tuple((f[0], f[1], tuple(f[2]) if isinstance(f[2], list) else f[2])
+                          for f in stored.get("filters") or ()),
+            valid_range=tuple(valid_range) if valid_range else None,
+        )
 
 
 @dataclass(frozen=True)
@@ -257,11 +279,8 @@ class Design:
         missing = [k for k in _REQUIRED if stored.get(k) is None]
         if missing or not isinstance(stored["plan"], dict) or "planned_per_group" not in stored["plan"]:
             raise InvalidArgumentError(f"the stored design lacks {', '.join(missing) or 'plan.planned_per_group'}")
-        pairing = stored.get("pairing")
-        clustering = stored.get("clustering")
-        valid_range = stored.get("valid_range")
-        sigmas = stored.get("sigmas")
-        shift = stored.get("shift")
+        pairing, clustering = stored.get("pairing"), stored.get("clustering")
+        sigmas, shift = stored.get("sigmas"), stored.get("shift")
         return cls(
             method=stored["method"],
             metric=stored["metric"],
@@ -271,20 +290,10 @@ class Design:
             spending=stored["spending"],
             null_difference=stored.get("null_difference", 0.0),
             plan=Plan.from_stored(stored["plan"]),
-            measure=Measure(
-                table=stored["table"], group_column=stored["group_column"],
-                value_column=stored["value_column"], time_column=stored["time_column"],
-                schema=stored.get("schema"), time_format=stored.get("time_format", "auto"),
-                timezone=stored.get("timezone", "UTC"),
-                filters=tuple((f[0], f[1], tuple(f[2]) if isinstance(f[2], list) else f[2])
-                              for f in stored.get("filters") or ()),
-                valid_range=tuple(valid_range) if valid_range else None,
-            ),
+            measure=Measure.from_stored(stored),
             sigmas=tuple(sigmas) if sigmas else None,
-            pairing=None if not pairing else Pairing(pairing.get("pair_by"), pairing.get("pair_column"),
-                                                     tuple(pairing.get("shift_starts") or ())),
-            clustering=None if not clustering else Clustering(
-                clustering.get("cluster_by"), clustering.get("cluster_column"), stored.get("min_clusters")),
+            pairing=Pairing.from_stored(pairing) if pairing else None,
+            clustering=Clustering.from_stored(clustering, stored.get("min_clusters")) if clustering else None,
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
         )

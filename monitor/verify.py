@@ -120,7 +120,10 @@ def _close(recorded, recomputed):
 def _stored(engine, name, version):
     with Session(engine) as session:
         query = sa.select(Comparison).where(Comparison.name == name)
-        query = query.where(Comparison.version == version) if version else query.order_by(Comparison.version.desc())
+        if version:
+            query = query.where(Comparison.version == version)
+        else:
+            query = query.order_by(Comparison.version.desc())
         comp = session.scalars(query.limit(1)).first()
         if comp is None:
             raise UnknownComparisonError(f"no comparison named {name!r} in the store")

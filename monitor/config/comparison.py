@@ -135,7 +135,7 @@ def _filter(entry):
     return (column, op, tuple(value) if op in ("in", "not in") else value)
 
 
-class Test(Part):
+class Inference(Part):
     """How the two groups are compared: metric, method, alternative, error rate, spending."""
 
     metric: str = checked("mean")
@@ -263,32 +263,51 @@ class Planning(Part):
             raise keyed(f"give planned_per_group or the planning inputs ({', '.join(given)}), not both")
         return value
 
-    @field_validator("difference", "sd", "p1", "p2", mode="before")
     @classmethod
-    def _input(cls, value, info):
+    def _wanted(cls, value, info) -> bool:
+        """Whether a planning input's own rule applies (its metric's input, planned from inputs)."""
         c, key = ctx(info), info.field_name
         if cls._mode(c) != "inputs":
-            return float_or_none(value)
-        needed = cls._needed(c.metric)
-        if key not in needed:
+            return False
+        if key not in cls._needed(c.metric):
             if value is not None:
                 raise keyed(f"is not a planning input for metric {c.metric!r}")
-            return None
+            return False
         if value is None:
             raise keyed(f"is required to plan a {c.metric} comparison without planned_per_group")
-        if key in ("p1", "p2"):
-            if not is_number(value) or not 0 < value < 1:
-                raise keyed(f"must be a proportion in (0, 1); got {value!r}")
-            if key == "p2" and value == c.raw("p1"):
-                raise keyed("must differ from p1 (the difference worth detecting)")
-        elif key == "difference":
-            if not is_number(value) or value == 0:
-                raise keyed(f"must be a non-zero number; got {value!r}")
-            if c.alternative == "greater" and value < 0:
-                raise keyed(f"must be positive for alternative 'greater'; got {value!r}")
-            if c.alternative == "less" and value > 0:
-                raise keyed(f"must be negative for alternative 'less'; got {value!r}")
-        elif not is_number(value) or value <= 0:
+        return True
+
+    @field_validator("p1", "p2", mode="before")
+    @classmethod
+    def _proportion(cls, value, info):
+        if not cls._wanted(value, info):
+            return float_or_none(value)
+        if not is_number(value) or not 0 < value < 1:
+            raise keyed(f"must be a proportion in (0, 1); got {value!r}")
+        if info.field_name == "p2" and value == ctx(info).raw("p1"):
+            raise keyed("must differ from p1 (the difference worth detecting)")
+        return float(value)
+
+    @field_validator("difference", mode="before")
+    @classmethod
+    def _difference(cls, value, info):
+        if not cls._wanted(value, info):
+            return float_or_none(value)
+        alternative = ctx(info).alternative
+        if not is_number(value) or value == 0:
+            raise keyed(f"must be a non-zero number; got {value!r}")
+        if alternative == "greater" and value < 0:
+            raise keyed(f"must be positive for alternative 'greater'; got {value!r}")
+        if alternative == "less" and value > 0:
+            raise keyed(f"must be negative for alternative 'less'; got {value!r}")
+        return float(value)
+
+    @field_validator("sd", mode="before")
+    @classmethod
+    def _sd(cls, value, info):
+        if not cls._wanted(value, info):
+            return float_or_none(value)
+        if not is_number(value) or value <= 0:
             raise keyed(f"must be a positive number; got {value!r}")
         return float(value)
 
@@ -350,7 +369,8 @@ class Pairing(Part):
             return ()
         if not by_shift:
             raise keyed("is only used with pair_by = \"shift\"")
-        if not isinstance(value, list) or not value or not all(isinstance(s, str) and _CLOCK.match(s) for s in value):
+        clocks = isinstance(value, list) and value and all(isinstance(s, str) and _CLOCK.match(s) for s in value)
+        if not clocks:
             raise keyed(f"must be a list of local times \"HH:MM\"; got {value!r}")
         if len(set(value)) != len(value):
             raise keyed(f"has repeated times: {value!r}")
@@ -431,7 +451,8 @@ class Settings(Part):
         except (ValueError, TypeError) as exc:
             # The trigger's message may quote the expression; one from ${NAME} is not shown.
             why = "" if isinstance(value, FromEnvironment) else f" ({exc})"
-            raise keyed(f"{value!r} is neither an interval (30s, 10m, 1h, 1d) nor a cron expression{why}") from None
+            raise keyed(f"{value!r} is neither an interval (30s, 10m, 1h, 1d) "
+                        f"nor a cron expression{why}") from None
         return value
 
     @field_validator("lateness", mode="before")
@@ -467,14 +488,14 @@ class ComparisonTable(BaseModel):
     model_config = ConfigDict(frozen=True, extra="forbid")
 
     reading: Reading
-    test: Test
+    inference: Inference
     planning: Planning
     pairing: Pairing
     clustering: Clustering
     settings: Settings
 
-    PARTS: ClassVar[dict] = {"reading": Reading, "test": Test, "planning": Planning, "pairing": Pairing,
-             "clustering": Clustering, "settings": Settings}
+    PARTS: ClassVar[dict] = {"reading": Reading, "inference": Inference, "planning": Planning,
+                             "pairing": Pairing, "clustering": Clustering, "settings": Settings}
 
     @classmethod
     def keys(cls) -> set[str]:
@@ -492,7 +513,7 @@ class ComparisonTable(BaseModel):
                 for name, part in cls.PARTS.items()}
 
     def build(self, name: str) -> ComparisonConfig:
-        r, t, p, pr, cl, s = (self.reading, self.test, self.planning, self.pairing, self.clustering,
+        r, t, p, pr, cl, s = (self.reading, self.inference, self.planning, self.pairing, self.clustering,
                               self.settings)
         return ComparisonConfig(**plain(dict(
             name=name, source=r.source, table=r.table, group_column=r.group_column, groups=r.groups,

@@ -15,7 +15,8 @@ from pydantic import field_validator
 from ..vocabulary import parse_duration
 from .comparison import ComparisonTable, check_comparison
 from .model import CHANNEL_TYPES, DEFAULT_STORE_URL, ChannelConfig, Config, ServiceConfig, SourceConfig
-from .rules import Context, Part, checked, ctx, database_url, duration, is_whole, keyed, plain, unknown_keys, validate
+from .rules import (Context, Part, checked, ctx, database_url, duration, is_whole, keyed, plain, unknown_keys,
+                    validate)
 
 __all__ = ["check_config", "config_keys"]
 
@@ -173,17 +174,9 @@ def config_keys() -> set[str]:
     return keys
 
 
-def check_config(data: dict, path: Path, problems: list) -> Config:
-    """The file's :class:`Config`; every problem found is appended to ``problems``."""
-    folder = path.resolve().parent
-    context = Context(folder=folder)
-    problems += unknown_keys("top level", data, _TOP_KEYS)
-
-    store, found = validate(StoreTable, _section(data, "store", "[store]", problems), "[store]", context)
-    problems += found
-
+def _sources(tables: dict, context, problems) -> dict:
     sources = {}
-    for name, table in _section(data, "sources", "[sources]", problems).items():
+    for name, table in tables.items():
         where = f"source {name!r}"
         if not isinstance(table, dict):
             problems.append(f"{where}: must be a table with a 'url'")
@@ -193,24 +186,24 @@ def check_config(data: dict, path: Path, problems: list) -> Config:
         if source is not None:
             sources[name] = SourceConfig(name, plain(source.url))
         elif "url" in table:
-            sources[name] = SourceConfig(name, "")
+            sources[name] = SourceConfig(name, "")  # named, so comparisons naming it are not told otherwise
+    return sources
 
+
+def _channels(tables: dict, context, problems) -> dict:
     channels = {}
-    for name, table in _section(data, "channels", "[channels]", problems).items():
+    for name, table in tables.items():
         channel, found = check_channel(name, table, context)
         problems += found
         if channel is not None:
             channels[name] = channel
+    return channels
 
-    service, found = validate(ServiceTable, _section(data, "service", "[service]", problems), "[service]",
-                               context)
-    problems += found
 
-    raw = data.get("comparison", [])
+def _comparisons(raw, context, problems) -> tuple:
     if not isinstance(raw, list):
         problems.append("top level: 'comparison' must be an array of tables ([[comparison]])")
-        raw = []
-    context = Context(folder=folder, sources=tuple(sources), channels=tuple(channels))
+        return ()
     comparisons, seen = [], set()
     for index, table in enumerate(raw):
         name, comparison, found = check_comparison(index, table, context)
@@ -223,6 +216,23 @@ def check_config(data: dict, path: Path, problems: list) -> Config:
         seen.add(name)
         if comparison is not None:
             comparisons.append(comparison)
+    return tuple(comparisons)
+
+
+def check_config(data: dict, path: Path, problems: list) -> Config:
+    """The file's :class:`Config`; every problem found is appended to ``problems``."""
+    folder = path.resolve().parent
+    context = Context(folder=folder)
+    problems += unknown_keys("top level", data, _TOP_KEYS)
+    store, found = validate(StoreTable, _section(data, "store", "[store]", problems), "[store]", context)
+    problems += found
+    sources = _sources(_section(data, "sources", "[sources]", problems), context, problems)
+    channels = _channels(_section(data, "channels", "[channels]", problems), context, problems)
+    service, found = validate(ServiceTable, _section(data, "service", "[service]", problems), "[service]",
+                              context)
+    problems += found
+    context = Context(folder=folder, sources=tuple(sources), channels=tuple(channels))
+    comparisons = _comparisons(data.get("comparison", []), context, problems)
     return Config(path=path, store_url=plain(store.url) if store else "", sources=sources,
-                  comparisons=tuple(comparisons), channels=channels,
+                  comparisons=comparisons, channels=channels,
                   service=ServiceConfig(**service.model_dump()) if service else ServiceConfig())
