@@ -27,7 +27,6 @@ from types import MappingProxyType
 from zoneinfo import ZoneInfo
 
 from .errors import InvalidArgumentError
-from .stats.planning import plan_mean, plan_proportion
 from .vocabulary import json_safe
 
 __all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "design_hash"]
@@ -343,6 +342,10 @@ def _plan_of(c) -> Plan:
 def _planned(metric, alpha, alternative, spending, futility, inputs: PlanInputs):
     # The boundary integration behind a plan takes milliseconds; a configuration (re)loaded
     # every few seconds asks for the same plans again, so they are kept by their inputs.
+    # Imported here: the read side (status, history, the dashboard) reads stored designs and
+    # never plans, so `gapwatch status` does not load scipy at start for it.
+    from .stats.planning import plan_mean, plan_proportion
+
     common = dict(alpha=alpha, power=inputs.power, alternative=alternative, spending=spending,
                   looks=inputs.looks, futility=futility)
     if metric == "proportion":

@@ -11,7 +11,6 @@ The statistical design a comparison freezes at its first look is not here: it is
 
 from ..errors import ConfigError
 from .files import load_config, store_url_from_config, toml_value
-from .sections import config_keys
 from .model import (ALTERNATIVES, CHANNEL_TYPES, CLUSTER_BUCKETS, DEFAULT_MIN_CLUSTERS, DEFAULT_STORE_URL,
                     FILTER_OPS, METHODS, METRICS, PAIR_BUCKETS, TIME_FORMATS, ChannelConfig, ComparisonConfig,
                     Config, ServiceConfig, SourceConfig)
@@ -38,6 +37,13 @@ __all__ = [
     "DEFAULT_STORE_URL",
     "DEFAULT_MIN_CLUSTERS",
 ]
+
+
+def config_keys() -> set[str]:
+    """Every key a ``[[comparison]]``, a channel or ``[service]`` may hold (the README names each)."""
+    from .sections import config_keys as keys  # the validators load on demand (see files.load_config)
+
+    return keys()
 
 
 def __getattr__(name):

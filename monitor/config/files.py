@@ -15,8 +15,6 @@ import tomllib
 from pathlib import Path
 
 from ..errors import ConfigError
-from .rules import FromEnvironment
-from .sections import check_config
 from .model import Config
 
 __all__ = ["load_config", "store_url_from_config", "toml_value"]
@@ -76,8 +74,14 @@ def load_config(path=None, environ=None) -> Config:
         data = tomllib.loads(raw.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError([f"not valid TOML: {exc}"], label) from None
+    # The validators (pydantic, SQLAlchemy's URL parser, APScheduler's cron, the spending
+    # functions) load only when a file is read: every command module imports this package
+    # to build the command line's parser, and most commands never read a file.
+    from .rules import FromEnvironment
+    from .sections import check_config
+
     problems: list[str] = []
-    data = _substitute(data, environ, problems, "")
+    data = _substitute(data, environ, problems, "", FromEnvironment)
     config = check_config(data, path, problems)
     if problems:
         raise ConfigError(problems, label)
@@ -89,7 +93,7 @@ def store_url_from_config(path=None) -> str:
     return load_config(path).store_url
 
 
-def _substitute(value, environ, problems, where):
+def _substitute(value, environ, problems, where, text_type):
     if isinstance(value, str):
         if not _ENV_REF.search(value):
             return value
@@ -101,10 +105,10 @@ def _substitute(value, environ, problems, where):
                 return ""
             return environ[name]
 
-        return FromEnvironment(_ENV_REF.sub(replace, value), value)
+        return text_type(_ENV_REF.sub(replace, value), value)
     if isinstance(value, dict):
-        return {k: _substitute(v, environ, problems, f"{where}.{k}" if where else k)
+        return {k: _substitute(v, environ, problems, f"{where}.{k}" if where else k, text_type)
                 for k, v in value.items()}
     if isinstance(value, list):
-        return [_substitute(v, environ, problems, f"{where}[{i}]") for i, v in enumerate(value)]
+        return [_substitute(v, environ, problems, f"{where}[{i}]", text_type) for i, v in enumerate(value)]
     return value
