@@ -3,14 +3,19 @@
 from __future__ import annotations
 
 import json
+from datetime import timedelta
 
+import numpy as np
 import pytest
+import sqlalchemy as sa
 
-from live_helpers import comparison_toml, config_toml, write_config
+from live_helpers import LiveWorld, at, comparison_toml, config_toml, event_rows, write_config
 from monitor.config import load_config
 from monitor.design import Design, design_hash
 from monitor.errors import InvalidArgumentError
 from monitor.source.reader import SourceSpec
+from monitor.stats.planning import plan_mean
+from monitor.store.models import Comparison
 
 CHANNELS = """
 [channels.ops-log]
@@ -46,8 +51,6 @@ def test_design_holds_what_is_measured_and_not_the_settings(tmp_path):
 
 
 def test_planning_inputs_give_the_plan(tmp_path):
-    from monitor.stats.planning import plan_mean
-
     design = _design(tmp_path, planned_per_group=None, difference=5.0, sd=20.0, power=0.9, looks=4)
     expected = plan_mean(5.0, 20.0, alpha=0.05, power=0.9, spending="obrien-fleming", looks=4)
     assert design.planned_per_group == expected.max_per_group
@@ -58,8 +61,6 @@ def test_planning_inputs_give_the_plan(tmp_path):
 
 
 def test_paired_plan_counts_pairs(tmp_path):
-    from monitor.stats.planning import plan_mean
-
     design = _design(tmp_path, method="paired", pair_by="day", planned_per_group=None, difference=2.0,
                      sd=6.0, power=0.8, looks=3)
     expected = plan_mean(2.0, 6.0, alpha=0.05, power=0.8, spending="obrien-fleming", looks=3)
@@ -129,3 +130,23 @@ def test_a_design_the_store_cannot_hold_is_refused_by_name():
         Design.from_stored({"groups": ["a", "b"]})
     with pytest.raises(InvalidArgumentError, match="dict"):
         Design.from_stored(None)
+
+
+@pytest.mark.parametrize("keys", [
+    dict(),
+    dict(planned_per_group=None, difference=5.0, sd=20.0, power=0.9, looks=4),
+    dict(method="paired", pair_by="hour"),
+    dict(cluster_by="day", min_clusters=2),
+], ids=["welch", "planned", "paired", "clustered"])
+def test_the_look_stores_the_design_and_its_fingerprint(tmp_path, keys):
+    start = at(2, 6)
+    world = LiveWorld(tmp_path, event_rows(np.random.default_rng(5), 300, start), **keys)
+    world.look(start + timedelta(hours=6))
+    with world.engine.connect() as conn:
+        row = conn.execute(sa.select(Comparison.design, Comparison.design_hash)).one()
+    stored = Design.from_stored(row.design)
+    assert stored.shift is not None
+    configured = Design.from_config(world.comparison)
+    assert row.design == json.loads(json.dumps(configured.with_shift(stored.shift).to_stored()))
+    assert row.design_hash == stored.fingerprint() == configured.fingerprint()
+    assert stored.differences(configured) == []
