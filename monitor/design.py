@@ -22,7 +22,7 @@ import functools
 import hashlib
 import json
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 from zoneinfo import ZoneInfo
 
@@ -48,9 +48,20 @@ class PlanInputs:
     sd: float | None = None
     p1: float | None = None
     p2: float | None = None
+    # The order the stored dict had, so a design read back is written back text for text.
+    order: tuple = field(default=(), compare=False, repr=False)
 
     def to_stored(self) -> dict:
-        return {k: v for k, v in self.__dict__.items() if v is not None}
+        names = self.order or _INPUT_NAMES
+        return {k: getattr(self, k) for k in names if getattr(self, k) is not None}
+
+    @classmethod
+    def from_stored(cls, stored: dict) -> PlanInputs:
+        known = {k: v for k, v in stored.items() if k in _INPUT_NAMES}
+        return cls(**known, order=tuple(known))
+
+
+_INPUT_NAMES = ("power", "looks", "difference", "sd", "p1", "p2")
 
 
 @dataclass(frozen=True)
@@ -82,10 +93,9 @@ class Plan:
     def from_stored(cls, stored: dict) -> Plan:
         inputs = stored.get("inputs")
         figures = stored.get("figures")
-        known = PlanInputs.__dataclass_fields__
         return cls(
             planned_per_group=int(stored["planned_per_group"]),
-            inputs=None if inputs is None else PlanInputs(**{k: v for k, v in inputs.items() if k in known}),
+            inputs=None if inputs is None else PlanInputs.from_stored(inputs),
             figures=None if figures is None else MappingProxyType(dict(figures)),
         )
 

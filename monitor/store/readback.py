@@ -281,41 +281,58 @@ def adjusted_inference(detail):
     return out
 
 
+_LATEST_FIGURES = ("mean1", "mean2", "estimate", "ci_low", "ci_high", "p_value", "statistic", "boundary_z",
+                   "fraction")
+
+
+def _latest(last) -> dict:
+    """The newest look's figures (zero events and no figures before the first look)."""
+    if last is None:
+        return {"n1": 0, "n2": 0, **dict.fromkeys(_LATEST_FIGURES), "decision": None, "clusters": None,
+                "design_effect": None, "effective_n": None}
+    return {"n1": last["n1"], "n2": last["n2"], **{k: _num(last[k]) for k in _LATEST_FIGURES},
+            "decision": last["decision"], "clusters": last["clusters"],
+            "design_effect": _num(last["design_effect"]), "effective_n": _num(last["effective_n"])}
+
+
+def _progress(last, stopped, fraction_rate):
+    """Seconds until the plan completes and when, at the recent pace (None when unknown)."""
+    if last is None or stopped or last["fraction"] is None:
+        return None, None
+    if last["fraction"] >= 1:
+        return 0.0, None
+    if fraction_rate and fraction_rate > 0:
+        remaining = (1.0 - last["fraction"]) / fraction_rate
+        return remaining, last["as_of"] + timedelta(seconds=remaining)
+    return None, None
+
+
+def _warnings(last, design) -> list[str]:
+    """The newest look's warnings, plus the clustering advice when the design effect calls for it."""
+    warnings = [str(w) for w in (last["warnings"] or [])] if last is not None else []
+    deff = last["design_effect"] if last is not None else None
+    clustered = design is not None and design.clustered
+    if (deff is not None and deff > DESIGN_EFFECT_WARNING and not clustered
+            and not any("design effect" in w.lower() for w in warnings)):
+        warnings.append(f"day-level design effect {deff:.2f}: events are not independent, so the interval "
+                        "is too narrow; consider cluster_by")
+    return warnings
+
+
 def _status_row(comp, looks, now):
     design = _design(comp["design"])
     settings = comp["settings"] or {}
+    every = settings.get("every", settings.get("schedule"))
     last = looks[-1] if looks else None
     stopped = comp["state"] in STOPPED_STATES
     rate1, rate2, fraction_rate = _rates(looks)
-
-    remaining = None
-    completes_at = None
-    if last is not None and not stopped and last["fraction"] is not None:
-        if last["fraction"] >= 1:
-            remaining = 0.0
-        elif fraction_rate and fraction_rate > 0:
-            remaining = (1.0 - last["fraction"]) / fraction_rate
-            completes_at = last["as_of"] + timedelta(seconds=remaining)
-
+    remaining, completes_at = _progress(last, stopped, fraction_rate)
     next_look = None
     if not stopped and not comp["archived"]:
         next_look = next_look_time(
-            settings.get("every", settings.get("schedule")),
-            last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
+            every, last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
             timezone_name=design.measure.timezone if design is not None else None,
         )
-
-    warnings = list(last["warnings"] or []) if last is not None else []
-    deff = last["design_effect"] if last is not None else None
-    if (
-        deff is not None and deff > DESIGN_EFFECT_WARNING and not (design is not None and design.clustered)
-        and not any("design effect" in str(w).lower() for w in warnings)
-    ):
-        warnings.append(
-            f"day-level design effect {deff:.2f}: events are not independent, so the interval "
-            "is too narrow; consider cluster_by"
-        )
-
     groups = design.groups if design is not None else settings.get("groups") or []
     return {
         "id": comp["id"],
@@ -329,23 +346,9 @@ def _status_row(comp, looks, now):
         "groups": [str(g) for g in groups],
         **_design_fields(design),
         "description": settings.get("description") or None,
-        "every": settings.get("every", settings.get("schedule")),
-        "n1": last["n1"] if last is not None else 0,
-        "n2": last["n2"] if last is not None else 0,
-        "mean1": _num(last["mean1"]) if last is not None else None,
-        "mean2": _num(last["mean2"]) if last is not None else None,
-        "estimate": _num(last["estimate"]) if last is not None else None,
-        "ci_low": _num(last["ci_low"]) if last is not None else None,
-        "ci_high": _num(last["ci_high"]) if last is not None else None,
-        "p_value": _num(last["p_value"]) if last is not None else None,
-        "statistic": _num(last["statistic"]) if last is not None else None,
-        "boundary_z": _num(last["boundary_z"]) if last is not None else None,
-        "fraction": _num(last["fraction"]) if last is not None else None,
-        "decision": last["decision"] if last is not None else None,
-        "clusters": last["clusters"] if last is not None else None,
-        "design_effect": _num(deff),
-        "effective_n": _num(last["effective_n"]) if last is not None else None,
-        "warnings": [str(w) for w in warnings],
+        "every": every,
+        **_latest(last),
+        "warnings": _warnings(last, design),
         "created_at": _iso(comp["created_at"]),
         "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
         "stopped_at": _iso(comp["stopped_at"]),
