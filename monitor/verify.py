@@ -19,9 +19,9 @@ import pandas as pd
 import sqlalchemy as sa
 from sqlalchemy.orm import Session
 
+from .calendar import bucket_end, bucket_key
 from .design import Design
 from .errors import UnknownComparisonError
-from .look import bucket_end, bucket_key
 from .source.reader import Source, SourceSpec
 from .stats import fixed
 from .stats.clustered import cluster_robust_difference
