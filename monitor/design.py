@@ -316,14 +316,22 @@ class Design:
         out["plan"] = {k: v for k, v in out["plan"].items() if k != "figures"}
         return out
 
+    @functools.cached_property
+    def _comparable(self) -> dict:
+        # Built once per object: every look compares the configured design (kept between looks)
+        # with the stored one. Never handed out, so nothing can change it.
+        return self.comparable()
+
     def differences(self, other: Design) -> list[str]:
         """Stored keys whose values differ between this design and ``other``, sorted."""
-        a, b = self.comparable(), other.comparable()
+        a, b = self._comparable, other._comparable
+        if a == b:
+            return []
         return sorted(k for k in set(a) | set(b) if a.get(k) != b.get(k))
 
     def fingerprint(self) -> str:
         """The hash stored beside the design (of :meth:`comparable`)."""
-        return design_hash(self.comparable())
+        return design_hash(self._comparable)
 
 
 _REQUIRED = ("method", "metric", "groups", "alternative", "alpha", "spending", "plan", "table",

@@ -45,12 +45,3 @@ def config_keys() -> set[str]:
 
     return keys()
 
-
-def __getattr__(name):
-    # Until the look reads monitor.design.Design itself it takes design_hash from here;
-    # the design module sits above the configuration, so it is fetched only when asked.
-    if name == "design_hash":
-        from ..design import design_hash
-
-        return design_hash
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -169,22 +169,6 @@ class ComparisonConfig:
             "arrival_column": self.arrival_column,
         }
 
-    # Until the look reads monitor.design.Design itself, these two keep its old calls
-    # working; the imports wait for the call because design and source sit above config.
-    def design(self) -> dict:
-        """The stored form of this comparison's design (``Design.from_config(self).to_stored()``)."""
-        from ..design import Design
-
-        return Design.from_config(self).to_stored()
-
-    def source_spec(self, shift: float = 0.0):
-        """What the source reads for this comparison (``SourceSpec.from_design``)."""
-        from ..design import Design
-        from ..source.reader import SourceSpec
-
-        return SourceSpec.from_design(Design.from_config(self), shift=shift,
-                                      arrival_column=self.arrival_column)
-
 
 @dataclass(frozen=True)
 class Config:
