@@ -12,6 +12,7 @@ from datetime import datetime, timezone
 
 import streamlit as st
 
+from monitor.config import store_url_from_config
 from monitor.store import readback
 
 __all__ = [
@@ -49,7 +50,7 @@ def _engine(url):
 
 @st.cache_data(ttl=60, show_spinner=False)
 def _store_url(path):
-    return readback.store_url_from_config(path)
+    return store_url_from_config(path)
 
 
 def store_url():

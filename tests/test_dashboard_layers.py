@@ -7,8 +7,10 @@ import importlib.util
 from pathlib import Path
 
 DASHBOARD = Path(__file__).resolve().parent.parent / "dashboard"
-# What the dashboard may use of the monitor package: the read side and the shared vocabulary.
-ALLOWED = {"monitor.store.readback", "monitor.store.export", "monitor.vocabulary", "monitor.errors"}
+# What the dashboard may use of the monitor package: the read side, the shared vocabulary, and
+# the configuration only to find the store.
+ALLOWED = {"monitor.store.readback", "monitor.store.export", "monitor.vocabulary", "monitor.errors",
+           "monitor.config"}
 
 
 def _module(package, name):

@@ -5,18 +5,29 @@ from __future__ import annotations
 import csv
 import sys
 
-from ..store import readback
-from ..store.export import CSV_COLUMNS, csv_rows  # noqa: F401  (still importable from here)
-from ..store.readback import format_number as fmt
-from ._common import add_config_option, aligned_lines, open_store, print_json, whole_number_type
+from . import SUMMARIES
+from ._common import add_config_option, aligned_lines, open_store, print_json, readback, whole_number_type
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
+
+# The CSV's columns and rows live on the store's read side (``monitor.store.export``), which the
+# dashboard uses too; they stay importable from here, looked up on first use.
+_FROM_EXPORT = ("CSV_COLUMNS", "csv_rows")
+
+
+def __getattr__(name):
+    if name in _FROM_EXPORT:
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store import export
+
+        return getattr(export, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "history",
-        help="list every look of one comparison",
+        help=SUMMARIES["history"],
         description="List every recorded look of one comparison: events, estimate, statistic, "
                     "boundary, alpha spent, decision and excluded rows.",
     )
@@ -29,12 +40,14 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-_CLUSTER_TEXT = {"clusters": "{} clusters".format,
-                 "design_effect": lambda value: f"design effect {fmt(value, 3)}",
-                 "effective_n": "effective n {:.0f}".format}
+def _cluster_text(fmt):
+    return {"clusters": "{} clusters".format,
+            "design_effect": lambda value: f"design effect {fmt(value, 3)}",
+            "effective_n": "effective n {:.0f}".format}
 
 
 def table_lines(history):
+    fmt = readback().format_number
     headers = ["look", "as of (UTC)", "n1", "n2", "estimate", "statistic", "boundary", "p-value",
                "plan", "alpha spent", "excluded", "decision"]
     body = []
@@ -47,7 +60,7 @@ def table_lines(history):
         ])
     lines = aligned_lines(headers, body)
     last = history[-1]
-    figures = readback.clustering_figures(last, _CLUSTER_TEXT)
+    figures = readback().clustering_figures(last, _cluster_text(fmt))
     if figures:
         lines.append("latest look: " + ", ".join(figures))
     for warning in last["warnings"]:
@@ -58,12 +71,15 @@ def table_lines(history):
 def run(args) -> int:
     engine = open_store(args.config)
     try:
-        history = readback.look_history(engine, args.name, version=args.version)
+        history = readback().look_history(engine, args.name, version=args.version)
     finally:
         engine.dispose()
     if args.format == "json":
         print_json(history)
     elif args.format == "csv":
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store.export import csv_rows
+
         header, rows = csv_rows(history)
         writer = csv.writer(sys.stdout, lineterminator="\n")
         writer.writerow(header)
