@@ -362,6 +362,7 @@ def _planned(metric, alpha, alternative, spending, futility, inputs: PlanInputs)
     # every few seconds asks for the same plans again, so they are kept by their inputs.
     # Imported here: the read side (status, history, the dashboard) reads stored designs and
     # never plans, so `gapwatch status` does not load scipy at start for it.
+    # lazy: planning is needed only here.
     from .stats.planning import plan_mean, plan_proportion
 
     common = dict(alpha=alpha, power=inputs.power, alternative=alternative, spending=spending,

@@ -31,8 +31,8 @@ def open_store(config_path):
 
     Checked to be at the schema this code expects (``StoreBehindError`` otherwise).
     """
-    # lazy: every command module is loaded to build the parser, and most commands never open
-    # the store, so the command line does not pay for SQLAlchemy at start.
+    # Every command module is loaded to build the parser, and most commands never open the store.
+    # lazy: so the command line does not pay for SQLAlchemy at start.
     from ..config import store_url_from_config
     from ..store.engine import open_store as open_checked
 

@@ -20,6 +20,7 @@ def register(subparsers) -> None:
 def run(args) -> int:
     # Imported here: the parser loads every command module, and the replay needs pandas,
     # SQLAlchemy and the statistics, which no other command's start should pay for.
+    # lazy: start-up time of the command line.
     from ..config import load_config
     from ..store.engine import make_engine
     from ..verify import verify_looks

@@ -41,7 +41,8 @@ __all__ = [
 
 def config_keys() -> set[str]:
     """Every key a ``[[comparison]]``, a channel or ``[service]`` may hold (the README names each)."""
-    from .sections import config_keys as keys  # the validators load on demand (see files.load_config)
+    # lazy: the validators load on demand (see files.load_config)
+    from .sections import config_keys as keys
 
     return keys()
 

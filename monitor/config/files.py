@@ -77,6 +77,7 @@ def load_config(path=None, environ=None) -> Config:
     # The validators (pydantic, SQLAlchemy's URL parser, APScheduler's cron, the spending
     # functions) load only when a file is read: every command module imports this package
     # to build the command line's parser, and most commands never read a file.
+    # lazy: the validators are needed only here.
     from .rules import FromEnvironment
     from .sections import check_config
 
