@@ -141,3 +141,14 @@ def test_effective_n_never_exceeds_n():
     r = call(cells_from_rows(g, days, v))
     assert r.design_effect < 1.0
     assert r.effective_n[0] <= (g == 0).sum() and r.effective_n[1] <= (g == 1).sum()
+
+
+def test_design_effect_is_measurable_only_from_enough_days():
+    rng = np.random.default_rng(9)
+    for days, expected in ((2, False), (clustered.MIN_CLUSTERS_FOR_DESIGN_EFFECT - 1, False),
+                           (clustered.MIN_CLUSTERS_FOR_DESIGN_EFFECT, True)):
+        key = np.repeat(np.arange(days), 30)
+        g = np.tile(np.repeat([0, 1], 15), days)
+        v = rng.normal(size=key.size) + np.repeat(rng.normal(size=days), 30)
+        de = clustered.design_effect(cells_from_rows(g, key, v))
+        assert de.measurable is expected and de.clusters == days

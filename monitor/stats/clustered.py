@@ -56,6 +56,8 @@ __all__ = [
     "MIN_CLUSTERS_PER_GROUP",
     "ClusterCounts",
     "cluster_counts",
+    "MIN_CLUSTERS_FOR_DESIGN_EFFECT",
+    "NOT_YET_MEASURABLE",
 ]
 
 DEGENERATE_CLUSTER_NOTE = "degenerate: the cluster-level residuals are all zero"
@@ -66,6 +68,11 @@ VARIANCES = ("cr1", "cr2", "auto")
 #: groups decides: CR2 is undefined with one, and with two its Bell–McCaffrey df are
 #: about one (a t on one df makes every interval nearly unbounded).
 MIN_CLUSTERS_PER_GROUP = 3
+#: Days (clusters) with events before a measured design effect is reported: the CR1
+#: variance over G days rests on G − 1 degrees of freedom, so from two days the ratio
+#: is noise (its relative standard error is about √(2/(G − 1)): 1.4 at 2 days, 0.47 at 10).
+MIN_CLUSTERS_FOR_DESIGN_EFFECT = 10
+NOT_YET_MEASURABLE = "not yet measurable"
 # Variance below this share of the estimate's scale is zero up to rounding.
 _ZERO_VARIANCE = 1e-24
 TOO_FEW_CLUSTERS_NOTE = "degenerate: fewer than two clusters (no degrees of freedom)"
@@ -216,6 +223,10 @@ class DesignEffect:
         Distinct clusters.
     cr1_variance, naive_variance : float
         The two variances compared.
+    measurable : bool
+        Whether enough clusters hold events (``MIN_CLUSTERS_FOR_DESIGN_EFFECT``
+        by default) for the figure to mean something; when False, show
+        ``NOT_YET_MEASURABLE`` instead of the number.
     """
 
     design_effect: float
@@ -224,6 +235,7 @@ class DesignEffect:
     clusters: int
     cr1_variance: float
     naive_variance: float
+    measurable: bool = True
 
     def to_dict(self) -> dict:
         return {f.name: (list(getattr(self, f.name)) if isinstance(getattr(self, f.name), tuple)
@@ -536,7 +548,7 @@ def _bell_mccaffrey(core):
     return var, float(df)
 
 
-def design_effect(cells, naive_variance=None) -> DesignEffect:
+def design_effect(cells, naive_variance=None, *, min_clusters=MIN_CLUSTERS_FOR_DESIGN_EFFECT) -> DesignEffect:
     """Design effect and effective sample size of per-(group, cluster) cells.
 
     Every look records the day-level design effect: with cells per (group,
@@ -551,12 +563,15 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
     naive_variance : float, optional
         The event-level variance of the difference to compare against; by
         default the Welch-type ``s1²/n1 + s2²/n2`` from ``sum_dev2``.
+    min_clusters : int
+        Clusters with events needed before the figure is ``measurable``.
 
     Returns
     -------
     DesignEffect
         nan design effect (and effective sizes) when there are fewer than two
-        clusters or the naive variance is zero.
+        clusters or the naive variance is zero; ``measurable`` False below
+        ``min_clusters``.
 
     Examples
     --------
@@ -564,8 +579,8 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
     ...          "n": [20, 20, 20, 20], "sum_dev": [10.0, 30.0, 12.0, 8.0],
     ...          "sum_dev2": [60.0, 100.0, 50.0, 40.0], "shift": 0.0}
     >>> de = design_effect(cells)
-    >>> de.clusters, round(de.design_effect, 3)
-    (2, 2.844)
+    >>> de.clusters, round(de.design_effect, 3), de.measurable
+    (2, 2.844, False)
     """
     if isinstance(cells, Mapping):
         cells = ClusterCells.from_mapping(cells)
@@ -586,8 +601,9 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
     else:
         # Never more effective events than events: a design effect below 1 is noise.
         eff = (core.n1 / max(deff, 1.0), core.n2 / max(deff, 1.0))
+    measurable = bool(core.clusters >= int(min_clusters) and math.isfinite(deff))
     return DesignEffect(float(deff), eff, float(eff[0] + eff[1]), core.clusters,
-                        float(core.cr1_variance), float(naive))
+                        float(core.cr1_variance), float(naive), measurable)
 
 
 @dataclass(frozen=True)
