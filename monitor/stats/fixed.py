@@ -42,7 +42,7 @@ from dataclasses import dataclass, field, fields
 
 from scipy import special
 
-from ._checks import ALTERNATIVES
+from ._checks import ALTERNATIVES, INTERVALS
 # Under the names monitor.stats.clustered imports from here.
 from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
@@ -67,7 +67,9 @@ __all__ = [
 ]
 
 METHODS = ("z", "pooled", "welch", "paired", "proportions")
-INTERVALS = ("newcombe", "wald", "score")
+# The intervals a caller of two_proportions may ask for: the configurable ones and the
+# inverted score test (used by the look's repeated intervals for rates).
+_ACCEPTED_INTERVALS = INTERVALS + ("score",)
 DEGENERATE_NOTE = "degenerate: both groups have zero variance"
 
 
@@ -643,8 +645,9 @@ def two_proportions(n1, successes1, n2, successes2, *, null_difference=0.0,
     if not (-1.0 < null_difference < 1.0):
         raise InvalidArgumentError(
             f"null_difference must be in (-1, 1) for rates; got {null_difference!r}")
-    if interval not in INTERVALS:
-        raise InvalidArgumentError(f"interval must be one of {', '.join(INTERVALS)}; got {interval!r}")
+    if interval not in _ACCEPTED_INTERVALS:
+        raise InvalidArgumentError(
+            f"interval must be one of {', '.join(_ACCEPTED_INTERVALS)}; got {interval!r}")
     n1 = _check_count(n1, "n1", 1)
     n2 = _check_count(n2, "n2", 1)
     x1 = _check_count(successes1, "successes1", 0)
