@@ -51,6 +51,15 @@ CHANNEL_TYPES = ("log", "webhook", "email")
 
 DEFAULT_STORE_URL = "sqlite:///gapwatch-store.sqlite"
 DEFAULT_MIN_CLUSTERS = 10
+# Below four clusters a cluster-robust t has at most two degrees of freedom, and clusters
+# that belong to one group need at least three per group (see stats.clustered).
+MIN_CLUSTERS_FLOOR = 4
+#: Pairs a paired comparison needs before it decides: below five the t has three df or
+#: fewer and its interval spans ±3.2 standard errors or more, which says little even when
+#: the (exact sequential t) boundary holds the error rate.
+DEFAULT_MIN_PAIRS = 5
+# A paired t on one degree of freedom (two pairs) has an interval of ±12.7 standard errors.
+MIN_PAIRS_FLOOR = 3
 
 # Table, schema and column names: plain identifiers only. The source quotes them
 # anyway; refusing anything else here stops a typo (or an injection attempt)
@@ -86,7 +95,7 @@ _COMPARISON_KEYS = {
     "sd", "p1", "p2", "power", "looks", "every", "sigmas", "pair_by", "pair_column",
     "shift_starts", "null_difference", "futility", "valid_range", "filters", "lateness",
     "arrival_column", "time_format", "timezone", "cluster_by", "cluster_column", "min_clusters",
-    "notify", "description",
+    "min_pairs", "notify", "description",
 }
 
 
@@ -198,6 +207,7 @@ class ComparisonConfig:
     sigmas: tuple | None = None
     pair_by: str | None = None
     pair_column: str | None = None
+    min_pairs: int = DEFAULT_MIN_PAIRS
     shift_starts: tuple = ()
     null_difference: float = 0.0
     futility: bool = False
@@ -287,8 +297,7 @@ class ComparisonConfig:
             "null_difference": self.null_difference,
             "plan": self.plan,
             "sigmas": list(self.sigmas) if self.sigmas else None,
-            "pairing": ({"pair_by": self.pair_by, "pair_column": self.pair_column,
-                         "shift_starts": list(self.shift_starts)} if self.paired else None),
+            "pairing": (self._pairing() if self.paired else None),
             "clustering": ({"cluster_by": self.cluster_by, "cluster_column": self.cluster_column}
                            if self.clustered else None),
             "futility": self.futility,
@@ -304,6 +313,14 @@ class ComparisonConfig:
             "timezone": self.timezone,
             "min_clusters": self.min_clusters if self.clustered else None,
         }
+
+    def _pairing(self) -> dict:
+        pairing = {"pair_by": self.pair_by, "pair_column": self.pair_column,
+                   "shift_starts": list(self.shift_starts)}
+        if self.min_pairs != DEFAULT_MIN_PAIRS:
+            # Only when set: designs frozen before min_pairs existed stay equal to the config.
+            pairing["min_pairs"] = self.min_pairs
+        return pairing
 
     def settings(self) -> dict:
         """Non-design settings, shown with the comparison but never frozen."""
@@ -699,6 +716,12 @@ class _Checker:
             for key in ("pair_by", "pair_column"):
                 if v.get(key) is not None:
                     p(key, f"is only used by method 'paired', not {method!r}")
+        min_pairs = v.get("min_pairs", DEFAULT_MIN_PAIRS)
+        if not isinstance(min_pairs, int) or isinstance(min_pairs, bool) or min_pairs < MIN_PAIRS_FLOOR:
+            p("min_pairs", f"must be an integer of at least {MIN_PAIRS_FLOOR}; got {min_pairs!r}")
+            min_pairs = DEFAULT_MIN_PAIRS
+        elif "min_pairs" in v and method != "paired":
+            p("min_pairs", f"is only used by method 'paired', not {method!r}")
         if "shift_starts" in v:
             if pair_by != "shift":
                 p("shift_starts", "is only used with pair_by = \"shift\"")
@@ -719,8 +742,9 @@ class _Checker:
             p("cluster_by" if cluster_by else "cluster_column",
               f"clustering is not available with method {method!r} (use welch, pooled or proportions)")
         min_clusters = v.get("min_clusters", DEFAULT_MIN_CLUSTERS)
-        if not isinstance(min_clusters, int) or isinstance(min_clusters, bool) or min_clusters < 2:
-            p("min_clusters", f"must be an integer of at least 2; got {min_clusters!r}")
+        if (not isinstance(min_clusters, int) or isinstance(min_clusters, bool)
+                or min_clusters < MIN_CLUSTERS_FLOOR):
+            p("min_clusters", f"must be an integer of at least {MIN_CLUSTERS_FLOOR}; got {min_clusters!r}")
         elif "min_clusters" in v and not (cluster_by or cluster_column):
             p("min_clusters", "is only used with cluster_by or cluster_column")
 
@@ -794,6 +818,7 @@ class _Checker:
                 sigmas=tuple(float(s) for s in sigmas) if isinstance(sigmas, list) and all(_is_number(s) for s in sigmas) else None,
                 pair_by=pair_by,
                 pair_column=pair_column,
+                min_pairs=min_pairs,
                 shift_starts=tuple(sorted(shift_starts)) if isinstance(shift_starts, list) else (),
                 null_difference=float(null_difference) if _is_number(null_difference) else 0.0,
                 futility=futility is True,

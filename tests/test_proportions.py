@@ -148,3 +148,16 @@ def test_bad_input_names_the_argument():
         score_test(1, 10, 3, 10, 1.5)
     with pytest.raises(InvalidArgumentError, match="critical"):
         score_interval(1, 10, 3, 10, -1.0)
+
+
+def test_vectorised_score_statistics_equal_the_scalar_ones():
+    from monitor.stats.proportions import score_statistics
+
+    rng = np.random.default_rng(6)
+    x1, x2 = rng.integers(0, 41, 300), rng.integers(0, 121, 300)
+    for delta in (0.0, -0.05, 0.2):
+        vector = score_statistics(x1, 40, x2, 120, delta)
+        scalar = np.array([score_statistic(int(a), 40, int(b), 120, delta)[0] for a, b in zip(x1, x2)])
+        finite = np.isfinite(scalar)
+        assert np.array_equal(finite, np.isfinite(vector))
+        assert np.allclose(vector[finite], scalar[finite], rtol=1e-12, atol=1e-12)

@@ -98,7 +98,8 @@ def _recompute(design, frame, cutoff):
             return out
         r = fixed.paired_t(len(diffs), float(diffs.mean()), float(diffs.std(ddof=1)), **common)
     elif design.get("clustering"):
-        from ..stats.clustered import cluster_robust_difference
+        from ..look.statistic import cluster_variance
+        from ..stats.clustered import cluster_counts, cluster_robust_difference
 
         clustering = design["clustering"]
         keys = (frame["key"].fillna("").astype(str) if clustering.get("cluster_column")
@@ -107,8 +108,15 @@ def _recompute(design, frame, cutoff):
         if len(g1) == 0 or len(g2) == 0:
             return out
         cells = cells.reset_index()
+        enough = cluster_counts(cells["group_index"].tolist(), cells["cluster"].tolist(), cells["count"].tolist(),
+                                min_clusters=design["min_clusters"]).enough
+        if not enough:
+            return out      # the look records no statistic while it waits for clusters
         r = cluster_robust_difference(cells["group_index"].tolist(), cells["cluster"].tolist(),
-                                      cells["count"].tolist(), cells["sum"].tolist(), 0.0, **common)
+                                      cells["count"].tolist(), cells["sum"].tolist(), 0.0,
+                                      variance=cluster_variance(design), **common)
+        if r.degenerate:
+            return out
     else:
         if len(g1) == 0 or len(g2) == 0:
             return out

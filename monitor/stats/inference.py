@@ -350,7 +350,8 @@ def median_unbiased_estimate(
 #: Chi-square nodes of the sequential t law when the pivot is evaluated: each
 #: figure needs a few dozen evaluations, and the quantiles it solves for are
 #: read to far less than the boundaries' own accuracy.
-PIVOT_T_NODES = 24
+PIVOT_T_NODES = 16
+PIVOT_T_PER_SD = 2.0
 
 
 @dataclass(frozen=True)
@@ -461,18 +462,25 @@ class StagewisePivot:
         upper[-1] = last
         lower[-1] = -np.inf
         upper = np.where(np.isnan(upper), np.inf, upper)
+        if self._t.size == 1:
+            # One look: the fixed-sample law exactly (Student t on the look's own df, or normal).
+            value = float(self._statistic_at(delta))
+            if self._dfs is None:
+                return float(special.ndtr(-value))
+            return float(special.stdtr(self._look_df, -value))
         if self._dfs is None:
             up, _ = crossing_probabilities(self._t, upper, lower)
         else:
             from .sequential_t import t_crossing_probabilities
 
-            up, _ = t_crossing_probabilities(self._t, self._dfs, upper, lower, nodes=PIVOT_T_NODES)
+            up, _ = t_crossing_probabilities(self._t, self._dfs, upper, lower, nodes=PIVOT_T_NODES,
+                                             per_sd=PIVOT_T_PER_SD)
         return float(min(1.0, max(0.0, float(np.sum(up)))))
 
 
-def _solve_pivot(pivot, target, centre, scale):
-    """``δ`` with ``pivot(δ) = target`` (the pivot rises with ``δ``)."""
-    step = 3.0 * scale
+def _solve_pivot(pivot, target, centre, scale, step=3.0):
+    """``δ`` with ``pivot(δ) = target`` (the pivot rises with ``δ``), searched from ``centre``."""
+    step = step * scale
     low, high = centre - step, centre + step
     g_low, g_high = pivot(low) - target, pivot(high) - target
     for _ in range(60):
@@ -563,12 +571,20 @@ def adjusted_inference(fractions, boundaries_z, stop_look, estimate, standard_er
 
     pivot = StagewisePivot(fractions, boundaries_z, stop_look, mirrored, se, sign * null,
                            alternative == "two-sided", dfs)
-    centre = sign * estimate
-    median = sign * _solve_pivot(pivot, 0.5, centre, se)
     tail = alpha / 2 if alternative == "two-sided" else alpha
-    low = _solve_pivot(pivot, tail, centre, se)
+    targets = (0.5, tail, 1.0 - tail)
+    if dfs is None:
+        guesses, step = (sign * estimate,) * 3, 3.0
+    else:
+        # The z law's answers are close: start the (slower) t law's search there.
+        z_pivot = StagewisePivot(fractions, boundaries_z, stop_look, mirrored, se, sign * null,
+                                 alternative == "two-sided", None)
+        guesses = tuple(_solve_pivot(z_pivot, g, sign * estimate, se) for g in targets)
+        step = 0.25
+    median = sign * _solve_pivot(pivot, 0.5, guesses[0], se, step)
+    low = _solve_pivot(pivot, tail, guesses[1], se, step)
     if alternative == "two-sided":
-        high = _solve_pivot(pivot, 1.0 - tail, centre, se)
+        high = _solve_pivot(pivot, 1.0 - tail, guesses[2], se, step)
         ci = (low, high)
     elif alternative == "greater":
         ci = (low, None)

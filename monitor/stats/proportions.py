@@ -39,6 +39,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
 from scipy import optimize, special
 
 from ..errors import InvalidArgumentError
@@ -50,6 +51,7 @@ __all__ = [
     "score_statistic",
     "score_test",
     "score_interval",
+    "score_statistics",
 ]
 
 
@@ -239,3 +241,44 @@ def score_interval(x1, n1, x2, n2, critical, alternative="two-sided", *, correct
     low = limit(c, -1.0 + eps, min(estimate, 1.0 - eps)) if alternative != "less" else None
     high = limit(-c, max(estimate, -1.0 + eps), 1.0 - eps) if alternative != "greater" else None
     return (low, high)
+
+
+def score_statistics(x1, n1, x2, n2, null_difference):
+    """:func:`score_statistic` (Farrington–Manning, no correction) over arrays of counts.
+
+    For simulations: the same restricted rates and statistic, element by
+    element; nan where the restricted variance is zero and the estimate equals δ0.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> z = score_statistics(np.array([12, 30]), 100, np.array([20, 20]), np.array([110, 100]), -0.03)
+    >>> [round(float(v), 4) for v in z]
+    [-0.6461, 2.117]
+    """
+    x1, n1, x2, n2 = (np.asarray(a, dtype=float) for a in (x1, n1, x2, n2))
+    delta = float(null_difference)
+    p1, p2 = x1 / n1, x2 / n2
+    if delta == 0.0:
+        q1 = q2 = (x1 + x2) / (n1 + n2)
+    else:
+        theta = n2 / n1
+        a = 1.0 + theta
+        b = -(1.0 + theta + p1 + theta * p2 + delta * (theta + 2.0))
+        c = delta * delta + delta * (2.0 * p1 + theta + 1.0) + p1 + theta * p2
+        d = -p1 * delta * (1.0 + delta)
+        v = b ** 3 / (27.0 * a ** 3) - b * c / (6.0 * a * a) + d / (2.0 * a)
+        inner = np.maximum(b * b / (9.0 * a * a) - c / (3.0 * a), 0.0)
+        u = np.where(v < 0, -1.0, 1.0) * np.sqrt(inner)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.clip(np.where(u != 0, v / np.where(u != 0, u, 1.0) ** 3, 0.0), -1.0, 1.0)
+        w = (np.pi + np.arccos(ratio)) / 3.0
+        q1 = np.where(u == 0, -b / (3.0 * a), 2.0 * u * np.cos(w) - b / (3.0 * a))
+        q1 = np.clip(q1, max(0.0, delta), min(1.0, 1.0 + delta))
+        q2 = q1 - delta
+    var = q1 * (1.0 - q1) / n1 + q2 * (1.0 - q2) / n2
+    excess = p1 - p2 - delta
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(var > 0, excess / np.sqrt(np.where(var > 0, var, 1.0)),
+                     np.where(excess > 0, np.inf, np.where(excess < 0, -np.inf, np.nan)))
+    return z

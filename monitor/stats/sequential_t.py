@@ -314,8 +314,9 @@ class _Prepared:
 class _ExactPath:
     """Two resolutions of the (mean, sum of squares) law advanced together (Richardson)."""
 
-    def __init__(self, nodes=None):
+    def __init__(self, nodes=None, per_sd=None):
         nodes = R_NODES if nodes is None else int(nodes)
+        self.per_sd = _NODES_PER_SD if per_sd is None else float(per_sd)
         self.res = (_Resolution(nodes), _Resolution(2 * nodes))
         self.fraction = 0.0
         self.df = 0.0
@@ -339,8 +340,8 @@ class _ExactPath:
             coupled, fresh = False, step_df
         sd_mean = math.sqrt(dt) / fraction
         if self.h is None:
-            self.h = sd_mean / _NODES_PER_SD
-        while self.h > sd_mean / (_NODES_PER_SD - 1.0):
+            self.h = sd_mean / self.per_sd
+        while self.h > sd_mean / (self.per_sd - 1.0):
             # Halve the spacing: the old nodes are the even nodes of the new grid.
             self.h /= 2.0
             self.first *= 2
@@ -688,7 +689,7 @@ def _tail(z):
     return float(special.ndtr(-z))
 
 
-def t_crossing_probabilities(fractions, dfs, upper_t, lower_t=None, *, nodes=None):
+def t_crossing_probabilities(fractions, dfs, upper_t, lower_t=None, *, nodes=None, per_sd=None):
     """Chance of first crossing each t bound at each look, under no difference.
 
     ``T_k = Z_k / R_k`` with ``Z`` the sequential z statistics and ``R_k`` the
@@ -710,6 +711,9 @@ def t_crossing_probabilities(fractions, dfs, upper_t, lower_t=None, *, nodes=Non
         Chi-square nodes of the coarse resolution (default ``R_NODES``); fewer
         are quicker and less exact (24 keeps probabilities within a few per
         cent, enough for the adjusted inference's quantiles).
+    per_sd : float, optional
+        Mean nodes per standard deviation of each increment (default 3; at
+        least 2).
 
     Returns
     -------
@@ -736,7 +740,7 @@ def t_crossing_probabilities(fractions, dfs, upper_t, lower_t=None, *, nodes=Non
         raise InvalidArgumentError("upper_t/lower_t: bounds must not be nan")
     previous = None
     model = None
-    path = _ExactPath(nodes)
+    path = _ExactPath(nodes, per_sd)
     up = np.zeros(ts.size)
     low = np.zeros(ts.size)
     for k, t in enumerate(ts):
