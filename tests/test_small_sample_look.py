@@ -101,3 +101,44 @@ def test_benchmark_adjusted_inference_is_median_unbiased_and_covers():
         assert out["coverage"] >= 0.95 - 3 * out["se_coverage"], out
     cov = bench.rci_rates(rng, 20_000)
     assert cov["coverage"] >= 0.95 - 3 * cov["se"], cov
+
+
+def _crew_rows(rng, count, crews_east, crews_west):
+    rows = event_rows(rng, count, T0)
+    effect = {c: rng.normal(0, 3.0) for c in crews_east + crews_west}
+    for i, row in enumerate(rows):
+        crews = crews_east if row["site"] == "east" else crews_west
+        row["crew"] = crews[(i // 2) % len(crews)]
+        row["seconds"] += effect[row["crew"]]
+    return rows
+
+
+def test_crews_of_one_site_wait_per_group_then_use_cr2(tmp_path):
+    from test_look_state import KeyedWorld
+
+    from monitor.stats.clustered import cluster_robust_difference
+
+    rng = np.random.default_rng(52)
+    # One crew per site: with CR1 this gave t near 1e13 on null data; now the look waits, says why
+    # and records no statistic.
+    (tmp_path / "one").mkdir()
+    w = KeyedWorld(tmp_path / "one", _crew_rows(rng, 300, ["e1"], ["w1"]), cluster_column="crew",
+                   min_clusters=4, planned_per_group=5000)
+    record = w.look(T0 + timedelta(days=1))
+    assert record.decision == "awaiting_clusters"
+    assert record.statistic is None and record.p_value is None and record.standard_error is None
+    assert any("group 1 has 1 and group 2 has 1" in warning for warning in record.warnings)
+    # Three crews a site: CR2 with Bell–McCaffrey df, as the statistics module gives from raw rows.
+    (tmp_path / "three").mkdir()
+    w = KeyedWorld(tmp_path / "three", _crew_rows(rng, 600, ["e1", "e2", "e3"], ["w1", "w2", "w3", "w4"]),
+                   cluster_column="crew", min_clusters=4, planned_per_group=5000)
+    record = w.look(T0 + timedelta(days=2))
+    raw = w.raw()
+    upto = raw[raw.done_at <= pd.Timestamp(record.cutoff)]
+    cells = upto.assign(g=(upto.site == "west").astype(int)).groupby(["g", "crew"])["seconds"].agg(["count", "sum"])
+    cells = cells.reset_index()
+    ref = cluster_robust_difference(cells.g.tolist(), cells.crew.tolist(), cells["count"].tolist(),
+                                    cells["sum"].tolist(), 0.0, variance="cr2")
+    assert record.decision in ("collecting", "difference_found")
+    assert record.standard_error == pytest.approx(ref.standard_error, rel=1e-7)
+    assert record.df == pytest.approx(ref.df, rel=1e-9) and record.df < 6
