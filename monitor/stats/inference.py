@@ -39,6 +39,7 @@ from scipy import optimize, special
 
 from ._checks import check_alternative, finite, open_unit
 from .boundaries import crossing_probabilities
+from .sequential_t import _check_df, t_critical, t_crossing_probabilities
 from ..errors import InvalidArgumentError
 
 __all__ = [
@@ -425,8 +426,6 @@ class StagewisePivot:
         if dfs is None:
             self._bounds = b
         else:
-            from .sequential_t import _check_df, t_critical
-
             dfs = list(dfs)[:stop_look]
             if len(dfs) != stop_look:
                 raise InvalidArgumentError(f"dfs must give one value per look up to the stop look; got {dfs!r}")
@@ -443,8 +442,6 @@ class StagewisePivot:
         value = float(self._statistic_at(delta))
         if self._dfs is None or not math.isfinite(value):
             return value
-        from .sequential_t import t_critical
-
         # A t on the look's own df, carried to the model's (whole-number) df by its tail.
         tail = float(special.stdtr(self._look_df, -value))
         if tail <= 0.0:
@@ -471,8 +468,6 @@ class StagewisePivot:
         if self._dfs is None:
             up, _ = crossing_probabilities(self._t, upper, lower)
         else:
-            from .sequential_t import t_crossing_probabilities
-
             up, _ = t_crossing_probabilities(self._t, self._dfs, upper, lower, nodes=PIVOT_T_NODES,
                                              per_sd=PIVOT_T_PER_SD)
         return float(min(1.0, max(0.0, float(np.sum(up)))))

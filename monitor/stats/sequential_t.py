@@ -8,9 +8,10 @@ through p-values: reject at look ``k`` when the t p-value is at or below the
 boundary's nominal level ``1 − Φ(z_k)``. Each look then has the right marginal
 level, but the looks share one running variance estimate, and at small degrees
 of freedom the joint law of the t statistics is not the joint law of the z
-statistics. With 3, 4, …, 15 pairs and Pocock spending the false-alarm rate is
-about 0.057 instead of 0.05 (Jennison & Turnbull 2000, ch. 11, report the same
-kind of excess).
+statistics. With looks at 3, 4, …, 15 pairs the false-alarm rate was 0.059
+(Pocock) and 0.055 (O'Brien–Fleming) instead of 0.05 (100,000 simulated streams,
+``tests/benchmarks/small_sample_false_alarm.py``; Jennison & Turnbull 2000,
+ch. 11, describe the same kind of excess).
 
 The exact calculation
 ---------------------

@@ -57,9 +57,10 @@ Scenarios (two-sided α = 0.05 unless said; invented, in the project's own terms
   repeated intervals for rates at 3:1 group sizes (rates 0.10 and 0.20, 75/25 …
   375/125 per group): simultaneous coverage over all looks.
 
-Run (about 20 minutes on one core for the full size):
+Run (about 6 minutes on a two-core machine shared with other work):
 
-    python tests/benchmarks/small_sample_false_alarm.py --streams 100000 --inference-streams 300 --seed 1
+    python tests/benchmarks/small_sample_false_alarm.py --streams 100000 --inference-streams 300 --seed 1 \
+        --check 5 --check-inference 1
 
 The numbers quoted in the README come from that command.
 """
