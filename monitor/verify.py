@@ -24,7 +24,8 @@ from .design import Design
 from .errors import UnknownComparisonError
 from .source.reader import Source, SourceSpec
 from .stats import fixed
-from .stats.clustered import cluster_robust_difference
+from .look.statistic import cluster_variance
+from .stats.clustered import cluster_counts, cluster_robust_difference
 from .store.models import Comparison, Look
 from .vocabulary import NULL_KEY
 
@@ -70,8 +71,14 @@ def _clustered(design: Design, frame, g1, g2, common):
     if len(g1) == 0 or len(g2) == 0:
         return None
     cells = cells.reset_index()
-    return cluster_robust_difference(cells["group_index"].tolist(), cells["cluster"].tolist(),
-                                     cells["count"].tolist(), cells["sum"].tolist(), 0.0, **common)
+    enough = cluster_counts(cells["group_index"].tolist(), cells["cluster"].tolist(), cells["count"].tolist(),
+                            min_clusters=design.min_clusters).enough
+    if not enough:
+        return None     # the look records no statistic while it waits for clusters
+    result = cluster_robust_difference(cells["group_index"].tolist(), cells["cluster"].tolist(),
+                                       cells["count"].tolist(), cells["sum"].tolist(), 0.0,
+                                       variance=cluster_variance(design), **common)
+    return None if result.degenerate else result
 
 
 def _unclustered(design: Design, g1, g2, common):

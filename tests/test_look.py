@@ -24,6 +24,7 @@ from monitor.calendar import bucket_end, bucket_key
 from monitor.look import restart_comparison, take_look
 from monitor.store.models import Alert, Cell, Comparison, Delivery, Look
 from monitor.source.reader import Source
+from monitor.stats.sequential_t import SequentialTBoundary
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
 
@@ -36,7 +37,8 @@ def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):
     rng = np.random.default_rng(20260302)
     w = World(tmp_path, _rows(rng, 900, east=101.5, west=100.0), lateness="5m", planned_per_group=600)
     raw = w.raw()
-    fresh = SequentialBoundary(0.05, "obrien-fleming", "two-sided")
+    # Welch's t: exact sequential t boundaries at the looks' df (stats.sequential_t).
+    fresh = SequentialTBoundary(0.05, "obrien-fleming", "two-sided")
     records = []
     for hours in (4, 9, 15, 22, 30, 45):
         record = w.look(T0 + timedelta(hours=hours))
@@ -55,7 +57,7 @@ def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):
         assert record.df == pytest.approx(ref.df, rel=1e-9)
         assert record.fraction == pytest.approx(min(len(east), len(west)) / 600)
         # The resumed boundary equals one computed afresh at the same fractions.
-        expected = fresh.add_look(record.fraction)
+        expected = fresh.add_look(record.fraction, record.df)
         assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
         critical = stats.t.isf(expected.nominal_p, ref.df)
         se = (east.mean() - west.mean()) / ref.statistic
@@ -445,13 +447,14 @@ def test_futility_boundary_stops_for_no_material_difference(tmp_path):
     w = World(tmp_path, _rows(rng, 600, east=97.0, west=100.0), **keys)  # east is worse, not better
     plan = plan_mean(5.0, 10.0, alpha=0.05, power=0.8, alternative="greater", looks=4, futility=True)
     assert Design.from_config(w.comparison).planned_per_group == plan.max_per_group
-    fresh = SequentialBoundary(0.05, "obrien-fleming", "greater", futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
+    fresh = SequentialTBoundary(0.05, "obrien-fleming", "greater",
+                                futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
     decisions = []
     for hours in (2, 4, 6, 8, 12, 16):
         record = w.look(T0 + timedelta(hours=hours))
         if record is None:
             break
-        expected = fresh.add_look(record.fraction)
+        expected = fresh.add_look(record.fraction, record.df)
         assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
         assert w.looks()[-1].futility_z == pytest.approx(expected.futility_z, rel=1e-9)
         z_equivalent = stats.norm.isf(stats.t.sf(record.statistic, record.df))

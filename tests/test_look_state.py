@@ -140,7 +140,7 @@ def test_verify_replays_looks_with_null_keys(tmp_path, keys):
 
 def test_null_keys_without_a_key_column_are_not_a_reason(tmp_path):
     rng = np.random.default_rng(43)
-    w = LiveWorld(tmp_path, event_rows(rng, 200, T0), cluster_by="day", min_clusters=2, planned_per_group=5000)
+    w = LiveWorld(tmp_path, event_rows(rng, 200, T0), cluster_by="day", min_clusters=4, planned_per_group=5000)
     record = w.look(T0 + timedelta(days=1))
     assert NULL_KEY not in record.excluded and record.n1 + record.n2 == record.new_events
 

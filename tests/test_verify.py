@@ -26,7 +26,7 @@ def _history(world, hours=(3, 8, 14, 27, 40)):
     dict(method="pooled", lateness="10m"),
     dict(method="paired", pair_by="hour"),
     dict(method="paired", pair_by="shift", shift_starts=["06:00", "14:00", "22:00"], timezone="Europe/Lisbon"),
-    dict(cluster_by="day", min_clusters=2),
+    dict(cluster_by="day", min_clusters=4),
     dict(metric="proportion", method="proportions"),
 ], ids=["welch", "pooled-lateness", "paired-hour", "paired-shift", "clustered-day", "proportions"])
 def test_every_look_matches_its_replay(tmp_path, keys):

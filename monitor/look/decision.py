@@ -15,10 +15,17 @@ adjusted inference.
 * **Which looks test.** A look tests against the boundary only when the fraction has
   grown since the last testing look and a statistic exists; other looks (no new
   information, too few clusters, a data problem) are recorded but spend nothing.
-* **t-based methods** (Welch, pooled, paired, clustered) use the nominal-level approach:
-  the look crosses when its one-sided p-value in a tested direction is at or below the
-  boundary's nominal level. z-based methods (z, proportions) compare the statistic with
-  the boundary directly.
+* **t-based methods** (Welch, pooled, paired, clustered) use exact sequential t
+  boundaries at the degrees of freedom each look has (``stats.sequential_t``), read as a
+  calibrated nominal level: the look crosses when its one-sided p-value in a tested
+  direction is at or below it. z-based methods (z, proportions) compare the statistic
+  with the boundary directly; rates use the score statistic and score repeated intervals.
+* **Minimums.** A paired comparison decides from ``min_pairs`` complete pairs; a
+  clustered one from ``min_clusters`` clusters, and when its clusters each belong to one
+  group (crews, batches) from that many per group (at least three each), with no
+  statistic recorded while it waits.
+* **Design effect.** Reported from ``MIN_CLUSTERS_FOR_DESIGN_EFFECT`` days with events;
+  before that the look says it is not yet measurable.
 """
 
 from __future__ import annotations
@@ -33,13 +40,16 @@ from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
-from ..stats.inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
+from ..stats.inference import adjusted_inference, repeated_confidence_interval
+from ..stats.proportions import score_interval, score_statistic
+from ..stats.sequential_t import SequentialTBoundary
 from ..stats.summaries import MomentSummary
 from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES
 from .cells import summary
 from .statistic import Stat, day_design_effect, finite_or_none, futility_spec, statistic, t_critical
 
-__all__ = ["LookInputs", "Evidence", "Decision", "weigh", "decide", "alert_kind"]
+__all__ = ["LookInputs", "Evidence", "Decision", "weigh", "decide", "alert_kind", "t_based", "new_boundary",
+           "resumed_boundary", "after_stop"]
 
 _Z_METHODS = ("z", "proportions")
 
@@ -112,18 +122,45 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if de is not None and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
+    if de is not None and de.measurable and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
                     tuple(warnings))
 
 
-def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> Decision:
+def t_based(design: Design) -> bool:
+    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one)."""
+    return design.method not in _Z_METHODS or design.clustered
+
+
+def new_boundary(design: Design, futility=None):
+    """An empty sequential boundary of the design: exact sequential t for t statistics."""
+    cls = SequentialTBoundary if t_based(design) else SequentialBoundary
+    return cls(design.alpha, design.spending, design.alternative, futility=futility)
+
+
+def resumed_boundary(design: Design, recorded, futility=None):
+    """The design's boundary standing at recorded testing looks (rows with fraction, boundary_z,
+    futility_z and, for t statistics, df)."""
+    futility_z = ([(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
+                  if futility is not None else None)
+    fractions = [r.fraction for r in recorded]
+    zs = [r.boundary_z for r in recorded]
+    if t_based(design):
+        return SequentialTBoundary.resume(design.alpha, design.spending, design.alternative,
+                                          fractions, [r.df for r in recorded], zs, futility_z=futility_z,
+                                          futility=futility)
+    return SequentialBoundary.resume(design.alpha, design.spending, design.alternative,
+                                     fractions, zs, futility_z=futility_z, futility=futility)
+
+
+def decide(evidence: Evidence, boundary=None) -> Decision:
     """The look's decision.
 
     A testing look needs ``boundary`` standing at the recorded testing looks (with the
-    design's futility rule); this look is added to it, so afterwards it stands here.
+    design's futility rule; a :class:`SequentialTBoundary` for t statistics, see
+    :func:`resumed_boundary`); this look is added to it, so afterwards it stands here.
     """
     if not evidence.tests:
         return Decision(evidence.state)
@@ -131,12 +168,16 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
         raise InvalidArgumentError("a testing look needs the boundary resumed at the recorded testing looks")
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
     alternative = design.alternative
-    look = boundary.add_look(fraction)
-    if design.method in _Z_METHODS and not design.clustered:
+    t_stat = t_based(design)
+    if t_stat != isinstance(boundary, SequentialTBoundary):
+        raise InvalidArgumentError("t statistics need a SequentialTBoundary, z statistics a SequentialBoundary")
+    look = boundary.add_look(fraction, st.df) if t_stat else boundary.add_look(fraction)
+    if not t_stat:
         z = st.statistic
         crossed = (z >= look.z if alternative == "greater" else z <= -look.z if alternative == "less"
                    else abs(z) >= look.z)
     else:
+        # The exact sequential t boundary as a calibrated nominal level (see stats.sequential_t).
         crossed = nominal_decision(st.p_upper, st.p_lower, look, alternative)
     if crossed:
         decision = "difference_found"
@@ -148,35 +189,58 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     else:
         decision = "collecting"
     interval = (None, None)
-    # Repeated confidence interval: the boundary on the statistic's own scale.
+    # Repeated confidence interval: the boundary on the statistic's own scale; for rates the
+    # score test inverted at the boundary (it keeps its coverage at low rates and unequal sizes).
     if math.isfinite(look.z):
-        critical = look.z if st.df is None else t_critical(look.nominal_p, st.df)
-        low, high = repeated_confidence_interval(st.estimate, st.standard_error, critical, alternative)
+        if st.counts is not None:
+            x1, n1, x2, n2 = st.counts
+            low, high = score_interval(x1, n1, x2, n2, look.z, alternative)
+        else:
+            critical = look.z if st.df is None else t_critical(look.nominal_p, st.df)
+            low, high = repeated_confidence_interval(st.estimate, st.standard_error, critical, alternative)
         interval = (finite_or_none(low), finite_or_none(high))
-    after = _after_stop(boundary, st, fraction, design) if decision in STOPPED_STATES else None
+    after = after_stop(boundary, st, design) if decision in STOPPED_STATES else None
     return Decision(decision, look, len(boundary.looks), interval, after)
 
 
-def _after_stop(boundary, st: Stat, fraction, design: Design) -> dict:
-    """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
+def after_stop(boundary, st: Stat, design: Design) -> dict:
+    """Stagewise p-value, median-unbiased estimate and adjusted interval at the stop look.
+
+    On the difference's own scale, from the stop look's estimate, its standard error and
+    the design's null difference (``stats.inference.adjusted_inference``); t statistics
+    use the sequential t law at the looks' df, rates pivot on the score statistic with the
+    unpooled standard error setting the scale.
+    """
     fractions = [b.fraction for b in boundary.looks]
     upper = [b.z for b in boundary.looks]
-    # t statistics enter the z-scale calculation through their one-sided p-value.
-    if st.df is None:
-        z = st.statistic
-    else:
+    t_stat = isinstance(boundary, SequentialTBoundary)
+    z = st.statistic
+    if t_stat:
+        # The observed t as the z with the same tail (the scale the boundaries are recorded on).
         z = float(-special.ndtri(st.p_upper)) if 0 < st.p_upper < 1 else math.copysign(40.0, st.statistic)
-    out = {"stop_look": len(fractions), "z_observed": z}
+    out = {"stop_look": len(fractions), "z_observed": z, "statistic_observed": st.statistic,
+           "naive_estimate": st.estimate}
+    if t_stat:
+        out["df"] = st.df
+    se, statistic_at = st.standard_error, None
+    if st.counts is not None:
+        x1, n1, x2, n2 = st.counts
+        p1, p2 = x1 / n1, x2 / n2
+        unpooled = math.sqrt(p1 * (1 - p1) / n1 + p2 * (1 - p2) / n2)
+        se = unpooled if unpooled > 0 else se
+
+        def statistic_at(delta):
+            return score_statistic(x1, n1, x2, n2, min(max(delta, -1 + 1e-9), 1 - 1e-9))[0]
     try:
-        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design.alternative)
-        if st.standard_error:
-            info_max = 1.0 / (st.standard_error ** 2 * fraction)
-            est = median_unbiased_estimate(fractions, upper, len(fractions), z, info_max,
-                                           design.alternative, alpha=design.alpha)
-            out["median_unbiased_estimate"] = est.estimate
-            out["adjusted_ci"] = list(est.ci)
-            # The look's own estimate: for t statistics the z-scale figure differs slightly.
-            out["naive_estimate"] = st.estimate
+        if not se:
+            raise InvalidArgumentError("the standard error at the stop look is zero")
+        result = adjusted_inference(fractions, upper, len(fractions), st.estimate, se,
+                                    null_difference=design.null_difference, alternative=design.alternative,
+                                    alpha=design.alpha, dfs=list(boundary.dfs) if t_stat else None,
+                                    statistic_at=statistic_at)
+        out["p_value"] = result.p_value
+        out["median_unbiased_estimate"] = result.estimate
+        out["adjusted_ci"] = list(result.ci)
     except (InvalidArgumentError, ValueError, RuntimeError) as exc:  # numerical trouble: keep the look
         out["note"] = f"adjusted inference unavailable: {exc}"
     return out

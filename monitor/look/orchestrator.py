@@ -19,7 +19,6 @@ fails part way.
 
 from __future__ import annotations
 
-import math
 import time
 import uuid
 from datetime import timedelta
@@ -29,14 +28,13 @@ from ..config import ComparisonConfig
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, SourceSpec, Watermark
-from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
                            write_look)
 from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
-from .decision import LookInputs, alert_kind, decide, weigh
+from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
 from .design_check import frozen_design
 from .memory import LookMemory
 from .record import LookRecord
@@ -164,7 +162,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if engine.dialect.name in _EXACT_FLOAT_STORES:
         if decision.boundary is not None:
             last = BoundaryLookRow(decision.boundary_number, values["fraction"], values["boundary_z"],
-                                   values["futility_z"])
+                                   values["futility_z"], values["df"])
         memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
@@ -199,7 +197,7 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
     return batch, cutoff, design
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility) -> SequentialBoundary:
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility):
     """The sequential boundary standing at the recorded testing looks.
 
     The one kept in memory is used when it stands at the last recorded testing look;
@@ -214,12 +212,7 @@ def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, fu
             count == 0 or (kept.looks[-1].fraction == last.fraction and kept.looks[-1].z == last.boundary_z)):
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
-    return SequentialBoundary.resume(
-        design.alpha, design.spending, design.alternative,
-        [r.fraction for r in recorded], [r.boundary_z for r in recorded],
-        futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
-        if futility is not None else None,
-        futility=futility)
+    return resumed_boundary(design, recorded, futility)
 
 
 def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatch) -> LookRecord:

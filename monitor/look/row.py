@@ -7,6 +7,7 @@ import math
 from dataclasses import dataclass
 from datetime import datetime
 
+from ..stats.clustered import NOT_YET_MEASURABLE
 from ..vocabulary import json_safe
 from .cells import Counts
 from .decision import Decision, Evidence
@@ -42,6 +43,12 @@ def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
         detail["fixed"] = st.fixed
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
+    if st.cluster_counts is not None:
+        detail["cluster_counts"] = st.cluster_counts
+    de = evidence.design_effect
+    if de is not None and not de.measurable:
+        # Too few days for the figure to mean anything: say so instead of a number.
+        detail["design_effect"] = NOT_YET_MEASURABLE
     if decision.after_stop is not None:
         detail["after_stop"] = decision.after_stop
     if counts.late_events:
@@ -69,7 +76,7 @@ def look_row(moment: LookMoment, evidence: Evidence, decision: Decision, counts:
         nominal_p=None if boundary is None else _float_column(boundary.nominal_p),
         cumulative_alpha=None if boundary is None else _float_column(boundary.cumulative_alpha),
         ci_low=low, ci_high=high, clusters=st.clusters,
-        design_effect=None if de is None else float(de.design_effect),
-        effective_n=None if de is None else finite_or_none(de.effective_total),
+        design_effect=None if de is None or not de.measurable else float(de.design_effect),
+        effective_n=None if de is None or not de.measurable else finite_or_none(de.effective_total),
         decision=decision.decision, boundary_look=decision.boundary_number, warnings=json_safe(list(evidence.warnings)),
     )

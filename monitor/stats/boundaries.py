@@ -66,8 +66,10 @@ t-based tests: the nominal-level rule
 Tests whose statistic is not normal (pooled, Welch, paired and clustered t) are
 compared through p-values: at look ``k`` reject when the look's one-sided
 p-value in the tested direction (for two-sided, in either direction) is at or
-below the boundary's nominal level ``1 − Φ(z_k)``; see
-:func:`nominal_decision`. Futility uses the same idea: the one-sided p-value in
+below the boundary's nominal level; see :func:`nominal_decision`. With this
+z engine's ``1 − Φ(z_k)`` that rule runs above alpha at small degrees of
+freedom; the look takes its nominal levels from the exact sequential t
+boundaries of :mod:`monitor.stats.sequential_t` instead. Futility uses the same idea: the one-sided p-value in
 the planned direction is turned back into a z by ``Φ⁻¹(1 − p)`` and compared
 with ``f_k`` (:func:`futility_decision`).
 

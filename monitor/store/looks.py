@@ -63,13 +63,13 @@ _CELLS_STATEMENT = sa.select(
     _CELL.c.kind, _CELL.c.group_index, _CELL.c.key, _CELL.c.n, _CELL.c.sum_dev, _CELL.c.sum_dev2
 ).where(_CELL.c.comparison_id == sa.bindparam("cid"))
 _LAST_BOUNDARY_STATEMENT = (
-    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z, _LOOK.c.df)
     .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None))
     .order_by(_LOOK.c.boundary_look.desc())
     .limit(1)
 )
 _BOUNDARY_LOOKS_STATEMENT = (
-    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z, _LOOK.c.df)
     .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None),
            _LOOK.c.boundary_look <= sa.bindparam("count"))
     .order_by(_LOOK.c.boundary_look)
@@ -92,8 +92,10 @@ def _cell_upsert(insert):
 
 _CELL_UPSERTS = {"sqlite": _cell_upsert(sqlite.insert), "postgresql": _cell_upsert(postgresql.insert)}
 
-# The last testing look as the boundary needs it (a stored row or the one just written).
-BoundaryLookRow = namedtuple("BoundaryLookRow", "boundary_look fraction boundary_z futility_z")
+# The last testing look as the boundary needs it (a stored row or the one just written); the
+# df of its statistic rebuilds a sequential t boundary.
+BoundaryLookRow = namedtuple("BoundaryLookRow", "boundary_look fraction boundary_z futility_z df",
+                             defaults=(None,))
 
 
 @dataclass(frozen=True)
