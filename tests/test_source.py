@@ -579,3 +579,33 @@ def test_read_rows_are_the_valid_rows(db_path, storage):
     assert len(rows) == batch.new_events
     capped = source.read_rows(spec, cutoff, arrival_max=100)
     assert len(capped) == int((t[:100] <= cutoff.timestamp()).sum())
+
+
+# --------------------------------------------------------------------------- dialect variants
+
+
+@pytest.mark.parametrize(
+    "url,variant,enforced",
+    [
+        ("sqlite:///ops.sqlite", "SQLiteDialect", True),
+        ("postgresql+psycopg://u@h/db", "PostgreSQLDialect", True),
+        ("mysql+pymysql://u@h/db", "MySQLDialect", True),
+        ("mariadb+pymysql://u@h/db", "MySQLDialect", True),
+        ("oracle://u@h/db", "SourceDialect", False),
+    ],
+)
+def test_each_url_gets_its_dialect_variant(url, variant, enforced):
+    from monitor.source.dialects import dialect_for
+
+    dialect = dialect_for(sa.engine.make_url(url))
+    assert type(dialect).__name__ == variant
+    assert dialect.enforces_read_only is enforced
+
+
+def test_public_names_import_from_the_package():
+    import monitor.source as package
+    from monitor.source import EXCLUSION_REASONS as reasons, SLOT_SECONDS as slot, Batch as B, Source as S
+    from monitor.source import SourceSpec as Spec, Watermark as W
+
+    assert (reasons, slot, B, S, Spec, W) == (EXCLUSION_REASONS, SLOT_SECONDS, Batch, Source, SourceSpec, Watermark)
+    assert set(package.__all__) >= {"Source", "SourceSpec", "Batch", "Watermark", "SLOT_SECONDS", "EXCLUSION_REASONS"}
