@@ -12,11 +12,15 @@ Example::
 from __future__ import annotations
 
 import math
+import os
+import uuid
 from datetime import datetime, timedelta, timezone
 
 import numpy as np
 import pandas as pd
+import pytest
 import sqlalchemy as sa
+from sqlalchemy.dialects import mysql
 
 __all__ = [
     "START",
@@ -26,7 +30,61 @@ __all__ = [
     "append_events",
     "stored_time",
     "sqlite_url",
+    "backends",
+    "backend_url",
+    "TIMESTAMP_STORAGE",
+    "DOUBLE",
+    "TIME_TEXT",
 ]
+
+# Column types that mean the same on every tested database: a double (MySQL's and DuckDB's
+# FLOAT is single precision), a timestamp keeping microseconds (MySQL's DATETIME drops them),
+# and indexable text for ISO times (MySQL cannot index an unbounded TEXT).
+DOUBLE = sa.Double()
+TIMESTAMP = sa.DateTime(timezone=False).with_variant(mysql.DATETIME(fsp=6), "mysql", "mariadb")
+TIME_TEXT = sa.String(64)
+
+# The time storage each database's tests use for a "real timestamp" column.
+TIMESTAMP_STORAGE = {"sqlite": "iso", "postgresql": "timestamptz", "mysql": "timestamp", "duckdb": "timestamp"}
+_MARKS = {"postgresql": (pytest.mark.postgres,), "mysql": (pytest.mark.mysql,)}
+
+
+def backends(*names):
+    """``pytest.param`` per database name (sqlite, postgresql, mysql, duckdb), for ``backend_url``."""
+    return [pytest.param(name, id=name, marks=_MARKS.get(name, ())) for name in names]
+
+
+@pytest.fixture
+def backend_url(request, tmp_path):
+    """URL of an empty database of the kind named by the parameter (see ``backends``)."""
+    name = request.param
+    if name == "sqlite":
+        yield sqlite_url(tmp_path / "ops.sqlite")
+    elif name == "duckdb":
+        yield f"duckdb:///{tmp_path / 'ops.duckdb'}"
+    elif name == "postgresql":
+        yield request.getfixturevalue("pg_database_url")
+    elif name == "mysql":
+        yield from _mysql_database()
+    else:
+        raise ValueError(f"unknown backend {name!r}")
+
+
+def _mysql_database():
+    server = os.environ.get("GAPWATCH_TEST_MYSQL_URL")
+    if not server:
+        pytest.skip("GAPWATCH_TEST_MYSQL_URL is not set (tests/run.sh sets it)")
+    name = f"gw_{uuid.uuid4().hex[:12]}"
+    admin = sa.create_engine(server, isolation_level="AUTOCOMMIT")
+    with admin.connect() as conn:
+        conn.execute(sa.text(f"CREATE DATABASE `{name}`"))
+    try:
+        yield sa.engine.make_url(server).set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(sa.text(f"DROP DATABASE IF EXISTS `{name}`"))
+        admin.dispose()
+
 
 START = datetime(2026, 3, 2, 6, 0, tzinfo=timezone.utc)
 
@@ -103,23 +161,23 @@ def events_table(
 ):
     """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key]."""
     time_type = {
-        "iso": sa.Text(),
-        "iso_z": sa.Text(),
-        "epoch": sa.Float(),
+        "iso": TIME_TEXT,
+        "iso_z": TIME_TEXT,
+        "epoch": DOUBLE,
         "epoch_int": sa.BigInteger(),
         "timestamptz": sa.DateTime(timezone=True),
-        "timestamp": sa.DateTime(timezone=False),
+        "timestamp": TIMESTAMP,
     }[time_storage]
     columns = []
     if id_column:
         columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True))
     columns += [
-        sa.Column("site", group_type if group_type is not None else sa.Text()),
-        sa.Column("value", value_type if value_type is not None else sa.Float()),
+        sa.Column("site", group_type if group_type is not None else sa.String(40)),
+        sa.Column("value", value_type if value_type is not None else DOUBLE),
         sa.Column("done_at", time_type),
     ]
     if key_column:
-        columns.append(sa.Column(key_column, sa.Text()))
+        columns.append(sa.Column(key_column, sa.String(40)))
     t = sa.Table(table, metadata, *columns, schema=schema)
     if time_index:
         sa.Index(f"ix_{table}_done_at", t.c.done_at)

@@ -12,12 +12,17 @@ Requirements on the source table
 * Time column: a SQL timestamp (a timestamp without time zone is read as UTC,
   one with a time zone is exact), a date, epoch seconds (integer or real), or
   ISO-8601 text. ISO text is compared as text (that is what keeps the index
-  usable), so **every row must share one format and one UTC offset** — the
-  format is detected from the earliest row (e.g. ``2024-05-01 08:30:00``,
+  usable), so **every row should share one layout and one UTC offset** — the
+  layout is detected from the earliest readable row (e.g. ``2024-05-01 08:30:00``,
   ``2024-05-01T08:30:00.123Z``, ``2024-05-01T08:30:00+02:00``) and cutoffs are
-  written in the same format. Text that is not a date-time is counted as
-  ``null_time`` when it sorts inside a read range; text sorting after every
-  date (a word, say) never falls inside one and is not seen at all.
+  written in it; each row's instant is read from its own text, and ``check``
+  reports rows in another layout (they are read at a later look than their
+  time). In SQLite each stored time is read by its own storage class: text as
+  ISO-8601, integers and reals as epoch seconds, so one number among text times
+  hides nothing. A time that cannot be read (text that is not an ISO-8601
+  date-time, an impossible date, an epoch beyond year 9999) is ``bad_time``:
+  counted when a read's time range reaches it, or — for words, which sort after
+  every date — once, on the first read or by its arrival.
 * Arrival column (optional, e.g. an auto-increment id or an ``inserted_at``
   column): increases with insertion; used to find late events. On SQLite the
   implicit rowid serves when no arrival column is configured (a ``VACUUM`` may
@@ -31,10 +36,12 @@ Requirements on the source table
   NaN as NULL, so there it is counted as ``null_value``.
 
 Exclusion reasons (each bad row is counted once, under the first that applies,
-in this order): ``null_time`` (NULL or unreadable time), ``unknown_group``
-(group value not one of the two configured), ``null_value``, ``non_numeric``
-(text that is not a number, or a blob), ``not_finite`` (NaN, ±infinity, also
-as text), ``not_binary`` (proportion metric, value not 0 or 1),
+in this order): ``null_time`` (no time), ``bad_time`` (a time that cannot be
+read), ``unknown_group`` (group value not one of the two configured),
+``null_value``, ``non_numeric`` (text that is not a number, or a blob),
+``not_finite`` (NaN, ±infinity, also as text, or beyond the largest double),
+``too_large`` (|value| above ``VALUE_LIMIT`` = 1e50, so no sum of squares can
+overflow), ``not_binary`` (proportion metric, value not 0 or 1),
 ``out_of_range`` (outside the inclusive ``valid_range``). In SQLite, numeric
 text counts as a number when, once trimmed, it is a JSON number (``12``,
 ``-3.5``, ``1e3``); other text is ``non_numeric``.
@@ -50,25 +57,28 @@ import sqlalchemy as sa
 from sqlalchemy import exc as sa_exc
 
 from ..errors import InvalidArgumentError, SourceSchemaError, SourceUnavailableError
+from .checking import reading_warnings, time_problems
 from .columns import Columns, reflect
 from .dialects import dialect_for
 from .spec import (
     EXCLUSION_REASONS,
     FILTER_OPERATORS,
     SLOT_SECONDS,
+    VALUE_LIMIT,
     Batch,
     SlotCell,
     SourceSpec,
     Watermark,
     utc,
 )
-from .statements import cells_statement, first_values_statement, row_parts, rows_statements
-from .times import IsoLayout, TimeKind, bind_time, to_utc_timestamps
+from .statements import cells_statement, first_values_statement, row_parts, rows_statements, time_params
+from .times import IsoLayout, TimeKind, to_utc_timestamps
 
 __all__ = [
     "SLOT_SECONDS",
     "EXCLUSION_REASONS",
     "FILTER_OPERATORS",
+    "VALUE_LIMIT",
     "SourceSpec",
     "Watermark",
     "SlotCell",
@@ -184,41 +194,30 @@ class Source:
         return kind
 
     def _detect_time_kind(self, conn, spec, cols: Columns):
-        """(kind, settled): settled is False while an empty table leaves the layout open."""
-        raw = cols.raw(spec.time_column)
-        sampled = []
-
-        def sample():
-            if not sampled:
-                sampled.append(self._dialect.sample_time(conn, raw))
-            return sampled[0]
-
+        """(kind, settled): settled is False until a text column shows a readable ISO-8601 time."""
         kind = self._dialect.time_kind(
-            spec.time_format, cols.declared_type(spec.time_column), sample, describe=self._describe(spec)
+            spec.time_format, cols.declared_type(spec.time_column), describe=self._describe(spec)
         )
-        if kind.kind == "iso":
-            _storage, value = sample()
-            kind = TimeKind("iso", iso=self._iso_layout(spec, value))
-        settled = not sampled or sampled[0][1] is not None
-        return kind, settled
+        if kind.kind not in ("iso", "stored"):
+            return kind, True
+        layout = self._iso_layout(conn, spec, cols)
+        return TimeKind(kind.kind, iso=layout or IsoLayout.default()), layout is not None
 
-    def _iso_layout(self, spec, sample) -> IsoLayout:
+    def _iso_layout(self, conn, spec, cols) -> IsoLayout | None:
+        """The layout of the earliest readable ISO-8601 text; None while there is none."""
         key = (spec.schema, spec.table, spec.time_column)
         with self._lock:
             cached = self._iso_layouts.get(key)
         if cached is not None:
             return cached
-        if sample is None:
-            # No rows yet: any layout partitions nothing; detect again next time.
-            return IsoLayout.default()
-        found = IsoLayout.detect(str(sample))
-        if found is None:
-            raise SourceSchemaError(
-                f"{self._describe(spec)} holds text {str(sample)[:40]!r} that is not an ISO-8601 date-time"
-            )
-        with self._lock:
-            self._iso_layouts[key] = found
-        return found
+        # Unreadable rows (counted as bad_time) do not decide the layout of the readable ones.
+        for text in self._dialect.iso_samples(conn, cols.raw(spec.time_column)):
+            found = IsoLayout.detect(str(text))
+            if found is not None:
+                with self._lock:
+                    self._iso_layouts[key] = found
+                return found
+        return None
 
     def _row_parts(self, conn, spec):
         cols = self._resolve(conn, spec)
@@ -263,9 +262,9 @@ class Source:
         """The aggregate statement (built once per spec and shape) and its bound values."""
         cols = self._resolve(conn, spec)
         kind = self._time_kind(conn, spec, cols)
-        params = {"upper": bind_time(kind, cutoff)}
+        params = time_params("upper", self._dialect.time_bounds(kind, cutoff))
         if since is not None:
-            params["lower"] = bind_time(kind, utc(since.cutoff, "since.cutoff"))
+            params.update(time_params("lower", self._dialect.time_bounds(kind, utc(since.cutoff, "since.cutoff"))))
         shape_key = (spec, kind, since is None)
         with self._lock:
             cached = self._statements.get(shape_key)
@@ -335,7 +334,8 @@ class Source:
                 if parts.arrival is None:
                     raise InvalidArgumentError(f"arrival_max given but table {spec.table!r} has no arrival column")
                 bound_arrival = self._dialect.bind_arrival(parts.arrival_type, arrival_max)
-            rows, counts = rows_statements(parts, bind_time(parts.kind, cutoff), bound_arrival)
+            upper = self._dialect.time_bounds(parts.kind, cutoff)
+            rows, counts = rows_statements(self._dialect, parts, upper, bound_arrival)
             return parts.kind, conn.execute(rows).all(), conn.execute(counts).all()
 
         kind, rows, counts = self._connect(spec, work)
@@ -374,64 +374,10 @@ class Source:
         except SourceSchemaError as error:
             problems.append(str(error))
             kind = None
-        if kind is not None and kind.kind == "iso":
-            problems.extend(self._iso_layout_problems(conn, spec, cols))
-        if not spec.arrival_column and cols.implicit_arrival is None:
-            problems.append(
-                "warning: no arrival_column (an id or inserted-at column that grows with "
-                "insertion): late events older than the lateness allowance will be missed"
-            )
-        indexed = _leading_index_columns(sa.inspect(conn), spec)
-        if spec.time_column not in indexed:
-            problems.append(
-                f"warning: no index starts with time_column {spec.time_column!r}: every look will scan the whole table"
-            )
-        if spec.arrival_column and spec.arrival_column not in indexed:
-            problems.append(
-                f"warning: no index starts with arrival_column {spec.arrival_column!r}: "
-                "the late-event query will scan the table"
-            )
-        if not self._dialect.enforces_read_only:
-            problems.append(
-                f"warning: read-only sessions are not enforced for dialect {self.dialect!r}; "
-                "give the source a read-only database user"
-            )
+        if kind is not None:
+            problems.extend(time_problems(conn, self._dialect, spec, row_parts(self._dialect, spec, cols, kind)))
+        problems.extend(reading_warnings(conn, self._dialect, spec, cols))
         return problems
-
-    def _iso_layout_problems(self, conn, spec, cols) -> list[str]:
-        raw = cols.raw(spec.time_column)
-        first = conn.execute(sa.select(raw).where(raw.is_not(None)).order_by(raw).limit(1)).scalar()
-        last = conn.execute(sa.select(raw).where(raw.is_not(None)).order_by(raw.desc()).limit(1)).scalar()
-        if first is None:
-            return []
-        a, b = IsoLayout.detect(str(first)), IsoLayout.detect(str(last))
-        if a is None or b is None:
-            return []  # already reported by the detection itself
-        if (a.sep, a.zone) != (b.sep, b.zone):
-            return [
-                f"time_column {spec.time_column!r} mixes text layouts ({first!r} … {last!r}); "
-                "ISO text is compared as text, so every row must share one layout and UTC offset"
-            ]
-        return []
-
-
-def _leading_index_columns(inspector, spec) -> set:
-    leading = set()
-    try:
-        for index in inspector.get_indexes(spec.table, schema=spec.schema):
-            names = index.get("column_names") or []
-            if names and names[0]:
-                leading.add(names[0])
-        pk = inspector.get_pk_constraint(spec.table, schema=spec.schema)
-        if pk and pk.get("constrained_columns"):
-            leading.add(pk["constrained_columns"][0])
-        for unique in inspector.get_unique_constraints(spec.table, schema=spec.schema):
-            names = unique.get("column_names") or []
-            if names:
-                leading.add(names[0])
-    except (NotImplementedError, sa_exc.SQLAlchemyError):
-        pass
-    return leading
 
 
 def _arrival_greater(a, b) -> bool:

@@ -18,6 +18,7 @@ __all__ = [
     "SLOT_SECONDS",
     "EXCLUSION_REASONS",
     "FILTER_OPERATORS",
+    "VALUE_LIMIT",
     "TIME_FORMATS",
     "METRICS",
     "SourceSpec",
@@ -32,14 +33,24 @@ __all__ = [
 SLOT_SECONDS = 900
 
 EXCLUSION_REASONS = (
-    "null_time",
+    "null_time",  # no event time
+    "bad_time",  # a stored time that is not a date-time (text that is not ISO-8601, an epoch out of range)
     "unknown_group",
     "null_value",
     "non_numeric",
-    "not_finite",
+    "not_finite",  # NaN, ±infinity, or beyond the largest double
+    "too_large",  # finite, but |value| > VALUE_LIMIT
     "not_binary",
     "out_of_range",
 )
+
+# Values whose magnitude exceeds this are excluded as ``too_large``. The bound keeps every
+# figure built from the shifted sums finite: with |x| and the shift c at most 1e50,
+# (x - c)^2 <= 4e100, so a sum over even 1e12 rows stays below 1e113, and the squares of
+# variances that Welch's degrees of freedom form (about 3e202 at most) stay far below the
+# largest double (1.8e308). Without it one value above about 1.3e154 overflows Σ(x - c)^2.
+# No measured operations quantity comes near 1e50.
+VALUE_LIMIT = 1e50
 
 FILTER_OPERATORS = ("=", "!=", "<", "<=", ">", ">=", "in", "not in")
 

@@ -19,7 +19,7 @@ from .binding import bind_like, bind_type, literal, literals
 from .columns import Columns
 from .times import TimeKind
 
-__all__ = ["RowParts", "row_parts", "cells_statement", "rows_statements", "first_values_statement"]
+__all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "first_values_statement"]
 
 
 @dataclass(frozen=True)
@@ -33,6 +33,7 @@ class RowParts:
     value: object
     summand: object
     reason: object  # NULL for a valid row, else the exclusion reason
+    other_reason: object  # the reason for a row whose time is readable
     key: object
     arrival: object
     arrival_type: object
@@ -46,12 +47,8 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
     raw_value = cols.raw(spec.value_column)
     value_type = cols.declared_type(spec.value_column)
     value, value_reason = dialect.value_parts(spec, raw_value, value_type)
-    # The epoch of a NULL time is NULL, so one test covers NULL and unreadable times.
-    reason = sa.case(
-        (epoch.is_(None), "null_time"),
-        (group_index.is_(None), "unknown_group"),
-        else_=value_reason,
-    )
+    other_reason = sa.case((group_index.is_(None), "unknown_group"), else_=value_reason)
+    reason = sa.case((time_raw.is_(None), "null_time"), (epoch.is_(None), "bad_time"), else_=other_reason)
     key = sa.cast(cols.raw(spec.key_column), sa.String) if spec.key_column else sa.null()
     if spec.arrival_column:
         arrival, arrival_type = cols.raw(spec.arrival_column), cols.declared_type(spec.arrival_column)
@@ -67,6 +64,7 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         value=value,
         summand=dialect.summand(raw_value, value, value_type),
         reason=reason,
+        other_reason=other_reason,
         key=key,
         arrival=arrival,
         arrival_type=arrival_type,
@@ -105,61 +103,87 @@ def _filters(spec, cols):
         yield _COMPARISONS[op](column, literal(bound))
 
 
+def time_params(name: str, values: tuple) -> dict:
+    """One cutoff's bound values as named parameters: ``upper``, then ``upper_1`` … for further storages."""
+    return {(name if i == 0 else f"{name}_{i}"): v for i, v in enumerate(values)}
+
+
+def _bounds(bound: dict, name: str) -> tuple | None:
+    if name not in bound:
+        return None
+    values, i = [bound[name]], 1
+    while f"{name}_{i}" in bound:
+        values.append(bound[f"{name}_{i}"])
+        i += 1
+    return tuple(values)
+
+
 def cells_statement(dialect, spec, parts: RowParts, params: dict):
     """The aggregate over new and late rows, with bound parameters named like ``params``.
 
     ``params`` holds ``upper`` (this cutoff), and on later reads ``lower`` (the previous
-    cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column.
+    cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column
+    (see ``time_params`` for cutoffs compared in more than one storage).
     """
     bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
-    time_raw, arrival = parts.time_raw, parts.arrival
+    kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
     dev = parts.summand - float(spec.shift)
-    slot = dialect.slot(parts.kind, parts.epoch)
     # Grouped by output position: the CASE expressions are evaluated once per row
     # (bound parameters make each repeated expression text distinct to the database).
     by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
 
     def part(where, late):
-        return (
+        # Each row's time and deviation are computed once in an inner select (the dialect
+        # may fence it so the database does not inline the expressions again); the outer
+        # select buckets and sums them.
+        rows = dialect.fence(
             sa.select(
                 parts.group_index.label("gi"),
-                slot.label("slot"),
+                parts.epoch.label("at"),
+                time_raw.is_(None).label("no_time"),
                 parts.key.label("key"),
-                parts.reason.label("reason"),
-                sa.func.count().label("n"),
-                (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
-                # Sums of bad groups are ignored; only valid groups' sums are used.
-                sa.func.sum(dev).label("sum_dev"),
-                sa.func.sum(dev * dev).label("sum_dev2"),
-                sa.func.max(arrival if arrival is not None else sa.null()).label("arrival"),
-            )
-            .where(*where, *parts.filters)
-            .group_by(*by_position)
-        )
+                parts.other_reason.label("other"),
+                dev.label("dev"),
+                (arrival if arrival is not None else sa.null()).label("arrival"),
+            ).where(*where, *parts.filters)
+        ).subquery("r")
+        reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
+        return sa.select(
+            rows.c.gi,
+            dialect.slot(kind, rows.c.at).label("slot"),
+            rows.c.key,
+            reason.label("reason"),
+            sa.func.count().label("n"),
+            (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
+            # Sums of bad groups are ignored; only valid groups' sums are used.
+            sa.func.sum(rows.c.dev).label("sum_dev"),
+            sa.func.sum(rows.c.dev * rows.c.dev).label("sum_dev2"),
+            sa.func.max(rows.c.arrival).label("arrival"),
+        ).group_by(*by_position)
 
-    upper = bound["upper"]
-    if "lower" not in bound:
+    upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
+    if lower is None:
         branches = [
-            part([time_raw <= upper], 0),
-            # NULL times never fall in a time range: count them once, on the first read.
-            part([time_raw.is_(None)], 0),
+            part([dialect.time_range(kind, time_raw, None, upper)], 0),
+            # NULL times (and words) never fall in a time range: count them once, on the first read.
+            part([dialect.unplaced(kind, time_raw, above=upper)], 0),
         ]
     else:
-        lower = bound["lower"]
-        branches = [part([time_raw > lower, time_raw <= upper], 0)]
+        branches = [part([dialect.time_range(kind, time_raw, lower, upper)], 0)]
         if arrival is not None:
             # Late rows are only those at or before the previous cutoff, so rows read
             # earlier through the time range can never come back through this branch.
             newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
-            branches.append(part([time_raw <= lower, newer], 1))
-            branches.append(part([time_raw.is_(None), newer], 0))
+            branches.append(part([dialect.time_range(kind, time_raw, None, lower), newer], 1))
+            branches.append(part([dialect.unplaced(kind, time_raw), newer], 0))
     return sa.union_all(*branches)
 
 
-def rows_statements(parts: RowParts, upper, arrival_max):
+def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max):
     """(valid rows, per-reason counts) of the rows with time <= ``upper`` and arrival <= ``arrival_max``."""
     time_raw, arrival = parts.time_raw, parts.arrival
-    where = [sa.or_(time_raw <= literal(upper), time_raw.is_(None))]
+    upper = tuple(literal(v) for v in upper)
+    where = [sa.or_(dialect.time_range(parts.kind, time_raw, None, upper), dialect.unplaced(parts.kind, time_raw))]
     if arrival_max is not None:
         where.append(sa.or_(arrival <= literal(arrival_max), arrival.is_(None)))
     where.extend(parts.filters)

@@ -80,7 +80,7 @@ class IsoLayout:
 class TimeKind:
     """How the time column is stored: decides the bound cutoff and the epoch expression."""
 
-    kind: str  # "timestamp" | "date" | "epoch" | "iso"
+    kind: str  # "timestamp" | "date" | "epoch" | "iso" | "stored" (each value by its storage class)
     timezone_aware: bool = False
     integer: bool = False
     decimal: bool = False
@@ -111,6 +111,15 @@ def to_utc_timestamps(series, kind: TimeKind):
 
     if series.empty:
         return pd.Series(pd.DatetimeIndex([], tz="UTC"), index=series.index)
+    if kind.kind == "stored":
+        # Text and numbers side by side (SQLite): each read by its own storage class.
+        text = series.map(lambda v: isinstance(v, str))
+        out = pd.Series(pd.NaT, index=series.index, dtype="datetime64[ns, UTC]")
+        if text.any():
+            out[text] = pd.to_datetime(series[text].astype(str), utc=True, format="ISO8601")
+        if (~text).any():
+            out[~text] = pd.to_datetime(series[~text].astype("float64"), unit="s", utc=True)
+        return out
     if kind.kind == "epoch":
         return pd.to_datetime(series.astype("float64"), unit="s", utc=True)
     if kind.kind == "iso":

@@ -18,12 +18,21 @@ import sqlalchemy as sa
 
 from ...errors import SourceSchemaError
 from ..binding import bind_like, is_numeric_type, literals
-from ..spec import SLOT_SECONDS, utc
-from ..times import TimeKind
+from ..spec import SLOT_SECONDS, VALUE_LIMIT, utc
+from ..times import TimeKind, bind_time
 
-__all__ = ["SourceDialect", "FLOAT_MAX"]
+__all__ = ["SourceDialect", "FLOAT_MAX", "ISO_REGEX"]
 
 FLOAT_MAX = sys.float_info.max
+
+# A well-formed ISO-8601 date-time with fields in range (the day is checked against its month
+# separately). Rows that do not match are never cast, so one bad text cannot fail a statement.
+ISO_REGEX = (
+    r"^[0-9]{4}-(0[1-9]|1[0-2])-(0[1-9]|[12][0-9]|3[01])"
+    r"([T ]([01][0-9]|2[0-3]):[0-5][0-9](:[0-5][0-9](\.[0-9]+)?)?)?"
+    r"(Z|[+-]([01][0-9]|2[0-3]):[0-5][0-9])?$"
+)
+_LETTERS = tuple("abcdefghijklmnopqrstuvwxyz")
 
 
 class SourceDialect:
@@ -80,16 +89,18 @@ class SourceDialect:
 
     # ------------------------------------------------------------------ time
 
-    def sample_time(self, conn, raw) -> tuple:
-        """(storage, value) of the earliest stored time; ``(None, None)`` for an empty table."""
-        # The earliest value comes straight off the time index.
-        value = conn.execute(sa.select(raw).where(raw.is_not(None)).order_by(raw).limit(1)).scalar()
-        return ("text", value) if value is not None else (None, None)
+    def iso_samples(self, conn, raw) -> list:
+        """Stored texts to detect an ISO layout from: the earliest values, then the latest."""
+        # Both come straight off the time index.
+        present = raw.is_not(None)
+        first = conn.execute(sa.select(raw).where(present).order_by(raw).limit(25)).scalars().all()
+        last = conn.execute(sa.select(raw).where(present).order_by(raw.desc()).limit(25)).scalars().all()
+        return first + last
 
-    def time_kind(self, wanted: str, column_type, sample, *, describe: str) -> TimeKind:
-        """How the time column stores events. ``sample()`` gives (storage, value) when needed.
+    def time_kind(self, wanted: str, column_type, *, describe: str) -> TimeKind:
+        """How the time column stores events, from its declared type and ``time_format``.
 
-        An ``iso`` kind is returned without its layout; the reader detects that from a stored value.
+        An ``iso`` kind is returned without its layout; the reader detects that from stored values.
         """
         if wanted == "auto":
             if isinstance(column_type, sa.DateTime):
@@ -116,22 +127,74 @@ class SourceDialect:
             )
         return TimeKind("iso")
 
+    def time_bounds(self, kind: TimeKind, moment) -> tuple:
+        """One cutoff as the values the time predicates compare with (one per storage the column holds)."""
+        return (bind_time(kind, moment),)
+
+    def time_range(self, kind: TimeKind, raw, lower, upper):
+        """Rows with ``lower < time <= upper`` (no ``lower``: every time up to ``upper``).
+
+        A plain comparison of the raw column with bound values, so the index serves it.
+        """
+        if lower is None:
+            return raw <= upper[0]
+        return sa.and_(raw > lower[0], raw <= upper[0])
+
+    def unplaced(self, kind: TimeKind, raw, above=None):
+        """Rows that no time range ever holds: counted once, on the first read or by arrival.
+
+        NULL times, and for text times a text that starts with a letter: it sorts after every
+        date and is never readable (a readable time starts with its year). ``above`` (the first
+        read's upper bounds) lets the index find them.
+        """
+        if kind.kind not in ("iso", "stored"):
+            return raw.is_(None)
+        word = sa.func.lower(sa.func.substr(raw, 1, 1)).in_(literals(_LETTERS))
+        if above is not None:
+            word = sa.and_(raw > above[0], word)
+        return sa.or_(raw.is_(None), word)
+
+    def is_text(self, raw):
+        """Whether a stored time is text (always, in a typed text column)."""
+        return sa.true()
+
     def epoch(self, kind: TimeKind, raw):
-        """Event time as epoch seconds, for the SELECT list only (predicates compare the raw column)."""
+        """Event time as epoch seconds, NULL when unreadable; for the SELECT list only."""
         if kind.kind == "epoch":
             return sa.cast(raw, sa.Float)
         if kind.kind == "iso":
-            return self.text_epoch(kind, raw)
+            return self.text_epoch(raw)
         return self.timestamp_epoch(raw)
 
     def timestamp_epoch(self, raw):
         """A timestamp or date column as epoch seconds (a naive timestamp is UTC)."""
         return sa.cast(sa.extract("epoch", raw), sa.Float)
 
-    def text_epoch(self, kind: TimeKind, raw):
-        """ISO-8601 text as epoch seconds."""
-        target = sa.DateTime(timezone=bool(kind.iso.zone))
-        return sa.cast(sa.extract("epoch", sa.cast(raw, target)), sa.Float)
+    def text_epoch(self, raw):
+        """ISO-8601 text as epoch seconds, NULL for text that is not a valid date-time."""
+        year = sa.cast(sa.func.substr(raw, 1, 4), sa.Integer)
+        month = sa.cast(sa.func.substr(raw, 6, 2), sa.Integer)
+        day = sa.cast(sa.func.substr(raw, 9, 2), sa.Integer)
+        leap = sa.case((sa.or_(sa.and_(year % 4 == 0, year % 100 != 0), year % 400 == 0), 1), else_=0)
+        days_in_month = sa.case(
+            (month == 2, 28 + leap), (month.in_(literals((4, 6, 9, 11))), 30), else_=31
+        )
+        # Nested CASEs keep the order: the substrings are cast only after the pattern matched.
+        return sa.case(
+            (
+                raw.regexp_match(ISO_REGEX),
+                sa.case((day <= days_in_month, self.valid_text_epoch(raw)), else_=None),
+            ),
+            else_=None,
+        )
+
+    def valid_text_epoch(self, raw):
+        """Well-formed ISO-8601 text as epoch seconds (text without an offset is UTC)."""
+        return sa.cast(sa.extract("epoch", sa.cast(raw, sa.DateTime(timezone=True))), sa.Float)
+
+    def fence(self, select):
+        """An inner select whose columns the database computes once per row (planners inline it here)."""
+        return select
 
     def slot(self, kind: TimeKind, epoch):
         """The start of the event's 15-minute UTC slot, in epoch seconds."""
@@ -159,18 +222,19 @@ class SourceDialect:
             value = sa.case((raw.is_(True), 1.0), else_=0.0)
         else:
             value = sa.cast(raw, sa.Float)
-            if not isinstance(value_type, sa.Integer):
-                limit = _float_limit(value_type)
-                # NaN sorts above every number here, so the upper test catches NaN as well.
-                checks.append((sa.or_(raw > sa.literal(limit), raw < sa.literal(-limit)), "not_finite"))
+            if not isinstance(value_type, sa.Integer):  # a 64-bit integer never exceeds the limits
+                top, limit = _typed(value_type, FLOAT_MAX), _typed(value_type, VALUE_LIMIT)
+                # NaN sorts above every number in these databases, so the upper test catches NaN as well.
+                checks.append((sa.or_(raw > sa.literal(top), raw < sa.literal(-top)), "not_finite"))
+                checks.append((sa.or_(raw > sa.literal(limit), raw < sa.literal(-limit)), "too_large"))
         checks.extend(self.number_checks(spec, value))
         return value, sa.case(*checks, else_=None)
 
     def summand(self, raw, value, value_type):
-        """The value as summed: NULL where converting it could fail (a numeric beyond float)."""
+        """The value as summed: NULL beyond VALUE_LIMIT, so no square can overflow and fail the statement."""
         if isinstance(value_type, (sa.Integer, sa.Boolean)):
             return value
-        limit = _float_limit(value_type)
+        limit = _typed(value_type, VALUE_LIMIT)
         return sa.case((sa.and_(raw <= sa.literal(limit), raw >= sa.literal(-limit)), value), else_=None)
 
     # ------------------------------------------------------------------ arrivals
@@ -185,6 +249,6 @@ class SourceDialect:
         return bind_like(arrival_type, value)
 
 
-def _float_limit(value_type):
-    """The largest finite double, as a value comparable with the column without a lossy cast."""
-    return FLOAT_MAX if isinstance(value_type, sa.Float) else Decimal(repr(FLOAT_MAX))
+def _typed(value_type, bound: float):
+    """A float bound as a value comparable with the column without a lossy cast."""
+    return bound if isinstance(value_type, sa.Float) else Decimal(repr(bound))

@@ -16,6 +16,10 @@ class PostgreSQLDialect(SourceDialect):
 
     def connect_args(self):
         if self.enforces_read_only:
-            # Every transaction of the session is read-only unless it says otherwise (we never do).
-            return {"options": "-c default_transaction_read_only=on"}
+            # Every transaction of the session is read-only unless it says otherwise (we never do);
+            # text times without an offset are read as UTC.
+            return {"options": "-c default_transaction_read_only=on -c timezone=UTC"}
         return {}
+
+    def session_statements(self):
+        return () if self.enforces_read_only else ("SET TIME ZONE 'UTC'",)

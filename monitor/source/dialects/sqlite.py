@@ -14,14 +14,17 @@ from urllib.parse import quote
 import sqlalchemy as sa
 from sqlalchemy import exc as sa_exc
 
-from ...errors import InvalidArgumentError, SourceSchemaError
-from ..binding import bind_like, is_numeric_type, literals
-from ..spec import SLOT_SECONDS
+from ...errors import InvalidArgumentError
+from ..binding import bind_like, literals
+from ..spec import SLOT_SECONDS, VALUE_LIMIT
 from ..times import TimeKind
 from .base import FLOAT_MAX, SourceDialect
 
 __all__ = ["SQLiteDialect"]
 
+# Epoch seconds from 0001-01-01 to 9999-12-31 23:59:59: the times a text layout can also hold.
+_EPOCH_MIN, _EPOCH_MAX = -62135596800, 253402300799
+_ISO_START = "[0-9][0-9][0-9][0-9]-[0-1][0-9]-[0-3][0-9]*"
 # Spellings SQLite keeps as text but that name a non-finite number.
 _NON_FINITE_TEXT = ("nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity", "-infinity")
 
@@ -57,42 +60,62 @@ class SQLiteDialect(SourceDialect):
     def value_type_problem(self, value_type):
         return None  # each stored value is checked on its own
 
-    def sample_time(self, conn, raw):
-        row = conn.execute(sa.select(raw, sa.func.typeof(raw)).where(raw.is_not(None)).order_by(raw).limit(1)).first()
-        return (row[1], row[0]) if row is not None else (None, None)
+    def iso_samples(self, conn, raw):
+        # Text sorts after every number in SQLite: seek to the first text, not the first row.
+        text = raw >= sa.literal("")
+        first = conn.execute(sa.select(raw).where(text).order_by(raw).limit(25)).scalars().all()
+        last = conn.execute(sa.select(raw).where(text).order_by(raw.desc()).limit(25)).scalars().all()
+        return [v for v in first + last if isinstance(v, str)]
 
-    def time_kind(self, wanted, column_type, sample, *, describe):
-        # Look at a stored value, not the declared type.
-        storage, _value = sample()
-        if wanted == "auto":
-            if storage in ("integer", "real"):
-                wanted = "epoch"
-            elif storage == "text":
-                wanted = "iso"
-            elif storage is None:
-                wanted = "epoch" if is_numeric_type(column_type) else "iso"
-            else:
-                raise SourceSchemaError(f"{describe} holds {storage} values; need ISO-8601 text or epoch seconds")
-        if wanted == "epoch":
-            return TimeKind("epoch", integer=storage == "integer")
-        return TimeKind("iso")  # "timestamp" columns hold text in SQLite
+    def time_kind(self, wanted, column_type, *, describe):
+        # SQLite keeps whatever was inserted, whatever the declared type: each stored time is read
+        # by its own storage class (ISO-8601 text, or epoch seconds as integer or real).
+        return TimeKind("stored")
+
+    def time_bounds(self, kind, moment):
+        return (kind.iso.format(moment), moment.timestamp())
+
+    def time_range(self, kind, raw, lower, upper):
+        # Numbers sort before all text, and text before blobs, so each storage class has its own
+        # range on the one index: text against the text cutoff, numbers against the epoch cutoff.
+        empty = sa.literal("")
+        if lower is None:
+            text = sa.and_(raw >= empty, raw <= upper[0])
+            number = sa.and_(raw < empty, raw <= upper[1])
+        else:
+            text = sa.and_(raw > lower[0], raw <= upper[0])
+            number = sa.and_(raw < empty, raw > lower[1], raw <= upper[1])
+        return sa.or_(text, number)
+
+    def is_text(self, raw):
+        return sa.func.typeof(raw) == "text"
 
     def epoch(self, kind, raw):
-        if kind.kind == "epoch":
-            return raw
+        """Whole epoch seconds (floored) by storage class; NULL for anything that is not a readable time."""
         if sqlite3.sqlite_version_info >= (3, 38, 0):
-            return sa.func.unixepoch(raw)  # an integer, without formatting text first
-        return sa.cast(sa.func.strftime("%s", raw), sa.Integer)
+            from_text = sa.func.unixepoch(raw)  # an integer, without formatting text first
+        else:
+            from_text = sa.cast(sa.func.strftime("%s", raw), sa.Integer)
+        # SQLite's date functions also read words such as 'now' and bare clock times, and roll
+        # 2026-02-30 over into March: insist on a date first, and on a day its month has.
+        day = sa.func.substr(raw, 1, 10)
+        day_exists = sa.or_(sa.func.substr(raw, 9, 2) <= "28", sa.func.date(day, "+0 days") == day)
+        text = sa.case((sa.and_(raw.op("GLOB")(_ISO_START), day_exists), from_text), else_=None)
+        in_range = raw.between(_EPOCH_MIN, _EPOCH_MAX)
+        whole = sa.cast(raw, sa.Integer)
+        # CAST truncates toward zero; step down for negative fractions to floor.
+        real = sa.case((in_range, whole - sa.case((raw < whole, 1), else_=0)), else_=None)
+        integer = sa.case((in_range, raw), else_=None)
+        return sa.case({"text": text, "integer": integer, "real": real}, value=sa.func.typeof(raw), else_=None)
+
+    def fence(self, select):
+        # SQLite does not flatten a subquery with a LIMIT into an aggregate, so the per-row time
+        # and value checks run once per row instead of once per reference.
+        return select.limit(-1)
 
     def slot(self, kind, epoch):
-        if kind.kind == "epoch":
-            whole = sa.cast(epoch, sa.Integer)
-            # CAST truncates toward zero; step down for negative fractions before flooring.
-            whole = whole - sa.case((epoch < whole, 1), else_=0)
-        else:
-            whole = epoch
-        # SQLite's % keeps the sign of the dividend; this floors negative epochs too.
-        return whole - ((whole % SLOT_SECONDS) + SLOT_SECONDS) % SLOT_SECONDS
+        # The epoch is whole seconds; SQLite's % keeps the sign of the dividend, so floor it by hand.
+        return epoch - ((epoch % SLOT_SECONDS) + SLOT_SECONDS) % SLOT_SECONDS
 
     def value_parts(self, spec, raw, value_type):
         # Branch once on typeof(), so a plain REAL or INTEGER row costs a few comparisons and no conversion.
@@ -107,11 +130,13 @@ class SQLiteDialect(SourceDialect):
             (sa.func.lower(trimmed).in_(literals(_NON_FINITE_TEXT)), "not_finite"),
             (sa.not_(is_json_number), "non_numeric"),
             (sa.or_(from_text > FLOAT_MAX, from_text < -FLOAT_MAX), "not_finite"),
+            (sa.or_(from_text > VALUE_LIMIT, from_text < -VALUE_LIMIT), "too_large"),
             *self.number_checks(spec, from_text),
             else_=None,
         )
         number_reason = sa.case(
             (sa.or_(raw > FLOAT_MAX, raw < -FLOAT_MAX), "not_finite"),
+            (sa.or_(raw > VALUE_LIMIT, raw < -VALUE_LIMIT), "too_large"),
             *self.number_checks(spec, raw),
             else_=None,
         )
@@ -124,7 +149,9 @@ class SQLiteDialect(SourceDialect):
         return value, reason
 
     def summand(self, raw, value, value_type):
-        return value  # SQLite turns an overflow into ±inf instead of failing the statement
+        # SQLite turns an overflow into ±inf instead of failing the statement, and rows beyond
+        # VALUE_LIMIT are summed only into their own (excluded) groups.
+        return value
 
     def bind_arrival(self, arrival_type, value):
         return None if value is None else bind_like(arrival_type, value)
