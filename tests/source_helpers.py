@@ -28,6 +28,8 @@ __all__ = [
     "events_table",
     "create_events_table",
     "append_events",
+    "seconds_table",
+    "numbering",
     "stored_time",
     "sqlite_url",
     "backends",
@@ -123,6 +125,11 @@ def make_events(
     return frame
 
 
+def numbering(name: str) -> dict:
+    """Column options that number ids from a sequence, also for inserts that do not name the id."""
+    return {"server_default": sa.text(f"nextval('{name}')"), "default": sa.Sequence(name)}
+
+
 def stored_time(moment, storage: str):
     """``moment`` (aware datetime or None) as the table stores it for ``storage``."""
     if moment is None or (isinstance(moment, float) and math.isnan(moment)):
@@ -158,8 +165,12 @@ def events_table(
     id_column="id",
     time_index=True,
     schema=None,
+    id_sequence=False,
 ):
-    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key]."""
+    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key].
+
+    ``id_sequence`` numbers the ids from a sequence (DuckDB has no auto-increment column).
+    """
     time_type = {
         "iso": TIME_TEXT,
         "iso_z": TIME_TEXT,
@@ -170,7 +181,8 @@ def events_table(
     }[time_storage]
     columns = []
     if id_column:
-        columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True))
+        ids = numbering(f"{table}_{id_column}_seq") if id_sequence else {}
+        columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True, **ids))
     columns += [
         sa.Column("site", group_type if group_type is not None else sa.String(40)),
         sa.Column("value", value_type if value_type is not None else DOUBLE),
@@ -209,6 +221,7 @@ def create_events_table(url, rows, *, table="events", time_storage="iso", chunk=
     engine = sa.create_engine(url)
     try:
         metadata = sa.MetaData()
+        table_options.setdefault("id_sequence", engine.dialect.name == "duckdb")
         t = events_table(metadata, table=table, time_storage=time_storage, **table_options)
         metadata.create_all(engine)
         _insert(engine, t, rows, time_storage, chunk)
@@ -218,17 +231,49 @@ def create_events_table(url, rows, *, table="events", time_storage="iso", chunk=
 
 
 def append_events(url, rows, *, table="events", time_storage="iso", chunk=5000, schema=None):
-    """Insert more rows into an existing events table."""
+    """Insert more rows (the columns they name) into an existing events table."""
+    frame = rows if isinstance(rows, pd.DataFrame) else pd.DataFrame(list(rows))
+    # Named columns, not reflection: not every dialect reflects (DuckDB's cannot).
+    t = sa.table(table, *(sa.column(name) for name in frame.columns), schema=schema)
     engine = sa.create_engine(url)
     try:
-        t = sa.Table(table, sa.MetaData(), autoload_with=engine, schema=schema)
-        _insert(engine, t, rows, time_storage, chunk)
+        _insert(engine, t, frame, time_storage, chunk)
+    finally:
+        engine.dispose()
+
+
+def seconds_table(url, rows=(), *, time_type=None, value_type=None, table="events"):
+    """The live tests' ``(id, site, seconds, done_at)`` table on any database, with ``rows`` inserted.
+
+    ``rows`` are dicts; aware times are stored as naive UTC for timestamp columns.
+    """
+    engine = sa.create_engine(url)
+    try:
+        ids = numbering(f"{table}_id_seq") if engine.dialect.name == "duckdb" else {}
+        metadata = sa.MetaData()
+        t = sa.Table(
+            table, metadata,
+            sa.Column("id", sa.Integer, primary_key=True, autoincrement=True, **ids),
+            sa.Column("site", sa.String(40)),
+            sa.Column("seconds", value_type if value_type is not None else DOUBLE),
+            sa.Column("done_at", time_type if time_type is not None else TIMESTAMP),
+            sa.Index(f"ix_{table}_done_at", "done_at"),
+        )
+        metadata.create_all(engine)
+        rows = [
+            {k: (v.astimezone(timezone.utc).replace(tzinfo=None) if isinstance(v, datetime) else v) for k, v in r.items()}
+            for r in rows
+        ]
+        if rows:
+            with engine.begin() as conn:
+                conn.execute(sa.insert(t), rows)
+        return t
     finally:
         engine.dispose()
 
 
 def _insert(engine, t, rows, time_storage, chunk):
-    names = [c.name for c in t.columns if not (c.primary_key and c.autoincrement)]
+    names = [c.name for c in t.columns if not (getattr(c, "primary_key", False) and c.autoincrement)]
     records = _records(rows, time_storage, names)
     with engine.begin() as conn:
         for i in range(0, len(records), chunk):

@@ -14,7 +14,7 @@ import pytest
 import sqlalchemy as sa
 from scipy import stats
 
-from live_helpers import UTC, LiveWorld, at, create_events_table as create_seconds_table, event_rows
+from live_helpers import UTC, LiveWorld, at, event_rows
 from monitor.source import Source
 from source_helpers import (
     DOUBLE,
@@ -26,11 +26,13 @@ from source_helpers import (
     backends,
     create_events_table,
     make_events,
+    numbering,
+    seconds_table,
     stored_time,
 )
 from test_source import as_dict, assert_cells_equal, reference_cells, spec_for
 
-EVERY_DATABASE = backends("sqlite", "postgresql")
+EVERY_DATABASE = backends("sqlite", "postgresql", "mysql", "duckdb")
 T0 = at(2, 6)
 
 
@@ -88,7 +90,7 @@ def test_a_huge_value_never_stalls_the_looks(backend_url, tmp_path):
     rows = event_rows(np.random.default_rng(43), 400, T0, east=101.0)
     huge = [{"site": "east", "seconds": 1e300, "done_at": T0 + timedelta(hours=2)},
             {"site": "west", "seconds": -3e154, "done_at": T0 + timedelta(hours=9)}]
-    create_seconds_table(backend_url, rows=rows + huge, value_type=DOUBLE)
+    seconds_table(backend_url, rows + huge)
     world = LiveWorld(tmp_path, source_url=backend_url, arrival_column="id", planned_per_group=5000)
     for hours in (4, 8, 12, 20):
         record = world.look(T0 + timedelta(hours=hours))
@@ -108,9 +110,10 @@ def _text_time_table(url, rows, time_type=TIME_TEXT):
     """An events table whose time column holds exactly the given values (text or numbers)."""
     engine = sa.create_engine(url)
     metadata = sa.MetaData()
+    ids = numbering("events_id_seq") if engine.dialect.name == "duckdb" else {}
     table = sa.Table(
         "events", metadata,
-        sa.Column("id", sa.Integer, primary_key=True, autoincrement=True),
+        sa.Column("id", sa.Integer, primary_key=True, autoincrement=True, **ids),
         sa.Column("site", sa.String(40)),
         sa.Column("value", DOUBLE),
         sa.Column("done_at", time_type),
@@ -222,14 +225,10 @@ def test_unreadable_time_text_is_counted_as_bad_time_once(backend_url):
 @pytest.mark.parametrize("backend_url", EVERY_DATABASE, indirect=True)
 def test_an_unreadable_earliest_time_does_not_block_the_looks(backend_url, tmp_path):
     rows = event_rows(np.random.default_rng(47), 300, T0, east=101.0)
-    create_seconds_table(backend_url, value_type=DOUBLE, time_type=TIME_TEXT)
     text_rows = [{"site": "east", "seconds": 5.0, "done_at": "02/03/2026 10:00"},
                  {"site": "west", "seconds": 5.0, "done_at": "yesterday"}]
     text_rows += [dict(r, done_at=_iso(r["done_at"])) for r in rows]
-    engine = sa.create_engine(backend_url)
-    with engine.begin() as conn:
-        conn.execute(sa.Table("events", sa.MetaData(), autoload_with=conn).insert(), text_rows)
-    engine.dispose()
+    seconds_table(backend_url, text_rows, time_type=TIME_TEXT)
     world = LiveWorld(tmp_path, source_url=backend_url, arrival_column="id", planned_per_group=5000)
     first = world.look(T0 + timedelta(hours=5))
     assert first.excluded == {"bad_time": 2}

@@ -81,7 +81,10 @@ def reading_warnings(conn, dialect, spec, cols) -> list[str]:
             "warning: no arrival_column (an id or inserted-at column that grows with "
             "insertion): late events older than the lateness allowance will be missed"
         )
-    indexed = _leading_index_columns(sa.inspect(conn), spec)
+    if not dialect.wants_indexes:
+        indexed = {spec.time_column, spec.arrival_column}
+    else:
+        indexed = _leading_index_columns(sa.inspect(conn), spec)
     if spec.time_column not in indexed:
         warnings.append(
             f"warning: no index starts with time_column {spec.time_column!r}: every look will scan the whole table"

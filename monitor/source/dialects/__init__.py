@@ -10,13 +10,14 @@ from __future__ import annotations
 import sqlalchemy as sa
 
 from .base import SourceDialect
+from .duckdb import DuckDBDialect
 from .mysql import MySQLDialect
 from .postgresql import PostgreSQLDialect
 from .sqlite import SQLiteDialect
 
-__all__ = ["SourceDialect", "SQLiteDialect", "PostgreSQLDialect", "MySQLDialect", "dialect_for"]
+__all__ = ["SourceDialect", "SQLiteDialect", "PostgreSQLDialect", "MySQLDialect", "DuckDBDialect", "dialect_for"]
 
-_VARIANTS = (SQLiteDialect, PostgreSQLDialect, MySQLDialect)
+_VARIANTS = (SQLiteDialect, PostgreSQLDialect, MySQLDialect, DuckDBDialect)
 
 
 def dialect_for(url: sa.engine.URL) -> SourceDialect:

@@ -44,6 +44,8 @@ class SourceDialect:
     enforces_read_only = False
     #: Whether each stored value has the column's declared type (SQLite keeps a storage class per value).
     typed_values = True
+    #: Whether range reads need an index on the time column (column stores prune by min/max instead).
+    wants_indexes = True
 
     def __init__(self, url: sa.engine.URL):
         self.url = url
@@ -52,7 +54,7 @@ class SourceDialect:
 
     def create_engine(self, *, source_name: str, safe_url: str) -> sa.Engine:
         """An engine whose every session is read-only where the database allows it."""
-        engine = sa.create_engine(self.url, pool_pre_ping=True, connect_args=self.connect_args())
+        engine = sa.create_engine(self.url, connect_args=self.connect_args(), **self.engine_options())
         statements = self.session_statements()
         if statements:
 
@@ -67,6 +69,10 @@ class SourceDialect:
 
         return engine
 
+    def engine_options(self) -> dict:
+        """Keyword arguments for ``sqlalchemy.create_engine`` (pooling)."""
+        return {"pool_pre_ping": True}
+
     def connect_args(self) -> dict:
         """Driver arguments for every new connection."""
         return {}
@@ -80,6 +86,10 @@ class SourceDialect:
     def implicit_arrival(self, conn, table: sa.TableClause, reflected: sa.Table):
         """A column that grows with insertion when none is configured (SQLite's rowid), or None."""
         return None
+
+    def to_double(self, expression):
+        """``expression`` as a double-precision number."""
+        return sa.cast(expression, sa.Float)
 
     def value_type_problem(self, value_type) -> str | None:
         """Why a value column of this declared type cannot be summed, or None."""
@@ -161,14 +171,14 @@ class SourceDialect:
     def epoch(self, kind: TimeKind, raw):
         """Event time as epoch seconds, NULL when unreadable; for the SELECT list only."""
         if kind.kind == "epoch":
-            return sa.cast(raw, sa.Float)
+            return self.to_double(raw)
         if kind.kind == "iso":
             return self.text_epoch(raw)
         return self.timestamp_epoch(raw)
 
     def timestamp_epoch(self, raw):
         """A timestamp or date column as epoch seconds (a naive timestamp is UTC)."""
-        return sa.cast(sa.extract("epoch", raw), sa.Float)
+        return self.to_double(sa.extract("epoch", raw))
 
     def text_epoch(self, raw):
         """ISO-8601 text as epoch seconds, NULL for text that is not a valid date-time."""
@@ -190,7 +200,7 @@ class SourceDialect:
 
     def valid_text_epoch(self, raw):
         """Well-formed ISO-8601 text as epoch seconds (text without an offset is UTC)."""
-        return sa.cast(sa.extract("epoch", sa.cast(raw, sa.DateTime(timezone=True))), sa.Float)
+        return self.to_double(sa.extract("epoch", sa.cast(raw, sa.DateTime(timezone=True))))
 
     def fence(self, select):
         """An inner select whose columns the database computes once per row (planners inline it here)."""
@@ -221,7 +231,7 @@ class SourceDialect:
         if isinstance(value_type, sa.Boolean):
             value = sa.case((raw.is_(True), 1.0), else_=0.0)
         else:
-            value = sa.cast(raw, sa.Float)
+            value = self.to_double(raw)
             if not isinstance(value_type, sa.Integer):  # a 64-bit integer never exceeds the limits
                 top, limit = _typed(value_type, FLOAT_MAX), _typed(value_type, VALUE_LIMIT)
                 # NaN sorts above every number in these databases, so the upper test catches NaN as well.
