@@ -29,6 +29,7 @@ __all__ = [
     "create_events_table",
     "append_events",
     "seconds_table",
+    "insert_seconds",
     "numbering",
     "stored_time",
     "sqlite_url",
@@ -242,6 +243,18 @@ def append_events(url, rows, *, table="events", time_storage="iso", chunk=5000, 
         engine.dispose()
 
 
+def _seconds_definition(dialect_name, *, time_type=None, value_type=None, table="events"):
+    ids = numbering(f"{table}_id_seq") if dialect_name == "duckdb" else {}
+    return sa.Table(
+        table, sa.MetaData(),
+        sa.Column("id", sa.Integer, primary_key=True, autoincrement=True, **ids),
+        sa.Column("site", sa.String(40)),
+        sa.Column("seconds", value_type if value_type is not None else DOUBLE),
+        sa.Column("done_at", time_type if time_type is not None else TIMESTAMP),
+        sa.Index(f"ix_{table}_done_at", "done_at"),
+    )
+
+
 def seconds_table(url, rows=(), *, time_type=None, value_type=None, table="events"):
     """The live tests' ``(id, site, seconds, done_at)`` table on any database, with ``rows`` inserted.
 
@@ -249,25 +262,27 @@ def seconds_table(url, rows=(), *, time_type=None, value_type=None, table="event
     """
     engine = sa.create_engine(url)
     try:
-        ids = numbering(f"{table}_id_seq") if engine.dialect.name == "duckdb" else {}
-        metadata = sa.MetaData()
-        t = sa.Table(
-            table, metadata,
-            sa.Column("id", sa.Integer, primary_key=True, autoincrement=True, **ids),
-            sa.Column("site", sa.String(40)),
-            sa.Column("seconds", value_type if value_type is not None else DOUBLE),
-            sa.Column("done_at", time_type if time_type is not None else TIMESTAMP),
-            sa.Index(f"ix_{table}_done_at", "done_at"),
-        )
-        metadata.create_all(engine)
-        rows = [
-            {k: (v.astimezone(timezone.utc).replace(tzinfo=None) if isinstance(v, datetime) else v) for k, v in r.items()}
-            for r in rows
-        ]
-        if rows:
-            with engine.begin() as conn:
-                conn.execute(sa.insert(t), rows)
-        return t
+        t = _seconds_definition(engine.dialect.name, time_type=time_type, value_type=value_type, table=table)
+        t.metadata.create_all(engine)
+    finally:
+        engine.dispose()
+    insert_seconds(url, rows, time_type=time_type, value_type=value_type, table=table)
+    return t
+
+
+def insert_seconds(url, rows, *, time_type=None, value_type=None, table="events"):
+    """Append dicts to a ``seconds_table`` (typed, so times are stored as the table's type stores them)."""
+    rows = [
+        {k: (v.astimezone(timezone.utc).replace(tzinfo=None) if isinstance(v, datetime) else v) for k, v in r.items()}
+        for r in rows
+    ]
+    if not rows:
+        return
+    engine = sa.create_engine(url)
+    try:
+        t = _seconds_definition(engine.dialect.name, time_type=time_type, value_type=value_type, table=table)
+        with engine.begin() as conn:
+            conn.execute(sa.insert(t), rows)
     finally:
         engine.dispose()
 
