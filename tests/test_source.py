@@ -609,3 +609,8 @@ def test_public_names_import_from_the_package():
 
     assert (reasons, slot, B, S, Spec, W) == (EXCLUSION_REASONS, SLOT_SECONDS, Batch, Source, SourceSpec, Watermark)
     assert set(package.__all__) >= {"Source", "SourceSpec", "Batch", "Watermark", "SLOT_SECONDS", "EXCLUSION_REASONS"}
+
+
+def test_a_missing_driver_is_one_clear_error():
+    with pytest.raises(InvalidArgumentError, match="no driver for 'mysql\\+nosuchdriver'"):
+        Source("mysql+nosuchdriver://u:pw@127.0.0.1/db", name="depot")

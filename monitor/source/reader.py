@@ -118,7 +118,13 @@ class Source:
         self._iso_layouts: dict = {}
         self._kinds: dict = {}
         self._statements: dict = {}
-        self.engine = self._dialect.create_engine(source_name=name, safe_url=self._safe_url)
+        try:
+            self.engine = self._dialect.create_engine(source_name=name, safe_url=self._safe_url)
+        except (ImportError, sa_exc.NoSuchModuleError) as error:
+            raise InvalidArgumentError(
+                f"source {name!r}: no driver for {self._url.drivername!r} is installed ({error}); "
+                "see the README's Source databases for the package each database needs"
+            ) from None
         self.dialect = self.engine.dialect.name
 
     def dispose(self):
