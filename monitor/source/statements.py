@@ -163,18 +163,20 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
 
     upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
     if lower is None:
-        branches = [
-            part([dialect.time_range(kind, time_raw, None, upper)], 0),
-            # NULL times (and words) never fall in a time range: count them once, on the first read.
-            part([dialect.unplaced(kind, time_raw, above=upper)], 0),
-        ]
+        # The first read scans the most: one branch per disjoint time range, each a plain index
+        # range scan (cells that two branches share are added up by the reader).
+        branches = [part([r], 0) for r in dialect.time_ranges(kind, time_raw, None, upper)]
+        # NULL times (and words) never fall in a time range: count them once, on the first read.
+        branches.append(part([dialect.unplaced(kind, time_raw, above=upper)], 0))
     else:
-        branches = [part([dialect.time_range(kind, time_raw, lower, upper)], 0)]
+        branches = [part([sa.or_(*dialect.time_ranges(kind, time_raw, lower, upper))], 0)]
         if arrival is not None:
             # Late rows are only those at or before the previous cutoff, so rows read
             # earlier through the time range can never come back through this branch.
             newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
-            branches.append(part([dialect.time_range(kind, time_raw, None, lower), newer], 1))
+            # One OR here: the arrival index finds these rows, the time test only filters them.
+            earlier = sa.or_(*dialect.time_ranges(kind, time_raw, None, lower))
+            branches.append(part([earlier, newer], 1))
             branches.append(part([dialect.unplaced(kind, time_raw), newer], 0))
     return sa.union_all(*branches)
 
@@ -183,7 +185,7 @@ def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max):
     """(valid rows, per-reason counts) of the rows with time <= ``upper`` and arrival <= ``arrival_max``."""
     time_raw, arrival = parts.time_raw, parts.arrival
     upper = tuple(literal(v) for v in upper)
-    where = [sa.or_(dialect.time_range(parts.kind, time_raw, None, upper), dialect.unplaced(parts.kind, time_raw))]
+    where = [sa.or_(*dialect.time_ranges(parts.kind, time_raw, None, upper), dialect.unplaced(parts.kind, time_raw))]
     if arrival_max is not None:
         where.append(sa.or_(arrival <= literal(arrival_max), arrival.is_(None)))
     where.extend(parts.filters)

@@ -141,14 +141,15 @@ class SourceDialect:
         """One cutoff as the values the time predicates compare with (one per storage the column holds)."""
         return (bind_time(kind, moment),)
 
-    def time_range(self, kind: TimeKind, raw, lower, upper):
-        """Rows with ``lower < time <= upper`` (no ``lower``: every time up to ``upper``).
+    def time_ranges(self, kind: TimeKind, raw, lower, upper) -> list:
+        """Disjoint predicates that together hold the rows with ``lower < time <= upper``
+        (no ``lower``: every time up to ``upper``); one per storage the column holds.
 
-        A plain comparison of the raw column with bound values, so the index serves it.
+        Plain comparisons of the raw column with bound values, so the index serves each.
         """
         if lower is None:
-            return raw <= upper[0]
-        return sa.and_(raw > lower[0], raw <= upper[0])
+            return [raw <= upper[0]]
+        return [sa.and_(raw > lower[0], raw <= upper[0])]
 
     def unplaced(self, kind: TimeKind, raw, above=None):
         """Rows that no time range ever holds: counted once, on the first read or by arrival.

@@ -75,17 +75,17 @@ class SQLiteDialect(SourceDialect):
     def time_bounds(self, kind, moment):
         return (kind.iso.format(moment), moment.timestamp())
 
-    def time_range(self, kind, raw, lower, upper):
+    def time_ranges(self, kind, raw, lower, upper):
         # Numbers sort before all text, and text before blobs, so each storage class has its own
         # range on the one index: text against the text cutoff, numbers against the epoch cutoff.
+        # Two ranges rather than one OR, so each is a plain index range scan.
         empty = sa.literal("")
         if lower is None:
-            text = sa.and_(raw >= empty, raw <= upper[0])
-            number = sa.and_(raw < empty, raw <= upper[1])
-        else:
-            text = sa.and_(raw > lower[0], raw <= upper[0])
-            number = sa.and_(raw < empty, raw > lower[1], raw <= upper[1])
-        return sa.or_(text, number)
+            return [sa.and_(raw >= empty, raw <= upper[0]), sa.and_(raw < empty, raw <= upper[1])]
+        return [
+            sa.and_(raw > lower[0], raw <= upper[0]),
+            sa.and_(raw < empty, raw > lower[1], raw <= upper[1]),
+        ]
 
     def is_text(self, raw):
         return sa.func.typeof(raw) == "text"
