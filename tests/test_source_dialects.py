@@ -20,7 +20,7 @@ import sqlalchemy as sa
 from scipy import stats
 
 from live_helpers import LiveWorld, at, event_rows
-from monitor.commands.verify import verify_looks
+from monitor.verify import verify_looks
 from monitor.errors import SourceSchemaError, SourceUnavailableError
 from monitor.source import Source
 from source_helpers import (

@@ -329,7 +329,8 @@ class Source:
         ``time`` (aware UTC) and ``key``; ``.attrs["excluded"]`` counts the bad
         rows by reason. Raw rows are pulled here only to re-check a look.
         """
-        import pandas as pd  # only verification pulls raw rows; a look never loads pandas here
+        # lazy: only verification pulls raw rows; a look never loads pandas.
+        import pandas as pd
 
         cutoff = utc(cutoff, "cutoff")
 

@@ -107,7 +107,8 @@ def bind_time(kind: TimeKind, moment: datetime):
 
 def to_utc_timestamps(series, kind: TimeKind):
     """Stored times (as the driver returns them) as an aware-UTC pandas series; naive is UTC."""
-    import pandas as pd  # only verification pulls raw rows; the look never needs pandas here
+    # lazy: only verification pulls raw rows; a look never loads pandas.
+    import pandas as pd
 
     if series.empty:
         return pd.Series(pd.DatetimeIndex([], tz="UTC"), index=series.index)

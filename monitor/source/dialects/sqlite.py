@@ -46,7 +46,10 @@ class SQLiteDialect(SourceDialect):
             conn.execute("PRAGMA query_only = ON")
             return conn
 
-        return sa.create_engine("sqlite://", creator=creator, pool_pre_ping=True)
+        # QueuePool, named: for a creator-built "sqlite://" engine SQLAlchemy would pick its
+        # SingletonThreadPool, which closes connections other threads are still using once more
+        # than five threads share it, and on dispose() — a crash inside libsqlite3.
+        return sa.create_engine("sqlite://", creator=creator, poolclass=sa.pool.QueuePool, pool_pre_ping=True)
 
     def implicit_arrival(self, conn, table, reflected):
         probe = sa.select(sa.literal_column("rowid")).select_from(table).limit(0)
