@@ -53,6 +53,11 @@ run_pg "'$PGBIN/initdb' -D '$pgdir/data' -A trust -U postgres" >"$pgdir/initdb.l
 run_pg "'$PGBIN/pg_ctl' -D '$pgdir/data' -w -l '$pgdir/server.log' -o \"-p $port -k '$pgdir' -c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=200\" start" >/dev/null
 export GAPWATCH_TEST_PG_URL="postgresql+psycopg://postgres@127.0.0.1:$port/postgres"
 
+# 3b. A throwaway MariaDB server (MySQL/MariaDB sources), stopped with PostgreSQL on exit.
+. tests/mariadb.sh
+trap 'stop_mariadb; cleanup' EXIT
+start_mariadb
+
 # 4. The suite. Exit status 5 (no test collected) counts as a failure.
 export GAPWATCH_CHROMIUM=/usr/bin/chromium
 set +e
