@@ -26,7 +26,7 @@ from datetime import timedelta
 from functools import partial
 
 from ..config import ComparisonConfig
-from ..errors import InvalidArgumentError, UnknownComparisonError
+from ..errors import AsOfBeforeLastLookError, InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, Watermark
 from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
@@ -102,6 +102,8 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         The store's schema is not current (`gapwatch db upgrade`).
     LookAlreadyRecordedError
         Another look for this comparison was recorded first; nothing was written.
+    AsOfBeforeLastLookError
+        ``as_of`` is earlier than the comparison's last look; nothing was read or written.
     """
     stopwatch = _Stopwatch(time.perf_counter())
     if isinstance(comparison, str):
@@ -126,6 +128,10 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     row = state.comparison
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
+    if row is not None and row["last_look_at"] is not None and as_of < row["last_look_at"]:
+        raise AsOfBeforeLastLookError(
+            f"comparison {c.name!r}: as-of {as_of.isoformat()} is before its last look "
+            f"(look {row['looks_taken']} as of {row['last_look_at'].isoformat()}); history never goes back")
     design = frozen_design(c.name, row, configured)
     batch, cutoff = _read_source(config, c, design, row, as_of, source)
     stopwatch.lap("source")

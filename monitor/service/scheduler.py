@@ -48,6 +48,7 @@ from ..store.claims import claim, make_holder
 from ..store.engine import ensure_current, make_engine
 from ..store.workers import beat, last_check, record_check, worker_stopped
 from ..errors import (
+    AsOfBeforeLastLookError,
     ClaimHeldError,
     ConfigError,
     DesignChangedError,
@@ -286,7 +287,7 @@ class Service:
         is due by the store's record of its last check, whichever worker took it; ``--once``
         looks regardless.
 
-        Outcomes: recorded, stopped, held, not_due, backoff, duplicate, removed,
+        Outcomes: recorded, stopped, held, not_due, backoff, as_of_behind, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
         with self._lock:
@@ -346,6 +347,11 @@ class Service:
             self._report_once(name, ("design", str(exc)), logging.ERROR,
                               "look refused comparison=%s reason=design_changed error=%s", name, exc)
             return "design_changed"
+        except AsOfBeforeLastLookError as exc:
+            # The clock went back (or another worker's runs ahead): wait until it passes the last look.
+            self._report_once(name, ("as_of", "behind"), logging.WARNING,
+                              "look refused comparison=%s reason=as_of_before_last_look error=%s", name, exc)
+            return "as_of_behind"
         except StoreBehindError as exc:
             log.error("look refused comparison=%s reason=store_behind error=%s", name, exc)
             return "store_unavailable"
