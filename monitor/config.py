@@ -412,28 +412,38 @@ def load_config(path=None, environ=None) -> Config:
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError([f"not valid TOML: {exc}"], label) from None
     problems: list[str] = []
-    data = _substitute(data, environ, problems, "")
+    taken: set[str] = set()
+    data = _substitute(data, environ, problems, "", taken)
     checker = _Checker(path.resolve().parent, problems)
     config = checker.config(data, path)
     if problems:
-        raise ConfigError(problems, label)
+        raise ConfigError([_hide_environment_values(p, taken) for p in problems], label)
     return config
 
 
-def _substitute(value, environ, problems, where):
+def _hide_environment_values(problem: str, taken: set[str]) -> str:
+    """A problem's text with every value that came from ``${NAME}`` hidden (they are often secrets)."""
+    for value in sorted(taken, key=len, reverse=True):
+        problem = problem.replace(value, "${…}")
+    return problem
+
+
+def _substitute(value, environ, problems, where, taken):
     if isinstance(value, str):
         def replace(match):
             name = match.group(1)
             if name not in environ:
                 problems.append(f"{where or 'value'}: environment variable {name!r} is not set")
                 return ""
+            if environ[name]:
+                taken.add(environ[name])
             return environ[name]
         return _ENV_REF.sub(replace, value)
     if isinstance(value, dict):
-        return {k: _substitute(v, environ, problems, f"{where}.{k}" if where else k)
+        return {k: _substitute(v, environ, problems, f"{where}.{k}" if where else k, taken)
                 for k, v in value.items()}
     if isinstance(value, list):
-        return [_substitute(v, environ, problems, f"{where}[{i}]") for i, v in enumerate(value)]
+        return [_substitute(v, environ, problems, f"{where}[{i}]", taken) for i, v in enumerate(value)]
     return value
 
 

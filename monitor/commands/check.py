@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ..config import load_config
-from ..errors import SourceUnavailableError
+from ..errors import SourceUnavailableError, StoreBehindError, StoreUnavailableError
 from ._common import add_config_option
 
 
@@ -42,10 +42,17 @@ def run(args) -> int:
                 failed = True
             else:
                 print(f"comparison {c.name!r}: source {c.source!r} table {c.table!r} ok")
+            if not c.notify:
+                print(f"comparison {c.name!r}: warning: no alert channel configured (notify is empty); "
+                      f"its alerts are recorded and nobody is told")
     finally:
         for s in sources.values():
             s.dispose()
-    engine = make_engine(config.store_url)
+    try:
+        engine = make_engine(config.store_url, create=False)
+    except (StoreBehindError, StoreUnavailableError) as exc:
+        print(f"store: {exc}")
+        return 1
     try:
         state = migration_state(engine)
     except Exception as exc:  # noqa: BLE001 - any store failure is reported, not raised

@@ -750,8 +750,11 @@ def store_url_from_config(path=None):
 
 
 def open_store(url):
-    """An engine on the history store, checked to be at the schema this code expects."""
-    engine = store.make_engine(url)
+    """An engine on the history store, checked to be at the schema this code expects.
+
+    Reading never creates a store: a SQLite file that does not exist yet is refused.
+    """
+    engine = store.make_engine(url, create=False)
     try:
         store.ensure_current(engine)
     except BaseException:
