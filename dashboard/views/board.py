@@ -30,6 +30,8 @@ def board():
     if not rows:
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return
+    if common.monitor_notice():
+        st.warning(common.monitor_notice())
     st.html(common.board_table(shown))
     if common.clock_note():
         st.caption(common.clock_note())

@@ -62,6 +62,19 @@ def run(args) -> int:
         engine.dispose()
     if state["up_to_date"]:
         print(f"store: at revision {state['current']} (up to date)")
+        from datetime import datetime, timezone
+
+        from ..store.readback import monitor_liveness
+
+        engine = make_engine(config.store_url, create=False)
+        try:
+            liveness = monitor_liveness(engine, now=datetime.now(timezone.utc))
+        finally:
+            engine.dispose()
+        if liveness["quiet"]:
+            print(f"service: warning: {liveness['message']}")
+        elif liveness["last_beat_at"] is not None:
+            print(f"service: {liveness['workers_alive']} worker(s) alive; last check {liveness['last_check_at'] or 'none yet'}")
     else:
         print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
               f"run `gapwatch db upgrade`")
