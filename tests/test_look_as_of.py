@@ -31,8 +31,10 @@ def test_as_of_before_the_last_look_is_refused(tmp_path, capsys):
     assert len(err.splitlines()) == 1
     assert "before its last look" in err and "look 1" in err and "2026-03-02T14:00:00" in err
     assert world.count(Look) == 1
-    # The same time again is no step back.
+    # The same time again is no step back (and, with nothing new, only a check).
     assert main(["look", "--config", config, "--as-of", "2026-03-02T14:00:00Z"]) == 0
+    assert "no look recorded" in capsys.readouterr().out
+    assert main(["look", "--config", config, "--as-of", "2026-03-02T15:00:00Z"]) == 0
     assert world.count(Look) == 2
 
 

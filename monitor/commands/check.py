@@ -17,6 +17,7 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
+    from ..source.groups import group_problems
     from ..source.reader import Source
     from ..store.engine import make_engine, migration_state
 
@@ -31,6 +32,8 @@ def run(args) -> int:
                 sources[c.source] = Source(config.sources[c.source].url, name=c.source)
             try:
                 problems = sources[c.source].check(c.source_spec(0.0))
+                if not [p for p in problems if not p.startswith("warning:")]:
+                    problems += group_problems(sources[c.source], c.source_spec(0.0))
             except SourceUnavailableError as exc:
                 print(f"comparison {c.name!r}: {exc}")
                 failed = True

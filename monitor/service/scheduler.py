@@ -287,7 +287,7 @@ class Service:
         is due by the store's record of its last check, whichever worker took it; ``--once``
         looks regardless.
 
-        Outcomes: recorded, stopped, held, not_due, backoff, as_of_behind, duplicate, removed,
+        Outcomes: recorded, quiet, stopped, held, not_due, backoff, as_of_behind, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
         with self._lock:
@@ -318,12 +318,15 @@ class Service:
                 began = time.perf_counter()
                 # holder=None: the claim is ours already (take_look would claim again).
                 record = take_look(config, comparison, as_of=as_of, engine=self.engine,
-                                   source=sources.get(comparison.source), holder=None, memory=self.memory)
+                                   source=sources.get(comparison.source), holder=None, memory=self.memory,
+                                   checked_at=checked_at)
                 duration_ms = (time.perf_counter() - began) * 1000.0
-                # Still under the claim, so the next worker to win it sees this check.
-                record_check(self.engine, name, checked_at=checked_at, as_of=as_of, holder=self.holder,
-                             outcome="recorded" if record is not None else "stopped",
-                             detail={} if record is None else {"look": _record_field(record, "look")})
+                quiet = getattr(record, "quiet", False)
+                if not quiet:  # a quiet look recorded its own check
+                    # Still under the claim, so the next worker to win it sees this check.
+                    record_check(self.engine, name, checked_at=checked_at, as_of=as_of, holder=self.holder,
+                                 outcome="recorded" if record is not None else "stopped",
+                                 detail={} if record is None else {"look": _record_field(record, "look")})
                 self._looked_at = checked_at
         except ClaimHeldError:
             log.debug("look skipped comparison=%s reason=claimed_by_another_worker", name)
@@ -369,17 +372,21 @@ class Service:
                               "look skipped comparison=%s reason=comparison_stopped", name)
             return "stopped"
         self._reported.pop(name, None)
-        log.info(
-            "look comparison=%s version=%s look=%s decision=%s n1=%s n2=%s as_of=%s duration_ms=%.1f",
-            name, _record_field(record, "version"), _record_field(record, "look_number", "look"),
-            _record_field(record, "decision"), _record_field(record, "n1"), _record_field(record, "n2"),
-            as_of.isoformat(), duration_ms,
-        )
+        if quiet:
+            log.info("look quiet comparison=%s version=%s stands_at_look=%s nothing_new_to=%s as_of=%s",
+                     name, record.version, record.look, record.cutoff.isoformat(), as_of.isoformat())
+        else:
+            log.info(
+                "look comparison=%s version=%s look=%s decision=%s n1=%s n2=%s as_of=%s duration_ms=%.1f",
+                name, _record_field(record, "version"), _record_field(record, "look_number", "look"),
+                _record_field(record, "decision"), _record_field(record, "n1"), _record_field(record, "n2"),
+                as_of.isoformat(), duration_ms,
+            )
         try:
             record_source_recovered(self.engine, name, now=as_of, notify=comparison.notify)
         except (OperationalError, DBAPIError) as exc:
             log.error("store unavailable comparison=%s error=%s", name, redact(exc, self.redactor.secrets))
-        return "recorded"
+        return "quiet" if quiet else "recorded"
 
     def deliver(self) -> int:
         """Deliver due alerts once; never raises."""

@@ -379,6 +379,11 @@ def _status_row(comp, looks, now):
         )
 
     groups = design.get("groups") or settings.get("groups") or []
+    # A look that tested nothing (no new information, a data problem) records no interval: the
+    # last valid one among the recent looks keeps being shown, with its estimate and look number.
+    shown = last
+    if last is not None and last["ci_low"] is None and last["ci_high"] is None:
+        shown = next((lk for lk in reversed(looks) if lk["ci_low"] is not None or lk["ci_high"] is not None), last)
     return {
         "id": comp["id"],
         "name": comp["name"],
@@ -403,9 +408,10 @@ def _status_row(comp, looks, now):
         "n2": last["n2"] if last is not None else 0,
         "mean1": _num(last["mean1"]) if last is not None else None,
         "mean2": _num(last["mean2"]) if last is not None else None,
-        "estimate": _num(last["estimate"]) if last is not None else None,
-        "ci_low": _num(last["ci_low"]) if last is not None else None,
-        "ci_high": _num(last["ci_high"]) if last is not None else None,
+        "estimate": _num(shown["estimate"]) if shown is not None else None,
+        "ci_low": _num(shown["ci_low"]) if shown is not None else None,
+        "ci_high": _num(shown["ci_high"]) if shown is not None else None,
+        "interval_look": shown["look_number"] if shown is not None else None,
         "p_value": _num(last["p_value"]) if last is not None else None,
         "statistic": _num(last["statistic"]) if last is not None else None,
         "boundary_z": _num(last["boundary_z"]) if last is not None else None,
