@@ -2,14 +2,16 @@
 
 from __future__ import annotations
 
-from ..config import load_config
-from ..errors import SourceUnavailableError, StoreBehindError, StoreUnavailableError
-from ._common import add_config_option
+from datetime import datetime, timezone
+
+from ..errors import InvalidArgumentError, SourceUnavailableError, StoreBehindError, StoreUnavailableError
+from . import SUMMARIES
+from ._common import add_config_option, counted, program
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "check", help="validate the configuration, the sources' tables and columns, and the store",
+        "check", help=SUMMARIES["check"],
         description="Validate the configuration file, connect to each source and confirm the tables and "
                     "columns exist with usable types, and report the history store's migration state.")
     add_config_option(p)
@@ -17,13 +19,16 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (configuration, source and store stacks).
+    from ..config import load_config
+    from ..design import Design
     from ..source.groups import group_problems
-    from ..source.reader import Source
+    from ..source.reader import Source, SourceSpec
     from ..store.engine import make_engine, migration_state
 
     config = load_config(args.config)  # every problem at once, as a ConfigError
-    print(f"{config.path}: configuration valid ({len(config.comparisons)} comparisons, "
-          f"{len(config.sources)} sources, {len(config.channels)} channels)")
+    print(f"{config.path}: configuration valid ({counted(len(config.comparisons), 'comparison')}, "
+          f"{counted(len(config.sources), 'source')}, {counted(len(config.channels), 'channel')})")
     failed = False
     sources = {}
     try:
@@ -31,10 +36,11 @@ def run(args) -> int:
             if c.source not in sources:
                 sources[c.source] = Source(config.sources[c.source].url, name=c.source)
             try:
-                problems = sources[c.source].check(c.source_spec(0.0))
+                spec = SourceSpec.from_design(Design.from_config(c), shift=0.0, arrival_column=c.arrival_column)
+                problems = sources[c.source].check(spec)
                 if not [p for p in problems if not p.startswith("warning:")]:
-                    problems += group_problems(sources[c.source], c.source_spec(0.0))
-            except SourceUnavailableError as exc:
+                    problems += group_problems(sources[c.source], spec)
+            except (SourceUnavailableError, InvalidArgumentError) as exc:  # unreachable, or no plan possible
                 print(f"comparison {c.name!r}: {exc}")
                 failed = True
                 continue
@@ -65,8 +71,7 @@ def run(args) -> int:
         engine.dispose()
     if state["up_to_date"]:
         print(f"store: at revision {state['current']} (up to date)")
-        from datetime import datetime, timezone
-
+        # lazy: start-up time of the command line (the read side), as above.
         from ..store.readback import monitor_liveness
 
         engine = make_engine(config.store_url, create=False)
@@ -80,6 +85,6 @@ def run(args) -> int:
             print(f"service: {liveness['workers_alive']} worker(s) alive; last check {liveness['last_check_at'] or 'none yet'}")
     else:
         print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
-              f"run `gapwatch db upgrade`")
+              f"run `{program()} db upgrade`")
         failed = True
     return 1 if failed else 0

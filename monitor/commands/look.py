@@ -12,10 +12,11 @@ import json
 import sys
 from datetime import datetime, timedelta, timezone
 
-from ..config import load_config
 from ..errors import (AsOfBeforeLastLookError, DesignChangedError, InvalidArgumentError, LookAlreadyRecordedError,
                       SourceSchemaError, SourceUnavailableError)
-from ..vocabulary import parse_duration
+from ..vocabulary import as_utc, json_safe, parse_duration
+from . import SUMMARIES
+from ._common import add_config_option, as_typed, program
 
 # How far ahead of this machine's clock an --as-of may be (clocks differ a little between machines).
 FUTURE_TOLERANCE_SECONDS = 300.0
@@ -25,7 +26,7 @@ REPLAY_MAX_LOOKS = 10000
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "look", help="take one look at comparisons now and record it",
+        "look", help=SUMMARIES["look"],
         description="Take one look at each named comparison (default: all) and record it in the store. "
                     "Prints one line per comparison: look number, decision, estimate and interval.")
     p.add_argument("names", nargs="*", metavar="NAME", help="comparisons to look at (default: all)")
@@ -36,7 +37,7 @@ def register(subparsers) -> None:
                         "(for a fresh comparison; never before its last look)")
     p.add_argument("--replay-step", default=None, metavar="DURATION",
                    help="time between replayed looks, e.g. 1h or 1d (default: the comparison's every)")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--json", action="store_true", help="print one JSON object per comparison")
     p.set_defaults(func=run)
 
@@ -49,9 +50,7 @@ def parse_as_of(text) -> datetime:
         moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
     except ValueError:
         raise InvalidArgumentError(f"--as-of must be an ISO timestamp like 2026-03-02T08:00:00+00:00; got {text!r}") from None
-    if moment.tzinfo is None:
-        moment = moment.replace(tzinfo=timezone.utc)
-    return moment.astimezone(timezone.utc)
+    return as_utc(moment, "--as-of")
 
 
 def _not_in_future(moment: datetime, option: str, now: datetime) -> datetime:
@@ -88,13 +87,13 @@ def look_times(c, as_of: datetime, replay_from, replay_step) -> list[datetime]:
 
 def _print_record(c, record, as_json: bool) -> None:
     if record is None:
+        message = f"stopped; no look taken (see `{program()} history {c.name}`)"
         if as_json:
-            print(json.dumps({"comparison": c.name, "state": "stopped", "look": None,
-                              "message": f"stopped; no look taken (see `gapwatch history {c.name}`)"}))
+            print(json.dumps({"comparison": c.name, "state": "stopped", "look": None, "message": message}))
         else:
-            print(f"{c.name}: stopped; no look taken (see `gapwatch history {c.name}`)")
+            print(f"{c.name}: {message}")
     elif as_json:
-        print(json.dumps(record.to_dict(), default=str))
+        print(json.dumps(json_safe(record.to_dict()), allow_nan=False))
     else:
         print(record.line())
         for warning in record.warnings:
@@ -102,6 +101,8 @@ def _print_record(c, record, as_json: bool) -> None:
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (configuration, look and store stacks).
+    from ..config import load_config
     from ..look import take_look
     from ..store.engine import ensure_current, make_engine
 
@@ -131,7 +132,7 @@ def run(args) -> int:
                     status = 2
                     break
                 except (DesignChangedError, LookAlreadyRecordedError) as exc:
-                    print(f"gapwatch look: {exc}", file=sys.stderr)
+                    print(f"gapwatch look: {as_typed(exc)}", file=sys.stderr)
                     status = max(status, 1)
                     break
                 _print_record(c, record, args.json)

@@ -26,8 +26,9 @@ from datetime import timedelta
 from functools import partial
 
 from ..config import ComparisonConfig
+from ..design import Design
 from ..errors import AsOfBeforeLastLookError, DesignChangedError, InvalidArgumentError, UnknownComparisonError
-from ..source.reader import Source, Watermark
+from ..source.reader import Source, SourceSpec, Watermark
 from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
 from ..store.workers import record_check
@@ -37,7 +38,7 @@ from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, weigh
-from .design_check import design_key, frozen_design
+from .design_check import frozen_design
 from .memory import LookMemory
 from .record import LookRecord, QuietCheck
 from .row import LookMoment, look_detail, look_row
@@ -153,19 +154,19 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         state = read_state(engine, c.name)
         row = state.comparison
         design = frozen_design(c.name, row, configured)
-    batch, cutoff = _read_source(config, c, design, row, as_of, source)
+    batch, cutoff, design = _read_source(config, c, design, row, as_of, source)
     stopwatch.lap("source")
 
-    rolled = roll_up(c, batch)
+    rolled = roll_up(design, batch)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     if row is not None and not (look_counts.new_events or look_counts.late_events
                                 or any(look_counts.excluded_new.values())):
         return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
-    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()),
+    evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
                                 last.fraction if last is not None else 0.0))
-    key = design_key(design) if evidence.tests or row is None else None
+    key = design.fingerprint() if evidence.tests or row is None else None
     boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
     decision = decide(evidence, boundary)
 
@@ -227,13 +228,14 @@ def _groups_without_rows(state, design=None, cells=None) -> list[str]:
     if design is None:
         if state.comparison is None:
             return []
-        design, cells = state.comparison["design"], state.cells
-    groups = list(design.get("groups") or [])
+        groups, cells = list(state.comparison["design"].get("groups") or []), state.cells
+    else:
+        groups = list(design.groups)
     return [g for i, g in enumerate(groups) if cells.get(("total", i, ""), (0, 0.0, 0.0))[0] == 0]
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data."""
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source):
+    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data."""
     own_source = source is None
     if own_source:
         try:
@@ -242,26 +244,27 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
             raise UnknownComparisonError(f"comparison {c.name!r} names unknown source {c.source!r}") from None
         source = Source(source_config.url, name=c.source)
     try:
-        if design.get("shift") is None:
+        if design.shift is None:
             # Proportions keep exact success counts; means shift by a value near the data.
-            shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
-            design["shift"] = None if shift is None else float(shift)
-        spec = c.source_spec(design["shift"] or 0.0)
+            shift = 0.0 if design.metric == "proportion" else source.first_value(
+                SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
+            design = design.with_shift(shift)
+        spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
         watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
         batch = source.read_cells(spec, watermark, cutoff)
-        if design["shift"] is None and batch.cells:
+        if design.shift is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
-            design["shift"] = 0.0
+            design = design.with_shift(0.0)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff
+    return batch, cutoff, design
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility) -> SequentialBoundary:
     """The sequential boundary standing at the recorded testing looks.
 
     The one kept in memory is used when it stands at the last recorded testing look;
@@ -277,7 +280,7 @@ def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) 
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
     return SequentialBoundary.resume(
-        design["alpha"], design["spending"], design["alternative"],
+        design.alpha, design.spending, design.alternative,
         [r.fraction for r in recorded], [r.boundary_z for r in recorded],
         futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
         if futility is not None else None,

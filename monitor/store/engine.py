@@ -9,13 +9,21 @@ installed gapwatch finds them wherever it lives.
 from __future__ import annotations
 
 import functools
+import sqlite3
 from pathlib import Path
 
 import sqlalchemy as sa
+from alembic import command
+from alembic.config import Config as AlembicConfig
+from alembic.script import ScriptDirectory
+from alembic.util import CommandError
 from sqlalchemy import event
 from sqlalchemy.engine import Engine
 
+import migrations
+
 from ..errors import InvalidArgumentError, StoreBehindError, StoreUnavailableError
+from .models import Base
 
 __all__ = [
     "make_engine",
@@ -26,6 +34,7 @@ __all__ = [
     "head_revision",
     "ensure_current",
     "migration_state",
+    "open_store",
     "check_revision",
     "rows_at_risk",
     "backup_sqlite",
@@ -38,8 +47,6 @@ _SQLITE_BUSY_SECONDS = 30
 
 @functools.lru_cache(maxsize=1)
 def _migrations_folder() -> Path:
-    import migrations
-
     return Path(migrations.__file__).resolve().parent
 
 
@@ -108,8 +115,6 @@ def make_engine(url, *, create: bool = True, **kwargs) -> Engine:
 
 def alembic_config(url):
     """An Alembic ``Config`` pointed at the packaged migrations and this store."""
-    from alembic.config import Config as AlembicConfig
-
     folder = _migrations_folder()
     cfg = AlembicConfig(str(folder / "alembic.ini"))
     cfg.set_main_option("script_location", str(folder))
@@ -120,15 +125,11 @@ def alembic_config(url):
 
 
 def _script():
-    from alembic.script import ScriptDirectory
-
     return ScriptDirectory(str(_migrations_folder()))
 
 
 def check_revision(revision: str) -> str:
     """``revision`` if this gapwatch knows it (``base``, ``head`` or a shipped revision); else one clear error."""
-    from alembic.util import CommandError
-
     if revision in ("base", "head"):
         return revision
     try:
@@ -155,8 +156,6 @@ def rows_at_risk(engine, revision: str) -> dict:
     steps = [r.revision for r in script.iterate_revisions(current, target or "base") if r.revision != target]
     if not steps:
         return {}  # the target is ahead of the store: nothing goes down
-    from .models import Base
-
     counts = {}
     with engine.connect() as conn:
         for name, table in Base.metadata.tables.items():
@@ -169,8 +168,6 @@ def rows_at_risk(engine, revision: str) -> dict:
 
 def backup_sqlite(url, suffix: str) -> Path | None:
     """Copy a SQLite store beside itself (WAL-safe, through SQLite's backup API); None for other stores."""
-    import sqlite3
-
     path = sqlite_path(url)
     if path is None:
         return None
@@ -190,9 +187,6 @@ def backup_sqlite(url, suffix: str) -> Path | None:
 
 
 def _run(url, action, revision):
-    from alembic import command
-    from alembic.util import CommandError
-
     if revision is not None:
         check_revision(revision)
     cfg = alembic_config(url)
@@ -221,8 +215,6 @@ def downgrade(url, revision: str) -> None:
 
 @functools.lru_cache(maxsize=8)
 def _head_for(folder: str) -> str:
-    from alembic.script import ScriptDirectory
-
     return ScriptDirectory(folder).get_current_head()
 
 
@@ -276,8 +268,6 @@ def ensure_current(engine) -> str:
     if current is None:
         raise StoreBehindError(
             "the history store has no gapwatch schema yet; run `gapwatch db upgrade` first")
-    from alembic.script import ScriptDirectory
-
     script = ScriptDirectory(str(_migrations_folder()))
     known = {rev.revision for rev in script.walk_revisions()}
     if current not in known:
@@ -286,6 +276,20 @@ def ensure_current(engine) -> str:
             f"(newest here: {head}); upgrade gapwatch itself")
     raise StoreBehindError(
         f"the history store is at revision {current}, behind {head}; run `gapwatch db upgrade`")
+
+
+def open_store(url) -> Engine:
+    """An engine on the history store, checked to be at the schema this code expects.
+
+    Reading never creates a store: a SQLite file that does not exist yet is refused.
+    """
+    engine = make_engine(url, create=False)
+    try:
+        ensure_current(engine)
+    except BaseException:
+        engine.dispose()
+        raise
+    return engine
 
 
 def _brief(exc) -> str:
