@@ -435,6 +435,10 @@ def test_once_takes_one_look_each_and_exits(site):
         assert quiet.run() == 0, quiet.log()
         assert "look quiet comparison=call-seconds" in quiet.log()
         assert len(looks_of(engine, "call-seconds")) == 2
+        from monitor.store.workers import last_check
+
+        check = last_check(engine, "call-seconds")
+        assert check["outcome"] == "quiet" and check["holder"]  # the worker that checked is named
         # The source file is gone: the look fails, nothing is recorded, the exit status says so.
         site["source_path"].rename(site["folder"] / "elsewhere.sqlite")
         failed = ServiceProcess(config, site["folder"] / "once3.log", args=["--once"], env={"HOOK_SECRET": SECRET})

@@ -66,7 +66,8 @@ class _Stopwatch:
         return (time.perf_counter() - self.started) * 1000.0
 
 
-def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None, checked_at=None):
+def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None, checked_at=None,
+              checked_by=None):
     """Take one look at a comparison and record it.
 
     Parameters
@@ -91,6 +92,9 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
     checked_at : datetime, optional
         Wall time of the check, recorded for a quiet look (default ``as_of``); the
         service passes the real time, which its schedule runs on.
+    checked_by : str, optional
+        Who checked, recorded for a quiet look (default ``holder``): the service claims by
+        itself and names its worker here.
 
     Returns
     -------
@@ -124,9 +128,9 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         raise InvalidArgumentError(str(exc)) from None
     memory = memory if memory is not None else LookMemory()
     if holder is None:
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, None)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by)
     with claim(engine, comparison.name, holder, now=as_of, seconds=config.service.lease_seconds):
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, holder)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by or holder)
 
 
 def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch,

@@ -319,7 +319,7 @@ class Service:
                 # holder=None: the claim is ours already (take_look would claim again).
                 record = take_look(config, comparison, as_of=as_of, engine=self.engine,
                                    source=sources.get(comparison.source), holder=None, memory=self.memory,
-                                   checked_at=checked_at)
+                                   checked_at=checked_at, checked_by=self.holder)
                 duration_ms = (time.perf_counter() - began) * 1000.0
                 quiet = getattr(record, "quiet", False)
                 if not quiet:  # a quiet look recorded its own check
