@@ -88,9 +88,11 @@ def test_three_workers_look_only_when_due(tmp_path):
         assert got["looks"] <= 1.1 * got["implied"] + COMPARISONS, got["looks"]
         # ...and the workers did keep up with the schedule.
         assert got["looks"] >= 0.5 * got["implied"], got["looks"]
-        # Every worker took part and beat its heart.
-        assert all(" look comparison=" in log for log in got["logs"])
+        # Every worker ran and beat its heart (which one takes a due look is the claim's race),
+        # and none met an error on the way.
         assert len(workers(engine)) == WORKERS
+        assert sum(" look comparison=" in log for log in got["logs"]) >= 1
+        assert not any("reason=unexpected" in log for log in got["logs"])
     finally:
         engine.dispose()
 
