@@ -34,6 +34,7 @@ __all__ = [
     "Delivery",
     "Lease",
     "SourceHealth",
+    "PlanChange",
 ]
 
 NAMING_CONVENTION = {
@@ -235,3 +236,30 @@ class SourceHealth(Base):
     last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
     last_attempt_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     alerted: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+class PlanChange(Base):
+    """A change made to a running comparison by hand: a new plan, or a restart.
+
+    ``kind`` is ``replan`` (the comparison keeps its looks and spent alpha; ``record``
+    holds the conditional-error figures its later boundaries come from) or ``restart``
+    (the version was archived; ``record`` says whether the next version reads only data
+    after this version's watermark, which it carries, or everything from the start).
+    """
+
+    __tablename__ = "plan_change"
+    __table_args__ = (UniqueConstraint("comparison_id", "number"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    comparison_id: Mapped[int] = mapped_column(ForeignKey("comparison.id", ondelete="CASCADE"), index=True)
+    # 1, 2, ... per comparison version, in the order the changes were made.
+    number: Mapped[int] = mapped_column(Integer)
+    kind: Mapped[str] = mapped_column(String(20))
+    made_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    made_by: Mapped[str] = mapped_column(String(200))
+    reason: Mapped[str] = mapped_column(Text, default="")
+    # The comparison's looks_taken when the change was made (it applies from the next look).
+    after_look: Mapped[int] = mapped_column(Integer)
+    old_plan: Mapped[dict | None] = mapped_column(JSON, nullable=True)
+    new_plan: Mapped[dict | None] = mapped_column(JSON, nullable=True)
+    record: Mapped[dict] = mapped_column(JSON, default=dict)
