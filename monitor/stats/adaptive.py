@@ -611,14 +611,11 @@ class AdaptiveBoundary:
             copy.deepcopy(seg.lower) if seg.lower is not None else None)
         ups, lows = [], []
         for u in reference:
-            if seg.number == 0 and upper is not None:
+            if seg.number == 0:
+                # The original engine is the tested side (frame), and both sides when two-sided.
                 z = upper.add_look(u).z
                 ups.append(z)
                 lows.append(z if lower is upper else math.inf)
-            elif seg.number == 0:  # one-sided "less": the engine is the tested side
-                z = lower.add_look(u).z
-                ups.append(z)
-                lows.append(math.inf)
             else:
                 ups.append(upper.add_look(u).z if upper is not None else math.inf)
                 lows.append(lower.add_look(u).z if lower is not None else math.inf)

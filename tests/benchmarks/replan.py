@@ -23,6 +23,7 @@ off by ±30 % (simulate_fraction_choice): difference 0.25 at true sd 1, power
 0.8, five looks.
 
 Run:  python tests/benchmarks/replan.py --streams 100000 --power-streams 40000 --seed 1
+      python tests/benchmarks/replan.py --part 1 --spending pocock
       python tests/benchmarks/replan.py --streams 4000 --power-streams 2000   # quick
 
 Prints Markdown tables with Monte Carlo standard errors; every false-alarm row
@@ -43,20 +44,22 @@ from monitor.stats.replan_simulate import RULES, simulate_fraction_choice, simul
 ALPHA = 0.05
 
 
-def part_one(streams, power_streams, seed):
-    print(f"## Data-driven changes of plan ({streams:,} streams per false-alarm row, "
+def part_one(streams, power_streams, seed, spending):
+    print(f"## Data-driven changes of plan, {spending} spending ({streams:,} streams per false-alarm row, "
           f"{power_streams:,} per power row)\n")
     print("| rule | continued by | plans changed | false-alarm rate (s.e.) | within alpha + 3 s.e. "
           "| power at the planned difference (s.e.) | power at 0.75 of it (s.e.) | mean information, planned difference |")
     print("| --- | --- | --- | --- | --- | --- | --- | --- |")
     for k, rule in enumerate(RULES):
-        null = simulate_replanning(rule=rule, streams=streams, seed=seed + 10 * k, drift_ratios=(0.0,))
+        null = simulate_replanning(rule=rule, streams=streams, seed=seed + 10 * k, drift_ratios=(0.0,),
+                                   spending=spending)
         alt = simulate_replanning(rule=rule, streams=power_streams, seed=seed + 10 * k + 1,
-                                  drift_ratios=(1.0, 0.75))
+                                  drift_ratios=(1.0, 0.75), spending=spending)
         for m, row in enumerate(null):
             full = [r for r in alt if r.method == row.method]
             ok = "yes" if row.rejection <= ALPHA + 3 * row.rejection_se else "NO"
-            print(f"| {rule} | {row.method} | {row.changed:.3f} | {row.rejection:.4f} ({row.rejection_se:.4f}) "
+            method = "plan kept" if rule == "none" else row.method
+            print(f"| {rule} | {method} | {row.changed:.3f} | {row.rejection:.4f} ({row.rejection_se:.4f}) "
                   f"| {ok} | {full[0].rejection:.4f} ({full[0].rejection_se:.4f}) "
                   f"| {full[1].rejection:.4f} ({full[1].rejection_se:.4f}) "
                   f"| {full[0].information:.3f} ({full[0].information_se:.3f}) |")
@@ -88,10 +91,11 @@ def main(argv=None):
     parser.add_argument("--power-streams", type=int, default=40_000, help="streams per power row")
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--part", choices=("1", "2", "both"), default="both")
+    parser.add_argument("--spending", default="obrien-fleming", help="spending of part 1 (e.g. pocock)")
     args = parser.parse_args(argv)
     started = time.perf_counter()
     if args.part in ("1", "both"):
-        part_one(args.streams, args.power_streams, args.seed)
+        part_one(args.streams, args.power_streams, args.seed, args.spending)
     if args.part in ("2", "both"):
         part_two(args.power_streams, args.seed)
     print(f"\n({time.perf_counter() - started:.0f} s)")
