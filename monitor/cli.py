@@ -13,7 +13,7 @@ __all__ = ["main", "build_parser"]
 # Order is the order of ``gapwatch --help``.
 COMMAND_MODULES = [
     "test", "bounds", "plan", "simulate",
-    "check", "db", "look", "status", "history", "verify", "restart",
+    "check", "db", "look", "status", "history", "verify", "restart", "replan",
     "run", "alerts", "dashboard", "demo",
 ]
 

@@ -16,7 +16,7 @@ from sqlalchemy.exc import DBAPIError, IntegrityError
 from ..errors import LookAlreadyRecordedError, ReplanRefusedError, StoreUnavailableError, UnknownComparisonError
 from .models import Comparison, PlanChange
 
-__all__ = ["KINDS", "plan_changes", "replans", "record_replan", "restart_version", "restart_note"]
+__all__ = ["KINDS", "plan_changes", "replans", "record_replan", "restart_version", "restart_note", "replan_inputs"]
 
 KINDS = ("replan", "restart")
 
@@ -146,3 +146,33 @@ def restart_note(conn, name: str, version: int) -> dict | None:
     return {"after_version": version, "from_start": bool(record.get("from_start")),
             "watermark": record.get("watermark"), "made_at": found["made_at"], "made_by": found["made_by"],
             "reason": found["reason"]}
+
+
+_LOOK_FIELDS = ("look_number", "boundary_look", "fraction", "boundary_z", "futility_z", "statistic", "df",
+                "p_value", "estimate", "n1", "n2", "pairs", "as_of", "detail")
+
+
+def replan_inputs(engine, name: str) -> dict | None:
+    """What a replan is worked out from, in one read: the active version of ``name``, its
+    testing looks (oldest first) and its replans. None when the comparison has no version yet.
+    """
+    from .models import Look
+
+    look = Look.__table__
+    try:
+        with engine.connect() as conn:
+            row = conn.execute(
+                sa.select(_COMPARISON.c.id, _COMPARISON.c.version, _COMPARISON.c.design, _COMPARISON.c.state,
+                          _COMPARISON.c.looks_taken, _COMPARISON.c.stopped_at)
+                .where(_COMPARISON.c.name == name, _COMPARISON.c.archived.is_(False))
+                .order_by(_COMPARISON.c.version.desc()).limit(1)).mappings().first()
+            if row is None:
+                return None
+            testing = [dict(r) for r in conn.execute(
+                sa.select(*(look.c[f] for f in _LOOK_FIELDS))
+                .where(look.c.comparison_id == row["id"], look.c.boundary_look.is_not(None))
+                .order_by(look.c.boundary_look)).mappings()]
+            changes = _rows(conn, row["id"], "replan")
+    except DBAPIError as exc:
+        raise StoreUnavailableError(f"cannot read the history store: {str(exc.orig).splitlines()[0]}") from None
+    return {"comparison": dict(row), "testing_looks": testing, "replans": changes}
