@@ -101,7 +101,10 @@ METHOD = ("conditional error principle (Proschan & Hunsberger 1995; Müller & Sc
 _PANELS_PER_SD = 0.4
 _PANEL_POINTS = 8
 _RANGE_SD = 8.5
-_ROWS = 1024
+# Working-array size of one block of the kernel (rows × nodes), and a bound on a grid's panels
+# (the same safety net as the boundary engine's).
+_CHUNK_ENTRIES = 1_000_000
+_MAX_PANELS = 40000
 _GAUSS_NODES, _GAUSS_WEIGHTS = np.polynomial.legendre.leggauss(_PANEL_POINTS)
 _SQRT_2PI = math.sqrt(2.0 * math.pi)
 
@@ -112,7 +115,7 @@ _SQRT_2PI = math.sqrt(2.0 * math.pi)
 
 
 def _panel_rule(lo, hi, width):
-    panels = max(1, math.ceil((hi - lo) / width))
+    panels = min(max(1, math.ceil((hi - lo) / width)), _MAX_PANELS)
     size = (hi - lo) / panels
     starts = lo + size * np.arange(panels)
     nodes = (starts[:, None] + 0.5 * size * (_GAUSS_NODES + 1.0)).ravel()
@@ -218,15 +221,16 @@ def conditional_crossing(start_fraction, start_scores, fractions, upper_z, lower
             return up, low
         out_up, out_low = up.copy(), low.copy()
         wu, wl = weights * later_up, weights * later_low
-        for start in range(0, x.size, _ROWS):
-            block = x[start:start + _ROWS]
+        rows = max(1, _CHUNK_ENTRIES // nodes.size)
+        for start in range(0, x.size, rows):
+            block = x[start:start + rows]
             k = (nodes[None, :] - block[:, None] - drift * steps[j]) / sds[j]
             np.square(k, out=k)
             k *= -0.5
             np.exp(k, out=k)
             k /= sds[j] * _SQRT_2PI
-            out_up[start:start + _ROWS] += k @ wu
-            out_low[start:start + _ROWS] += k @ wl
+            out_up[start:start + rows] += k @ wu
+            out_low[start:start + rows] += k @ wl
         return out_up, out_low
 
     later_up = later_low = None
