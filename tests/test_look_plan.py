@@ -134,3 +134,17 @@ def test_recent_rates_and_projection():
     stalled = projection(state, events=(1000, 500), pairs=None, share=0.5, rates=((1.0, 0.0), 3.0),
                          cutoff_local=cutoff)
     assert stalled["days_left"] is None and "completes_on" not in stalled
+
+
+def test_outlook_words():
+    from monitor.vocabulary import outlook_words
+
+    assert outlook_words({"completes_on": "2026-03-12", "days_left": 9.2, "planned_difference": 0.83,
+                          "current_estimate": 0.4}) == (
+        "at the current rate the plan completes around Thu 12 Mar; if the planned difference is real, "
+        "the chance of finding it by then is 83 %")
+    assert outlook_words({"days_left": None, "current_estimate": 0.004}) == (
+        "at the current rate the plan does not complete (a group has no recent events); if the difference "
+        "seen so far is real, the chance of finding it by the plan's end is under 1 %")
+    assert outlook_words({"planned_difference": 0.999}).endswith("by the plan's end is over 99 %")
+    assert outlook_words({}) is None and outlook_words(None) is None
