@@ -94,3 +94,14 @@ def test_a_version_archived_without_a_note_starts_the_next_after_its_watermark(e
         assert plan_changes.restart_note(conn, "pick-rate", 7) is None
     assert note["from_start"] is False and note["made_by"] is None
     assert note["watermark"]["cutoff"] == "2026-03-02T08:00:00+00:00"
+
+
+def test_each_replan_moves_the_count_a_look_guards_on(engine):
+    cid = _comparison(engine)
+    _replan(engine, cid)
+    _replan(engine, cid)
+    with engine.connect() as conn:
+        assert conn.execute(sa.select(Comparison.replans).where(Comparison.id == cid)).scalar_one() == 2
+    archived = _comparison(engine, name="other", archived=True)
+    with pytest.raises(LookAlreadyRecordedError):
+        _replan(engine, archived)

@@ -1,4 +1,5 @@
-"""plan_change: replans and restarts made by hand, with who, when, why and the figures used.
+"""plan_change: replans and restarts made by hand, with who, when, why and the figures used;
+comparison.replans, the count a look guards its write on.
 
 Revision ID: 0003
 Revises: 0002
@@ -35,9 +36,13 @@ def upgrade() -> None:
     )
     with op.batch_alter_table('plan_change', schema=None) as batch_op:
         batch_op.create_index(batch_op.f('ix_plan_change_comparison_id'), ['comparison_id'], unique=False)
+    with op.batch_alter_table('comparison', schema=None) as batch_op:
+        batch_op.add_column(sa.Column('replans', sa.Integer(), server_default='0', nullable=False))
 
 
 def downgrade() -> None:
+    with op.batch_alter_table('comparison', schema=None) as batch_op:
+        batch_op.drop_column('replans')
     with op.batch_alter_table('plan_change', schema=None) as batch_op:
         batch_op.drop_index(batch_op.f('ix_plan_change_comparison_id'))
     op.drop_table('plan_change')

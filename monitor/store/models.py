@@ -91,6 +91,9 @@ class Comparison(Base):
     last_look_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     stopped_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     archived: Mapped[bool] = mapped_column(Boolean, default=False)
+    # Replans made so far: a look guards its write on it, so a look worked out before a replan
+    # is never recorded after it (see monitor.store.plan_changes).
+    replans: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
 
     looks: Mapped[list["Look"]] = relationship(back_populates="comparison", order_by="Look.look_number")
 

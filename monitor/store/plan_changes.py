@@ -67,17 +67,23 @@ def record_replan(engine, *, comparison_id: int, looks_taken: int, made_at: date
     """
     try:
         with engine.begin() as conn:
-            row = conn.execute(
-                sa.select(_COMPARISON.c.name, _COMPARISON.c.looks_taken, _COMPARISON.c.stopped_at,
-                          _COMPARISON.c.archived, _COMPARISON.c.state)
-                .where(_COMPARISON.c.id == comparison_id)).mappings().first()
-            if row is None:
-                raise UnknownComparisonError(f"no comparison version with id {comparison_id} in the store")
-            if row["stopped_at"] is not None:
-                raise ReplanRefusedError(
-                    f"comparison {row['name']!r} has stopped ({row['state'].replace('_', ' ')}): a stopped "
-                    f"comparison cannot be replanned; start a new comparison instead")
-            if row["archived"] or row["looks_taken"] != looks_taken:
+            # The guarded update takes the comparison row first (a look's write waits for it, or
+            # wins and voids this replan) and moves the count a look guards its own write on.
+            done = conn.execute(
+                sa.update(_COMPARISON)
+                .where(_COMPARISON.c.id == comparison_id, _COMPARISON.c.looks_taken == looks_taken,
+                       _COMPARISON.c.stopped_at.is_(None), _COMPARISON.c.archived.is_(False))
+                .values(replans=_COMPARISON.c.replans + 1))
+            if done.rowcount != 1:
+                row = conn.execute(
+                    sa.select(_COMPARISON.c.name, _COMPARISON.c.stopped_at, _COMPARISON.c.state)
+                    .where(_COMPARISON.c.id == comparison_id)).mappings().first()
+                if row is None:
+                    raise UnknownComparisonError(f"no comparison version with id {comparison_id} in the store")
+                if row["stopped_at"] is not None:
+                    raise ReplanRefusedError(
+                        f"comparison {row['name']!r} has stopped ({row['state'].replace('_', ' ')}): a stopped "
+                        f"comparison cannot be replanned; start a new comparison instead")
                 raise LookAlreadyRecordedError(
                     f"comparison {row['name']!r}: a look was recorded (or the version restarted) while the "
                     f"replan was being worked out; nothing was written — run the replan again")
