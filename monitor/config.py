@@ -84,7 +84,7 @@ _COMPARISON_KEYS = {
     "name", "source", "table", "schema", "group_column", "groups", "value_column", "time_column",
     "metric", "method", "alternative", "alpha", "spending", "planned_per_group", "difference",
     "sd", "p1", "p2", "power", "looks", "every", "sigmas", "pair_by", "pair_column",
-    "shift_starts", "null_difference", "futility", "valid_range", "filters", "lateness",
+    "shift_starts", "null_difference", "futility", "fraction", "valid_range", "filters", "lateness",
     "arrival_column", "time_format", "timezone", "cluster_by", "cluster_column", "min_clusters",
     "notify", "description",
 }
@@ -201,6 +201,7 @@ class ComparisonConfig:
     shift_starts: tuple = ()
     null_difference: float = 0.0
     futility: bool = False
+    fraction: str = "events"
     valid_range: tuple | None = None
     filters: tuple = ()
     lateness: str = "0s"
@@ -292,6 +293,8 @@ class ComparisonConfig:
             "clustering": ({"cluster_by": self.cluster_by, "cluster_column": self.cluster_column}
                            if self.clustered else None),
             "futility": self.futility,
+            # Only when not the default, so designs frozen before the key existed stay equal.
+            **({"fraction": self.fraction} if self.fraction != "events" else {}),
             "valid_range": list(self.valid_range) if self.valid_range else None,
             "filters": [list(f[:2]) + [list(f[2]) if isinstance(f[2], tuple) else f[2]]
                         for f in self.filters],
@@ -673,6 +676,12 @@ class _Checker:
             p("futility", "needs a one-sided alternative ('greater' or 'less')")
 
         self.plan_keys(v, metric, method, alternative, p)
+        fraction = v.get("fraction", "events")
+        if fraction not in ("events", "information"):
+            p("fraction", f"must be 'events' or 'information'; got {fraction!r}")
+        elif fraction == "information" and (metric != "mean" or "difference" not in v or "sd" not in v):
+            p("fraction", "'information' needs a mean comparison planned from difference + sd (the maximum "
+                          "information comes from the planned difference and the design)")
 
         sigmas = v.get("sigmas")
         if method == "z":
@@ -797,6 +806,7 @@ class _Checker:
                 shift_starts=tuple(sorted(shift_starts)) if isinstance(shift_starts, list) else (),
                 null_difference=float(null_difference) if _is_number(null_difference) else 0.0,
                 futility=futility is True,
+                fraction=fraction if fraction in ("events", "information") else "events",
                 valid_range=tuple(float(x) for x in valid_range) if valid_range else None,
                 filters=filters,
                 lateness=lateness,

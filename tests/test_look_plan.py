@@ -7,7 +7,7 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from monitor.plan_state import (conditional_powers, original_fraction, plan_state, projection, recent_rates,
+from monitor.look.plan import (conditional_powers, original_fraction, plan_state, projection, recent_rates,
                                  resume_boundary, work_out_replan, z_of)
 from monitor.errors import InvalidArgumentError, ReplanRefusedError
 from monitor.stats.adaptive import AdaptiveBoundary
@@ -148,3 +148,21 @@ def test_outlook_words():
         "seen so far is real, the chance of finding it by the plan's end is under 1 %")
     assert outlook_words({"planned_difference": 0.999}).endswith("by the plan's end is over 99 %")
     assert outlook_words({}) is None and outlook_words(None) is None
+
+
+def test_alert_payload_and_email_carry_the_outlook():
+    from datetime import datetime, timezone
+
+    from monitor.alerts.wording import decision_payload, email_text
+
+    values = {"decision": "data_problem", "look_number": 4, "estimate": 1.0, "ci_low": None, "ci_high": None,
+              "p_value": 0.2, "fraction": 0.9, "n1": 90, "n2": 91, "warnings": ["zero variance"],
+              "detail": {"plan": {"share": 0.45, "end": 2.0},
+                         "outlook": {"completes_on": "2026-03-12", "planned_difference": 0.83}}}
+    payload = decision_payload("pick-rate", 1, "data_problem", values, {"groups": ["east", "west"]},
+                               datetime(2026, 3, 3, tzinfo=timezone.utc))
+    assert payload["fraction"] == 0.45
+    assert payload["outlook"].startswith("at the current rate the plan completes around Thu 12 Mar")
+    _, body = email_text("a1", payload)
+    assert "Outlook: At the current rate the plan completes around Thu 12 Mar; if the planned difference is " \
+           "real, the chance of finding it by then is 83 %." in body

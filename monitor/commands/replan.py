@@ -45,7 +45,7 @@ def _who(given):
 def run(args) -> int:
     from ..config import load_config
     from ..errors import InvalidArgumentError, UnknownComparisonError
-    from ..plan_state import work_out_replan
+    from ..look.plan import work_out_replan
     from ..stats.boundaries import FutilitySpec
     from ..store.engine import ensure_current, make_engine
     from ..store.plan_changes import record_replan, replan_inputs

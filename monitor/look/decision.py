@@ -7,11 +7,16 @@ look against the sequential boundary (resumed at the recorded testing looks by t
 caller) and gives the decision, the repeated confidence interval and, at a stop, the
 adjusted inference.
 
-* **Information fraction.** Events so far over planned events per group, the smaller of
-  the two groups (pairs over planned pairs for paired comparisons). Clustered comparisons
-  use the same event fraction: an information fraction from ``1/variance`` would wobble
-  with the variance estimate (and could fall), while events only grow; plan the events
-  with the design effect in mind.
+* **Information fraction.** On the scale of the plan frozen at the first look (see
+  ``plan``): events so far over planned events per group, the smaller of the two groups
+  (pairs over planned pairs for paired comparisons), or with ``fraction = "information"``
+  the observed information ``1/se²`` over the plan's maximum information. After a replan
+  the plan ends at ``plan.end`` on that scale (2 when the plan doubled); the share of the
+  current plan is ``fraction / end``.
+* **Replans.** The boundary is an ``AdaptiveBoundary``: the original design until the
+  first replan, then remainders spending the conditional error. Non-binding futility,
+  the repeated interval and the adjusted inference after a stop belong to the original
+  design's looks.
 * **Which looks test.** A look tests against the boundary only when the fraction has
   grown since the last testing look and a statistic exists; other looks (no new
   information, too few clusters, a data problem) are recorded but spend nothing.
@@ -30,12 +35,13 @@ from datetime import datetime
 from scipy import special
 
 from ..errors import InvalidArgumentError
-from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
-                                futility_decision, nominal_decision)
+from ..stats.adaptive import AdaptiveBoundary, AdaptiveLook
+from ..stats.boundaries import MIN_INCREMENT, FutilitySpec, futility_decision
 from ..stats.inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
 from ..stats.summaries import MomentSummary
 from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES
 from .cells import summary
+from .plan import PlanState, conditional_powers, original_fraction, projection, recent_rates, z_of
 from .statistic import Stat, day_design_effect, finite_or_none, futility_spec, statistic, t_critical
 
 __all__ = ["LookInputs", "Evidence", "Decision", "weigh", "decide", "alert_kind"]
@@ -52,6 +58,7 @@ class LookInputs:
     cells: dict                 # the merged running cells
     cutoff: datetime            # events up to here are in the cells
     excluded_total: int         # events excluded so far, all reasons
+    plan: PlanState             # the plan as it stands after the recorded replans
     last_fraction: float = 0.0  # information fraction at the last testing look (0 before any)
 
 
@@ -63,13 +70,14 @@ class Evidence:
     s1: MomentSummary
     s2: MomentSummary
     stat: Stat
-    planned: int                # planned events (pairs) per group
-    fraction: float
+    planned: int                # planned events (pairs) per group of the current plan
+    fraction: float             # on the original plan's scale (nan when no information can be measured)
     state: str                  # the decision when nothing is tested
     tests: bool                 # a statistic and new information: the look tests the boundary
     futility: FutilitySpec | None
     design_effect: object | None  # day-level DesignEffect, None when it cannot be measured
     warnings: tuple
+    projection: dict | None = None  # when the current plan completes at the recent event rates
 
 
 @dataclass(frozen=True)
@@ -77,10 +85,11 @@ class Decision:
     """Where a look stands: its decision and, for a testing look, its boundary and interval."""
 
     decision: str
-    boundary: LookBoundary | None = None
+    boundary: AdaptiveLook | None = None
     boundary_number: int | None = None
     interval: tuple = (None, None)
     after_stop: dict | None = None
+    outlook: dict | None = None   # conditional powers at a testing look that did not stop
 
     @property
     def stopped(self) -> bool:
@@ -94,8 +103,13 @@ def weigh(inputs: LookInputs) -> Evidence:
     s1 = summary(cells, "total", 0, "", shift)
     s2 = summary(cells, "total", 1, "", shift)
     st = statistic(c, design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
-    planned = int(design["plan"]["planned_per_group"])
-    fraction = ((st.pairs or 0) if c.paired else min(s1.n, s2.n)) / planned
+    plan = inputs.plan
+    planned = plan.planned_now
+    events = (st.pairs or 0) if c.paired else min(s1.n, s2.n)
+    fraction = original_fraction(plan, events=events, standard_error=st.standard_error)
+    # Fractions of the current segment move by (step / segment length): ask for a step that
+    # is still at least MIN_INCREMENT there.
+    step = MIN_INCREMENT * max(1.0, plan.end)
 
     state, tests, warnings = "collecting", False, []
     if st.problem:
@@ -106,7 +120,7 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append(st.waiting)
     elif st.waiting:
         warnings.append(st.waiting)
-    elif st.testable and fraction - inputs.last_fraction >= MIN_INCREMENT:
+    elif st.testable and math.isfinite(fraction) and fraction - inputs.last_fraction >= step:
         tests = True
     elif st.testable:
         warnings.append("no new information since the last testing look; nothing spent at this look")
@@ -116,14 +130,29 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
-                    tuple(warnings))
+                    tuple(warnings), _projection(inputs, s1, s2, st, fraction))
 
 
-def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> Decision:
+def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
+    """Days to the current plan's end at each group's events per day over the last week."""
+    if s1.n == 0 or s2.n == 0:
+        return None
+    days = {0: {}, 1: {}}
+    for (kind, gi, key), value in inputs.cells.items():
+        if kind == "day" and gi in days:
+            days[gi][key] = value[0]
+    cutoff = inputs.cutoff.astimezone(inputs.comparison.zone)
+    share = fraction / inputs.plan.end if math.isfinite(fraction) else math.nan
+    return projection(inputs.plan, events=(s1.n, s2.n), pairs=st.pairs if inputs.comparison.paired else None,
+                      share=share, rates=recent_rates(days, cutoff), cutoff_local=cutoff)
+
+
+def decide(evidence: Evidence, boundary: AdaptiveBoundary | None = None) -> Decision:
     """The look's decision.
 
     A testing look needs ``boundary`` standing at the recorded testing looks (with the
-    design's futility rule); this look is added to it, so afterwards it stands here.
+    design's futility rule and the recorded replans); this look is added to it, so
+    afterwards it stands here.
     """
     if not evidence.tests:
         return Decision(evidence.state)
@@ -133,28 +162,33 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     alternative = design["alternative"]
     look = boundary.add_look(fraction)
     if design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered:
-        z = st.statistic
-        crossed = (z >= look.z if alternative == "greater" else z <= -look.z if alternative == "less"
-                   else abs(z) >= look.z)
+        side = look.decision(st.statistic)
     else:
-        crossed = nominal_decision(st.p_upper, st.p_lower, look, alternative)
-    if crossed:
+        side = look.decision_from_p(st.p_upper, st.p_lower)
+    original = look.segment == 0
+    if side != 0:
         decision = "difference_found"
-    elif evidence.futility is not None and futility_decision(st.p_upper, st.p_lower, look,
-                                                             boundary.futility_direction):
+    elif (original and evidence.futility is not None
+          and futility_decision(st.p_upper, st.p_lower, look, boundary.original.futility_direction)):
         decision = "no_material_difference"
     elif look.final:
         decision = "plan_complete"
     else:
         decision = "collecting"
     interval = (None, None)
-    # Repeated confidence interval: the boundary on the statistic's own scale.
-    if math.isfinite(look.z):
-        critical = look.z if st.df is None else t_critical(look.nominal_p, st.df)
+    # Repeated confidence interval: the boundary on the statistic's own scale (original looks).
+    magnitude = look.bound_lower if alternative == "less" else look.bound_upper
+    if original and math.isfinite(magnitude):
+        critical = magnitude if st.df is None else t_critical(float(special.ndtr(-magnitude)), st.df)
         low, high = repeated_confidence_interval(st.estimate, st.standard_error, critical, alternative)
         interval = (finite_or_none(low), finite_or_none(high))
-    after = _after_stop(boundary, st, fraction, design) if decision in STOPPED_STATES else None
-    return Decision(decision, look, len(boundary.looks), interval, after)
+    after = outlook = None
+    if decision in STOPPED_STATES:
+        after = (_after_stop(boundary.original, st, fraction, design) if original else
+                 {"note": "adjusted inference after a change of plan is not computed"})
+    else:
+        outlook = conditional_powers(evidence.inputs.plan, boundary, z_of(st.statistic, st.df), fraction)
+    return Decision(decision, look, len(boundary.looks), interval, after, outlook)
 
 
 def _after_stop(boundary, st: Stat, fraction, design) -> dict:

@@ -28,7 +28,7 @@ from functools import partial
 from ..config import ComparisonConfig
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, Watermark
-from ..stats.boundaries import SequentialBoundary
+from ..stats.adaptive import AdaptiveBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
                            write_look)
@@ -38,6 +38,7 @@ from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, weigh
 from .design_check import design_key, frozen_design
 from .memory import LookMemory
+from .plan import plan_state, resume_boundary
 from .record import LookRecord
 from .row import LookMoment, look_detail, look_row
 
@@ -127,17 +128,19 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
     design = frozen_design(c.name, row, configured)
-    batch, cutoff = _read_source(config, c, design, row, as_of, source)
+    batch, cutoff = _read_source(config, c, design, row, as_of, source, state.restart)
     stopwatch.lap("source")
 
     rolled = roll_up(c, batch)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     last = state.last_boundary_look
-    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()),
+    plan = plan_state(design, state.replans)
+    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()), plan,
                                 last.fraction if last is not None else 0.0))
     key = design_key(design) if evidence.tests or row is None else None
-    boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
+    boundary = (_resumed_boundary(engine, memory, state, design, key, evidence.futility, plan)
+                if evidence.tests else None)
     decision = decide(evidence, boundary)
 
     moment = LookMoment(state.looks_taken + 1, as_of, cutoff, batch.watermark.arrival)
@@ -146,6 +149,12 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     values["duration_ms"] = stopwatch.total()
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
+    if row is None and state.restart is not None:
+        detail["restart"] = _restart_detail(state.restart, batch)
+        if state.restart["from_start"]:
+            values["warnings"] = values["warnings"] + [
+                f"restarted from the start: the data version {state.restart['after_version']} tested are "
+                f"tested again (its false alarms add to this version's)"]
     detail["timings_ms"] = {k: round(v, 3) for k, v in stopwatch.laps.items()}
     # Random, not from the clock: tells the next look whether the store's newest look is this one.
     detail["state_token"] = token = uuid.uuid4().hex
@@ -159,7 +168,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
             alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify))))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.
-        memory.keep_boundary(engine, written.comparison_id, key, boundary)
+        memory.keep_boundary(engine, written.comparison_id, _boundary_key(key, state), boundary)
     if engine.dialect.name in _EXACT_FLOAT_STORES:
         if decision.boundary is not None:
             last = BoundaryLookRow(decision.boundary_number, values["fraction"], values["boundary_z"],
@@ -168,8 +177,12 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data."""
+def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, restart=None):
+    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data.
+
+    The first look of a restarted comparison's new version starts after the archived
+    version's watermark, unless the restart was made ``--from-start``.
+    """
     own_source = source is None
     if own_source:
         try:
@@ -183,7 +196,12 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
             shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
             design["shift"] = None if shift is None else float(shift)
         spec = c.source_spec(design["shift"] or 0.0)
-        watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
+        if row is not None:
+            watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
+        elif restart is not None and not restart["from_start"] and restart["watermark"]:
+            watermark = Watermark.from_dict(restart["watermark"])
+        else:
+            watermark = None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
@@ -197,8 +215,14 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
     return batch, cutoff
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
-    """The sequential boundary standing at the recorded testing looks.
+def _boundary_key(key, state) -> str:
+    """Kept boundaries are keyed by design and replans: a replan makes a kept one stale."""
+    replans = state.comparison["replans"] if state.comparison is not None else 0
+    return f"{key}:{replans}"
+
+
+def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility, plan) -> AdaptiveBoundary:
+    """The boundary standing at the recorded testing looks, replans applied.
 
     The one kept in memory is used when it stands at the last recorded testing look;
     otherwise it is resumed from the testing looks this look's read saw (another process
@@ -207,17 +231,23 @@ def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) 
     last = state.last_boundary_look
     count = last.boundary_look if last is not None else 0
     row = state.comparison
-    kept = memory.take_boundary(engine, row["id"], key) if row is not None else None
-    if kept is not None and len(kept.looks) == count and (
-            count == 0 or (kept.looks[-1].fraction == last.fraction and kept.looks[-1].z == last.boundary_z)):
+    kept = memory.take_boundary(engine, row["id"], _boundary_key(key, state)) if row is not None else None
+    if kept is not None and len(kept.looks) == count and (count == 0 or kept.looks[-1].fraction == last.fraction):
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
-    return SequentialBoundary.resume(
-        design["alpha"], design["spending"], design["alternative"],
-        [r.fraction for r in recorded], [r.boundary_z for r in recorded],
-        futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
-        if futility is not None else None,
-        futility=futility)
+    return resume_boundary(design, plan, futility, [r._asdict() for r in recorded])
+
+
+def _restart_detail(restart: dict, batch) -> dict:
+    """How this version began: after the archived version's watermark, or from the start again."""
+    out = {"after_version": restart["after_version"], "from_start": restart["from_start"]}
+    mark = restart.get("watermark") or {}
+    if not restart["from_start"] and mark.get("cutoff"):
+        out["starts_after"] = mark["cutoff"]
+    for key in ("made_by", "reason"):
+        if restart.get(key):
+            out[key] = restart[key]
+    return out
 
 
 def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatch) -> LookRecord:
@@ -231,6 +261,6 @@ def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatc
         boundary_z=values["boundary_z"], nominal_p=values["nominal_p"], boundary_look=decision.boundary_number,
         clusters=evidence.stat.clusters, design_effect=values["design_effect"], effective_n=values["effective_n"],
         new_events=values["new_events"], late_events=values["late_events"], excluded=values["excluded"],
-        warnings=evidence.warnings, look_id=written.look_id, alert_id=written.alert_id,
+        warnings=tuple(values["warnings"]), look_id=written.look_id, alert_id=written.alert_id,
         duration_ms=stopwatch.total(), detail=values["detail"],
     )

@@ -21,6 +21,8 @@ from . import engine as store
 from ..config import load_config
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from .models import Alert, Cell, Comparison, Delivery, Look
+from .plan_changes import plan_changes
+from ..vocabulary import outlook_words
 
 __all__ = [
     "STATES",
@@ -34,6 +36,8 @@ __all__ = [
     "comparison_status",
     "list_comparisons",
     "look_history",
+    "plan_change_history",
+    "plan_share",
     "get_comparison",
     "list_versions",
     "latest_look_time",
@@ -255,7 +259,7 @@ def _comparison_select():
     return sa.select(
         Comparison.id, Comparison.name, Comparison.version, Comparison.design,
         Comparison.settings, Comparison.state, Comparison.looks_taken, Comparison.created_at,
-        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived,
+        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived, Comparison.replans,
     )
 
 
@@ -341,9 +345,34 @@ def adjusted_inference(detail):
     return out
 
 
+def plan_share(look):
+    """A look's share of the plan it was measured against: its fraction, or after a replan the
+    fraction over the new plan's end (``detail["plan"]["share"]``)."""
+    plan = (look["detail"] or {}).get("plan") or {}
+    return plan["share"] if plan.get("share") is not None else look["fraction"]
+
+
+def _outlook(looks):
+    """The newest look's projected completion with the newest conditional powers (a look that
+    tested nothing recorded no conditional power: the last testing look's stand)."""
+    if not looks:
+        return None
+    out = dict((looks[-1]["detail"] or {}).get("outlook") or {})
+    for look in reversed(looks):
+        earlier = (look["detail"] or {}).get("outlook") or {}
+        for key in ("current_estimate", "planned_difference"):
+            if key not in out and earlier.get(key) is not None:
+                out[key] = earlier[key]
+        if "current_estimate" in out:
+            break
+    return _clean(out) or None
+
+
 def _status_row(comp, looks, now):
     design = comp["design"] or {}
     settings = comp["settings"] or {}
+    # The share of the (current) plan is what people read as "fraction".
+    looks = [dict(look, fraction=plan_share(look)) for look in looks]
     last = looks[-1] if looks else None
     stopped = comp["state"] in STOPPED_STATES
     rate1, rate2, fraction_rate = _rates(looks)
@@ -392,7 +421,8 @@ def _status_row(comp, looks, now):
         "alternative": design.get("alternative"),
         "alpha": _num(design.get("alpha")),
         "spending": design.get("spending"),
-        "planned_per_group": _planned_per_group(design),
+        "planned_per_group": ((last["detail"] or {}).get("planned_per_group") if last is not None else None)
+        or _planned_per_group(design),
         "plan": _clean(design.get("plan")) if isinstance(design.get("plan"), dict) else None,
         "null_difference": _num(design.get("null_difference", 0.0)),
         "description": settings.get("description") or design.get("description"),
@@ -421,6 +451,9 @@ def _status_row(comp, looks, now):
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
         "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
+        "outlook": None if stopped else _outlook(looks),
+        "outlook_words": None if stopped else outlook_words(_outlook(looks)),
+        "replans": comp.get("replans") or 0,
     }
 
 
@@ -531,7 +564,28 @@ def get_comparison(engine, name, version=None, *, now=None):
     row["design"] = _clean(comp["design"] or {})
     row["settings"] = _clean(comp["settings"] or {})
     row["watermark"] = _clean(watermark)
+    row["plan_changes"] = plan_change_history(engine, name, comp["version"])
     return row
+
+
+def plan_change_history(engine, name, version=None):
+    """The replans and restarts of one comparison version, oldest first, as plain dicts."""
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        rows = plan_changes(conn, comp["id"])
+    out = []
+    for r in rows:
+        record = r["record"] or {}
+        item = {"number": r["number"], "kind": r["kind"], "made_at": _iso(r["made_at"]), "made_by": r["made_by"],
+                "reason": r["reason"], "after_look": r["after_look"],
+                "old_plan": _clean(r["old_plan"]), "new_plan": _clean(r["new_plan"])}
+        if r["kind"] == "replan":
+            item["conditional_error"] = _num((record.get("error_upper") or 0.0) + (record.get("error_lower") or 0.0))
+            item["method"] = record.get("method")
+        else:
+            item["from_start"] = bool(record.get("from_start"))
+        out.append(item)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -584,6 +638,8 @@ def look_history(engine, name, version=None):
             "p_value": _num(r["p_value"]),
             "information": _num(r["information"]),
             "fraction": _num(r["fraction"]),
+            "plan_share": _num(plan_share(r)),
+            "plan_end": _num(((detail.get("plan") or {}).get("end")) or 1.0),
             "boundary_z": _num(r["boundary_z"]),
             "futility_z": _num(r["futility_z"]),
             "nominal_p": _num(r["nominal_p"]),

@@ -28,10 +28,12 @@ from datetime import date, datetime, timedelta
 
 from scipy import special
 
-from .errors import InvalidArgumentError
-from .stats.adaptive import AdaptiveBoundary, Replan, remaining_planned_fractions
-from .stats.forecast import project_completion
-from .stats.information import FRACTION_KINDS, events_for_information, information_fraction, max_information
+from ..errors import InvalidArgumentError, ReplanRefusedError
+from ..stats.adaptive import AdaptiveBoundary, Replan, remaining_planned_fractions
+from ..stats.forecast import project_completion
+from ..stats.information import (FRACTION_KINDS, events_for_information, information_fraction, max_information,
+                                 plan_information)
+from ..stats.planning import plan_mean, plan_proportion
 
 __all__ = ["PlanState", "plan_state", "original_fraction", "resume_boundary", "reference_fractions",
            "conditional_powers", "z_of", "recent_rates", "projection", "WorkedReplan", "work_out_replan"]
@@ -254,10 +256,6 @@ def work_out_replan(design: dict, testing_looks, replan_rows, futility, *, plann
     current values. Raises ``ReplanRefusedError`` (see ``AdaptiveBoundary.replan``) or
     ``InvalidArgumentError`` for inputs that make no plan.
     """
-    from .errors import ReplanRefusedError
-    from .stats.information import plan_information
-    from .stats.planning import plan_mean, plan_proportion
-
     state = plan_state(design, replan_rows)
     boundary = resume_boundary(design, state, futility, testing_looks)
     paired = bool(design.get("pairing"))
