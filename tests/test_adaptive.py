@@ -453,3 +453,12 @@ def test_remaining_planned_fractions():
     assert remaining_planned_fractions(1.0, 4) == [1.0000001]
     with pytest.raises(InvalidArgumentError):
         remaining_planned_fractions(0.5, 0)
+
+
+def test_conditional_powers_at_once_equal_one_at_a_time():
+    b = AdaptiveBoundary(0.05, "obrien-fleming", "two-sided")
+    b.add_look(0.35)
+    both = b.conditional_powers(0.9, [2.8, -1.0], reference=[0.6, 1.0])
+    for cp, drift in zip(both, (2.8, -1.0)):
+        one = b.conditional_power(0.9, drift, reference=[0.6, 1.0])
+        assert (cp.upper, cp.lower, cp.drift) == (one.upper, one.lower, one.drift)

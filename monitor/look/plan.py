@@ -12,10 +12,11 @@ replan ``τ_end = 1`` and everything is as before.
   information over the plan's maximum information (Mehta & Tsiatis 2001), so a wrong
   planning sd no longer silently costs power.
 
-Conditional power (Jennison & Turnbull 2000, ch. 10) is taken over the plan's remaining
-equally spaced looks, under the current estimate (drift ``z/√τ``) and under the planned
-difference (the plan's drift; after a replan with new planning inputs, the new plan's
-drift, which on the original scale is ``θ_new / √τ_end``).
+Conditional power (Jennison & Turnbull 2000, ch. 10) is the chance of crossing at an
+analysis at the plan's end, under the current estimate (drift ``z/√τ``) and under the
+planned difference (the plan's drift; after a replan with new planning inputs, the new
+plan's drift, which on the original scale is ``θ_new / √τ_end``). The conditional error of
+a replan uses the plan's remaining equally spaced looks instead (see ``work_out_replan``).
 
 Pure: no SQL, no clock.
 """
@@ -167,12 +168,14 @@ def conditional_powers(state: PlanState, boundary: AdaptiveBoundary, z, fraction
     """
     if boundary.complete or not boundary.looks or not fraction or fraction <= 0:
         return {}
-    reference = reference_fractions(state, boundary)
-    out = {}
-    estimate = boundary.conditional_power(z, z / math.sqrt(fraction), reference=reference)
-    out["current_estimate"] = estimate.in_direction
+    # By one analysis at the plan's end: a look costs about 1 ms this way, against about 5 ms
+    # with every remaining planned look (which adds little: boundaries of looks to come are
+    # spent mostly at the end).
+    drifts = [z / math.sqrt(fraction)] + ([state.drift] if state.drift is not None else [])
+    powers = boundary.conditional_powers(z, drifts)
+    out = {"current_estimate": powers[0].in_direction}
     if state.drift is not None:
-        out["planned_difference"] = boundary.conditional_power(z, state.drift, reference=reference).in_direction
+        out["planned_difference"] = powers[1].in_direction
     return out
 
 
@@ -314,7 +317,5 @@ def work_out_replan(design: dict, testing_looks, replan_rows, futility, *, plann
     after = plan_state(design, list(replan_rows) + [{"record": change.to_dict(), "new_plan": new_plan}])
     power_after = None
     if after.drift is not None:
-        power_after = boundary.conditional_power(
-            z if testing_looks else 0.0, after.drift,
-            reference=remaining_planned_fractions(0.0, after.looks)).in_direction
+        power_after = boundary.conditional_power(z if testing_looks else 0.0, after.drift).in_direction
     return WorkedReplan(old_plan, new_plan, change, boundary, after, power_after)

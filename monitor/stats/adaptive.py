@@ -645,13 +645,21 @@ class AdaptiveBoundary:
         return ref
 
     def _conditional(self, z, drift, reference):
+        (out,), ref = self._conditionals(z, [drift], reference)
+        return out, ref
+
+    def _conditionals(self, z, drifts, reference):
+        """(upper, lower) per drift, with the reference boundaries computed once."""
         seg, u_now, b_now = self._position(z)
         ref = self._check_reference(u_now, reference)
         ups, lows = self._reference_bounds(seg, ref)
-        up, low = conditional_crossing(u_now, [b_now], ref, ups, -lows, drift=seg.drift(drift))
-        up, low = float(up[0]), float(low[0])
-        # Back to the natural orientation: the frame's upper side is group 1 below group 2 for "less".
-        return (up, low) if seg.d == 1 else (low, up), ref
+        out = []
+        for drift in drifts:
+            up, low = conditional_crossing(u_now, [b_now], ref, ups, -lows, drift=seg.drift(drift))
+            up, low = float(up[0]), float(low[0])
+            # Back to the natural orientation: the frame's upper side is group 1 below group 2 for "less".
+            out.append((up, low) if seg.d == 1 else (low, up))
+        return out, ref
 
     def conditional_error(self, z, reference=None):
         """``(upper, lower)`` chance under no difference of a later rejection, given ``z`` at the last look.
@@ -675,6 +683,15 @@ class AdaptiveBoundary:
             return ConditionalPower(0.0, 0.0, drift)
         (up, low), _ = self._conditional(z, drift, reference)
         return ConditionalPower(up, low, drift)
+
+    def conditional_powers(self, z, drifts, reference=None) -> list:
+        """:meth:`conditional_power` for several drifts at once (the reference boundaries are
+        computed once)."""
+        drifts = [finite(d, "drift") for d in drifts]
+        if self.complete:
+            return [ConditionalPower(0.0, 0.0, d) for d in drifts]
+        pairs, _ = self._conditionals(z, drifts, reference)
+        return [ConditionalPower(up, low, d) for (up, low), d in zip(pairs, drifts)]
 
     def _check_open(self, z):
         if self.complete:
