@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from ..config import load_config
 from ..errors import SourceUnavailableError
-from ._common import add_config_option
+from . import SUMMARIES
+from ._common import add_config_option, counted, program
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "check", help="validate the configuration, the sources' tables and columns, and the store",
+        "check", help=SUMMARIES["check"],
         description="Validate the configuration file, connect to each source and confirm the tables and "
                     "columns exist with usable types, and report the history store's migration state.")
     add_config_option(p)
@@ -17,12 +17,14 @@ def register(subparsers) -> None:
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (configuration, source and store stacks).
+    from ..config import load_config
     from ..source.reader import Source
     from ..store.engine import make_engine, migration_state
 
     config = load_config(args.config)  # every problem at once, as a ConfigError
-    print(f"{config.path}: configuration valid ({len(config.comparisons)} comparisons, "
-          f"{len(config.sources)} sources, {len(config.channels)} channels)")
+    print(f"{config.path}: configuration valid ({counted(len(config.comparisons), 'comparison')}, "
+          f"{counted(len(config.sources), 'source')}, {counted(len(config.channels), 'channel')})")
     failed = False
     sources = {}
     try:
@@ -57,6 +59,6 @@ def run(args) -> int:
         print(f"store: at revision {state['current']} (up to date)")
     else:
         print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
-              f"run `gapwatch db upgrade`")
+              f"run `{program()} db upgrade`")
         failed = True
     return 1 if failed else 0

@@ -2,16 +2,16 @@
 
 from __future__ import annotations
 
-import getpass
 import sys
 from datetime import datetime, timezone
 
-from ._common import add_config_option, print_json, whole_number_type
+from . import SUMMARIES
+from ._common import add_config_option, operator, print_json, whole_number_type
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "replan", help="change a running comparison's plan (more or fewer events, another difference)",
+        "replan", help=SUMMARIES["replan"],
         description="Change the plan of a running comparison. Its looks, the alpha already spent and its "
                     "history stay; later boundaries spend the conditional error of the remaining original "
                     "design on the data after the change (conditional error principle, Proschan & "
@@ -20,7 +20,7 @@ def register(subparsers) -> None:
                     "alpha is left.")
     p.add_argument("name", metavar="NAME", help="comparison name")
     p.add_argument("--planned-per-group", type=whole_number_type(2), metavar="N",
-                      help="new planned events per group (pairs for paired comparisons)")
+                   help="new planned events per group (pairs for paired comparisons)")
     p.add_argument("--difference", type=float, help="new difference worth detecting (means)")
     p.add_argument("--sd", type=float, help="new planning standard deviation (means)")
     p.add_argument("--power", type=float, help="new power")
@@ -33,16 +33,8 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def _who(given):
-    if given:
-        return given
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):  # no login name in this environment
-        return "unknown"
-
-
 def run(args) -> int:
+    # lazy: start-up time of the command line (configuration, look and store stacks).
     from ..config import load_config
     from ..errors import InvalidArgumentError, UnknownComparisonError
     from ..look.plan import work_out_replan
@@ -85,7 +77,7 @@ def run(args) -> int:
                                  planned_per_group=args.planned_per_group, difference=args.difference,
                                  sd=args.sd, power=args.power, p1=args.p1, p2=args.p2)
         now = datetime.now(timezone.utc)
-        who = _who(args.by)
+        who = operator(args.by)
         number = record_replan(
             engine, comparison_id=comparison["id"], looks_taken=comparison["looks_taken"], made_at=now,
             made_by=who, reason=args.reason.strip(), old_plan=worked.old_plan, new_plan=worked.new_plan,

@@ -2,17 +2,16 @@
 
 from __future__ import annotations
 
-import getpass
-import sys
 from datetime import datetime, timezone
 
-from ..config import load_config
-from ._common import add_config_option
+from ..errors import UnknownComparisonError
+from . import SUMMARIES
+from ._common import add_config_option, operator, readback
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "restart", help="archive a comparison's current version so its next look starts a new one",
+        "restart", help=SUMMARIES["restart"],
         description="Archive the current version of a comparison (its looks, cells and alerts stay as "
                     "they are). The next look creates version + 1 with the configured design and reads "
                     "only the data after the archived version's last look, so nothing is tested twice; "
@@ -26,24 +25,26 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def _who(given):
-    if given:
-        return given
-    try:
-        return getpass.getuser()
-    except (KeyError, OSError):  # no login name in this environment
-        return "unknown"
+def _known_active(engine) -> str:
+    names = sorted({row["name"] for row in readback().list_comparisons(engine, archived=False)})
+    return f"; known: {', '.join(names)}" if names else "; the store holds no active comparison"
 
 
 def run(args) -> int:
-    from ..look.restart import restart_comparison
+    # lazy: start-up time of the command line (configuration, look and store stacks).
+    from ..config import load_config
+    from ..look import restart_comparison
     from ..store.engine import make_engine
 
     config = load_config(args.config)
     engine = make_engine(config.store_url)
     try:
-        done = restart_comparison(engine, args.name, made_at=datetime.now(timezone.utc), made_by=_who(args.by),
-                                  reason=args.reason.strip(), from_start=args.from_start)
+        try:
+            done = restart_comparison(engine, args.name, made_at=datetime.now(timezone.utc),
+                                      made_by=operator(args.by), reason=args.reason.strip(),
+                                      from_start=args.from_start)
+        except UnknownComparisonError as exc:
+            raise UnknownComparisonError(f"{exc}{_known_active(engine)}") from None
     finally:
         engine.dispose()
     old, new = done["archived_version"], done["next_version"]
@@ -51,7 +52,7 @@ def run(args) -> int:
     cutoff = (done["watermark"] or {}).get("cutoff")
     if args.from_start:
         print(f"  version {new} reads all data from the start: the data version {old} already tested will be "
-              f"tested again (its false alarms add to version {old}'s); the history marks it", file=sys.stdout)
+              f"tested again (its false alarms add to version {old}'s); the history marks it")
     elif cutoff:
         print(f"  version {new} reads only data after {cutoff} (where version {old} stopped reading): "
               f"nothing version {old} tested is tested again")

@@ -474,7 +474,8 @@ def simulate_fraction_choice(
                 break
         bar = None
         if progress:
-            from tqdm import tqdm  # only the terminal needs it
+            # lazy: only a terminal run asks for a progress bar.
+            from tqdm import tqdm
 
             bar = tqdm(total=streams, desc="boundaries", unit="comparison", leave=False)
         for i in range(streams):

@@ -14,7 +14,7 @@ import sqlalchemy as sa
 from sqlalchemy.exc import DBAPIError, IntegrityError
 
 from ..errors import LookAlreadyRecordedError, ReplanRefusedError, StoreUnavailableError, UnknownComparisonError
-from .models import Comparison, PlanChange
+from .models import Comparison, Look, PlanChange
 
 __all__ = ["KINDS", "plan_changes", "replans", "record_replan", "restart_version", "restart_note", "replan_inputs"]
 
@@ -162,8 +162,6 @@ def replan_inputs(engine, name: str) -> dict | None:
     """What a replan is worked out from, in one read: the active version of ``name``, its
     testing looks (oldest first) and its replans. None when the comparison has no version yet.
     """
-    from .models import Look
-
     look = Look.__table__
     try:
         with engine.connect() as conn:
