@@ -159,7 +159,10 @@ def test_alert_payload_and_email_carry_the_outlook():
               "p_value": 0.2, "fraction": 0.9, "n1": 90, "n2": 91, "warnings": ["zero variance"],
               "detail": {"plan": {"share": 0.45, "end": 2.0},
                          "outlook": {"completes_on": "2026-03-12", "planned_difference": 0.83}}}
-    payload = decision_payload("pick-rate", 1, "data_problem", values, {"groups": ["east", "west"]},
+    from types import SimpleNamespace
+
+    design = SimpleNamespace(groups=("east", "west"), alpha=0.05)
+    payload = decision_payload("pick-rate", 1, "data_problem", values, design,
                                datetime(2026, 3, 3, tzinfo=timezone.utc))
     assert payload["fraction"] == 0.45
     assert payload["outlook"].startswith("at the current rate the plan completes around Thu 12 Mar")

@@ -202,14 +202,16 @@ def test_information_fraction_config_and_look(tmp_path):
     from monitor.stats.planning import plan_mean
 
     world = _world(tmp_path, planned_per_group=None, difference=3.0, sd=10.0, power=0.8, fraction="information")
-    assert world.comparison.design()["fraction"] == "information"
+    from monitor.design import Design
+
+    assert Design.from_config(world.comparison).to_stored()["fraction"] == "information"
     record = world.look(at(2, 12))
     maximum = plan_information(plan_mean(3.0, 10.0, power=0.8, looks=5))
     assert record.fraction == pytest.approx(1.0 / record.standard_error ** 2 / maximum, rel=1e-12)
     assert record.detail["plan"]["fraction"] == "information"
     # The default leaves designs as they were (no key), so comparisons frozen before it still match.
     plain = _world(tmp_path / "plain", planned_per_group=600) if (tmp_path / "plain").mkdir() is None else None
-    assert "fraction" not in plain.comparison.design()
+    assert "fraction" not in Design.from_config(plain.comparison).to_stored()
     for keys, message in (({"fraction": "days"}, "must be 'events' or 'information'"),
                           ({"fraction": "information"}, "needs a mean comparison planned from difference")):
         with pytest.raises(ConfigError, match=message):

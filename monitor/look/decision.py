@@ -7,16 +7,11 @@ look against the sequential boundary (resumed at the recorded testing looks by t
 caller) and gives the decision, the repeated confidence interval and, at a stop, the
 adjusted inference.
 
-* **Information fraction.** On the scale of the plan frozen at the first look (see
-  ``plan``): events so far over planned events per group, the smaller of the two groups
-  (pairs over planned pairs for paired comparisons), or with ``fraction = "information"``
-  the observed information ``1/se²`` over the plan's maximum information. After a replan
-  the plan ends at ``plan.end`` on that scale (2 when the plan doubled); the share of the
-  current plan is ``fraction / end``.
-* **Replans.** The boundary is an ``AdaptiveBoundary``: the original design until the
-  first replan, then remainders spending the conditional error. Non-binding futility,
-  the repeated interval and the adjusted inference after a stop belong to the original
-  design's looks.
+* **Information fraction.** Events so far over planned events per group, the smaller of
+  the two groups (pairs over planned pairs for paired comparisons). Clustered comparisons
+  use the same event fraction: an information fraction from ``1/variance`` would wobble
+  with the variance estimate (and could fall), while events only grow; plan the events
+  with the design effect in mind.
 * **Which looks test.** A look tests against the boundary only when the fraction has
   grown since the last testing look and a statistic exists; other looks (no new
   information, too few clusters, a data problem) are recorded but spend nothing.
@@ -34,6 +29,7 @@ from datetime import datetime
 
 from scipy import special
 
+from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats.adaptive import AdaptiveBoundary, AdaptiveLook
 from ..stats.boundaries import MIN_INCREMENT, FutilitySpec, futility_decision
@@ -51,10 +47,9 @@ _Z_METHODS = ("z", "proportions")
 
 @dataclass(frozen=True)
 class LookInputs:
-    """What the decision step reads: the comparison, its design, and the running cells."""
+    """What the decision step reads: the frozen design and the running cells."""
 
-    comparison: object          # the ComparisonConfig (pairing, clustering, local zone)
-    design: dict                # the frozen design, its shift fixed
+    design: Design              # the frozen design, its shift fixed
     cells: dict                 # the merged running cells
     cutoff: datetime            # events up to here are in the cells
     excluded_total: int         # events excluded so far, all reasons
@@ -98,14 +93,14 @@ class Decision:
 
 def weigh(inputs: LookInputs) -> Evidence:
     """Statistic, fraction, design effect and warnings of the running cells."""
-    c, design, cells = inputs.comparison, inputs.design, inputs.cells
-    shift = design["shift"] or 0.0
+    design, cells = inputs.design, inputs.cells
+    shift = design.shift or 0.0
     s1 = summary(cells, "total", 0, "", shift)
     s2 = summary(cells, "total", 1, "", shift)
-    st = statistic(c, design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
+    st = statistic(design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
     plan = inputs.plan
     planned = plan.planned_now
-    events = (st.pairs or 0) if c.paired else min(s1.n, s2.n)
+    events = (st.pairs or 0) if design.paired else min(s1.n, s2.n)
     fraction = original_fraction(plan, events=events, standard_error=st.standard_error)
     # Fractions of the current segment move by (step / segment length): ask for a step that
     # is still at least MIN_INCREMENT there.
@@ -126,7 +121,7 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if de is not None and not c.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
+    if de is not None and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
@@ -141,9 +136,9 @@ def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
     for (kind, gi, key), value in inputs.cells.items():
         if kind == "day" and gi in days:
             days[gi][key] = value[0]
-    cutoff = inputs.cutoff.astimezone(inputs.comparison.zone)
+    cutoff = inputs.cutoff.astimezone(inputs.design.measure.zone)
     share = fraction / inputs.plan.end if math.isfinite(fraction) else math.nan
-    return projection(inputs.plan, events=(s1.n, s2.n), pairs=st.pairs if inputs.comparison.paired else None,
+    return projection(inputs.plan, events=(s1.n, s2.n), pairs=st.pairs if inputs.design.paired else None,
                       share=share, rates=recent_rates(days, cutoff), cutoff_local=cutoff)
 
 
@@ -159,9 +154,9 @@ def decide(evidence: Evidence, boundary: AdaptiveBoundary | None = None) -> Deci
     if boundary is None:
         raise InvalidArgumentError("a testing look needs the boundary resumed at the recorded testing looks")
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
-    alternative = design["alternative"]
+    alternative = design.alternative
     look = boundary.add_look(fraction)
-    if design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered:
+    if design.method in _Z_METHODS and not design.clustered:
         side = look.decision(st.statistic)
     else:
         side = look.decision_from_p(st.p_upper, st.p_lower)
@@ -191,7 +186,7 @@ def decide(evidence: Evidence, boundary: AdaptiveBoundary | None = None) -> Deci
     return Decision(decision, look, len(boundary.looks), interval, after, outlook)
 
 
-def _after_stop(boundary, st: Stat, fraction, design) -> dict:
+def _after_stop(boundary, st: Stat, fraction, design: Design) -> dict:
     """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
     fractions = [b.fraction for b in boundary.looks]
     upper = [b.z for b in boundary.looks]
@@ -202,11 +197,11 @@ def _after_stop(boundary, st: Stat, fraction, design) -> dict:
         z = float(-special.ndtri(st.p_upper)) if 0 < st.p_upper < 1 else math.copysign(40.0, st.statistic)
     out = {"stop_look": len(fractions), "z_observed": z}
     try:
-        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design["alternative"])
+        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design.alternative)
         if st.standard_error:
             info_max = 1.0 / (st.standard_error ** 2 * fraction)
             est = median_unbiased_estimate(fractions, upper, len(fractions), z, info_max,
-                                           design["alternative"], alpha=design["alpha"])
+                                           design.alternative, alpha=design.alpha)
             out["median_unbiased_estimate"] = est.estimate
             out["adjusted_ci"] = list(est.ci)
             # The look's own estimate: for t statistics the z-scale figure differs slightly.

@@ -19,15 +19,15 @@ fails part way.
 
 from __future__ import annotations
 
-import math
 import time
 import uuid
 from datetime import timedelta
 from functools import partial
 
 from ..config import ComparisonConfig
+from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..source.reader import Source, Watermark
+from ..source.reader import Source, SourceSpec, Watermark
 from ..stats.adaptive import AdaptiveBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
@@ -36,7 +36,7 @@ from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, weigh
-from .design_check import design_key, frozen_design
+from .design_check import frozen_design
 from .memory import LookMemory
 from .plan import plan_state, resume_boundary
 from .record import LookRecord
@@ -128,18 +128,19 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
     design = frozen_design(c.name, row, configured)
-    batch, cutoff = _read_source(config, c, design, row, as_of, source, state.restart)
+    batch, cutoff, design = _read_source(config, c, design, row, as_of, source, state.restart)
     stopwatch.lap("source")
 
-    rolled = roll_up(c, batch)
+    rolled = roll_up(design, batch)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     last = state.last_boundary_look
-    plan = plan_state(design, state.replans)
-    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()), plan,
+    stored = design.to_stored()
+    plan = plan_state(stored, state.replans)
+    evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()), plan,
                                 last.fraction if last is not None else 0.0))
-    key = design_key(design) if evidence.tests or row is None else None
-    boundary = (_resumed_boundary(engine, memory, state, design, key, evidence.futility, plan)
+    key = design.fingerprint() if evidence.tests or row is None else None
+    boundary = (_resumed_boundary(engine, memory, state, stored, key, evidence.futility, plan)
                 if evidence.tests else None)
     decision = decide(evidence, boundary)
 
@@ -150,7 +151,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
     if row is None and state.restart is not None:
-        detail["restart"] = _restart_detail(state.restart, batch)
+        detail["restart"] = _restart_detail(state.restart)
         if state.restart["from_start"]:
             values["warnings"] = values["warnings"] + [
                 f"restarted from the start: the data version {state.restart['after_version']} tested are "
@@ -177,8 +178,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, restart=None):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data.
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, restart=None):
+    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data.
 
     The first look of a restarted comparison's new version starts after the archived
     version's watermark, unless the restart was made ``--from-start``.
@@ -191,11 +192,12 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, 
             raise UnknownComparisonError(f"comparison {c.name!r} names unknown source {c.source!r}") from None
         source = Source(source_config.url, name=c.source)
     try:
-        if design.get("shift") is None:
+        if design.shift is None:
             # Proportions keep exact success counts; means shift by a value near the data.
-            shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
-            design["shift"] = None if shift is None else float(shift)
-        spec = c.source_spec(design["shift"] or 0.0)
+            shift = 0.0 if design.metric == "proportion" else source.first_value(
+                SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
+            design = design.with_shift(shift)
+        spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
         if row is not None:
             watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
         elif restart is not None and not restart["from_start"] and restart["watermark"]:
@@ -206,13 +208,13 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, 
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
         batch = source.read_cells(spec, watermark, cutoff)
-        if design["shift"] is None and batch.cells:
+        if design.shift is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
-            design["shift"] = 0.0
+            design = design.with_shift(0.0)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff
+    return batch, cutoff, design
 
 
 def _boundary_key(key, state) -> str:
@@ -221,7 +223,7 @@ def _boundary_key(key, state) -> str:
     return f"{key}:{replans}"
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility, plan) -> AdaptiveBoundary:
+def _resumed_boundary(engine, memory: LookMemory, state, stored: dict, key, futility, plan) -> AdaptiveBoundary:
     """The boundary standing at the recorded testing looks, replans applied.
 
     The one kept in memory is used when it stands at the last recorded testing look;
@@ -235,10 +237,10 @@ def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility, 
     if kept is not None and len(kept.looks) == count and (count == 0 or kept.looks[-1].fraction == last.fraction):
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
-    return resume_boundary(design, plan, futility, [r._asdict() for r in recorded])
+    return resume_boundary(stored, plan, futility, [r._asdict() for r in recorded])
 
 
-def _restart_detail(restart: dict, batch) -> dict:
+def _restart_detail(restart: dict) -> dict:
     """How this version began: after the archived version's watermark, or from the start again."""
     out = {"after_version": restart["after_version"], "from_start": restart["from_start"]}
     mark = restart.get("watermark") or {}

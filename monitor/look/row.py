@@ -36,7 +36,7 @@ class LookMoment:
 def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
     """The look's ``detail`` (before its timings and state token are added)."""
     st = evidence.stat
-    detail = {"shift": evidence.inputs.design["shift"] or 0.0, "planned_per_group": evidence.planned,
+    detail = {"shift": evidence.inputs.design.shift or 0.0, "planned_per_group": evidence.planned,
               "excluded_new": counts.excluded_new}
     if st.fixed is not None:
         detail["fixed"] = st.fixed
@@ -72,7 +72,7 @@ def look_row(moment: LookMoment, evidence: Evidence, decision: Decision, counts:
     """The values of the Look row (``duration_ms`` and ``detail`` are added by the caller)."""
     st, s1, s2, de = evidence.stat, evidence.s1, evidence.s2, evidence.design_effect
     boundary = decision.boundary
-    alternative = evidence.inputs.design["alternative"]
+    alternative = evidence.inputs.design.alternative
     information = (1.0 / st.standard_error ** 2) if st.standard_error else None
     low, high = decision.interval
     return dict(
