@@ -195,6 +195,9 @@ class Design:
     clustering: Clustering | None = None
     futility: bool = False
     shift: float | None = None
+    # "events" or "information" (monitor.look.plan): stored only when not the default, so
+    # designs frozen before the choice existed compare equal.
+    fraction: str = "events"
 
     # ------------------------------------------------------------ derived
 
@@ -254,6 +257,7 @@ class Design:
             pairing=Pairing(c.pair_by, c.pair_column, tuple(c.shift_starts), c.min_pairs) if paired else None,
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
+            fraction=getattr(c, "fraction", "events"),
         )
 
     # ------------------------------------------------------------ the stored form
@@ -285,6 +289,7 @@ class Design:
             "timezone": m.timezone,
             "min_clusters": self.min_clusters,
             "shift": self.shift,
+            **({"fraction": self.fraction} if self.fraction != "events" else {}),
         }
 
     @classmethod
@@ -312,6 +317,7 @@ class Design:
             clustering=Clustering.from_stored(clustering, stored.get("min_clusters")) if clustering else None,
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
+            fraction=stored.get("fraction") or "events",
         )
 
     # ------------------------------------------------------------ change check

@@ -80,6 +80,8 @@ def table_lines(rows, now):
     lines = [header]
     for r, line in zip(rows, row_lines):
         lines.append(line)
+        if r.get("outlook_words"):
+            lines.append(f"    {r['outlook_words']}")
         lines.extend(f"    warning: {warning}" for warning in r["warnings"])
     return lines
 
