@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import datetime, timezone
 
 from . import SUMMARIES
-from ._common import add_config_option, aligned_lines, open_store, print_json, readback
+from ._common import add_config_option, aligned_lines, as_typed, open_store, print_json, readback
 
 __all__ = ["register", "run", "fmt"]
 
@@ -83,7 +83,7 @@ def table_lines(rows, now):
         lines.append(line)
         if r.get("outlook_words"):
             lines.append(f"    {r['outlook_words']}")
-        lines.extend(f"    warning: {warning}" for warning in r["warnings"])
+        lines.extend(f"    warning: {as_typed(warning)}" for warning in r["warnings"])
     return lines
 
 
@@ -103,7 +103,7 @@ def run(args) -> int:
         return 0
     if liveness["quiet"]:
         # First, so a dead monitor is never read as "next look in 3 s".
-        print(f"warning: {liveness['message']}")
+        print(f"warning: {as_typed(liveness['message'])}")
     print("\n".join(table_lines(rows, now)))
     if note:
         print(f"note: {note}")

@@ -12,12 +12,14 @@ list only.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime
 
 import sqlalchemy as sa
 
 from .binding import bind_like, bind_type, literal, literals
 from .columns import Columns
-from .times import TimeKind
+from .times import TimeKind, bind_time
+from ..vocabulary import as_utc
 
 __all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "first_values_statement"]
 
@@ -68,7 +70,7 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         key=key,
         arrival=arrival,
         arrival_type=arrival_type,
-        filters=tuple(_filters(spec, cols)),
+        filters=tuple(_filters(spec, cols, kind)),
     )
 
 
@@ -88,10 +90,32 @@ _COMPARISONS = {
 }
 
 
-def _filters(spec, cols):
+def _time_filter_value(kind: TimeKind, value):
+    """A filter value on the time column, written the way the column stores times.
+
+    ``[time_column, ">=", "2026-03-05T00:00:00Z"]`` starts a comparison at a date: the text is
+    read by the one time rule (no zone: UTC) and bound as a timestamp, a date, epoch seconds or
+    text in the column's own ISO layout, as a cutoff is (SQLite text times: in the layout of
+    the stored text). A number, or text that is not an ISO date-time, is left as written.
+    """
+    if not isinstance(value, str):
+        return value
+    try:
+        moment = as_utc(datetime.fromisoformat(value.strip()))
+    except ValueError:
+        return value
+    if kind.kind == "stored":
+        return kind.iso.format(moment) if kind.iso is not None else value
+    return bind_time(kind, moment)
+
+
+def _filters(spec, cols, kind: TimeKind):
     for column_name, op, value in spec.filters:
         column = cols.raw(column_name)
         column_type = cols.declared_type(column_name)
+        if column_name == spec.time_column:
+            value = ([_time_filter_value(kind, v) for v in value] if op in ("in", "not in")
+                     else _time_filter_value(kind, value))
         if op in ("in", "not in"):
             values = literals([bind_like(column_type, v) for v in value])
             yield column.in_(values) if op == "in" else column.not_in(values)

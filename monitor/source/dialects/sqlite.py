@@ -38,9 +38,14 @@ class SQLiteDialect(SourceDialect):
         database = self.url.database
         if not database or database == ":memory:" or database.startswith("file:"):
             raise InvalidArgumentError(f"source {source_name!r}: url must name a SQLite file, got {safe_url!r}")
-        uri = f"file:{quote(str(Path(database).expanduser().absolute()))}?mode=ro"
+        path = Path(database).expanduser().absolute()
+        uri = f"file:{quote(str(path))}?mode=ro"
 
         def creator():
+            if not path.is_file():
+                # SQLite's own words ("unable to open database file") leave the cause to guess.
+                raise sqlite3.OperationalError(f"no such file: {path}" if path.parent.is_dir()
+                                               else f"no such folder: {path.parent}")
             conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
             # mode=ro already refuses writes (and never creates the file); query_only is a second lock.
             conn.execute("PRAGMA query_only = ON")
