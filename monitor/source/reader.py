@@ -3,7 +3,8 @@
 The monitor never pulls raw rows to decide. For every look it asks the
 database, with one SQLAlchemy Core statement, for per (group, 15-minute UTC
 slot[, key]) counts and shifted sums ``Σ(x − c)`` and ``Σ(x − c)²`` of the
-valid rows, and for per-reason counts of the bad ones. Only rows that are new
+valid rows (for a ratio metric also the denominator's ``Σ(d − c_d)``, ``Σ(d − c_d)²``
+and the cross-product ``Σ(x − c)(d − c_d)``), and for per-reason counts of the bad ones. Only rows that are new
 since the previous look are read: rows whose event time lies in
 ``(previous cutoff, cutoff]`` plus late rows (event time at or before the
 previous cutoff, arrival value above the previous arrival watermark).
@@ -40,7 +41,9 @@ in this order): ``null_time`` (NULL or unreadable time), ``unknown_group``
 (group value not one of the two configured), ``null_value``, ``non_numeric``
 (text that is not a number, or a blob), ``not_finite`` (NaN, ±infinity, also
 as text), ``not_binary`` (proportion metric, value not 0 or 1),
-``out_of_range`` (outside the inclusive ``valid_range``). In SQLite, numeric
+``out_of_range`` (outside the inclusive ``valid_range``), ``bad_denominator``
+(ratio metric: a denominator that is NULL, not a number, not finite, zero or negative —
+a row that did no work cannot carry a rate). In SQLite, numeric
 text counts as a number when, once trimmed, it is a JSON number (``12``,
 ``-3.5``, ``1e3``); other text is ``non_numeric``.
 """
@@ -82,12 +85,13 @@ EXCLUSION_REASONS = (
     "not_finite",
     "not_binary",
     "out_of_range",
+    "bad_denominator",
 )
 
 FILTER_OPERATORS = ("=", "!=", "<", "<=", ">", ">=", "in", "not in")
 
 _TIME_FORMATS = ("auto", "timestamp", "iso", "epoch")
-_METRICS = ("mean", "proportion")
+_METRICS = ("mean", "proportion", "ratio")
 _FLOAT_MAX = sys.float_info.max
 # Spellings SQLite keeps as text but that name a non-finite number.
 _NON_FINITE_TEXT = ("nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity", "-infinity")
@@ -118,6 +122,8 @@ class SourceSpec:
     arrival_column: str | None = None
     filters: tuple = ()
     valid_range: tuple | None = None
+    denominator_column: str | None = None   # ratio metric: value_column holds the numerator
+    shift_den: float = 0.0
 
     def __post_init__(self):
         for name in ("table", "group_column", "value_column", "time_column"):
@@ -135,8 +141,14 @@ class SourceSpec:
             raise InvalidArgumentError(
                 f"time_format must be one of {_TIME_FORMATS}, got {self.time_format!r}"
             )
-        if not isinstance(self.shift, (int, float)) or not math.isfinite(self.shift):
-            raise InvalidArgumentError(f"shift must be a finite number, got {self.shift!r}")
+        for name in ("shift", "shift_den"):
+            value = getattr(self, name)
+            if not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise InvalidArgumentError(f"{name} must be a finite number, got {value!r}")
+        if (self.metric == "ratio") != bool(self.denominator_column):
+            raise InvalidArgumentError(
+                f"denominator_column goes with metric 'ratio' (and only with it); got metric "
+                f"{self.metric!r} and denominator_column {self.denominator_column!r}")
         filters = []
         for item in self.filters:
             if not isinstance(item, (tuple, list)) or len(item) != 3:
@@ -193,6 +205,10 @@ class SlotCell:
     sum_dev: float
     sum_dev2: float
     late: int = 0
+    # Ratio metric only: the denominator's shifted sums and the cross-product with the numerator.
+    sum_den: float = 0.0
+    sum_den2: float = 0.0
+    sum_cross: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -445,6 +461,8 @@ class Source:
         ]
         if spec.key_column:
             used.append(("key_column", spec.key_column))
+        if spec.denominator_column:
+            used.append(("denominator_column", spec.denominator_column))
         if spec.arrival_column:
             used.append(("arrival_column", spec.arrival_column))
         for column, _op, _value in spec.filters:
@@ -461,12 +479,16 @@ class Source:
             names = ", ".join(f"{role} {c!r}" for role, c in missing)
             raise SourceSchemaError(f"source {self.name!r}: table {spec.table!r} has no column {names}")
         if self.dialect != "sqlite":
-            vtype = cols.table.c[spec.value_column].type
-            if not (_is_numeric_type(vtype) or isinstance(vtype, sa.Boolean)):
-                raise SourceSchemaError(
-                    f"source {self.name!r}: table {spec.table!r} value_column {spec.value_column!r} "
-                    f"has type {vtype}, not a numeric type"
-                )
+            roles = [("value_column", spec.value_column)]
+            if spec.denominator_column:
+                roles.append(("denominator_column", spec.denominator_column))
+            for role, column in roles:
+                vtype = cols.table.c[column].type
+                if not (_is_numeric_type(vtype) or isinstance(vtype, sa.Boolean)):
+                    raise SourceSchemaError(
+                        f"source {self.name!r}: table {spec.table!r} {role} {column!r} "
+                        f"has type {vtype}, not a numeric type"
+                    )
         return cols
 
     def _time_kind(self, conn, spec, cols: _Columns) -> _TimeKind:
@@ -698,6 +720,39 @@ class Source:
         checks.extend(number_checks(value))
         return raw, value, sa.case(*checks, else_=None)
 
+    def _denominator_parts(self, spec, cols):
+        """(denominator expression, its reason expression: NULL for a usable denominator).
+
+        A usable denominator is a finite number above zero; anything else is ``bad_denominator``.
+        """
+        raw = cols.query_table.c[spec.denominator_column]
+        if self.dialect == "sqlite":
+            stored = sa.func.typeof(raw)
+            trimmed = sa.func.trim(raw)
+            from_text = sa.cast(trimmed, sa.Float)
+            number_text = sa.and_(sa.func.json_valid(trimmed) == 1,
+                                  sa.func.json_type(trimmed).in_(_literals(("integer", "real"))))
+            value = sa.case((stored == "text", from_text), else_=raw)
+            bad = sa.case(
+                (stored.in_(_literals(("null", "blob"))), "bad_denominator"),
+                (sa.and_(stored == "text", sa.not_(number_text)), "bad_denominator"),
+                (sa.or_(value <= 0, value > _FLOAT_MAX), "bad_denominator"),
+                else_=None,
+            )
+            return value, bad
+        vtype = cols.table.c[spec.denominator_column].type
+        if isinstance(vtype, sa.Boolean):
+            value = sa.case((raw.is_(True), 1.0), else_=0.0)
+            return value, sa.case((sa.or_(raw.is_(None), raw.is_(False)), "bad_denominator"), else_=None)
+        value = sa.cast(raw, sa.Float)
+        checks = [raw.is_(None), raw <= 0]
+        if not isinstance(vtype, sa.Integer):
+            limit = Decimal(repr(_FLOAT_MAX)) if not isinstance(vtype, sa.Float) else _FLOAT_MAX
+            # PostgreSQL sorts NaN above every number, so this catches NaN as well.
+            checks.append(raw > sa.literal(limit))
+            value = sa.case((raw <= sa.literal(limit), value), else_=None)
+        return value, sa.case((sa.or_(*checks), "bad_denominator"), else_=None)
+
     def _filters(self, spec, cols):
         clauses = []
         for column_name, op, value in spec.filters:
@@ -764,6 +819,9 @@ class Source:
         epoch = self._epoch_expr(kind, time_raw)
         group_index = self._group_index(spec, cols)
         _raw_value, value, value_reason = self._value_parts(spec, cols)
+        if spec.denominator_column:
+            _den, den_reason = self._denominator_parts(spec, cols)
+            value_reason = sa.func.coalesce(value_reason, den_reason)
         # The epoch of a NULL time is NULL, so one test covers NULL and unreadable times.
         reason = sa.case(
             (epoch.is_(None), "null_time"),
@@ -913,7 +971,7 @@ class Source:
         excluded = {}
         arrival_max = None
         merged = {}
-        for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival in rows:
+        for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival, *ratio_sums in rows:
             if row_arrival is not None and (arrival_max is None or row_arrival > arrival_max):
                 arrival_max = row_arrival
             if reason is not None:
@@ -921,11 +979,14 @@ class Source:
                 continue
             # The same cell can come from the new-range and the late branch: add them up.
             cell = (int(gi), int(slot), key)
-            n0, l0, s0, q0 = merged.get(cell, (0, 0, 0.0, 0.0))
-            merged[cell] = (n0 + int(count), l0 + int(late or 0), s0 + float(sum_dev), q0 + float(sum_dev2))
+            old = merged.get(cell, (0, 0, 0.0, 0.0, 0.0, 0.0, 0.0))
+            new = (int(count), int(late or 0), float(sum_dev), float(sum_dev2),
+                   *(float(x) for x in ratio_sums))
+            merged[cell] = tuple(a + b for a, b in zip(old, new + (0.0,) * (7 - len(new))))
         cells = [
-            SlotCell(group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late)
-            for (gi, slot, key), (n, late, s1, s2) in merged.items()
+            SlotCell(group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late,
+                     sum_den=d1, sum_den2=d2, sum_cross=cross)
+            for (gi, slot, key), (n, late, s1, s2, d1, d2, cross) in merged.items()
         ]
         cells.sort(key=lambda c: (c.group_index, c.slot, "" if c.key is None else c.key))
         arrival = since.arrival if since is not None else None
@@ -966,6 +1027,12 @@ class Source:
         upper = bound["upper"]
 
         dev = self._summand(spec, cols, value) - float(spec.shift)
+        ratio_sums = []
+        if spec.denominator_column:
+            den, _reason = self._denominator_parts(spec, cols)
+            den_dev = den - float(spec.shift_den)
+            ratio_sums = [sa.func.sum(den_dev).label("sum_den"), sa.func.sum(den_dev * den_dev).label("sum_den2"),
+                          sa.func.sum(dev * den_dev).label("sum_cross")]
         # Grouped by output position: the CASE expressions are evaluated once per row
         # (bound parameters make each repeated expression text distinct to the database).
         by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
@@ -983,6 +1050,7 @@ class Source:
                     sa.func.sum(dev).label("sum_dev"),
                     sa.func.sum(dev * dev).label("sum_dev2"),
                     sa.func.max(arrival if arrival is not None else sa.null()).label("arrival"),
+                    *ratio_sums,
                 )
                 .where(*where, *filters)
                 .group_by(*by_position)
@@ -1017,7 +1085,7 @@ class Source:
         """Valid rows with time <= ``cutoff`` (and arrival <= ``arrival_max``), for verification.
 
         Returns a pandas DataFrame with columns ``group_index``, ``value``,
-        ``time`` (aware UTC) and ``key``; ``.attrs["excluded"]`` counts the bad
+        ``time`` (aware UTC) and ``key`` (and ``denominator`` for a ratio metric); ``.attrs["excluded"]`` counts the bad
         rows by reason. Raw rows are pulled here only to re-check a look.
         """
         import pandas as pd
@@ -1035,12 +1103,14 @@ class Source:
                     bound = _literal(self._bind_arrival(atype, arrival_max))
                     where.append(sa.or_(arrival <= bound, arrival.is_(None)))
                 where.extend(self._filters(spec, cols))
+                den = self._denominator_parts(spec, cols)[0] if spec.denominator_column else sa.null()
                 labelled = sa.select(
                     gi.label("group_index"), value.label("value"), time_raw.label("time"),
-                    key.label("key"), reason.label("reason"),
+                    key.label("key"), reason.label("reason"), den.label("denominator"),
                 ).where(*where).subquery("checked")
                 rows = conn.execute(
-                    sa.select(labelled.c.group_index, labelled.c.value, labelled.c.time, labelled.c.key)
+                    sa.select(labelled.c.group_index, labelled.c.value, labelled.c.time, labelled.c.key,
+                              labelled.c.denominator)
                     .where(labelled.c.reason.is_(None))
                 ).all()
                 counts = conn.execute(
@@ -1052,9 +1122,13 @@ class Source:
             raise
         except sa_exc.SQLAlchemyError as error:
             raise self._unavailable(spec, error) from None
-        frame = pd.DataFrame(rows, columns=["group_index", "value", "time", "key"])
+        frame = pd.DataFrame(rows, columns=["group_index", "value", "time", "key", "denominator"])
         frame["group_index"] = frame["group_index"].astype("int64")
         frame["value"] = frame["value"].astype("float64")
+        if spec.denominator_column:
+            frame["denominator"] = frame["denominator"].astype("float64")
+        else:
+            frame = frame.drop(columns="denominator")
         frame["time"] = _to_utc_timestamps(frame["time"], kind)
         frame["key"] = frame["key"].astype(object).where(frame["key"].notna(), None)
         frame = frame.sort_values(["time", "group_index"], kind="stable").reset_index(drop=True)
