@@ -41,7 +41,7 @@ __all__ = [
 ]
 
 METHODS = ("welch", "pooled", "z", "paired", "proportions")
-METRICS = ("mean", "proportion")
+METRICS = ("mean", "proportion", "ratio")
 ALTERNATIVES = ("two-sided", "greater", "less")
 TIME_FORMATS = ("auto", "timestamp", "iso", "epoch")
 PAIR_BUCKETS = ("hour", "day", "week", "shift")
@@ -86,7 +86,7 @@ _COMPARISON_KEYS = {
     "sd", "p1", "p2", "power", "looks", "every", "sigmas", "pair_by", "pair_column",
     "shift_starts", "null_difference", "futility", "valid_range", "filters", "lateness",
     "arrival_column", "time_format", "timezone", "cluster_by", "cluster_column", "min_clusters",
-    "notify", "description",
+    "notify", "description", "numerator_column", "denominator_column",
 }
 
 
@@ -213,6 +213,8 @@ class ComparisonConfig:
     notify: tuple = ()
     description: str = ""
     schema: str | None = None
+    numerator_column: str | None = None
+    denominator_column: str | None = None
 
     # ------------------------------------------------------------ derived
 
@@ -303,6 +305,8 @@ class ComparisonConfig:
             "time_format": self.time_format,
             "timezone": self.timezone,
             "min_clusters": self.min_clusters if self.clustered else None,
+            **({"numerator_column": self.numerator_column, "denominator_column": self.denominator_column}
+               if self.metric == "ratio" else {}),
         }
 
     def settings(self) -> dict:
@@ -316,7 +320,7 @@ class ComparisonConfig:
             "arrival_column": self.arrival_column,
         }
 
-    def source_spec(self, shift: float = 0.0):
+    def source_spec(self, shift: float = 0.0, shift_den: float = 0.0):
         """The :class:`monitor.source.reader.SourceSpec` for this comparison."""
         from .source.reader import SourceSpec
 
@@ -334,6 +338,8 @@ class ComparisonConfig:
             arrival_column=self.arrival_column,
             filters=tuple(self.filters),
             valid_range=self.valid_range,
+            denominator_column=self.denominator_column if self.metric == "ratio" else None,
+            shift_den=float(shift_den),
         )
 
     @property
@@ -611,15 +617,25 @@ class _Checker:
         self.unknown_keys(where, table, _COMPARISON_KEYS)
         v = dict(table)
 
-        for key in ("source", "table", "group_column", "value_column", "time_column", "groups"):
+        metric = v.get("metric", "mean")
+        # A ratio reads its numerator and denominator columns instead of one value column.
+        required = ("numerator_column", "denominator_column") if metric == "ratio" else ("value_column",)
+        for key in ("source", "table", "group_column", *required, "time_column", "groups"):
             if key not in v:
-                p(key, "is required")
+                p(key, "is required" + (" for metric 'ratio'" if metric == "ratio" and key in required else ""))
+        if metric == "ratio" and "value_column" in v:
+            p("value_column", "is not used by metric 'ratio' (give numerator_column and denominator_column)")
+        elif metric != "ratio":
+            for key in ("numerator_column", "denominator_column"):
+                if key in v:
+                    p(key, f"is only used by metric 'ratio', not {metric!r}")
         source = v.get("source")
         if "source" in v and source not in sources:
             p("source", f"names no [sources] entry: {source!r} (known: {', '.join(sources) or 'none'})")
 
         for key in ("table", "schema", "group_column", "value_column", "time_column",
-                    "arrival_column", "pair_column", "cluster_column"):
+                    "arrival_column", "pair_column", "cluster_column", "numerator_column",
+                    "denominator_column"):
             if key in v and (not isinstance(v[key], str) or not _IDENTIFIER.match(v[key])):
                 p(key, f"must be a plain identifier (letters, digits, '_'); got {v[key]!r}")
 
@@ -634,12 +650,14 @@ class _Checker:
             elif type(groups[0]) is not type(groups[1]):
                 p("groups", f"must both be text or both integers; got {groups!r}")
 
-        metric = v.get("metric", "mean")
         if metric not in METRICS:
             p("metric", f"{metric!r} is not one of {', '.join(METRICS)}")
         method = v.get("method", "proportions" if metric == "proportion" else "welch")
         if method not in METHODS:
             self.problem(where, f"method {method!r} is not one of {', '.join(METHODS)}")
+        elif metric == "ratio" and method != "welch":
+            p("method", f"{method!r} does not fit metric 'ratio': a ratio of sums is tested with its "
+                        "delta-method standard error (leave method out, or give 'welch')")
         elif metric in METRICS and (method == "proportions") != (metric == "proportion"):
             p("method", f"{method!r} does not fit metric {metric!r}: proportions goes with "
                         "metric 'proportion' and the other methods with 'mean'")
@@ -776,7 +794,7 @@ class _Checker:
                 table=v.get("table", ""),
                 group_column=v.get("group_column", ""),
                 groups=tuple(groups) if isinstance(groups, list) else (),
-                value_column=v.get("value_column", ""),
+                value_column=(v.get("numerator_column", "") if metric == "ratio" else v.get("value_column", "")),
                 time_column=v.get("time_column", ""),
                 metric=metric,
                 method=method,
@@ -809,6 +827,8 @@ class _Checker:
                 notify=tuple(notify),
                 description=description if isinstance(description, str) else "",
                 schema=v.get("schema"),
+                numerator_column=v.get("numerator_column") if metric == "ratio" else None,
+                denominator_column=v.get("denominator_column") if metric == "ratio" else None,
             )
         except (TypeError, ValueError) as exc:  # pragma: no cover - problems above cover the causes
             self.problem(where, f"cannot be built: {exc}")

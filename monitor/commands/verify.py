@@ -49,6 +49,8 @@ def _spec(design, settings):
         arrival_column=(settings or {}).get("arrival_column"),
         filters=tuple((f[0], f[1], tuple(f[2]) if isinstance(f[2], list) else f[2]) for f in design["filters"]),
         valid_range=tuple(design["valid_range"]) if design.get("valid_range") else None,
+        denominator_column=design.get("denominator_column"),
+        shift_den=float(design.get("shift_den") or 0.0),
     )
 
 
@@ -79,6 +81,8 @@ def _recompute(design, frame, cutoff):
     g2 = frame.loc[frame.group_index == 1, "value"]
     out = {"n1": int(len(g1)), "n2": int(len(g2)), "pairs": None}
     method = design["method"]
+    if design.get("metric") == "ratio":
+        return _recompute_ratio(design, frame, out, common)
     if design.get("pairing"):
         from ..calendar import bucket_end
         from zoneinfo import ZoneInfo
@@ -123,6 +127,33 @@ def _recompute(design, frame, cutoff):
             test = fixed.pooled_t if method == "pooled" else fixed.welch_t
             r = test(len(g1), float(g1.mean()), float(g1.std(ddof=1)), len(g2), float(g2.mean()),
                      float(g2.std(ddof=1)), **common)
+    out.update(estimate=float(r.estimate), statistic=float(r.statistic), p_value=float(r.p_value))
+    return out
+
+
+def _recompute_ratio(design, frame, out, common):
+    """A ratio look's figures from raw rows: per-cluster (or one per-group) sums, no shift."""
+    import numpy as np
+
+    from ..stats.ratio import RatioCells, ratio_difference
+
+    if out["n1"] == 0 or out["n2"] == 0:
+        return out
+    clustering = design.get("clustering")
+    if clustering:
+        keys = (frame["key"].fillna("").astype(str) if clustering.get("cluster_column")
+                else _local_bucket(frame["time"], clustering["cluster_by"], design["timezone"], ()))
+    else:
+        keys = np.full(len(frame), "")
+    y, x = frame["value"].to_numpy(), frame["denominator"].to_numpy()
+    sums = (frame.assign(cluster=keys, y=y, x=x, yy=y * y, xx=x * x, xy=x * y)
+            .groupby(["group_index", "cluster"])[["y", "x", "yy", "xx", "xy"]].agg(["count", "sum"]))
+    sums = sums.reset_index()
+    cells = RatioCells(
+        group=tuple(sums["group_index"]), key=tuple(sums["cluster"]) if clustering else (None,) * len(sums),
+        n=tuple(sums[("y", "count")]), num=tuple(sums[("y", "sum")]), den=tuple(sums[("x", "sum")]),
+        num2=tuple(sums[("yy", "sum")]), den2=tuple(sums[("xx", "sum")]), cross=tuple(sums[("xy", "sum")]))
+    r = ratio_difference(cells, clustered=bool(clustering), **common)
     out.update(estimate=float(r.estimate), statistic=float(r.statistic), p_value=float(r.p_value))
     return out
 

@@ -15,7 +15,7 @@ __all__ = ["comparable", "design_differences", "design_key", "frozen_design"]
 
 def comparable(design: dict) -> dict:
     """The part of a design that must not change: derived figures left out."""
-    d = {k: v for k, v in design.items() if k != "shift"}
+    d = {k: v for k, v in design.items() if k not in ("shift", "shift_den")}
     plan = d.get("plan")
     if isinstance(plan, dict):
         # Plan figures are computed from the inputs; the inputs and the planned count decide.

@@ -22,6 +22,7 @@ from __future__ import annotations
 import math
 import time
 import uuid
+from dataclasses import replace
 from datetime import timedelta
 from functools import partial
 
@@ -182,7 +183,10 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
             # Proportions keep exact success counts; means shift by a value near the data.
             shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
             design["shift"] = None if shift is None else float(shift)
-        spec = c.source_spec(design["shift"] or 0.0)
+        if c.metric == "ratio" and design.get("shift_den") is None:
+            shift_den = source.first_value(_denominator_values(c.source_spec(0.0)))
+            design["shift_den"] = None if shift_den is None else float(shift_den)
+        spec = c.source_spec(design["shift"] or 0.0, design.get("shift_den") or 0.0)
         watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
@@ -191,10 +195,18 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
         if design["shift"] is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
             design["shift"] = 0.0
+        if c.metric == "ratio" and design.get("shift_den") is None and batch.cells:
+            design["shift_den"] = 0.0
     finally:
         if own_source:
             source.dispose()
     return batch, cutoff
+
+
+def _denominator_values(spec):
+    """The spec that reads a ratio's denominator as its values (to find a shift near them)."""
+    return replace(spec, value_column=spec.denominator_column, metric="mean", denominator_column=None,
+                   valid_range=None)
 
 
 def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
