@@ -177,3 +177,18 @@ def test_ratio_looks_match_an_explicit_computation_postgres(pg_database_url, tmp
     world = RatioWorld(tmp_path, rows, source_url=pg_database_url, store_url=pg_database_url, **keys)
     records = _run_looks(world, clustered)
     assert records[-1].estimate < 0
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("day_sd, days", [(0.0, 20), (0.10, 30)], ids=["independent-batches", "day-shocks-clustered"])
+def test_ratio_false_alarm_rate_under_daily_looks_through_the_decision_step(day_sd, days):
+    """No true difference, one look a day through weigh/decide: false alarms within α + 3 MC SE.
+
+    2,000 streams: Monte Carlo SE sqrt(0.05 · 0.95 / 2000) = 0.0049, so the bound is 0.0646.
+    """
+    from ratio_simulation import ratio_false_alarms
+
+    rate, se, looks = ratio_false_alarms(2000, 20261203, day_sd=day_sd, days=days)
+    assert looks >= 20
+    assert se == pytest.approx(0.00487, abs=1e-4)
+    assert rate <= 0.05 + 3 * se
