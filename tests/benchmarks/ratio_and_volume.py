@@ -1,14 +1,15 @@
 """Rates per unit of work and the volume check, simulated: false alarms, false warnings, delays.
 
-Part 1 — ratio comparisons under daily looks. Two packing lines (the groups) pack batches; a
-row per batch holds ``defects`` and ``units``. Units per batch are gamma-distributed (mean 800,
-coefficient of variation 0.6, so a big batch weighs many small ones), defects Poisson at the
-line's rate per unit, 20 to 60 batches per line per day, and each day's rate is shaken by a
-day shock shared by the line's batches (log-normal, sd 0.10) — so the monitor clusters by day.
-No true difference. One look a day for the planned days, the comparison's own boundary
-(monitor.stats.boundaries.SequentialBoundary, two-sided α = 0.05) with the nominal-level
-approach on the cluster-robust ratio t (monitor.stats.ratio.ratio_difference, clustered by day,
-t on days − 1), deciding from day ``min_days``.
+Part 1 — ratio comparisons under daily looks, through the look's own decision step
+(``monitor.look.decision.weigh`` and ``decide`` on the running cells a ratio look keeps; see
+tests/ratio_simulation.py). Two packing lines (the groups) pack 30 batches a day each; a row per
+batch holds ``defects`` and ``units`` (gamma, mean 800, coefficient of variation 0.6, so a big
+batch weighs many small ones), defects Poisson at 4 per 1,000 units. No true difference, one
+look a day, two-sided α = 0.05. Two cases: independent batches over 20 days (unclustered,
+Welch–Satterthwaite df), and a day shock shared by a line's batches (log-normal, sd 0.10) over
+30 days, clustered by day (``cluster_by = "day"``, ``min_clusters`` = 10).
+Part 1b keeps the earlier vectorised run of the pure statistic (20 to 60 batches a day,
+clustered by day from day 5) for comparison.
 
 Part 2 — the volume check (monitor.stats.volume) over comparison-months of normal variation:
 each group's quarter-hour counts follow a weekday pattern (quiet weekends), a day shock
@@ -18,7 +19,7 @@ own volume for each group and the share between them. Reported: days with a fals
 comparison-month (30 days), then the delay to the first warning after one group loses half its
 events from 10:00 on a random weekday.
 
-Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --months 500 --seed 1
+Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 4000 --months 500 --seed 1
 """
 
 from __future__ import annotations
@@ -32,7 +33,9 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from ratio_simulation import ratio_false_alarms  # noqa: E402
 from monitor.stats.boundaries import SequentialBoundary  # noqa: E402
 from monitor.stats.ratio import RatioCells, ratio_difference  # noqa: E402
 from monitor.stats.volume import check_own_volume, check_share, usual_volume  # noqa: E402
@@ -136,15 +139,28 @@ def main(argv=None):
     ap.add_argument("--streams", type=int, default=20000)
     ap.add_argument("--months", type=int, default=200)
     ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--look-streams", type=int, default=4000,
+                    help="streams per case of Part 1 (through the look's decision step)")
+    ap.add_argument("--skip-volume", action="store_true")
     args = ap.parse_args(argv)
     t0 = time.perf_counter()
-    print("Part 1: ratio comparisons (defects per unit), daily looks, no true difference, alpha 0.05")
+    print("Part 1: ratio comparisons through weigh/decide, daily looks, no true difference, alpha 0.05")
+    print(f"{'case':34} {'streams':>8} {'looks':>6} {'false alarms':>13} {'MC s.e.':>8}")
+    for label, day_sd, days in (("independent batches, 20 days", 0.0, 20),
+                                ("day shocks, clustered by day, 30", 0.10, 30)):
+        rate, se, looks = ratio_false_alarms(args.look_streams, args.seed, day_sd=day_sd, days=days)
+        print(f"{label:34} {args.look_streams:8d} {looks:6d} {rate:13.4f} {se:8.4f}", flush=True)
+    print(f"  ({time.perf_counter() - t0:.1f} s)")
+    t0 = time.perf_counter()
+    print("Part 1b: the pure statistic vectorised, clustered by day from day 5")
     print(f"{'spending':18} {'streams':>8} {'false alarms':>13} {'MC s.e.':>8}")
     for spending in ("obrien-fleming", "pocock"):
         rate = ratio_false_alarm(args.streams, args.seed, spending=spending)
         se = math.sqrt(0.05 * 0.95 / args.streams)
         print(f"{spending:18} {args.streams:8d} {rate:13.4f} {se:8.4f}")
     print(f"  ({time.perf_counter() - t0:.1f} s)")
+    if args.skip_volume:
+        return
     t0 = time.perf_counter()
     rng = np.random.default_rng(args.seed)
     false_days = [len(volume_month(rng)[0]) for _ in range(args.months)]
