@@ -525,6 +525,25 @@ def group_chart(row, frame):
     ).properties(height=260).configure_legend(orient="bottom")
 
 
+def volume_text(row) -> str:
+    """The volume check of the newest look, in a line: state, and each group against its usual day."""
+    volume = row.get("volume")
+    if not volume:
+        return "Volume: not checked yet."
+    if volume["state"] == "not_yet_measurable":
+        return f"Volume: not yet measurable ({volume.get('why', 'too little history')})."
+    parts = []
+    for g in volume.get("groups", []):
+        if g.get("share_of_usual") is not None:
+            parts.append(f"{g['group']} {100 * g['share_of_usual']:.0f} % of a usual {volume['weekday']}"
+                         + (f" since {g['since']}" if g["warn"] else ""))
+    share = volume.get("share") or {}
+    if share.get("share") is not None:
+        parts.append(f"share {100 * share['share']:.0f} % (expected {100 * share['expected']:.0f} %)")
+    word = "WARNING" if volume["state"] == "warning" else "ok"
+    return f"Volume: {word} · " + " · ".join(parts)
+
+
 def excluded_chart(looks):
     rows = [{"look": h["look"], "reason": reason.replace("_", " "), "count": count}
             for h in looks for reason, count in h["excluded_new"].items() if count]
@@ -661,6 +680,7 @@ def show_comparison(url, name, version=None):
         beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
         beside += readback.clustering_figures(row, _QUALITY_CLUSTER_TEXT)
         st.caption(" · ".join(beside))
+        st.caption(volume_text(row))
         chart = excluded_chart(looks)
         if chart is not None:
             st.altair_chart(chart, width="stretch")

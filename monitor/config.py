@@ -86,7 +86,7 @@ _COMPARISON_KEYS = {
     "sd", "p1", "p2", "power", "looks", "every", "sigmas", "pair_by", "pair_column",
     "shift_starts", "null_difference", "futility", "valid_range", "filters", "lateness",
     "arrival_column", "time_format", "timezone", "cluster_by", "cluster_column", "min_clusters",
-    "notify", "description", "numerator_column", "denominator_column",
+    "notify", "description", "numerator_column", "denominator_column", "expected_share",
 }
 
 
@@ -215,6 +215,7 @@ class ComparisonConfig:
     schema: str | None = None
     numerator_column: str | None = None
     denominator_column: str | None = None
+    expected_share: float | None = None
 
     # ------------------------------------------------------------ derived
 
@@ -318,6 +319,7 @@ class ComparisonConfig:
             "notify": list(self.notify),
             "description": self.description,
             "arrival_column": self.arrival_column,
+            "expected_share": self.expected_share,
         }
 
     def source_spec(self, shift: float = 0.0, shift_den: float = 0.0):
@@ -783,6 +785,10 @@ class _Checker:
             for n in notify:
                 if n not in channels:
                     p("notify", f"names no [channels] entry: {n!r} (known: {', '.join(channels) or 'none'})")
+        expected_share = v.get("expected_share")
+        if expected_share is not None and (not _is_number(expected_share) or not 0 < expected_share < 1):
+            p("expected_share", f"must be a number in (0, 1) (group 1's share of the events); got {expected_share!r}")
+            expected_share = None
         description = v.get("description", "")
         if not isinstance(description, str):
             p("description", f"must be text; got {description!r}")
@@ -829,6 +835,7 @@ class _Checker:
                 schema=v.get("schema"),
                 numerator_column=v.get("numerator_column") if metric == "ratio" else None,
                 denominator_column=v.get("denominator_column") if metric == "ratio" else None,
+                expected_share=float(expected_share) if expected_share is not None else None,
             )
         except (TypeError, ValueError) as exc:  # pragma: no cover - problems above cover the causes
             self.problem(where, f"cannot be built: {exc}")

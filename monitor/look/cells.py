@@ -1,8 +1,8 @@
 """Running cells: a source batch's slot cells rolled into the stored cells, and the look's counts.
 
 A cell is ``(n, Σ(x−shift), Σ(x−shift)²)`` keyed ``(kind, group_index, key)``: the total
-(key ``""``), each local calendar day, and each cluster or pair where the comparison has
-them. A ratio comparison's cells carry three more sums, ``(…, Σ(d−c_d), Σ(d−c_d)²,
+(key ``""``), each local calendar day and hour, and each cluster or pair where the
+comparison has them. A ratio comparison's cells carry three more sums, ``(…, Σ(d−c_d), Σ(d−c_d)²,
 Σ(x−shift)(d−c_d))`` for its denominator ``d`` (``x`` is then the numerator). Merging cells
 is addition, so many small looks add up to one big look.
 """
@@ -69,6 +69,8 @@ def roll_up(c, batch) -> RolledUp:
             continue
         add("total", cell.group_index, "", cell)
         add("day", cell.group_index, bucket(cell.slot, "day"), cell)
+        # Each group's events per local hour: the volume check's counts.
+        add("hour", cell.group_index, bucket(cell.slot, "hour"), cell)
         column_key = "" if cell.key is None else str(cell.key)
         if clustered:
             add("cluster", cell.group_index, column_key if cluster_column else bucket(cell.slot, cluster_by), cell)

@@ -33,7 +33,7 @@ from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
                            write_look)
-from ..alerts.wording import decision_payload
+from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, weigh
@@ -41,6 +41,7 @@ from .design_check import design_key, frozen_design
 from .memory import LookMemory
 from .record import LookRecord
 from .row import LookMoment, look_detail, look_row
+from .volume import assess_volume
 
 __all__ = ["take_look"]
 
@@ -147,6 +148,14 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     values["duration_ms"] = stopwatch.total()
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
+    # The volume check warns and alerts (once per warning episode) but never stops the comparison.
+    volume = assess_volume(c, design, cells, cutoff, c.expected_share)
+    detail["volume"], detail["volume_state"] = volume, volume["state"]
+    volume_alert = None
+    if volume["state"] == "warning" and state.last_volume_state != "warning":
+        volume_alert = AlertDraft("volume", volume_payload(c.name, state.version, moment.look_number,
+                                                           volume_warnings(volume), volume, as_of),
+                                  tuple(c.notify))
     detail["timings_ms"] = {k: round(v, 3) for k, v in stopwatch.laps.items()}
     # Random, not from the clock: tells the next look whether the store's newest look is this one.
     detail["state_token"] = token = uuid.uuid4().hex
@@ -157,7 +166,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         new_state=decision.decision, stopped=decision.stopped, look=values, cells=cells,
         changes=rolled.changes, watermark=batch.watermark.to_dict(), as_of=as_of,
         alert=None if alert is None else AlertDraft(
-            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify))))
+            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify)),
+        volume_alert=volume_alert))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.
         memory.keep_boundary(engine, written.comparison_id, key, boundary)

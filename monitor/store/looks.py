@@ -47,7 +47,8 @@ _STATE_STATEMENT = (
     sa.select(_VERSION_TABLE.c.version_num.label("revision"),
               *(_COMPARISON.c[f] for f in _COMPARISON_FIELDS),
               _LOOK.c.excluded.label("last_excluded"),
-              _LOOK.c.detail["state_token"].as_string().label("state_token"))
+              _LOOK.c.detail["state_token"].as_string().label("state_token"),
+              _LOOK.c.detail["volume_state"].as_string().label("last_volume_state"))
     .select_from(
         _VERSION_TABLE
         .outerjoin(_COMPARISON, sa.and_(_COMPARISON.c.name == sa.bindparam("name"),
@@ -129,6 +130,7 @@ class LookState:
     cells: dict = field(default_factory=dict)
     last_boundary_look: BoundaryLookRow | None = None
     last_excluded: dict = field(default_factory=dict)
+    last_volume_state: str | None = None   # the volume check's state at the newest look
 
     @property
     def looks_taken(self) -> int:
@@ -179,7 +181,8 @@ def read_state(engine, name: str, kept: Callable[[int], KeptState | None] | None
                 last = None if found is None else BoundaryLookRow(*found)
     except DBAPIError as exc:
         raise _store_error("read", exc) from None
-    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {})
+    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {},
+                     top["last_volume_state"])
 
 
 def boundary_looks(engine, comparison_id: int, count: int) -> list[BoundaryLookRow]:
@@ -218,6 +221,7 @@ class LookWrite:
     watermark: dict
     as_of: datetime
     alert: AlertDraft | None = None
+    volume_alert: AlertDraft | None = None  # a volume warning's first look raises one of its own
 
 
 @dataclass(frozen=True)
@@ -241,6 +245,11 @@ def write_look(engine, w: LookWrite) -> Written:
                 alert_id = outbox.write_alert(
                     conn, comparison_id=comparison_id, comparison_name=w.name, look_id=look_id,
                     kind=w.alert.kind, created_at=w.as_of, payload=w.alert.payload, notify=w.alert.notify)
+            if w.volume_alert is not None:
+                outbox.write_alert(
+                    conn, comparison_id=comparison_id, comparison_name=w.name, look_id=look_id,
+                    kind=w.volume_alert.kind, created_at=w.as_of, payload=w.volume_alert.payload,
+                    notify=w.volume_alert.notify)
     except IntegrityError:
         raise LookAlreadyRecordedError(
             f"comparison {w.name!r}: look {look_number} was recorded by another process "

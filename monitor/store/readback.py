@@ -377,6 +377,7 @@ def _status_row(comp, looks, now):
         )
 
     groups = design.get("groups") or settings.get("groups") or []
+    volume = (last["detail"] or {}).get("volume") if last is not None else None
     return {
         "id": comp["id"],
         "name": comp["name"],
@@ -413,6 +414,9 @@ def _status_row(comp, looks, now):
         "design_effect": _num(deff),
         "effective_n": _num(last["effective_n"]) if last is not None else None,
         "warnings": [str(w) for w in warnings],
+        # The volume check of the newest look: ok, warning or not_yet_measurable, with its figures.
+        "volume_state": (volume or {}).get("state"),
+        "volume": _clean(volume) if volume else None,
         "created_at": _iso(comp["created_at"]),
         "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
         "stopped_at": _iso(comp["stopped_at"]),
