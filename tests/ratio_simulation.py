@@ -25,7 +25,10 @@ from unittest import mock
 
 import numpy as np
 
+from dataclasses import replace
+
 from monitor.config import ComparisonConfig
+from monitor.design import Design
 from monitor.look import decision as decision_step
 from monitor.look.decision import LookInputs, decide, weigh
 from monitor.stats.boundaries import SequentialBoundary
@@ -77,7 +80,7 @@ def ratio_false_alarms(streams, seed, *, days=20, rows_per_day=30, day_sd=0.0, s
 def _simulate(streams, seed, days, rows_per_day, day_sd, spending, alpha, min_clusters, rate):
     clustered = day_sd > 0
     c = _comparison(days, rows_per_day, spending, clustered, min_clusters)
-    design = c.design() | {"alpha": alpha, "shift": 3.0, "shift_den": 800.0}
+    design = replace(Design.from_config(c), alpha=alpha).with_shift(3.0).with_shift_den(800.0)
     computed = SequentialBoundary(alpha, spending, "two-sided")
     first = min_clusters if clustered else 1
     looks = [computed.add_look(d / days) for d in range(first, days + 1)]
@@ -93,14 +96,14 @@ def _simulate(streams, seed, days, rows_per_day, day_sd, spending, alpha, min_cl
                 units = rng.gamma(shape, 800 / shape, size=rows_per_day) + 1.0
                 shock = math.exp(rng.normal(0.0, day_sd)) if clustered else 1.0
                 defects = rng.poisson(rate * shock * units).astype(float)
-                y, x = defects - design["shift"], units - design["shift_den"]
+                y, x = defects - design.shift, units - design.shift_den
                 sums = (rows_per_day, y.sum(), y @ y, x.sum(), x @ x, y @ x)
                 keys = [("total", gi, "")] + ([("cluster", gi, f"day-{day}")] if clustered else [])
                 for key in keys:
                     old = cells.get(key)
                     cells[key] = sums if old is None else tuple(a + b for a, b in zip(old, sums))
             cutoff = _START + timedelta(days=day + 1)
-            evidence = weigh(LookInputs(c, design, dict(cells), cutoff, 0, last_fraction))
+            evidence = weigh(LookInputs(design, dict(cells), cutoff, 0, last_fraction))
             decision = decide(evidence, boundary if evidence.tests else None)
             if evidence.tests:
                 last_fraction = evidence.fraction

@@ -20,7 +20,7 @@ from scipy import stats
 
 from live_helpers import CHANNELS, at, comparison_toml, config_toml, create_events_table, insert_events, \
     migrated_store, write_config
-from monitor.commands.verify import verify_looks
+from monitor.verify import verify_looks
 from monitor.config import load_config
 from monitor.look import LookMemory, take_look
 from monitor.store.models import Cell

@@ -71,11 +71,6 @@ def test_the_import_log_sees_a_heavy_stack_when_one_is_loaded():
 
 @pytest.mark.parametrize("name", cli.COMMAND_MODULES)
 def test_command_module_registers_without_heavy_imports(name, request):
-    if name == "verify":
-        # PENDING: verify.py imports SQLAlchemy and the configuration at module level; it is
-        # being reduced to the command (replay moves to monitor/verify.py). Strict: remove this
-        # marker once it passes.
-        request.node.add_marker(pytest.mark.xfail(strict=True, reason="verify.py imports the store at module level"))
     probe = (
         "import argparse, importlib, json, sys\n"
         f"module = importlib.import_module('monitor.commands.{name}')\n"

@@ -27,8 +27,16 @@ def readback():
 
 
 def open_store(config_path):
-    """The history store engine named by the configuration at ``config_path`` (None: the default search)."""
-    return readback().open_store(readback().store_url_from_config(config_path))
+    """The history store engine named by the configuration at ``config_path`` (None: the default search).
+
+    Checked to be at the schema this code expects (``StoreBehindError`` otherwise).
+    """
+    # Every command module is loaded to build the parser, and most commands never open the store.
+    # lazy: so the command line does not pay for SQLAlchemy at start.
+    from ..config import store_url_from_config
+    from ..store.engine import open_store as open_checked
+
+    return open_checked(store_url_from_config(config_path))
 
 
 def counted(count, noun, plural=None) -> str:

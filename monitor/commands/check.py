@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..errors import SourceUnavailableError
+from ..errors import InvalidArgumentError, SourceUnavailableError
 from . import SUMMARIES
 from ._common import add_config_option, counted, program
 
@@ -19,7 +19,8 @@ def register(subparsers) -> None:
 def run(args) -> int:
     # lazy: start-up time of the command line (configuration, source and store stacks).
     from ..config import load_config
-    from ..source.reader import Source
+    from ..design import Design
+    from ..source.reader import Source, SourceSpec
     from ..store.engine import make_engine, migration_state
 
     config = load_config(args.config)  # every problem at once, as a ConfigError
@@ -32,8 +33,9 @@ def run(args) -> int:
             if c.source not in sources:
                 sources[c.source] = Source(config.sources[c.source].url, name=c.source)
             try:
-                problems = sources[c.source].check(c.source_spec(0.0))
-            except SourceUnavailableError as exc:
+                spec = SourceSpec.from_design(Design.from_config(c), shift=0.0, arrival_column=c.arrival_column)
+                problems = sources[c.source].check(spec)
+            except (SourceUnavailableError, InvalidArgumentError) as exc:  # unreachable, or no plan possible
                 print(f"comparison {c.name!r}: {exc}")
                 failed = True
                 continue

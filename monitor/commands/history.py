@@ -10,13 +10,18 @@ from ._common import add_config_option, aligned_lines, open_store, print_json, r
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
 
-# The flat columns of the CSV export (excluded rows are spread into one column per reason).
-CSV_COLUMNS = [
-    "look", "as_of", "cutoff", "n1", "n2", "mean1", "mean2", "estimate", "standard_error",
-    "statistic", "df", "p_value", "fraction", "boundary_z", "futility_z", "nominal_p",
-    "cumulative_alpha", "ci_low", "ci_high", "decision", "late_events", "excluded_total",
-    "clusters", "design_effect", "effective_n",
-]
+# The CSV's columns and rows live on the store's read side (``monitor.store.export``), which the
+# dashboard uses too; they stay importable from here, looked up on first use.
+_FROM_EXPORT = ("CSV_COLUMNS", "csv_rows")
+
+
+def __getattr__(name):
+    if name in _FROM_EXPORT:
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store import export
+
+        return getattr(export, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def register(subparsers) -> None:
@@ -33,18 +38,6 @@ def register(subparsers) -> None:
     p.add_argument("--version", type=whole_number_type(1), default=None, metavar="V",
                    help="a stored version (default: the live one)")
     p.set_defaults(func=run)
-
-
-def csv_rows(history):
-    reasons = sorted({reason for look in history for reason in look["excluded"]})
-    header = CSV_COLUMNS + [f"excluded_{reason}" for reason in reasons] + ["warnings"]
-    rows = []
-    for look in history:
-        row = [look[c] for c in CSV_COLUMNS]
-        row += [look["excluded"].get(reason, 0) for reason in reasons]
-        row.append("; ".join(look["warnings"]))
-        rows.append(row)
-    return header, rows
 
 
 def _cluster_text(fmt):
@@ -84,6 +77,9 @@ def run(args) -> int:
     if args.format == "json":
         print_json(history)
     elif args.format == "csv":
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store.export import csv_rows
+
         header, rows = csv_rows(history)
         writer = csv.writer(sys.stdout, lineterminator="\n")
         writer.writerow(header)

@@ -91,6 +91,7 @@ def plan_from_args(args):
         if getattr(args, name) is None:
             raise InvalidArgumentError(f"--{name.replace('_', '-')} is required with --metric {args.metric}")
     if args.metric == "ratio":
+        # lazy: start-up time of the command line (as the planning import above).
         from ..stats.ratio import ratio_planning_sd
 
         # A ratio over n rows varies as a mean of n values with sd residual_sd / mean_denominator.

@@ -71,6 +71,7 @@ def volume_lines(row) -> list:
     if not volume:
         return []
     if volume["state"] == "warning":
+        # lazy: start-up time of `gapwatch status`; the wording is needed only when a volume warns.
         from ..alerts.wording import volume_warnings
 
         return [f"    volume: {line}" for line in volume_warnings(volume)]

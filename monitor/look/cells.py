@@ -27,8 +27,8 @@ class RolledUp:
     null_key_late: int = 0   # of those, late events
 
 
-def roll_up(c, batch) -> RolledUp:
-    """Slot cells → changes to stored cells.
+def roll_up(design, batch) -> RolledUp:
+    """Slot cells → changes to stored cells, by the frozen design's pairing and clustering.
 
     With a pair or cluster column, an event whose key is NULL belongs to no
     pair or cluster. Filing it under an empty key would invent a pair (or a
@@ -36,19 +36,21 @@ def roll_up(c, batch) -> RolledUp:
     included (n then matches the paired or clustered statistic), and counted
     as excluded with reason ``null_key``.
     """
-    zone = c.zone
+    zone = design.measure.zone
+    pairing, clustering = design.pairing, design.clustering
+    shift_starts = pairing.shift_starts if pairing is not None else ()
     changes: dict = {}
     memo: dict = {}
-    needs_key = c.key_column is not None
+    needs_key = design.key_column is not None
     null_key = null_key_late = 0
 
     def bucket(slot, kind):
         k = (slot, kind)
         if k not in memo:
-            memo[k] = bucket_key(slot, kind, zone, c.shift_starts)
+            memo[k] = bucket_key(slot, kind, zone, shift_starts)
         return memo[k]
 
-    ratio = c.metric == "ratio"
+    ratio = design.metric == "ratio"
 
     def add(kind, gi, key, cell):
         entry = changes.setdefault((kind, gi, key), [0, 0.0, 0.0, 0.0, 0.0, 0.0] if ratio else [0, 0.0, 0.0])
@@ -60,8 +62,9 @@ def roll_up(c, batch) -> RolledUp:
             entry[4] += cell.sum_den2
             entry[5] += cell.sum_cross
 
-    clustered, cluster_column, cluster_by = c.clustered, c.cluster_column, c.cluster_by
-    paired, pair_column, pair_by = c.paired, c.pair_column, c.pair_by
+    clustered, paired = clustering is not None, pairing is not None
+    cluster_column, cluster_by = (clustering.cluster_column, clustering.cluster_by) if clustered else (None, None)
+    pair_column, pair_by = (pairing.pair_column, pairing.pair_by) if paired else (None, None)
     for cell in batch.cells:
         if needs_key and cell.key is None:
             null_key += cell.n

@@ -29,6 +29,7 @@ from datetime import datetime
 
 from scipy import special
 
+from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
@@ -45,10 +46,9 @@ _Z_METHODS = ("z", "proportions")
 
 @dataclass(frozen=True)
 class LookInputs:
-    """What the decision step reads: the comparison, its design, and the running cells."""
+    """What the decision step reads: the frozen design and the running cells."""
 
-    comparison: object          # the ComparisonConfig (pairing, clustering, local zone)
-    design: dict                # the frozen design, its shift fixed
+    design: Design              # the frozen design, its shift fixed
     cells: dict                 # the merged running cells
     cutoff: datetime            # events up to here are in the cells
     excluded_total: int         # events excluded so far, all reasons
@@ -89,13 +89,13 @@ class Decision:
 
 def weigh(inputs: LookInputs) -> Evidence:
     """Statistic, fraction, design effect and warnings of the running cells."""
-    c, design, cells = inputs.comparison, inputs.design, inputs.cells
-    shift = design["shift"] or 0.0
+    design, cells = inputs.design, inputs.cells
+    shift = design.shift or 0.0
     s1 = summary(cells, "total", 0, "", shift)
     s2 = summary(cells, "total", 1, "", shift)
-    st = statistic(c, design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
-    planned = int(design["plan"]["planned_per_group"])
-    fraction = ((st.pairs or 0) if c.paired else min(s1.n, s2.n)) / planned
+    st = statistic(design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
+    planned = design.planned_per_group
+    fraction = ((st.pairs or 0) if design.paired else min(s1.n, s2.n)) / planned
 
     state, tests, warnings = "collecting", False, []
     if st.problem:
@@ -112,7 +112,7 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if de is not None and not c.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
+    if de is not None and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
@@ -130,9 +130,9 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     if boundary is None:
         raise InvalidArgumentError("a testing look needs the boundary resumed at the recorded testing looks")
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
-    alternative = design["alternative"]
+    alternative = design.alternative
     look = boundary.add_look(fraction)
-    if design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered:
+    if design.method in _Z_METHODS and not design.clustered:
         z = st.statistic
         crossed = (z >= look.z if alternative == "greater" else z <= -look.z if alternative == "less"
                    else abs(z) >= look.z)
@@ -157,7 +157,7 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     return Decision(decision, look, len(boundary.looks), interval, after)
 
 
-def _after_stop(boundary, st: Stat, fraction, design) -> dict:
+def _after_stop(boundary, st: Stat, fraction, design: Design) -> dict:
     """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
     fractions = [b.fraction for b in boundary.looks]
     upper = [b.z for b in boundary.looks]
@@ -168,11 +168,11 @@ def _after_stop(boundary, st: Stat, fraction, design) -> dict:
         z = float(-special.ndtri(st.p_upper)) if 0 < st.p_upper < 1 else math.copysign(40.0, st.statistic)
     out = {"stop_look": len(fractions), "z_observed": z}
     try:
-        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design["alternative"])
+        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design.alternative)
         if st.standard_error:
             info_max = 1.0 / (st.standard_error ** 2 * fraction)
             est = median_unbiased_estimate(fractions, upper, len(fractions), z, info_max,
-                                           design["alternative"], alpha=design["alpha"])
+                                           design.alternative, alpha=design.alpha)
             out["median_unbiased_estimate"] = est.estimate
             out["adjusted_ci"] = list(est.ci)
             # The look's own estimate: for t statistics the z-scale figure differs slightly.

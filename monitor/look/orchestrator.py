@@ -27,8 +27,9 @@ from datetime import timedelta
 from functools import partial
 
 from ..config import ComparisonConfig
+from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..source.reader import Source, Watermark
+from ..source.reader import Source, SourceSpec, Watermark
 from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
@@ -37,7 +38,7 @@ from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, weigh
-from .design_check import design_key, frozen_design
+from .design_check import frozen_design
 from .memory import LookMemory
 from .record import LookRecord
 from .row import LookMoment, look_detail, look_row
@@ -129,16 +130,16 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
     design = frozen_design(c.name, row, configured)
-    batch, cutoff = _read_source(config, c, design, row, as_of, source)
+    batch, cutoff, design = _read_source(config, c, design, row, as_of, source)
     stopwatch.lap("source")
 
-    rolled = roll_up(c, batch)
+    rolled = roll_up(design, batch)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     last = state.last_boundary_look
-    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()),
+    evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
                                 last.fraction if last is not None else 0.0))
-    key = design_key(design) if evidence.tests or row is None else None
+    key = design.fingerprint() if evidence.tests or row is None else None
     boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
     decision = decide(evidence, boundary)
 
@@ -149,7 +150,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
     # The volume check warns and alerts (once per warning episode) but never stops the comparison.
-    volume = assess_volume(c, design, cells, cutoff, c.expected_share)
+    volume = assess_volume(design, cells, cutoff, c.expected_share)
     detail["volume"], detail["volume_state"] = volume, volume["state"]
     volume_alert = None
     if volume["state"] == "warning" and state.last_volume_state != "warning":
@@ -179,8 +180,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data."""
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source):
+    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data."""
     own_source = source is None
     if own_source:
         try:
@@ -189,37 +190,35 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
             raise UnknownComparisonError(f"comparison {c.name!r} names unknown source {c.source!r}") from None
         source = Source(source_config.url, name=c.source)
     try:
-        if design.get("shift") is None:
+        if design.shift is None:
             # Proportions keep exact success counts; means shift by a value near the data.
-            shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
-            design["shift"] = None if shift is None else float(shift)
-        if c.metric == "ratio" and design.get("shift_den") is None:
-            shift_den = source.first_value(_denominator_values(c.source_spec(0.0)))
-            design["shift_den"] = None if shift_den is None else float(shift_den)
-        spec = c.source_spec(design["shift"] or 0.0, design.get("shift_den") or 0.0)
+            shift = 0.0 if design.metric == "proportion" else source.first_value(
+                SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
+            design = design.with_shift(shift)
+        if design.ratio is not None and design.shift_den is None:
+            spec = SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column)
+            # The denominator read as the values: a shift near the units, hours or runs.
+            design = design.with_shift_den(source.first_value(replace(
+                spec, value_column=spec.denominator_column, metric="mean", denominator_column=None,
+                valid_range=None)))
+        spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
         watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
         batch = source.read_cells(spec, watermark, cutoff)
-        if design["shift"] is None and batch.cells:
+        if design.shift is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
-            design["shift"] = 0.0
-        if c.metric == "ratio" and design.get("shift_den") is None and batch.cells:
-            design["shift_den"] = 0.0
+            design = design.with_shift(0.0)
+        if design.ratio is not None and design.shift_den is None and batch.cells:
+            design = design.with_shift_den(0.0)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff
+    return batch, cutoff, design
 
 
-def _denominator_values(spec):
-    """The spec that reads a ratio's denominator as its values (to find a shift near them)."""
-    return replace(spec, value_column=spec.denominator_column, metric="mean", denominator_column=None,
-                   valid_range=None)
-
-
-def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility) -> SequentialBoundary:
     """The sequential boundary standing at the recorded testing looks.
 
     The one kept in memory is used when it stands at the last recorded testing look;
@@ -235,7 +234,7 @@ def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) 
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
     return SequentialBoundary.resume(
-        design["alpha"], design["spending"], design["alternative"],
+        design.alpha, design.spending, design.alternative,
         [r.fraction for r in recorded], [r.boundary_z for r in recorded],
         futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
         if futility is not None else None,

@@ -36,13 +36,13 @@ class LookMoment:
 def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
     """The look's ``detail`` (before its timings and state token are added)."""
     st = evidence.stat
-    detail = {"shift": evidence.inputs.design["shift"] or 0.0, "planned_per_group": evidence.planned,
+    detail = {"shift": evidence.inputs.design.shift or 0.0, "planned_per_group": evidence.planned,
               "excluded_new": counts.excluded_new}
     if st.fixed is not None:
         detail["fixed"] = st.fixed
     if st.ratio is not None:
         detail["ratio"] = st.ratio
-        detail["shift_den"] = evidence.inputs.design.get("shift_den") or 0.0
+        detail["shift_den"] = evidence.inputs.design.shift_den or 0.0
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
     if decision.after_stop is not None:

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from scipy import special
 
 from ..calendar import bucket_end
+from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats import fixed
 from ..stats.boundaries import FutilitySpec
@@ -77,10 +78,9 @@ def t_critical(nominal_p, df):
     return critical if critical > 0 else math.inf
 
 
-def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
+def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
     """The fixed-sample statistic of the merged cells, or why there is none yet."""
-    common = dict(null_difference=design["null_difference"], alternative=design["alternative"],
-                  alpha=design["alpha"])
+    common = dict(null_difference=design.null_difference, alternative=design.alternative, alpha=design.alpha)
     st = Stat()
     if s1.n == 0 and s2.n == 0:
         if excluded_total:
@@ -89,24 +89,24 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = "no events yet"
         return st
     if s1.n == 0 or s2.n == 0:
-        empty = design["groups"][0 if s1.n == 0 else 1]
+        empty = design.groups[0 if s1.n == 0 else 1]
         st.problem = f"group {empty!r} has no valid events"
         return st
 
-    if c.metric == "ratio":
-        return _ratio_statistic(c, design, cells, st, common)
-    if c.paired:
-        pairing = design["pairing"]
-        by = pairing["pair_by"]
+    if design.ratio is not None:
+        return _ratio_statistic(design, cells, st, common)
+    if design.paired:
+        pairing, zone = design.pairing, design.measure.zone
+        by = pairing.pair_by
         means = {}
         for gi, key, (n, sd, _s2) in of_kind(cells, "pair"):
             if n > 0:
-                means.setdefault(key, {})[gi] = design["shift"] + sd / n
+                means.setdefault(key, {})[gi] = design.shift + sd / n
         diffs = []
         for key in sorted(means):
             m = means[key]
             if 0 in m and 1 in m:
-                if by is not None and bucket_end(key, by, c.zone, pairing["shift_starts"]) > cutoff:
+                if by is not None and bucket_end(key, by, zone, pairing.shift_starts) > cutoff:
                     continue  # the bucket is still open: its means may move
                 diffs.append(m[0] - m[1])
         st.pairs = len(diffs)
@@ -114,10 +114,10 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = f"{len(diffs)} complete pair(s) so far; a paired test needs at least 2"
             return st
         result = fixed.from_summaries("paired", MomentSummary.from_values(diffs), None, **common)
-    elif c.clustered:
+    elif design.clustered:
         rows = [(gi, key, v) for gi, key, v in of_kind(cells, "cluster") if v[0] > 0]
         rows.sort(key=lambda r: (r[0], r[1]))
-        shift = design["shift"] or 0.0
+        shift = design.shift or 0.0
         result = cluster_robust_difference(
             [r[0] for r in rows], [r[1] for r in rows], [r[2][0] for r in rows],
             [r[2][1] for r in rows], shift, sum_dev2=[r[2][2] for r in rows], **common)
@@ -126,9 +126,9 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
         st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
         st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
         st.fixed = json_safe(result.to_dict())
-        if result.clusters < design["min_clusters"]:
+        if result.clusters < design.min_clusters:
             st.waiting = (f"{result.clusters} clusters so far; decisions start at "
-                          f"{design['min_clusters']} (min_clusters)")
+                          f"{design.min_clusters} (min_clusters)")
             st.awaiting_clusters = True
             return st
         if result.degenerate or not math.isfinite(result.standard_error) or result.standard_error == 0:
@@ -137,12 +137,11 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
         st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
         return st
     else:
-        method = design["method"]
+        method = design.method
         if method in ("welch", "pooled") and (s1.n < 2 or s2.n < 2):
             st.waiting = "each group needs at least 2 events for a variance"
             return st
-        sigmas = design.get("sigmas")
-        result = fixed.from_summaries(method, s1, s2, sigmas=tuple(sigmas) if sigmas else None, **common)
+        result = fixed.from_summaries(method, s1, s2, sigmas=design.sigmas, **common)
 
     st.estimate = float(result.estimate)
     st.standard_error = finite_or_none(result.standard_error)
@@ -158,17 +157,18 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
     return st
 
 
-def _ratio_statistic(c, design, cells, st: Stat, common) -> Stat:
+def _ratio_statistic(design: Design, cells, st: Stat, common) -> Stat:
     """Difference of the two groups' ratios of sums (cluster cells when clustered, else totals)."""
-    kind = "cluster" if c.clustered else "total"
+    clustered = design.clustered
+    kind = "cluster" if clustered else "total"
     # Sorted by (group, key) so the sums run in one order whatever order the cells came in.
     rows = sorted((gi, key, v) for gi, key, v in of_kind(cells, kind) if v[0] > 0)
     sums = list(zip(*(v for _gi, _key, v in rows)))
     result = ratio_difference(
-        RatioCells(group=tuple(r[0] for r in rows), key=tuple(r[1] if c.clustered else None for r in rows),
+        RatioCells(group=tuple(r[0] for r in rows), key=tuple(r[1] if clustered else None for r in rows),
                    n=sums[0], num=sums[1], num2=sums[2], den=sums[3], den2=sums[4], cross=sums[5],
-                   shift_num=design["shift"] or 0.0, shift_den=design.get("shift_den") or 0.0),
-        clustered=c.clustered, **common)
+                   shift_num=design.shift or 0.0, shift_den=design.shift_den or 0.0),
+        clustered=clustered, **common)
     st.ratio = {"ratio1": finite_or_none(result.ratio1), "ratio2": finite_or_none(result.ratio2),
                 "relative_change": finite_or_none(result.relative_change),
                 "relative_standard_error": finite_or_none(result.relative_standard_error),
@@ -179,12 +179,12 @@ def _ratio_statistic(c, design, cells, st: Stat, common) -> Stat:
     if not result.degenerate:
         st.standard_error = float(result.standard_error)
         st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
-    if c.clustered and result.clusters is not None and result.clusters < design["min_clusters"]:
+    if clustered and result.clusters is not None and result.clusters < design.min_clusters:
         st.waiting = (f"{result.clusters} clusters so far; decisions start at "
-                      f"{design['min_clusters']} (min_clusters)")
+                      f"{design.min_clusters} (min_clusters)")
         st.awaiting_clusters = True
         return st
-    if not c.clustered and (result.n1 < 2 or result.n2 < 2):
+    if not clustered and (result.n1 < 2 or result.n2 < 2):
         st.waiting = "each group needs at least 2 rows for a spread"
         return st
     if result.degenerate:
@@ -195,22 +195,20 @@ def _ratio_statistic(c, design, cells, st: Stat, common) -> Stat:
     return st
 
 
-def futility_spec(design):
+def futility_spec(design: Design):
     """The futility rule of the design (None without one, or without the plan's drift and power)."""
-    if not design.get("futility"):
+    if not design.futility:
         return None
-    plan = design["plan"]
-    figures = plan.get("figures") or {}
-    drift = figures.get("drift")
-    power = (plan.get("inputs") or {}).get("power")
+    drift = design.plan.drift
+    power = design.plan.inputs.power if design.plan.inputs is not None else None
     if drift is None or power is None:
         return None
-    return FutilitySpec(design["spending"], 1.0 - power, drift)
+    return FutilitySpec(design.spending, 1.0 - power, drift)
 
 
-def day_design_effect(design, cells, s1, s2):
+def day_design_effect(design: Design, cells, s1, s2):
     """Day-level design effect and effective n (None when it cannot be measured)."""
-    if s1.n < 2 or s2.n < 2 or design.get("metric") == "ratio":
+    if s1.n < 2 or s2.n < 2 or design.ratio is not None:
         # A ratio's day-level spread is not its numerator's: no event-level design effect here.
         return None
     # Sorted by (group, day) so the sums run in one order whatever order the cells came in.
@@ -221,7 +219,7 @@ def day_design_effect(design, cells, s1, s2):
     groups, keys, n, sum_dev, sum_dev2 = zip(*rows)
     try:
         de = design_effect({"groups": groups, "keys": keys, "n": n, "sum_dev": sum_dev,
-                            "sum_dev2": sum_dev2, "shift": design["shift"] or 0.0})
+                            "sum_dev2": sum_dev2, "shift": design.shift or 0.0})
     except InvalidArgumentError:
         return None
     if not math.isfinite(de.design_effect):

@@ -39,9 +39,9 @@ def _hourly(cells) -> dict:
     return out
 
 
-def assess_volume(comparison, design, cells, cutoff, expected_share=None) -> dict:
+def assess_volume(design, cells, cutoff, expected_share=None) -> dict:
     """The look's volume verdict as a JSON-friendly dict (``state`` one of :data:`VOLUME_STATES`)."""
-    local = cutoff.astimezone(comparison.zone)
+    local = cutoff.astimezone(design.measure.zone)
     hours = local.hour                     # complete local hours of today
     today = local.date()
     counts = _hourly(cells)
@@ -55,7 +55,7 @@ def assess_volume(comparison, design, cells, cutoff, expected_share=None) -> dic
         return {"state": "not_yet_measurable", "why": why, **base}
     zero = np.zeros(24)
     groups, usual_by_group, warn = [], [], False
-    for gi, name in enumerate(design["groups"]):
+    for gi, name in enumerate(design.groups):
         usual = usual_volume([counts.get((gi, d), zero) for d in history])
         usual_by_group.append(usual)
         today_counts = counts.get((gi, today.isoformat()), zero)[:hours]

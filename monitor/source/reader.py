@@ -175,6 +175,26 @@ class SourceSpec:
                 raise InvalidArgumentError(f"valid_range low must not exceed high, got {self.valid_range!r}")
             object.__setattr__(self, "valid_range", bounds)
 
+    @classmethod
+    def from_design(cls, design, *, shift=None, arrival_column=None):
+        """What to read for a :class:`monitor.design.Design` (the one place a design becomes a spec).
+
+        ``shift`` defaults to the design's own (0 before it is fixed); ``arrival_column``
+        is a setting of the comparison, not part of its design.
+        """
+        measure = design.measure
+        if shift is None:
+            shift = design.shift or 0.0
+        return cls(
+            table=measure.table, group_column=measure.group_column, groups=tuple(design.groups),
+            value_column=measure.value_column, time_column=measure.time_column, metric=design.metric,
+            shift=float(shift), schema=measure.schema, time_format=measure.time_format,
+            key_column=design.key_column, arrival_column=arrival_column, filters=measure.filters,
+            valid_range=measure.valid_range,
+            denominator_column=design.ratio.denominator_column if design.ratio is not None else None,
+            shift_den=float(design.shift_den or 0.0),
+        )
+
 
 @dataclass(frozen=True)
 class Watermark:

@@ -31,6 +31,7 @@ __all__ = [
     "head_revision",
     "ensure_current",
     "migration_state",
+    "open_store",
 ]
 
 # Seconds a SQLite writer waits for another writer before giving up.
@@ -169,6 +170,17 @@ def ensure_current(engine) -> str:
             f"(newest here: {head}); upgrade gapwatch itself")
     raise StoreBehindError(
         f"the history store is at revision {current}, behind {head}; run `gapwatch db upgrade`")
+
+
+def open_store(url) -> Engine:
+    """An engine on the history store, checked to be at the schema this code expects."""
+    engine = make_engine(url)
+    try:
+        ensure_current(engine)
+    except BaseException:
+        engine.dispose()
+        raise
+    return engine
 
 
 def _brief(exc) -> str:
