@@ -19,7 +19,13 @@ own volume for each group and the share between them. Reported: days with a fals
 comparison-month (30 days), then the delay to the first warning after one group loses half its
 events from 10:00 on a random weekday.
 
-Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 4000 --months 500 --seed 1
+Part 2b — the same months, checked by the look's own volume step (monitor.look.volume,
+``assess_volume``) on the hour cells a look keeps, with a look after every complete hour from
+07:00 to 22:00: days with a false warning per comparison-month, and the delay (minutes after
+10:00) to the first warning after one group loses half its events.
+
+Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 4000 --months 500 --look-months 100 --seed 1
+      (--parts 1,1b,2,2b picks the parts)
 """
 
 from __future__ import annotations
@@ -134,6 +140,50 @@ def volume_month(rng, drop_day=None, level=0.001):
     return warned_days, first_warning
 
 
+def _look_design():
+    from monitor.config import ComparisonConfig
+    from monitor.design import Design
+
+    return Design.from_config(ComparisonConfig(
+        name="volume", source="ops", table="events", group_column="site", groups=("north", "south"),
+        value_column="seconds", time_column="done_at", planned_per_group=10 ** 6))
+
+
+def volume_month_through_look(rng, design, drop_day=None, weeks=4):
+    """As :func:`volume_month`, but hourly looks run the look's own check (monitor.look.volume)
+    on the hour cells a look keeps (each group's events per local hour, UTC here)."""
+    from datetime import date, datetime, timedelta, timezone
+
+    from monitor.look.volume import assess_volume
+
+    counts, weeks = _month(rng, weeks_history=weeks, drop_day=drop_day)
+    hourly = counts.reshape(counts.shape[0], 2, 24, 4).sum(axis=3)
+    first = date(2026, 1, 5)                      # a Monday: day 0 of the weekday pattern
+    cells = {}
+    for d in range(7 * weeks):                    # the history, already read
+        for g in (0, 1):
+            for h in range(24):
+                if hourly[d, g, h]:
+                    cells[("hour", g, f"{first + timedelta(days=d)}T{h:02d}:00+00:00")] = (int(hourly[d, g, h]), 0.0, 0.0)
+    warned_days, first_warning = set(), None
+    for day in range(counts.shape[0] - 7 * weeks):
+        d = 7 * weeks + day
+        today = first + timedelta(days=d)
+        for h in range(24):
+            for g in (0, 1):
+                if hourly[d, g, h]:
+                    cells[("hour", g, f"{today}T{h:02d}:00+00:00")] = (int(hourly[d, g, h]), 0.0, 0.0)
+            look_hour = h + 1                     # the look after this hour closed
+            if look_hour < OPEN // 4 + 1 or look_hour > CLOSE // 4 or day in warned_days:
+                continue
+            cutoff = datetime(today.year, today.month, today.day, tzinfo=timezone.utc) + timedelta(hours=look_hour)
+            if assess_volume(design, cells, cutoff)["state"] == "warning":
+                warned_days.add(day)
+                if first_warning is None and drop_day is not None and (day, look_hour * 60) >= (drop_day, 600):
+                    first_warning = (day - drop_day) * 1440 + look_hour * 60 - 600
+    return warned_days, first_warning
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--streams", type=int, default=20000)
@@ -141,8 +191,22 @@ def main(argv=None):
     ap.add_argument("--seed", type=int, default=1)
     ap.add_argument("--look-streams", type=int, default=4000,
                     help="streams per case of Part 1 (through the look's decision step)")
-    ap.add_argument("--skip-volume", action="store_true")
+    ap.add_argument("--parts", default="1,1b,2,2b", help="which parts to run (default all: 1,1b,2,2b)")
+    ap.add_argument("--look-months", type=int, default=60,
+                    help="comparison-months of Part 2b (the look's own hourly check)")
     args = ap.parse_args(argv)
+    parts = set(args.parts.split(","))
+    if "1" in parts:
+        _part_one(args)
+    if "1b" in parts:
+        _part_one_b(args)
+    if "2" in parts:
+        _part_two(args)
+    if "2b" in parts:
+        _part_two_b(args)
+
+
+def _part_one(args):
     t0 = time.perf_counter()
     print("Part 1: ratio comparisons through weigh/decide, daily looks, no true difference, alpha 0.05")
     print(f"{'case':34} {'streams':>8} {'looks':>6} {'false alarms':>13} {'MC s.e.':>8}")
@@ -151,6 +215,9 @@ def main(argv=None):
         rate, se, looks = ratio_false_alarms(args.look_streams, args.seed, day_sd=day_sd, days=days)
         print(f"{label:34} {args.look_streams:8d} {looks:6d} {rate:13.4f} {se:8.4f}", flush=True)
     print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _part_one_b(args):
     t0 = time.perf_counter()
     print("Part 1b: the pure statistic vectorised, clustered by day from day 5")
     print(f"{'spending':18} {'streams':>8} {'false alarms':>13} {'MC s.e.':>8}")
@@ -159,8 +226,9 @@ def main(argv=None):
         se = math.sqrt(0.05 * 0.95 / args.streams)
         print(f"{spending:18} {args.streams:8d} {rate:13.4f} {se:8.4f}")
     print(f"  ({time.perf_counter() - t0:.1f} s)")
-    if args.skip_volume:
-        return
+
+
+def _part_two(args):
     t0 = time.perf_counter()
     rng = np.random.default_rng(args.seed)
     false_days = [len(volume_month(rng)[0]) for _ in range(args.months)]
@@ -176,6 +244,30 @@ def main(argv=None):
     print(f"  one group loses half its events from 10:00: found in {len(found)}/{len(delays)} months;"
           f" delay median {np.median(found) * 15 if found else float('nan'):.0f} min, "
           f"90th percentile {np.percentile(found, 90) * 15 if found else float('nan'):.0f} min")
+    print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _part_two_b(args):
+    t0 = time.perf_counter()
+    design = _look_design()
+    rng = np.random.default_rng(args.seed + 1)
+    false_days = [len(volume_month_through_look(rng, design)[0]) for _ in range(args.look_months)]
+    per_month = float(np.mean(false_days))
+    se = float(np.std(false_days, ddof=1) / math.sqrt(args.look_months))
+    print("Part 2b: the look's own volume check (hour cells, hourly looks 07:00-22:00, up to 8 weeks of history)")
+    print(f"  days with a false warning per comparison-month: {per_month:.3f} (MC s.e. {se:.3f}; "
+          f"{args.look_months} months)")
+    delays = []
+    for _ in range(args.look_months):
+        _, first = volume_month_through_look(rng, design, drop_day=int(rng.integers(7, 21)))
+        delays.append(first if first is not None else math.inf)
+    found = np.array([d for d in delays if math.isfinite(d)], dtype=float)
+    if found.size:
+        boot = [np.median(rng.choice(found, found.size)) for _ in range(2000)]
+        print(f"  one group loses half its events from 10:00: found in {found.size}/{len(delays)} months; "
+              f"delay median {np.median(found):.0f} min (bootstrap s.e. {np.std(boot):.0f}), "
+              f"mean {found.mean():.0f} min (s.e. {found.std(ddof=1) / math.sqrt(found.size):.0f}), "
+              f"90th percentile {np.percentile(found, 90):.0f} min")
     print(f"  ({time.perf_counter() - t0:.1f} s)")
 
 
