@@ -101,3 +101,19 @@ def test_status_shows_the_volume_state_and_the_warning_in_words(tmp_path, capsys
 
     data = json.loads(capsys.readouterr().out)
     assert data[0]["volume_state"] == "warning" and data[0]["volume"]["groups"][1]["warn"] is True
+
+
+def test_dashboard_line_beside_the_data_quality(tmp_path):
+    from dashboard.panels import volume_text
+    from monitor.store.readback import comparison_status
+
+    world, rng = _world(tmp_path, 3)
+    insert_events(world.source_url, "events", _day_rows(rng, TODAY, west_from=10, west_factor=0.3, hours=range(6, 16)))
+    world.look(TODAY + timedelta(hours=14, minutes=5))
+    row = comparison_status(world.engine, now=TODAY + timedelta(hours=15))[0]
+    text = volume_text(row)
+    assert text.startswith("Volume: WARNING") and "west" in text and "of a usual Tuesday since" in text
+    assert "None" not in text and "nan" not in text
+    assert volume_text({"volume": None}) == "Volume: not checked yet."
+    assert volume_text({"volume": {"state": "not_yet_measurable", "why": "1 week(s) of Tuesday history; "
+                                   "the check needs 2"}}).startswith("Volume: not yet measurable (1 week")
