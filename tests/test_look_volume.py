@@ -117,3 +117,15 @@ def test_dashboard_line_beside_the_data_quality(tmp_path):
     assert volume_text({"volume": None}) == "Volume: not checked yet."
     assert volume_text({"volume": {"state": "not_yet_measurable", "why": "1 week(s) of Tuesday history; "
                                    "the check needs 2"}}).startswith("Volume: not yet measurable (1 week")
+
+
+def test_volume_alert_reads_in_an_email_without_empty_figures(tmp_path):
+    from monitor.alerts.wording import email_text
+
+    world, rng = _world(tmp_path, 3)
+    insert_events(world.source_url, "events", _day_rows(rng, TODAY, west_from=10, west_factor=0.3, hours=range(6, 16)))
+    world.look(TODAY + timedelta(hours=14, minutes=5))
+    payload = _volume_alerts(world)[0].payload
+    subject, body = email_text(payload["alert_id"], payload)
+    assert subject == "gapwatch: handle-time - events below their usual volume"
+    assert "events from west fell to" in body and "None" not in body and "nan" not in body

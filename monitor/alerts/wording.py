@@ -75,6 +75,12 @@ _KIND_WORDS = {
         "The source database for this comparison answers again and looks have resumed. This is not a "
         "signal about the groups.",
     ),
+    "volume": (
+        "events below their usual volume",
+        "At look {look} a group's events fell short of what its weekday usually brings (or the share "
+        "between the groups moved beyond its usual swing). The comparison keeps looking and its "
+        "decision is unchanged; check that every event still reaches the table.",
+    ),
 }
 
 
