@@ -149,14 +149,14 @@ def _look_design():
         value_column="seconds", time_column="done_at", planned_per_group=10 ** 6))
 
 
-def volume_month_through_look(rng, design, drop_day=None, weeks=4):
+def volume_month_through_look(rng, design, drop_day=None, weeks=4, drop_to=0.5):
     """As :func:`volume_month`, but hourly looks run the look's own check (monitor.look.volume)
     on the hour cells a look keeps (each group's events per local hour, UTC here)."""
     from datetime import date, datetime, timedelta, timezone
 
     from monitor.look.volume import assess_volume
 
-    counts, weeks = _month(rng, weeks_history=weeks, drop_day=drop_day)
+    counts, weeks = _month(rng, weeks_history=weeks, drop_day=drop_day, drop_to=drop_to)
     hourly = counts.reshape(counts.shape[0], 2, 24, 4).sum(axis=3)
     first = date(2026, 1, 5)                      # a Monday: day 0 of the weekday pattern
     cells = {}
@@ -261,14 +261,21 @@ def _part_two_b(args):
     for _ in range(args.look_months):
         _, first = volume_month_through_look(rng, design, drop_day=int(rng.integers(7, 21)))
         delays.append(first if first is not None else math.inf)
+    _print_delays("one group loses half its events from 10:00", delays, rng)
+    delays = [volume_month_through_look(rng, design, drop_day=int(rng.integers(7, 21)), drop_to=0.0)[1]
+              for _ in range(max(args.look_months // 3, 10))]
+    _print_delays("one group's events stop at 10:00", [math.inf if d is None else d for d in delays], rng)
+    print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _print_delays(what, delays, rng):
     found = np.array([d for d in delays if math.isfinite(d)], dtype=float)
     if found.size:
         boot = [np.median(rng.choice(found, found.size)) for _ in range(2000)]
-        print(f"  one group loses half its events from 10:00: found in {found.size}/{len(delays)} months; "
+        print(f"  {what}: found in {found.size}/{len(delays)} months; "
               f"delay median {np.median(found):.0f} min (bootstrap s.e. {np.std(boot):.0f}), "
               f"mean {found.mean():.0f} min (s.e. {found.std(ddof=1) / math.sqrt(found.size):.0f}), "
               f"90th percentile {np.percentile(found, 90):.0f} min")
-    print(f"  ({time.perf_counter() - t0:.1f} s)")
 
 
 if __name__ == "__main__":
