@@ -151,7 +151,10 @@ def _stored(engine, name, version):
             query = query.order_by(Comparison.version.desc())
         comp = session.scalars(query.limit(1)).first()
         if comp is None:
-            raise UnknownComparisonError(f"no comparison named {name!r} in the store")
+            known = sorted(set(session.scalars(sa.select(Comparison.name))))
+            what = f"version {version} of {name!r}" if version and name in known else repr(name)
+            hint = f"; known: {', '.join(known)}" if known else "; the store holds no comparison yet"
+            raise UnknownComparisonError(f"no comparison {what} in the store{hint}")
         looks = list(session.scalars(
             sa.select(Look).where(Look.comparison_id == comp.id).order_by(Look.look_number)))
         session.expunge_all()
