@@ -67,6 +67,16 @@ def _reference(url):
     return moment.isoformat(), note
 
 
+@st.cache_data(ttl=_READ_TTL, show_spinner=False)
+def _liveness(url):
+    return readback.monitor_liveness(_engine(url), now=datetime.now(timezone.utc))
+
+
+def monitor_notice():
+    """One sentence when no worker has looked for several intervals (a dead monitor), else None."""
+    return _liveness(store_url())["message"]
+
+
 def clock_note():
     """Why times are read against the newest look instead of this machine's clock, or None."""
     return _reference(store_url())[1]
@@ -118,7 +128,7 @@ def alerts(url, states=()):
 
 def forget_cached_reads():
     """After a write, so the next read shows it."""
-    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _reference):
+    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _reference, _liveness):
         fn.clear()
 
 

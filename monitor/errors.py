@@ -64,6 +64,10 @@ class StoreUnavailableError(GapwatchError, ConnectionError):
     """The history store could not be reached."""
 
 
+class AsOfBeforeLastLookError(InvalidArgumentError):
+    """A look's as-of is earlier than the comparison's last look: history never goes back."""
+
+
 class LookAlreadyRecordedError(GapwatchError, RuntimeError):
     """Another process recorded this look number first; nothing was written."""
 

@@ -194,7 +194,9 @@ def test_kept_state_is_not_used_after_another_writer_or_a_new_store(tmp_path):
     for suffix in ("", "-wal", "-shm"):
         Path(str(tmp_path / "store.sqlite") + suffix).unlink(missing_ok=True)
     Path(tmp_path / "ops.sqlite").unlink()
-    create_events_table(w.source_url, rows=event_rows(rng, 160, T0, east=130.0))
+    # Rows up to 15 h: every one of the looks below finds something new (a look that finds
+    # nothing records only a check).
+    create_events_table(w.source_url, rows=event_rows(rng, 300, T0, east=130.0))
     other, other_memory = migrated_store(w.store_url), LookMemory()
     for hours in (4, 8, 12):
         take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=hours), engine=other, memory=other_memory)

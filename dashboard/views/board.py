@@ -27,6 +27,8 @@ def board():
     if not rows:
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return
+    if data.monitor_notice():
+        st.warning(data.monitor_notice())
     ref = data.now()
     st.html(tables.board_table(shown, ref))
     if data.clock_note():

@@ -107,6 +107,7 @@ def run(args) -> int:
     try:
         now, note = readback().reference_time(engine, datetime.now(timezone.utc))
         rows = readback().comparison_status(engine, include_archived=args.all, now=now)
+        liveness = readback().monitor_liveness(engine, now=datetime.now(timezone.utc))
     finally:
         engine.dispose()
     if args.format == "json":
@@ -115,6 +116,9 @@ def run(args) -> int:
     if not rows:
         print("no comparisons in the store yet (the first look records one)")
         return 0
+    if liveness["quiet"]:
+        # First, so a dead monitor is never read as "next look in 3 s".
+        print(f"warning: {liveness['message']}")
     print("\n".join(table_lines(rows, now)))
     if note:
         print(f"note: {note}")

@@ -27,18 +27,19 @@ from functools import partial
 
 from ..config import ComparisonConfig
 from ..design import Design
-from ..errors import InvalidArgumentError, UnknownComparisonError
+from ..errors import AsOfBeforeLastLookError, DesignChangedError, InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, SourceSpec, Watermark
 from ..store.claims import claim
-from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
-                           write_look)
+from ..store.workers import record_check
+from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, archive_active, boundary_looks,
+                           read_state, write_look)
 from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
 from .design_check import frozen_design
 from .memory import LookMemory
-from .record import LookRecord
+from .record import LookRecord, QuietCheck
 from .row import LookMoment, look_detail, look_row
 from .volume import assess_volume
 
@@ -65,7 +66,8 @@ class _Stopwatch:
         return (time.perf_counter() - self.started) * 1000.0
 
 
-def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None):
+def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None, checked_at=None,
+              checked_by=None):
     """Take one look at a comparison and record it.
 
     Parameters
@@ -87,11 +89,20 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
     memory : LookMemory, optional
         What this process keeps between its looks (one per process); without one the
         look reads everything from the store and keeps nothing.
+    checked_at : datetime, optional
+        Wall time of the check, recorded for a quiet look (default ``as_of``); the
+        service passes the real time, which its schedule runs on.
+    checked_by : str, optional
+        Who checked, recorded for a quiet look (default ``holder``): the service claims by
+        itself and names its worker here.
 
     Returns
     -------
-    LookRecord or None
-        None when the comparison has stopped (it looks no more).
+    LookRecord, QuietCheck or None
+        None when the comparison has stopped (it looks no more); a ``QuietCheck`` when
+        the source held nothing new since the last look: the check is recorded (the
+        ``look_check`` row: when, up to which cutoff, from which watermark) and no look
+        row is written, so the last look's figures and interval stand.
 
     Raises
     ------
@@ -103,6 +114,8 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         The store's schema is not current (`gapwatch db upgrade`).
     LookAlreadyRecordedError
         Another look for this comparison was recorded first; nothing was written.
+    AsOfBeforeLastLookError
+        ``as_of`` is earlier than the comparison's last look; nothing was read or written.
     """
     stopwatch = _Stopwatch(time.perf_counter())
     if isinstance(comparison, str):
@@ -115,25 +128,45 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         raise InvalidArgumentError(str(exc)) from None
     memory = memory if memory is not None else LookMemory()
     if holder is None:
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by)
     with claim(engine, comparison.name, holder, now=as_of, seconds=config.service.lease_seconds):
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by or holder)
 
 
-def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch):
+def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch,
+          checked_at=None, holder=None):
     configured = memory.configured_design(c)
     state = read_state(engine, c.name, kept=partial(memory.take_state, engine))
     stopwatch.lap("store_read")
     row = state.comparison
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
-    design = frozen_design(c.name, row, configured)
+    if row is not None and row["last_look_at"] is not None and as_of < row["last_look_at"]:
+        raise AsOfBeforeLastLookError(
+            f"comparison {c.name!r}: as-of {as_of.isoformat()} is before its last look "
+            f"(look {row['looks_taken']} as of {row['last_look_at'].isoformat()}); history never goes back")
+    try:
+        design = frozen_design(c.name, row, configured)
+    except DesignChangedError:
+        if not _groups_without_rows(state):
+            raise
+        # A configured group never had a row (a typo'd group name, or a site not live yet) and
+        # nothing was tested: the design was never really frozen. The version that waited is
+        # archived as it stands and the configuration as it is now starts the next one, reading
+        # the table from its start (the rows a typo left out as unknown_group are read again).
+        archive_active(engine, c.name)
+        state = read_state(engine, c.name)
+        row = state.comparison
+        design = frozen_design(c.name, row, configured)
     batch, cutoff, design = _read_source(config, c, design, row, as_of, source)
     stopwatch.lap("source")
 
     rolled = roll_up(design, batch)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
+    if row is not None and not (look_counts.new_events or look_counts.late_events
+                                or any(look_counts.excluded_new.values())):
+        return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
     evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
                                 last.fraction if last is not None else 0.0))
@@ -143,6 +176,11 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
 
     moment = LookMoment(state.looks_taken + 1, as_of, cutoff, batch.watermark.arrival)
     values = look_row(moment, evidence, decision, look_counts)
+    waiting = _groups_without_rows(state, design, cells)
+    if waiting:
+        values["warnings"] = list(values["warnings"]) + [
+            f"group {', '.join(repr(g) for g in waiting)} has had no row in {c.table!r} yet: the design is not "
+            f"frozen until every group has had one (a corrected group name is then accepted)"]
     alert = alert_kind(row["state"] if row is not None else "collecting", decision.decision)
     values["duration_ms"] = stopwatch.total()
     stopwatch.lap("compute")
@@ -176,6 +214,37 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
                                    values["futility_z"], values["df"])
         memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
     return _record(c, written, moment, evidence, decision, values, stopwatch)
+
+
+def _quiet(engine, c, state, as_of, cutoff, checked_at, holder) -> QuietCheck:
+    """Record that the comparison was checked and found nothing new (no look row, nothing spent).
+
+    The watermark stays where the last look left it, so the next look reads from there.
+    """
+    row = state.comparison
+    watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
+    n1, n2 = (state.cells.get(("total", i, ""), (0, 0.0, 0.0))[0] for i in (0, 1))
+    quiet = QuietCheck(comparison=c.name, version=row["version"], look=row["looks_taken"], as_of=as_of,
+                       cutoff=cutoff, read_from=None if watermark is None else watermark.cutoff,
+                       state=row["state"], n1=int(n1), n2=int(n2))
+    record_check(engine, c.name, checked_at=checked_at or as_of, as_of=as_of, holder=holder, outcome="quiet",
+                 detail=json_safe({"version": quiet.version, "look": quiet.look, "cutoff": cutoff.isoformat(),
+                                   "read_from": None if quiet.read_from is None else quiet.read_from.isoformat(),
+                                   "new_events": 0}))
+    return quiet
+
+
+def _groups_without_rows(state, design=None, cells=None) -> list[str]:
+    """The design's groups that never had a valid row, while no look has tested: [] once the design is frozen."""
+    if state.last_boundary_look is not None:
+        return []
+    if design is None:
+        if state.comparison is None:
+            return []
+        groups, cells = list(state.comparison["design"].get("groups") or []), state.cells
+    else:
+        groups = list(design.groups)
+    return [g for i, g in enumerate(groups) if cells.get(("total", i, ""), (0, 0.0, 0.0))[0] == 0]
 
 
 def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source):
@@ -245,6 +314,6 @@ def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatc
         boundary_z=values["boundary_z"], nominal_p=values["nominal_p"], boundary_look=decision.boundary_number,
         clusters=evidence.stat.clusters, design_effect=values["design_effect"], effective_n=values["effective_n"],
         new_events=values["new_events"], late_events=values["late_events"], excluded=values["excluded"],
-        warnings=evidence.warnings, look_id=written.look_id, alert_id=written.alert_id,
+        warnings=tuple(values["warnings"]), look_id=written.look_id, alert_id=written.alert_id,
         duration_ms=stopwatch.total(), detail=values["detail"],
     )

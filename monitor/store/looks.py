@@ -40,7 +40,8 @@ _COMPARISON = Comparison.__table__
 _LOOK = Look.__table__
 _CELL = Cell.__table__
 _VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
-_COMPARISON_FIELDS = ("id", "version", "design", "state", "looks_taken", "watermark", "stopped_at")
+_COMPARISON_FIELDS = ("id", "version", "design", "state", "looks_taken", "watermark", "stopped_at",
+                      "last_look_at")
 # The schema revision, the active comparison and its newest look in one round trip: the
 # version table has one row, so the outer joins always return exactly one row.
 _STATE_STATEMENT = (

@@ -34,6 +34,8 @@ __all__ = [
     "Delivery",
     "Lease",
     "SourceHealth",
+    "LookCheck",
+    "Worker",
 ]
 
 NAMING_CONVENTION = {
@@ -241,3 +243,38 @@ class SourceHealth(Base):
     last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
     last_attempt_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     alerted: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+class LookCheck(Base):
+    """When a comparison was last checked by any worker (wall time), and what that check read.
+
+    The scheduler's "is it due?" reads this row, so a worker that finds a comparison's claim
+    free does not look again before the schedule says so, whoever looked last.
+    """
+
+    __tablename__ = "look_check"
+
+    comparison_name: Mapped[str] = mapped_column(String(200), primary_key=True)
+    # Wall time of the check (claims and schedules run on wall time, whatever clock looks use).
+    checked_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # The look's own "now" (the demo's simulated clock, or --as-of).
+    as_of: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
+    holder: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    # recorded (a look row was written) | quiet (nothing new was found; no look row)
+    outcome: Mapped[str] = mapped_column(String(20), default="recorded")
+    # What the check read: look number it stands at, cutoff, new events.
+    detail: Mapped[dict] = mapped_column(JSON, default=dict)
+
+
+class Worker(Base):
+    """A running ``gapwatch run`` worker's heartbeat: the read side tells a dead monitor from a live one."""
+
+    __tablename__ = "worker"
+
+    holder: Mapped[str] = mapped_column(String(200), primary_key=True)
+    started_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # Wall time of the worker's latest beat (it beats on every tick, looked or not).
+    beat_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # Wall time of the worker's latest look (recorded or quiet).
+    looked_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
+    stopped_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)

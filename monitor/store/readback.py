@@ -24,9 +24,10 @@ from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, json_safe,
                           parse_duration, state_label)
 from .engine import open_store
-from .models import Alert, Cell, Comparison, Delivery, Look
+from .models import Alert, Cell, Comparison, Delivery, Look, LookCheck, Worker
 
 __all__ = [
+    "monitor_liveness",
     "STATES",
     "STOPPED_STATES",
     "ALERT_STATES",
@@ -307,6 +308,21 @@ def _progress(last, stopped, fraction_rate):
     return None, None
 
 
+def _last_interval(last, looks) -> dict:
+    """The newest valid interval among the recent looks, with its estimate and look number.
+
+    A look that tested nothing (no new information, a data problem) records no interval;
+    the last valid one keeps being shown rather than a blank.
+    """
+    shown = last
+    if last is not None and last["ci_low"] is None and last["ci_high"] is None:
+        shown = next((lk for lk in reversed(looks) if lk["ci_low"] is not None or lk["ci_high"] is not None), last)
+    if shown is None:
+        return {"estimate": None, "ci_low": None, "ci_high": None, "interval_look": None}
+    return {"estimate": _num(shown["estimate"]), "ci_low": _num(shown["ci_low"]), "ci_high": _num(shown["ci_high"]),
+            "interval_look": shown["look_number"]}
+
+
 def _warnings(last, design) -> list[str]:
     """The newest look's warnings, plus the clustering advice when the design effect calls for it."""
     warnings = [str(w) for w in (last["warnings"] or [])] if last is not None else []
@@ -349,6 +365,7 @@ def _status_row(comp, looks, now):
         "description": settings.get("description") or None,
         "every": every,
         **_latest(last),
+        **_last_interval(last, looks),
         "warnings": _warnings(last, design),
         # The volume check of the newest look: ok, warning or not_yet_measurable, with its figures.
         "volume_state": (volume or {}).get("state"),
@@ -457,6 +474,61 @@ def reference_time(engine, now):
     note = (f"The newest look in the store ({newest.strftime('%Y-%m-%d %H:%M UTC')}) is {gap} this "
             "machine's clock (a simulated clock, or no looks lately): times are read against that look.")
     return newest, note
+
+
+# A monitor that has not checked any comparison for this many of its shortest interval looks dead.
+QUIET_INTERVALS = 3
+
+
+def _interval_seconds(every):
+    """Seconds of an interval schedule; None for a cron expression or nothing readable."""
+    if isinstance(every, (int, float)):
+        return float(every)
+    try:
+        return parse_duration(every)
+    except (ValueError, TypeError, InvalidArgumentError):
+        return None
+
+
+def monitor_liveness(engine, *, now):
+    """Whether any ``gapwatch run`` worker is still looking, read from checks and heartbeats (wall time).
+
+    Returns ``{"quiet": bool, "message": str | None, "last_check_at", "last_beat_at",
+    "workers_alive", "interval_seconds"}``. ``quiet`` is true when workers have run on this
+    store but none has checked an open comparison for ``QUIET_INTERVALS`` of the shortest
+    interval; the message then says so plainly (a store filled only by ``gapwatch look`` from
+    outside the service has no workers and no message). Looks' own times play no part, so a
+    simulated clock (the demo's) changes nothing here.
+    """
+    now = _aware(now, "now")
+    with engine.connect() as conn:
+        settings = conn.execute(sa.select(Comparison.settings).where(
+            Comparison.archived.is_(False), Comparison.stopped_at.is_(None),
+            Comparison.state.not_in(list(STOPPED_STATES)))).scalars().all()
+        last_check = conn.execute(sa.select(sa.func.max(LookCheck.checked_at))).scalar()
+        beats = conn.execute(sa.select(Worker.holder, Worker.beat_at, Worker.stopped_at)).all()
+    intervals = [i for i in (_interval_seconds((st or {}).get("every")) for st in settings) if i]
+    interval = min(intervals) if intervals else None
+    last_beat = max((b.beat_at for b in beats), default=None)
+    alive = [b for b in beats if b.stopped_at is None and interval is not None
+             and (now - b.beat_at).total_seconds() <= QUIET_INTERVALS * max(interval, 10.0)]
+    out = {"quiet": False, "message": None, "last_check_at": _iso(last_check), "last_beat_at": _iso(last_beat),
+           "workers_alive": len(alive), "interval_seconds": interval}
+    if interval is None or not beats:
+        return out
+    since = last_check or min(b.beat_at for b in beats)
+    silent = (now - since).total_seconds()
+    if silent <= QUIET_INTERVALS * interval:
+        return out
+    out["quiet"] = True
+    checked = ("never checked a comparison" if last_check is None
+               else f"last checked a comparison {describe_seconds(silent)} ago")
+    workers = ("no worker is running" if not alive else
+               f"{len(alive)} worker{'s' if len(alive) != 1 else ''} alive but not looking")
+    out["message"] = (f"No worker has looked for {describe_seconds(silent)} (over {QUIET_INTERVALS} intervals "
+                      f"of {describe_seconds(interval)}): the monitor {checked}; {workers}. "
+                      f"Start `gapwatch run` or see its log.")
+    return out
 
 
 def list_versions(engine, name):
