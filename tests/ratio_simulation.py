@@ -4,8 +4,8 @@ Each simulated comparison builds the running cells a ratio look keeps (six sums 
 ``("total", group, "")`` cell and, when clustered by day, per ``("cluster", group, day)``
 cell, exactly as ``monitor.look.cells.roll_up`` files them) and passes them, one look a day,
 to ``monitor.look.decision.weigh`` and ``decide``. Every stream reaches the same fractions
-(the same rows a day), so the boundary at each look is computed once by the real
-``SequentialBoundary`` and handed back to ``decide`` by a small replaying stand-in. The
+(the same rows a day), but each stream's looks have their own Welch degrees of freedom, so
+each stream gets the design's own exact sequential t boundary (``new_boundary``). The
 adjusted inference ``decide`` adds after a stop (stagewise p-value, median-unbiased
 estimate) is left out: it is computed after the decision, cannot change it, and costs a
 tenth of a second per stream.
@@ -30,32 +30,11 @@ from dataclasses import replace
 from monitor.config import ComparisonConfig
 from monitor.design import Design
 from monitor.look import decision as decision_step
-from monitor.look.decision import LookInputs, decide, weigh
-from monitor.stats.boundaries import SequentialBoundary
+from monitor.look.decision import LookInputs, decide, new_boundary, weigh
 
 __all__ = ["ratio_false_alarms"]
 
 _START = datetime(2026, 3, 2, tzinfo=timezone.utc)
-
-
-class _ReplayedBoundary:
-    """The real boundary's looks, handed out in order (every stream reaches the same fractions)."""
-
-    def __init__(self, looks, futility_direction=None):
-        self._all = looks
-        self._looks = []
-        self.futility_direction = futility_direction
-
-    @property
-    def looks(self):
-        return tuple(self._looks)
-
-    def add_look(self, fraction):
-        look = self._all[len(self._looks)]
-        if not math.isclose(look.fraction, fraction, rel_tol=1e-12):
-            raise AssertionError(f"look at fraction {fraction} differs from the computed {look.fraction}")
-        self._looks.append(look)
-        return look
 
 
 def _comparison(days, rows_per_day, spending, clustered, min_clusters):
@@ -73,7 +52,7 @@ def ratio_false_alarms(streams, seed, *, days=20, rows_per_day=30, day_sd=0.0, s
 
     Returns ``(rate, monte_carlo_se, looks_tested)``.
     """
-    with mock.patch.object(decision_step, "_after_stop", lambda *args: {}):
+    with mock.patch.object(decision_step, "after_stop", lambda *args: {}):
         return _simulate(streams, seed, days, rows_per_day, day_sd, spending, alpha, min_clusters, rate)
 
 
@@ -81,15 +60,14 @@ def _simulate(streams, seed, days, rows_per_day, day_sd, spending, alpha, min_cl
     clustered = day_sd > 0
     c = _comparison(days, rows_per_day, spending, clustered, min_clusters)
     design = replace(Design.from_config(c), alpha=alpha).with_shift(3.0).with_shift_den(800.0)
-    computed = SequentialBoundary(alpha, spending, "two-sided")
     first = min_clusters if clustered else 1
-    looks = [computed.add_look(d / days) for d in range(first, days + 1)]
+    looks = range(first, days + 1)  # the testing looks: from min_clusters days on when clustered
     rng = np.random.default_rng(seed)
     shape = 1 / 0.6 ** 2
     found = 0
     for _ in range(streams):
         cells: dict = {}
-        boundary = _ReplayedBoundary(looks)
+        boundary = new_boundary(design)
         last_fraction = 0.0
         for day in range(days):
             for gi in (0, 1):
