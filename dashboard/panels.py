@@ -37,6 +37,10 @@ def show_comparison(url, name, version=None):
     with plan_col:
         st.markdown("##### The plan")
         st.table(pd.DataFrame(tables.plan_lines(row), columns=["setting", "value"]).set_index("setting"))
+        changes = _change_lines(row.get("plan_changes") or [])
+        if changes:
+            st.markdown("###### Changes of plan")
+            st.markdown("\n".join(f"- {html.escape(line, quote=False)}" for line in changes))
     with quality_col:
         _data_quality(url, row, looks)
     _look_history(row, looks, frame)
@@ -66,8 +70,29 @@ def _headline(row, looks):
         timing += f" · next look {next_look_text(row, ref)} · " + (
             "plan completion not yet known" if eta == "unknown yet" else f"plan complete in {eta}")
     st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
+    if row.get("outlook_words"):
+        words = row["outlook_words"]
+        st.info(words[0].upper() + words[1:] + ".")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
+
+
+def _change_lines(changes):
+    """Replans and restarts of this version, one line each: who, when, old and new plan, why."""
+    lines = []
+    for c in changes:
+        made = f"{c['made_at'][:16].replace('T', ' ')} UTC by {c['made_by']}"
+        why = f" — {c['reason']}" if c.get("reason") else ""
+        if c["kind"] == "replan":
+            old = (c.get("old_plan") or {}).get("planned_per_group")
+            new = (c.get("new_plan") or {}).get("planned_per_group")
+            lines.append(f"Replan {c['number']} after look {c['after_look']}, {made}: {old:,} → {new:,} "
+                         f"events per group{why}; alpha left for the rest {fmt(c['conditional_error'], 3)}, "
+                         f"spent on the data after the change")
+        else:
+            how = "all data again (from the start)" if c.get("from_start") else "new data only"
+            lines.append(f"Restarted after look {c['after_look']}, {made}: the next version reads {how}{why}")
+    return lines
 
 
 def _figure(value, digits=4):

@@ -205,6 +205,9 @@ class Design:
     shift: float | None = None
     ratio: RatioColumns | None = None
     shift_den: float | None = None   # metric "ratio": the denominator's shift, fixed like ``shift``
+    # "events" or "information" (monitor.look.plan): stored only when not the default, so
+    # designs frozen before the choice existed compare equal.
+    fraction: str = "events"
 
     # ------------------------------------------------------------ derived
 
@@ -269,6 +272,7 @@ class Design:
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
             ratio=RatioColumns(c.numerator_column, c.denominator_column) if c.metric == "ratio" else None,
+            fraction=getattr(c, "fraction", "events"),
         )
 
     # ------------------------------------------------------------ the stored form
@@ -304,6 +308,7 @@ class Design:
             **({"numerator_column": self.ratio.numerator_column,
                 "denominator_column": self.ratio.denominator_column,
                 "shift_den": self.shift_den} if self.ratio is not None else {}),
+            **({"fraction": self.fraction} if self.fraction != "events" else {}),
         }
 
     @classmethod
@@ -334,6 +339,7 @@ class Design:
             ratio=(RatioColumns(stored["numerator_column"], stored["denominator_column"])
                    if stored.get("denominator_column") else None),
             shift_den=None if stored.get("shift_den") is None else float(stored["shift_den"]),
+            fraction=stored.get("fraction") or "events",
         )
 
     # ------------------------------------------------------------ change check

@@ -14,6 +14,8 @@ pg_bin() { ls -d /usr/lib/postgresql/*/bin 2>/dev/null | sort -V | tail -n 1; }
 missing=()
 [ -n "$(pg_bin)" ] && [ -x "$(pg_bin)/initdb" ] || missing+=(postgresql)
 [ -x /usr/bin/chromium ] || missing+=(chromium)
+# pdftoppm and pdfinfo check the printed review's pages.
+[ -x /usr/bin/pdftoppm ] || missing+=(poppler-utils)
 if [ ${#missing[@]} -gt 0 ]; then
   log "installing system packages: ${missing[*]}"
   sudo_cmd=""

@@ -349,3 +349,26 @@ def test_every_stored_version_opens_readably(store):
         at = _app("views/comparison.py", name=row["name"], version=str(row["version"]))
         assert at.subheader[0].value.startswith(row["name"])
         _assert_readable(at)
+
+
+def test_comparison_page_shows_the_outlook_and_the_changes_of_plan(tmp_path, monkeypatch):
+    import numpy as np
+
+    from live_helpers import LiveWorld, at as moment, event_rows
+    from monitor.cli import main
+
+    world = LiveWorld(tmp_path, event_rows(np.random.default_rng(5), 400, moment(2, 6)), planned_per_group=None,
+                      difference=3.0, sd=10.0, power=0.8)
+    config = str(world.config.path)
+    world.look(moment(2, 12))
+    assert main(["replan", "handle-time", "--planned-per-group", "300", "--reason", "event rate halved",
+                 "--by", "dana", "--config", config]) == 0
+    world.look(moment(2, 18))
+    monkeypatch.setenv("GAPWATCH_CONFIG", config)
+    monkeypatch.delenv("GAPWATCH_DASHBOARD_PASSWORD", raising=False)
+    app = _app("views/comparison.py", name="handle-time")
+    infos = [i.value for i in app.info]
+    assert any(v.startswith("At the current rate the plan completes around ") for v in infos), infos
+    text = "\n".join(m.value for m in app.markdown)
+    assert "Changes of plan" in text
+    assert "Replan 1 after look 1" in text and "by dana" in text and "→ 300 events per group — event rate halved" in text

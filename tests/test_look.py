@@ -308,16 +308,30 @@ def test_design_change_refused_and_restart_starts_a_new_version(tmp_path):
     w.write(every="1h")  # back to the frozen design: looks again
     assert w.look(T0 + timedelta(hours=4)).look == 2
     w.write(alpha=0.01)
-    assert restart_comparison(w.engine, "handle-time") == {"name": "handle-time", "archived_version": 1,
-                                                            "next_version": 2}
+    done = restart_comparison(w.engine, "handle-time", made_at=T0 + timedelta(hours=4), made_by="dana")
+    assert (done["name"], done["archived_version"], done["next_version"], done["from_start"]) == (
+        "handle-time", 1, 2, False)
     record = w.look(T0 + timedelta(hours=5))
     assert (record.version, record.look) == (2, 1)
     raw = w.raw()
+    # Only what came after version 1's last cutoff: nothing version 1 tested is tested again.
+    last_cutoff = pd.Timestamp(T0 + timedelta(hours=4))
+    new = (raw.done_at > last_cutoff) & (raw.done_at <= pd.Timestamp(record.cutoff))
+    assert 0 < record.n1 + record.n2 == new.sum()
+    assert record.detail["restart"] == {"after_version": 1, "from_start": False,
+                                        "starts_after": last_cutoff.isoformat(), "made_by": "dana"}
+    # --from-start reads everything again, and the first look says so.
+    restart_comparison(w.engine, "handle-time", made_at=T0 + timedelta(hours=5), made_by="dana",
+                       reason="audit wants all data", from_start=True)
+    record = w.look(T0 + timedelta(hours=6))
+    assert (record.version, record.look) == (3, 1)
     assert record.n1 + record.n2 == (raw.done_at <= pd.Timestamp(record.cutoff)).sum()  # reads from the start
+    assert record.detail["restart"]["from_start"] is True
+    assert any("tested again" in w for w in record.warnings)
     with w.engine.connect() as conn:
         versions = conn.execute(sa.select(Comparison.version, Comparison.archived, Comparison.looks_taken)
                                 .order_by(Comparison.version)).all()
-    assert versions == [(1, True, 2), (2, False, 1)]
+    assert versions == [(1, True, 2), (2, True, 1), (3, False, 1)]
 
 
 def test_injection_in_filter_values_is_harmless_and_source_unchanged(tmp_path):

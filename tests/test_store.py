@@ -35,7 +35,8 @@ def test_empty_store_refused_with_the_command_to_run(tmp_path):
 
 
 def _migrations_with_a_newer_revision(tmp_path, monkeypatch):
-    """A copy of the packaged migrations plus a revision 0099, as a newer gapwatch would ship."""
+    """A copy of the packaged migrations plus a revision 0099 after the packaged head, as a newer
+    gapwatch would ship."""
     import shutil
 
     folder = tmp_path / "migrations"

@@ -55,7 +55,7 @@ def table_lines(history):
         body.append([
             str(h["look"]), h["as_of"][:19].replace("T", " "), str(h["n1"]), str(h["n2"]),
             fmt(h["estimate"]), fmt(h["statistic"]), fmt(h["boundary_z"]), fmt(h["p_value"], 3),
-            "-" if h["fraction"] is None else f"{100 * h['fraction']:.0f}%",
+            "-" if h["plan_share"] is None else f"{100 * h['plan_share']:.0f}%",
             fmt(h["cumulative_alpha"], 3), str(h["excluded_total"]), h["decision"],
         ])
     lines = aligned_lines(headers, body)
@@ -68,10 +68,34 @@ def table_lines(history):
     return lines
 
 
+def change_lines(history, changes):
+    """How the version began (after a restart) and every replan, in words."""
+    fmt = readback().format_number
+    lines = []
+    first = history[0]["detail"].get("restart") if history else None
+    if first:
+        if first.get("from_start"):
+            lines.append(f"began after a restart of version {first['after_version']} --from-start: the data "
+                         f"version {first['after_version']} tested were tested again")
+        else:
+            lines.append(f"began after a restart of version {first['after_version']}, on the data after "
+                         f"{first.get('starts_after', 'its last look')} only")
+    for c in changes:
+        if c["kind"] != "replan":
+            continue
+        old = c["old_plan"].get("planned_per_group")
+        new = c["new_plan"].get("planned_per_group")
+        lines.append(f"replan {c['number']} after look {c['after_look']}, {c['made_at'][:16].replace('T', ' ')} "
+                     f"by {c['made_by']}: {old:,} -> {new:,} per group ({c['reason']}); alpha left "
+                     f"{fmt(c['conditional_error'], 3)}, spent on the data after the change")
+    return lines
+
+
 def run(args) -> int:
     engine = open_store(args.config)
     try:
         history = readback().look_history(engine, args.name, version=args.version)
+        changes = readback().plan_change_history(engine, args.name, version=args.version) if history else []
     finally:
         engine.dispose()
     if args.format == "json":
@@ -87,5 +111,5 @@ def run(args) -> int:
     elif not history:
         print(f"{args.name}: no looks recorded yet")
     else:
-        print("\n".join(table_lines(history)))
+        print("\n".join(table_lines(history) + change_lines(history, changes)))
     return 0

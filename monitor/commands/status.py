@@ -39,8 +39,9 @@ def _interval(row):
     if row["ci_low"] is None and row["ci_high"] is None:
         # a look that tested nothing (no new information) records no interval
         return f"{fmt(row['estimate'])} [no interval]"
-    low = "-inf" if row["ci_low"] is None else fmt(row["ci_low"])
-    high = "inf" if row["ci_high"] is None else fmt(row["ci_high"])
+    # A one-sided design's interval has an open end: said in words, as the report says it.
+    low = "open" if row["ci_low"] is None else fmt(row["ci_low"])
+    high = "open" if row["ci_high"] is None else fmt(row["ci_high"])
     return f"{fmt(row['estimate'])} [{low}, {high}]"
 
 
@@ -97,6 +98,8 @@ def table_lines(rows, now):
     lines = [header]
     for r, line in zip(rows, row_lines):
         lines.append(line)
+        if r.get("outlook_words"):
+            lines.append(f"    {r['outlook_words']}")
         lines.extend(f"    warning: {warning}" for warning in r["warnings"])
         lines.extend(volume_lines(r))
     return lines

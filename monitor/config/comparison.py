@@ -170,6 +170,7 @@ class Inference(Part):
     spending: str = checked("obrien-fleming")
     null_difference: float = checked(0.0)
     futility: bool = checked(False)
+    fraction: str = checked("events")
     sigmas: tuple[float, float] | None = checked(None)
 
     @field_validator("metric", mode="before")
@@ -233,6 +234,17 @@ class Inference(Part):
             raise keyed("needs the planning inputs (difference + sd, or p1 + p2, and power) "
                          "instead of planned_per_group: the futility boundary is built from the "
                          "planned difference")
+        return value
+
+    @field_validator("fraction", mode="before")
+    @classmethod
+    def _fraction(cls, value, info):
+        c = ctx(info)
+        if value not in ("events", "information"):
+            raise keyed(f"must be 'events' or 'information'; got {value!r}")
+        if value == "information" and (c.metric != "mean" or c.raw("difference") is None or c.raw("sd") is None):
+            raise keyed("'information' needs a mean comparison planned from difference + sd (the maximum "
+                         "information comes from the planned difference and the design)")
         return value
 
     @field_validator("sigmas", mode="before")
@@ -572,7 +584,8 @@ class ComparisonTable(BaseModel):
             planned_per_group=p.planned_per_group, difference=p.difference, sd=p.sd, p1=p.p1, p2=p.p2,
             power=p.power, looks=p.looks, every=s.every, sigmas=t.sigmas, pair_by=pr.pair_by,
             pair_column=pr.pair_column, min_pairs=pr.min_pairs, shift_starts=pr.shift_starts, null_difference=t.null_difference,
-            futility=t.futility, valid_range=r.valid_range, filters=r.filters, lateness=s.lateness,
+            futility=t.futility, fraction=t.fraction, valid_range=r.valid_range, filters=r.filters,
+            lateness=s.lateness,
             arrival_column=r.arrival_column, time_format=r.time_format, timezone=r.timezone,
             cluster_by=cl.cluster_by, cluster_column=cl.cluster_column, min_clusters=cl.min_clusters,
             notify=s.notify, description=s.description, schema=r.schema_,

@@ -129,6 +129,7 @@ class ComparisonConfig:
     shift_starts: tuple = ()
     null_difference: float = 0.0
     futility: bool = False
+    fraction: str = "events"
     valid_range: tuple | None = None
     filters: tuple = ()
     lateness: str = "0s"

@@ -9,7 +9,10 @@
 * ``memory``       — ``LookMemory``, what a process keeps between its looks (injected);
 * ``design_check`` — the design frozen at the first look, and what may not change;
 * ``record``       — ``LookRecord``, what a look recorded; ``QuietCheck``, a look that found nothing new;
-* ``restart``      — ``restart_comparison``: archive a version, the next look starts anew.
+* ``plan``         — the plan a look measures against: replans, events or information
+  fraction, conditional power and projected completion (pure);
+* ``restart``      — ``restart_comparison``: archive a version, the next look starts anew
+  after its watermark.
 """
 
 from .memory import LookMemory

@@ -38,6 +38,7 @@ from scipy import special
 
 from ..design import Design
 from ..errors import InvalidArgumentError
+from ..stats.adaptive import AdaptiveBoundary, AdaptiveLook
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
 from ..stats.inference import adjusted_inference, repeated_confidence_interval
@@ -46,6 +47,8 @@ from ..stats.sequential_t import SequentialTBoundary
 from ..stats.summaries import MomentSummary
 from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES
 from .cells import summary
+from .plan import (PlanState, conditional_powers, original_fraction, plan_state, projection, recent_rates,
+                   z_of)
 from .statistic import Stat, day_design_effect, finite_or_none, futility_spec, statistic, t_critical
 
 __all__ = ["LookInputs", "Evidence", "Decision", "weigh", "decide", "alert_kind", "t_based", "new_boundary",
@@ -63,6 +66,11 @@ class LookInputs:
     cutoff: datetime            # events up to here are in the cells
     excluded_total: int         # events excluded so far, all reasons
     last_fraction: float = 0.0  # information fraction at the last testing look (0 before any)
+    plan: PlanState | None = None   # the plan after the recorded replans (None: the design's own)
+
+    def __post_init__(self):
+        if self.plan is None:
+            object.__setattr__(self, "plan", plan_state(self.design.to_stored()))
 
 
 @dataclass(frozen=True)
@@ -73,13 +81,14 @@ class Evidence:
     s1: MomentSummary
     s2: MomentSummary
     stat: Stat
-    planned: int                # planned events (pairs) per group
-    fraction: float
+    planned: int                # planned events (pairs) per group of the current plan
+    fraction: float             # on the original plan's scale (nan when no information can be measured)
     state: str                  # the decision when nothing is tested
     tests: bool                 # a statistic and new information: the look tests the boundary
     futility: FutilitySpec | None
     design_effect: object | None  # day-level DesignEffect, None when it cannot be measured
     warnings: tuple
+    projection: dict | None = None  # when the current plan completes at the recent event rates
 
 
 @dataclass(frozen=True)
@@ -87,10 +96,11 @@ class Decision:
     """Where a look stands: its decision and, for a testing look, its boundary and interval."""
 
     decision: str
-    boundary: LookBoundary | None = None
+    boundary: LookBoundary | AdaptiveLook | None = None   # AdaptiveLook after a change of plan
     boundary_number: int | None = None
     interval: tuple = (None, None)
     after_stop: dict | None = None
+    outlook: dict | None = None   # conditional powers at a testing look that did not stop
 
     @property
     def stopped(self) -> bool:
@@ -104,8 +114,13 @@ def weigh(inputs: LookInputs) -> Evidence:
     s1 = summary(cells, "total", 0, "", shift)
     s2 = summary(cells, "total", 1, "", shift)
     st = statistic(design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
-    planned = design.planned_per_group
-    fraction = ((st.pairs or 0) if design.paired else min(s1.n, s2.n)) / planned
+    plan = inputs.plan
+    planned = plan.planned_now
+    events = (st.pairs or 0) if design.paired else min(s1.n, s2.n)
+    fraction = original_fraction(plan, events=events, standard_error=st.standard_error)
+    # Fractions of the current segment move by (step / segment length): ask for a step that
+    # is still at least MIN_INCREMENT there.
+    step = MIN_INCREMENT * max(1.0, plan.end)
 
     state, tests, warnings = "collecting", False, []
     if st.problem:
@@ -116,7 +131,7 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append(st.waiting)
     elif st.waiting:
         warnings.append(st.waiting)
-    elif st.testable and fraction - inputs.last_fraction >= MIN_INCREMENT:
+    elif st.testable and math.isfinite(fraction) and fraction - inputs.last_fraction >= step:
         tests = True
     elif st.testable:
         warnings.append("no new information since the last testing look; nothing spent at this look")
@@ -126,7 +141,21 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
-                    tuple(warnings))
+                    tuple(warnings), _projection(inputs, s1, s2, st, fraction))
+
+
+def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
+    """Days to the current plan's end at each group's events per day over the last week."""
+    if s1.n == 0 or s2.n == 0 or inputs.cutoff is None:
+        return None
+    days = {0: {}, 1: {}}
+    for (kind, gi, key), value in inputs.cells.items():
+        if kind == "day" and gi in days:
+            days[gi][key] = value[0]
+    cutoff = inputs.cutoff.astimezone(inputs.design.measure.zone)
+    share = fraction / inputs.plan.end if math.isfinite(fraction) else math.nan
+    return projection(inputs.plan, events=(s1.n, s2.n), pairs=st.pairs if inputs.design.paired else None,
+                      share=share, rates=recent_rates(days, cutoff), cutoff_local=cutoff)
 
 
 def t_based(design: Design) -> bool:
@@ -162,8 +191,10 @@ def decide(evidence: Evidence, boundary=None) -> Decision:
     """The look's decision.
 
     A testing look needs ``boundary`` standing at the recorded testing looks (with the
-    design's futility rule; a :class:`SequentialTBoundary` for t statistics, see
-    :func:`resumed_boundary`); this look is added to it, so afterwards it stands here.
+    design's futility rule; see :func:`resumed_boundary`): while the plan is the original
+    one, a :class:`SequentialBoundary` for z statistics and a :class:`SequentialTBoundary`
+    for t statistics; after a change of plan an :class:`AdaptiveBoundary` with the
+    recorded replans. This look is added to it, so afterwards it stands here.
     """
     if not evidence.tests:
         return Decision(evidence.state)
@@ -171,6 +202,8 @@ def decide(evidence: Evidence, boundary=None) -> Decision:
         raise InvalidArgumentError("a testing look needs the boundary resumed at the recorded testing looks")
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
     alternative = design.alternative
+    if isinstance(boundary, AdaptiveBoundary):
+        return _decide_replanned(evidence, boundary)
     t_stat = t_based(design)
     if t_stat != isinstance(boundary, SequentialTBoundary):
         raise InvalidArgumentError("t statistics need a SequentialTBoundary, z statistics a SequentialBoundary")
@@ -202,8 +235,60 @@ def decide(evidence: Evidence, boundary=None) -> Decision:
             critical = look.z if st.df is None else t_critical(look.nominal_p, st.df)
             low, high = repeated_confidence_interval(st.estimate, st.standard_error, critical, alternative)
         interval = (finite_or_none(low), finite_or_none(high))
-    after = after_stop(boundary, st, design) if decision in STOPPED_STATES else None
-    return Decision(decision, look, len(boundary.looks), interval, after)
+    after = outlook = None
+    if decision in STOPPED_STATES:
+        after = after_stop(boundary, st, design)
+    else:
+        outlook = conditional_powers(evidence.inputs.plan, _as_adaptive(boundary, design, evidence.futility),
+                                     z_of(st.statistic, st.df), fraction)
+    return Decision(decision, look, len(boundary.looks), interval, after, outlook)
+
+
+def _as_adaptive(boundary, design: Design, futility) -> AdaptiveBoundary:
+    """The original plan's boundary, standing at its looks, as an :class:`AdaptiveBoundary` (on
+    the z scale the looks are recorded on), for conditional power and the outlook."""
+    looks = [{"fraction": b.fraction, "z": b.z,
+              "futility_z": -math.inf if b.futility_z is None else b.futility_z} for b in boundary.looks]
+    return AdaptiveBoundary.resume(design.alpha, design.spending, design.alternative, looks, futility=futility)
+
+
+def _decide_replanned(evidence: Evidence, boundary: AdaptiveBoundary) -> Decision:
+    """The look's decision after a change of plan (boundaries by the conditional error principle).
+
+    z statistics are compared on their own scale; t statistics enter through their one-sided
+    p-values (the z with the same tail), as the replanned remainder is on the z scale.
+    """
+    st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
+    alternative = design.alternative
+    look = boundary.add_look(fraction)
+    if not t_based(design):
+        side = look.decision(st.statistic)
+    else:
+        side = look.decision_from_p(st.p_upper, st.p_lower)
+    original = look.segment == 0
+    if side != 0:
+        decision = "difference_found"
+    elif (original and evidence.futility is not None
+          and futility_decision(st.p_upper, st.p_lower, look, boundary.original.futility_direction)):
+        decision = "no_material_difference"
+    elif look.final:
+        decision = "plan_complete"
+    else:
+        decision = "collecting"
+    interval = (None, None)
+    # Repeated confidence interval: the boundary on the statistic's own scale (original looks).
+    magnitude = look.bound_lower if alternative == "less" else look.bound_upper
+    if original and math.isfinite(magnitude):
+        critical = magnitude if st.df is None else t_critical(float(special.ndtr(-magnitude)), st.df)
+        low, high = repeated_confidence_interval(st.estimate, st.standard_error, critical, alternative)
+        interval = (finite_or_none(low), finite_or_none(high))
+    after = outlook = None
+    if decision in STOPPED_STATES:
+        after = (after_stop(boundary.original, st, design) if original else
+                 {"note": "adjusted inference after a change of plan is not computed"})
+    else:
+        outlook = conditional_powers(evidence.inputs.plan, boundary, z_of(st.statistic, st.df), fraction)
+    return Decision(decision, look, len(boundary.looks), interval, after, outlook)
 
 
 def after_stop(boundary, st: Stat, design: Design) -> dict:

@@ -29,6 +29,7 @@ from ..config import ComparisonConfig
 from ..design import Design
 from ..errors import AsOfBeforeLastLookError, DesignChangedError, InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, SourceSpec, Watermark
+from ..stats.adaptive import AdaptiveBoundary
 from ..store.claims import claim
 from ..store.workers import record_check
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, archive_active, boundary_looks,
@@ -39,6 +40,7 @@ from .cells import counts, merge, roll_up
 from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
 from .design_check import frozen_design
 from .memory import LookMemory
+from .plan import plan_state, resume_boundary
 from .record import LookRecord, QuietCheck
 from .row import LookMoment, look_detail, look_row
 from .volume import assess_volume
@@ -158,7 +160,10 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         state = read_state(engine, c.name)
         row = state.comparison
         design = frozen_design(c.name, row, configured)
-    batch, cutoff, design = _read_source(config, c, design, row, as_of, source)
+        restart = None   # not a restart: the new version reads the table from its start
+    else:
+        restart = state.restart
+    batch, cutoff, design = _read_source(config, c, design, row, as_of, source, restart)
     stopwatch.lap("source")
 
     rolled = roll_up(design, batch)
@@ -168,10 +173,13 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
                                 or any(look_counts.excluded_new.values())):
         return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
+    stored = design.to_stored()
+    plan = plan_state(stored, state.replans)
     evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
-                                last.fraction if last is not None else 0.0))
+                                last.fraction if last is not None else 0.0, plan))
     key = design.fingerprint() if evidence.tests or row is None else None
-    boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
+    boundary = (_resumed_boundary(engine, memory, state, design, stored, key, evidence.futility, plan)
+                if evidence.tests else None)
     decision = decide(evidence, boundary)
 
     moment = LookMoment(state.looks_taken + 1, as_of, cutoff, batch.watermark.arrival)
@@ -193,6 +201,12 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         volume_alert = AlertDraft("volume", volume_payload(c.name, state.version, moment.look_number,
                                                            volume_warnings(volume), volume, as_of),
                                   tuple(c.notify))
+    if row is None and restart is not None:
+        detail["restart"] = _restart_detail(restart)
+        if restart["from_start"]:
+            values["warnings"] = values["warnings"] + [
+                f"restarted from the start: the data version {restart['after_version']} tested are "
+                f"tested again (its false alarms add to this version's)"]
     detail["timings_ms"] = {k: round(v, 3) for k, v in stopwatch.laps.items()}
     # Random, not from the clock: tells the next look whether the store's newest look is this one.
     detail["state_token"] = token = uuid.uuid4().hex
@@ -207,11 +221,12 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         volume_alert=volume_alert))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.
-        memory.keep_boundary(engine, written.comparison_id, key, boundary)
+        memory.keep_boundary(engine, written.comparison_id, _boundary_key(key, state), boundary)
     if engine.dialect.name in _EXACT_FLOAT_STORES:
         if decision.boundary is not None:
             last = BoundaryLookRow(decision.boundary_number, values["fraction"], values["boundary_z"],
-                                   values["futility_z"], values["df"])
+                                   values["futility_z"], values["df"],
+                                   (values.get("detail") or {}).get("bounds"))
         memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
@@ -247,8 +262,12 @@ def _groups_without_rows(state, design=None, cells=None) -> list[str]:
     return [g for i, g in enumerate(groups) if cells.get(("total", i, ""), (0, 0.0, 0.0))[0] == 0]
 
 
-def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source):
-    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data."""
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, restart=None):
+    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data.
+
+    The first look of a restarted comparison's new version starts after the archived
+    version's watermark, unless the restart was made ``--from-start``.
+    """
     own_source = source is None
     if own_source:
         try:
@@ -269,7 +288,12 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
                 spec, value_column=spec.denominator_column, metric="mean", denominator_column=None,
                 valid_range=None)))
         spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
-        watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
+        if row is not None:
+            watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
+        elif restart is not None and not restart["from_start"] and restart["watermark"]:
+            watermark = Watermark.from_dict(restart["watermark"])
+        else:
+            watermark = None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
@@ -285,8 +309,15 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
     return batch, cutoff, design
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility):
-    """The sequential boundary standing at the recorded testing looks.
+def _boundary_key(key, state) -> str:
+    """Kept boundaries are keyed by design and replans: a replan makes a kept one stale."""
+    replans = state.comparison["replans"] if state.comparison is not None else 0
+    return f"{key}:{replans}"
+
+
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, stored: dict, key, futility, plan):
+    """The boundary standing at the recorded testing looks: the design's sequential boundary
+    while the plan is the original one, an ``AdaptiveBoundary`` with the replans applied after a change.
 
     The one kept in memory is used when it stands at the last recorded testing look;
     otherwise it is resumed from the testing looks this look's read saw (another process
@@ -295,12 +326,27 @@ def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, fu
     last = state.last_boundary_look
     count = last.boundary_look if last is not None else 0
     row = state.comparison
-    kept = memory.take_boundary(engine, row["id"], key) if row is not None else None
-    if kept is not None and len(kept.looks) == count and (
-            count == 0 or (kept.looks[-1].fraction == last.fraction and kept.looks[-1].z == last.boundary_z)):
+    kept = memory.take_boundary(engine, row["id"], _boundary_key(key, state)) if row is not None else None
+    if kept is not None and len(kept.looks) == count and (count == 0 or (
+            kept.looks[-1].fraction == last.fraction
+            and (isinstance(kept, AdaptiveBoundary) or kept.looks[-1].z == last.boundary_z))):
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
+    if plan.replans:
+        return resume_boundary(stored, plan, futility, [r._asdict() for r in recorded])
     return resumed_boundary(design, recorded, futility)
+
+
+def _restart_detail(restart: dict) -> dict:
+    """How this version began: after the archived version's watermark, or from the start again."""
+    out = {"after_version": restart["after_version"], "from_start": restart["from_start"]}
+    mark = restart.get("watermark") or {}
+    if not restart["from_start"] and mark.get("cutoff"):
+        out["starts_after"] = mark["cutoff"]
+    for key in ("made_by", "reason"):
+        if restart.get(key):
+            out[key] = restart[key]
+    return out
 
 
 def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatch) -> LookRecord:

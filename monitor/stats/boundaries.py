@@ -580,6 +580,26 @@ class SequentialBoundary:
             boundary._take(t, z, f)
         return boundary
 
+    def add_recorded_look(self, fraction, z, futility_z=None) -> LookBoundary:
+        """Append one recorded look, using its boundary as it is (see :meth:`resume`).
+
+        Examples
+        --------
+        >>> b = SequentialBoundary(0.025, "pocock", "greater")
+        >>> look = b.add_recorded_look(0.5, 2.2)
+        >>> round(b.alpha_used, 6)   # 1 - Φ(2.2): what the recorded boundary spent
+        0.013903
+        """
+        z = _recorded("upper_z", z, allow_negative=not self._two_sided)
+        f = None
+        if self.futility is not None:
+            if futility_z is None:
+                raise InvalidArgumentError("futility_z: required when the design has futility")
+            f = _recorded("futility_z", futility_z, allow_negative=True, allow_minus_inf=True)
+        elif futility_z is not None:
+            raise InvalidArgumentError("futility_z: given without a futility design")
+        return self._take(fraction, z, f)
+
     def _take(self, fraction, z_recorded, f_recorded) -> LookBoundary:
         if self.complete:
             raise InvalidArgumentError(

@@ -22,9 +22,10 @@ from apscheduler.triggers.interval import IntervalTrigger
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, json_safe,
-                          parse_duration, state_label)
+                          parse_duration, state_label, outlook_words)
 from .engine import open_store
 from .models import Alert, Cell, Comparison, Delivery, Look, LookCheck, Worker
+from .plan_changes import plan_changes
 
 __all__ = [
     "monitor_liveness",
@@ -39,6 +40,8 @@ __all__ = [
     "comparison_status",
     "list_comparisons",
     "look_history",
+    "plan_change_history",
+    "plan_share",
     "get_comparison",
     "list_versions",
     "latest_look_time",
@@ -196,7 +199,7 @@ def _comparison_select():
     return sa.select(
         Comparison.id, Comparison.name, Comparison.version, Comparison.design,
         Comparison.settings, Comparison.state, Comparison.looks_taken, Comparison.created_at,
-        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived,
+        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived, Comparison.replans,
     )
 
 
@@ -335,8 +338,33 @@ def _warnings(last, design) -> list[str]:
     return warnings
 
 
+def plan_share(look):
+    """A look's share of the plan it was measured against: its fraction, or after a replan the
+    fraction over the new plan's end (``detail["plan"]["share"]``)."""
+    plan = (look["detail"] or {}).get("plan") or {}
+    return plan["share"] if plan.get("share") is not None else look["fraction"]
+
+
+def _outlook(looks):
+    """The newest look's projected completion with the newest conditional powers (a look that
+    tested nothing recorded no conditional power: the last testing look's stand)."""
+    if not looks:
+        return None
+    out = dict((looks[-1]["detail"] or {}).get("outlook") or {})
+    for look in reversed(looks):
+        earlier = (look["detail"] or {}).get("outlook") or {}
+        for key in ("current_estimate", "planned_difference"):
+            if key not in out and earlier.get(key) is not None:
+                out[key] = earlier[key]
+        if "current_estimate" in out:
+            break
+    return json_safe(out) or None
+
+
 def _status_row(comp, looks, now):
     design = _design(comp["design"])
+    # The share of the (current) plan is what people read as "fraction".
+    looks = [dict(look, fraction=plan_share(look)) for look in looks]
     settings = comp["settings"] or {}
     every = settings.get("every", settings.get("schedule"))
     last = looks[-1] if looks else None
@@ -366,6 +394,9 @@ def _status_row(comp, looks, now):
         "every": every,
         **_latest(last),
         **_last_interval(last, looks),
+        # After a replan, the current plan's events (the look records them).
+        **({"planned_per_group": last["detail"]["planned_per_group"]}
+           if last is not None and (last["detail"] or {}).get("planned_per_group") else {}),
         "warnings": _warnings(last, design),
         # The volume check of the newest look: ok, warning or not_yet_measurable, with its figures.
         "volume_state": (volume or {}).get("state"),
@@ -378,6 +409,9 @@ def _status_row(comp, looks, now):
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
         "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
+        "outlook": None if stopped else _outlook(looks),
+        "outlook_words": None if stopped else outlook_words(_outlook(looks)),
+        "replans": comp.get("replans") or 0,
     }
 
 
@@ -559,7 +593,28 @@ def get_comparison(engine, name, version=None, *, now=None):
     row["design"] = json_safe(comp["design"] or {})
     row["settings"] = json_safe(comp["settings"] or {})
     row["watermark"] = json_safe(watermark)
+    row["plan_changes"] = plan_change_history(engine, name, comp["version"])
     return row
+
+
+def plan_change_history(engine, name, version=None):
+    """The replans and restarts of one comparison version, oldest first, as plain dicts."""
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        rows = plan_changes(conn, comp["id"])
+    out = []
+    for r in rows:
+        record = r["record"] or {}
+        item = {"number": r["number"], "kind": r["kind"], "made_at": _iso(r["made_at"]), "made_by": r["made_by"],
+                "reason": r["reason"], "after_look": r["after_look"],
+                "old_plan": json_safe(r["old_plan"]), "new_plan": json_safe(r["new_plan"])}
+        if r["kind"] == "replan":
+            item["conditional_error"] = _num((record.get("error_upper") or 0.0) + (record.get("error_lower") or 0.0))
+            item["method"] = record.get("method")
+        else:
+            item["from_start"] = bool(record.get("from_start"))
+        out.append(item)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -612,6 +667,8 @@ def look_history(engine, name, version=None):
             "p_value": _num(r["p_value"]),
             "information": _num(r["information"]),
             "fraction": _num(r["fraction"]),
+            "plan_share": _num(plan_share(r)),
+            "plan_end": _num(((detail.get("plan") or {}).get("end")) or 1.0),
             "boundary_z": _num(r["boundary_z"]),
             "futility_z": _num(r["futility_z"]),
             "nominal_p": _num(r["nominal_p"]),

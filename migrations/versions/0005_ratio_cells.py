@@ -1,7 +1,7 @@
 """Cell.sum_den, sum_den2, sum_cross: a ratio comparison's denominator sums and cross-product.
 
-Revision ID: 0004
-Revises: 0003
+Revision ID: 0005
+Revises: 0004
 Create Date: 2026-12-03
 """
 
@@ -9,8 +9,8 @@ from alembic import op
 import sqlalchemy as sa
 
 
-revision = '0004'
-down_revision = '0003'
+revision = '0005'
+down_revision = '0004'
 branch_labels = None
 depends_on = None
 
