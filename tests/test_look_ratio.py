@@ -182,13 +182,32 @@ def test_ratio_looks_match_an_explicit_computation_postgres(pg_database_url, tmp
 @pytest.mark.slow
 @pytest.mark.parametrize("day_sd, days", [(0.0, 20), (0.10, 30)], ids=["independent-batches", "day-shocks-clustered"])
 def test_ratio_false_alarm_rate_under_daily_looks_through_the_decision_step(day_sd, days):
-    """No true difference, one look a day through weigh/decide: false alarms within α + 3 MC SE.
+    """No true difference, one look a day through weigh/decide on the exact sequential t
+    boundary: false alarms within α + 3 MC SE.
 
     2,000 streams: Monte Carlo SE sqrt(0.05 · 0.95 / 2000) = 0.0049, so the bound is 0.0646.
+    Streams share the boundaries of equal model df histories (tests/ratio_simulation.py);
+    every look still goes through ``decide`` and the boundary engine's own ``add_look``.
     """
-    from ratio_simulation import ratio_false_alarms
+    from ratio_simulation import SharedBoundaryStats, ratio_false_alarms
 
-    rate, se, looks = ratio_false_alarms(2000, 20261203, day_sd=day_sd, days=days)
+    stats = SharedBoundaryStats()
+    rate, se, looks = ratio_false_alarms(2000, 20261203, day_sd=day_sd, days=days, stats=stats)
     assert looks >= 20
     assert se == pytest.approx(0.00487, abs=1e-4)
     assert rate <= 0.05 + 3 * se
+    # Every stream that never stopped took every testing look, each through a boundary the engine solved.
+    assert 0 < stats.solved < stats.looks
+    assert stats.looks >= round(2000 * (1 - rate)) * looks
+
+
+@pytest.mark.slow
+def test_shared_ratio_boundaries_match_each_streams_own_boundary():
+    """Sharing boundaries between streams whose model df agree in 1/df to 0.001 moves the
+    calibrated nominal level by less than 0.1 % of itself (each stream also solves its own)."""
+    from ratio_simulation import SharedBoundaryStats, ratio_false_alarms
+
+    stats = SharedBoundaryStats(check_own=True)
+    ratio_false_alarms(16, 5, day_sd=0.0, days=20, stats=stats)
+    assert stats.solved < stats.looks
+    assert 0 < stats.largest_gap < 1e-3
