@@ -24,7 +24,7 @@ Part 2b — the same months, checked by the look's own volume step (monitor.look
 07:00 to 22:00: days with a false warning per comparison-month, and the delay (minutes after
 10:00) to the first warning after one group loses half its events.
 
-Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 4000 --months 500 --look-months 100 --seed 1
+Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 10000 --months 500 --look-months 100 --seed 1
       (--parts 1,1b,2,2b picks the parts)
 """
 
