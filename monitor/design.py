@@ -30,7 +30,7 @@ from .config.model import DEFAULT_MIN_PAIRS
 from .errors import InvalidArgumentError
 from .vocabulary import json_safe
 
-__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "design_hash"]
+__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "RatioColumns", "design_hash"]
 
 
 def design_hash(stored: dict) -> str:
@@ -142,6 +142,14 @@ class Clustering:
 
 
 @dataclass(frozen=True)
+class RatioColumns:
+    """Metric ``ratio``: the numerator (also ``Measure.value_column``) and denominator columns."""
+
+    numerator_column: str
+    denominator_column: str
+
+
+@dataclass(frozen=True)
 class Measure:
     """What is measured: the table and columns, which rows count, and the local time zone."""
 
@@ -195,6 +203,8 @@ class Design:
     clustering: Clustering | None = None
     futility: bool = False
     shift: float | None = None
+    ratio: RatioColumns | None = None
+    shift_den: float | None = None   # metric "ratio": the denominator's shift, fixed like ``shift``
     # "events" or "information" (monitor.look.plan): stored only when not the default, so
     # designs frozen before the choice existed compare equal.
     fraction: str = "events"
@@ -231,6 +241,10 @@ class Design:
         """The same design with the shift fixed (None leaves it unset)."""
         return replace(self, shift=None if shift is None else float(shift))
 
+    def with_shift_den(self, shift_den) -> Design:
+        """The same design with the ratio's denominator shift fixed (None leaves it unset)."""
+        return replace(self, shift_den=None if shift_den is None else float(shift_den))
+
     # ------------------------------------------------------------ from the configuration
 
     @classmethod
@@ -257,6 +271,7 @@ class Design:
             pairing=Pairing(c.pair_by, c.pair_column, tuple(c.shift_starts), c.min_pairs) if paired else None,
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
+            ratio=RatioColumns(c.numerator_column, c.denominator_column) if c.metric == "ratio" else None,
             fraction=getattr(c, "fraction", "events"),
         )
 
@@ -289,6 +304,10 @@ class Design:
             "timezone": m.timezone,
             "min_clusters": self.min_clusters,
             "shift": self.shift,
+            # Only ratio designs carry these, so every other stored design keeps its shape.
+            **({"numerator_column": self.ratio.numerator_column,
+                "denominator_column": self.ratio.denominator_column,
+                "shift_den": self.shift_den} if self.ratio is not None else {}),
             **({"fraction": self.fraction} if self.fraction != "events" else {}),
         }
 
@@ -317,6 +336,9 @@ class Design:
             clustering=Clustering.from_stored(clustering, stored.get("min_clusters")) if clustering else None,
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
+            ratio=(RatioColumns(stored["numerator_column"], stored["denominator_column"])
+                   if stored.get("denominator_column") else None),
+            shift_den=None if stored.get("shift_den") is None else float(stored["shift_den"]),
             fraction=stored.get("fraction") or "events",
         )
 
@@ -326,6 +348,7 @@ class Design:
         """The stored form without what may change: the shift and the plan's derived figures."""
         out = self.to_stored()
         del out["shift"]
+        out.pop("shift_den", None)
         out["plan"] = {k: v for k, v in out["plan"].items() if k != "figures"}
         return out
 

@@ -12,7 +12,8 @@ from ..vocabulary import json_safe
 from . import SUMMARIES
 
 # The two numbers each metric is planned from, as option destinations.
-_METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}
+_METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2"),
+                   "ratio": ("difference", "residual_sd", "mean_denominator")}
 
 
 def _finite_number(text):
@@ -36,13 +37,19 @@ def _whole_number(text):
 
 def add_plan_arguments(parser) -> None:
     """The design options shared by ``plan`` and ``simulate``."""
-    parser.add_argument("--metric", required=True, choices=("mean", "proportion"),
-                        help="compare two means (give --difference and --sd) "
-                             "or two rates (give --p1 and --p2)")
+    parser.add_argument("--metric", required=True, choices=("mean", "proportion", "ratio"),
+                        help="compare two means (give --difference and --sd), two rates (give --p1 "
+                             "and --p2) or two ratios of sums (give --difference, --residual-sd and "
+                             "--mean-denominator)")
     parser.add_argument("--difference", type=_finite_number, metavar="D",
                         help="mean only: difference worth detecting, group 1 − group 2")
     parser.add_argument("--sd", type=_finite_number, metavar="S",
                         help="mean only: standard deviation of one event's value")
+    parser.add_argument("--residual-sd", type=_finite_number, metavar="S",
+                        help="ratio only: spread of one row's numerator about its group's ratio "
+                             "times its denominator (y − R·x), e.g. defects per batch")
+    parser.add_argument("--mean-denominator", type=_finite_number, metavar="M",
+                        help="ratio only: the mean denominator per row (units per batch, hours per shift)")
     parser.add_argument("--p1", type=_finite_number, metavar="P",
                         help="proportion only: planned rate in group 1")
     parser.add_argument("--p2", type=_finite_number, metavar="P",
@@ -74,17 +81,34 @@ def plan_from_args(args):
                                    "got two-sided")
     common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative,
                   spending=args.spending, looks=args.looks, futility=args.futility)
+    chosen = _METRIC_OPTIONS[args.metric]
     for metric, names in _METRIC_OPTIONS.items():
         for name in names:
             value = getattr(args, name)
-            if metric != args.metric and value is not None:
-                raise InvalidArgumentError(f"--{name} is for --metric {metric}; got {value!r}")
-    chosen = _METRIC_OPTIONS[args.metric]
+            if name not in chosen and value is not None:
+                raise InvalidArgumentError(f"--{name.replace('_', '-')} is for --metric {metric}; got {value!r}")
     for name in chosen:
         if getattr(args, name) is None:
-            raise InvalidArgumentError(f"--{name} is required with --metric {args.metric}")
+            raise InvalidArgumentError(f"--{name.replace('_', '-')} is required with --metric {args.metric}")
+    if args.metric == "ratio":
+        # lazy: start-up time of the command line (as the planning import above).
+        from ..stats.ratio import ratio_planning_sd
+
+        # A ratio over n rows varies as a mean of n values with sd residual_sd / mean_denominator.
+        return planning.plan_mean(args.difference, ratio_planning_sd(args.residual_sd, args.mean_denominator),
+                                  **common)
     build = planning.plan_mean if args.metric == "mean" else planning.plan_proportion
     return build(*(getattr(args, name) for name in chosen), **common)
+
+
+def ratio_note(args) -> str:
+    """For --metric ratio: how the ratio's planning sd came about (empty otherwise)."""
+    if getattr(args, "metric", None) != "ratio":
+        return ""
+    sd = args.residual_sd / args.mean_denominator
+    return (f"Ratio of sums planned as a mean per row: residual sd {args.residual_sd:g} over a mean "
+            f"denominator of {args.mean_denominator:g} gives sd {sd:g} per row (events below are rows; "
+            f"give the comparison difference = {args.difference:g} and sd = {sd:g}).")
 
 
 def describe_design(plan) -> str:
@@ -158,7 +182,8 @@ def register(subparsers) -> None:
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog="examples:\n"
                "  %(prog)s --metric mean --difference 2.5 --sd 12 --looks 8\n"
-               "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json",
+               "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json\n"
+               "  %(prog)s --metric ratio --difference 0.001 --residual-sd 4 --mean-denominator 800",
     )
     add_plan_arguments(p)
     add_cluster_arguments(p)
@@ -171,11 +196,14 @@ def run(args) -> int:
     clusters = clusters_from_args(args, plan)
     if args.json:
         out = plan.to_dict()
+        if args.metric == "ratio":
+            out.update(metric="ratio", residual_sd=args.residual_sd, mean_denominator=args.mean_denominator)
         if clusters is not None:
             out["clustering"] = clusters.to_dict()
         print(json.dumps(json_safe(out), indent=2))
     else:
-        print(human_text(plan))
+        note = ratio_note(args)
+        print((note + "\n" if note else "") + human_text(plan))
         if clusters is not None:
             print()
             print(cluster_text(plan, clusters))

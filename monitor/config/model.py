@@ -36,7 +36,7 @@ __all__ = [
 ]
 
 METHODS = ("welch", "pooled", "z", "paired", "proportions")
-METRICS = ("mean", "proportion")
+METRICS = ("mean", "proportion", "ratio")
 ALTERNATIVES = ("two-sided", "greater", "less")
 TIME_FORMATS = ("auto", "timestamp", "iso", "epoch")
 PAIR_BUCKETS = ("hour", "day", "week", "shift")
@@ -142,6 +142,10 @@ class ComparisonConfig:
     notify: tuple = ()
     description: str = ""
     schema: str | None = None
+    # metric "ratio": value_column holds the numerator column; the denominator is read beside it.
+    numerator_column: str | None = None
+    denominator_column: str | None = None
+    expected_share: float | None = None     # the volume check's share of group 1 (None: learned)
 
     @property
     def schedule(self):
@@ -181,6 +185,7 @@ class ComparisonConfig:
             "notify": list(self.notify),
             "description": self.description,
             "arrival_column": self.arrival_column,
+            "expected_share": self.expected_share,
         }
 
 

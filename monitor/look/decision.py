@@ -159,8 +159,11 @@ def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
 
 
 def t_based(design: Design) -> bool:
-    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one)."""
-    return design.method not in _Z_METHODS or design.clustered
+    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one, a ratio).
+
+    A ratio of sums is always tested with Welch's degrees of freedom (cluster-based when clustered).
+    """
+    return design.ratio is not None or design.method not in _Z_METHODS or design.clustered
 
 
 def new_boundary(design: Design, futility=None):

@@ -156,6 +156,24 @@ class SQLiteDialect(SourceDialect):
         value = sa.case((stored == "text", from_text), else_=raw)
         return value, reason
 
+    def denominator_parts(self, raw, value_type):
+        # Numbers are read as in value_parts: a stored number, or text that is a JSON number.
+        stored = sa.func.typeof(raw)
+        trimmed = sa.func.trim(raw)
+        is_json_number = sa.and_(
+            sa.func.json_valid(trimmed) == 1,
+            sa.func.json_type(trimmed).in_(literals(("integer", "real"))),
+        )
+        value = sa.case((stored == "text", sa.cast(trimmed, sa.Float)), else_=raw)
+        bad = sa.case(
+            (stored.in_(literals(("null", "blob"))), "bad_denominator"),
+            (sa.and_(stored == "text", sa.not_(is_json_number)), "bad_denominator"),
+            # +infinity is above the limit; SQLite stores a NaN as NULL.
+            (sa.or_(value <= 0, value > VALUE_LIMIT), "bad_denominator"),
+            else_=None,
+        )
+        return value, bad
+
     def summand(self, raw, value, value_type):
         # SQLite turns an overflow into ±inf instead of failing the statement, and rows beyond
         # VALUE_LIMIT are summed only into their own (excluded) groups.
