@@ -13,8 +13,8 @@ from monitor.store.readback import clustering_figures, describe_wait
 from monitor.vocabulary import STATES
 
 from .formats import (
-    ago, clock, comparison_link, confidence_percent, fmt, fraction_text, groups_text,
-    interval_text, next_look_text, plan_eta_text,
+    ago, amount, clock, headline_text, comparison_link, confidence_percent, evidence_text, figure, fraction_text, groups_text,
+    next_look_text, plan_eta_text, relative_text,
 )
 from .style import badge
 
@@ -64,6 +64,17 @@ def _board_row(r, ref):
         due = (datetime.fromisoformat(r["next_look_at"]) - ref).total_seconds()
         upcoming = f'{clock(r["next_look_at"], ref)}<div class="gw-sub">{describe_wait(due)}</div>'
     level = "" if r["estimate"] is None else f'<div class="gw-sub">{confidence_percent(r)} repeated interval</div>'
+    adjusted = r.get("adjusted") or {}
+    if r["stopped"] and adjusted.get("estimate") is not None:
+        # After a stop the headline is the adjusted estimate; the naive one is kept beside it.
+        level = (f'<div class="gw-sub">adjusted for the looks; at the stop {html.escape(amount(r["estimate"], r))}'
+                 "</div>")
+    change = relative_text(r, adjusted.get("estimate") if r["stopped"] and adjusted.get("estimate") is not None
+                           else None)
+    relative = f'<div class="gw-sub">{html.escape(change)}</div>' if change else ""
+    evidence = evidence_text(r)
+    # The count the evidence rests on (pairs, clusters) first, events beside it.
+    counted = f'<div class="gw-main-count">{html.escape(evidence)}</div>' if evidence else ""
     rate = ""
     if r.get("events_per_hour") and not r["stopped"]:
         rate = (f'<div class="gw-sub">{r["events_per_hour"][0]:,.0f} / {r["events_per_hour"][1]:,.0f} '
@@ -71,9 +82,9 @@ def _board_row(r, ref):
     return _row(BOARD_COLUMNS, [
         ("", badge(r["state"])),
         ("gw-name", f'<a href="{html.escape(comparison_link(r))}" target="_self">{name}</a>{version}'
-                    f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(str(r["method"] or ""))}</div>'),
-        ("num", f"{html.escape(interval_text(r))}{level}"),
-        ("num", f'{r["n1"]:,} / {r["n2"]:,}{cluster_line}'),
+                    f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(r.get("method_words") or "")}</div>'),
+        ("num", f"{html.escape(headline_text(r))}{level}{relative}"),
+        ("num", f'{counted}{r["n1"]:,} / {r["n2"]:,}{cluster_line}'),
         ("num", f"{fraction_text(r)}{bar}"),
         ("num", last),
         ("num", upcoming),
@@ -106,7 +117,7 @@ def review_table(rows):
                         f'<div class="gw-sub">{html.escape(groups_text(r))}</div>'),
             ("num", f'v{r["version"]}<div class="gw-sub">{kept}</div>'),
             ("num", str(r["looks"])),
-            ("num", html.escape(interval_text(r))),
+            ("num", html.escape(headline_text(r))),
             ("num", f'{r["n1"]:,} / {r["n2"]:,}'),
             ("num", fraction_text(r)),
             ("num", html.escape(_stamp(r["stopped_at"]))),
@@ -131,19 +142,19 @@ def plan_lines(row):
     lines = [
         ("method", method or None),
         ("alternative", design.get("alternative")),
-        ("alpha", fmt(design["alpha"]) if design.get("alpha") is not None else None),
+        ("alpha", figure(design["alpha"]) if design.get("alpha") is not None else None),
         ("spending", design.get("spending")),
         ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
-        ("null difference", fmt(design.get("null_difference") or 0.0)),
+        ("null difference", figure(design.get("null_difference") or 0.0)),
     ]
     if inputs.get("difference") is not None:
-        lines.append(("difference worth detecting", fmt(inputs["difference"])))
+        lines.append(("difference worth detecting", figure(inputs["difference"])))
         if inputs.get("sd") is not None:
-            lines.append(("assumed standard deviation", fmt(inputs["sd"])))
+            lines.append(("assumed standard deviation", figure(inputs["sd"])))
     if inputs.get("p1") is not None and inputs.get("p2") is not None:
-        lines.append(("rates worth telling apart", f"{fmt(inputs['p1'])} vs {fmt(inputs['p2'])}"))
+        lines.append(("rates worth telling apart", f"{figure(inputs['p1'])} vs {figure(inputs['p2'])}"))
     if inputs.get("power") is not None:
-        lines.append(("power", fmt(inputs["power"])))
+        lines.append(("power", figure(inputs["power"])))
     lines.append(("futility boundary", "yes (non-binding)" if design.get("futility") else "no"))
     clustering = design.get("clustering") or {}
     if any(clustering.values()):

@@ -142,6 +142,9 @@ class ComparisonConfig:
     notify: tuple = ()
     description: str = ""
     schema: str | None = None
+    # Display only (monitor.design.Display): a name per group, in group order, and the values' unit.
+    labels: tuple | None = None
+    unit: str = ""
 
     @property
     def schedule(self):
@@ -194,6 +197,8 @@ class Config:
     comparisons: tuple
     channels: dict
     service: ServiceConfig
+    # The dashboard's address ([alerts] dashboard_url): alerts link to the comparison's page.
+    dashboard_url: str | None = None
 
     def comparison(self, name: str) -> ComparisonConfig:
         """The comparison of that name; UnknownComparisonError lists the known ones."""
