@@ -385,3 +385,63 @@ def test_comparison_page_shows_the_outlook_and_the_changes_of_plan(tmp_path, mon
     text = "\n".join(m.value for m in app.markdown)
     assert "Changes of plan" in text
     assert "Replan 1 after look 1" in text and "by dana" in text and "→ 300 events per group — event rate halved" in text
+
+
+def test_the_comparison_page_offers_the_printable_review(store, monkeypatch):
+    # What the page hands the browser, caught where Streamlit stores a download's bytes.
+    from streamlit.runtime.memory_media_file_storage import MemoryMediaFileStorage
+
+    files = {}
+    keep = MemoryMediaFileStorage.load_and_get_id
+
+    def load_and_get_id(self, path_or_data, mimetype, kind, filename=None):
+        file_id = keep(self, path_or_data, mimetype, kind, filename)
+        files[file_id] = (path_or_data, mimetype, filename)
+        return file_id
+
+    monkeypatch.setattr(MemoryMediaFileStorage, "load_and_get_id", load_and_get_id)
+    monkeypatch.setenv("GAPWATCH_CHROMIUM", "/nonexistent/chromium")  # no browser: no PDF offered
+    monkeypatch.setenv("PATH", "")
+    at = _app("views/comparison.py", name="pick-seconds")
+    [button] = [b for b in at.get("download_button") if b.key.startswith("review-")]
+    assert button.label == "Download the review (HTML)"
+    content, mimetype, filename = files[button.proto.url.rsplit("/", 1)[-1].split(".")[0]]
+    page = content.decode("utf-8") if isinstance(content, bytes) else content
+    assert mimetype == "text/html" and filename == "pick-seconds-v1-review.html"
+    assert page.startswith("<!DOCTYPE html>") and "Review of pick-seconds" in page
+    assert "East depot (east) vs West depot (west)" in page  # the names as configured beside the codes
+    assert "<dt>unit</dt><dd>s</dd>" in page
+    assert "<script" not in page  # one self-contained document, nothing to run
+    assert not re.search(r"\b(None|nan|NaN|inf|Infinity)\b", re.sub(r"<[^>]+>", " ", page))
+    assert any("The review to file" in m.value for m in at.markdown)
+
+
+def test_a_paired_comparison_counts_its_pairs_and_speaks_the_design(store):
+    engine, _ = store
+    at = _app("views/comparison.py", name=dashboard_seed.PAIRED)
+    row = readback.get_comparison(engine, dashboard_seed.PAIRED)
+    metrics = _metrics(at)
+    assert row["evidence"] == {"noun": "pairs", "count": row["pairs"]} and row["pairs"]
+    assert metrics["Pairs"] == f"{row['pairs']:,}"  # the count the evidence rests on, beside events
+    assert metrics["Events per group"] == f"{row['n1']:,} / {row['n2']:,}"
+    assert any("paired t, two-sided, alpha 0.05, O'Brien–Fleming-type spending" in c.value for c in at.caption)
+    table = at.dataframe[-1].value
+    assert "pairs" in table.columns and table["pairs"].iloc[-1] == f"{row['pairs']:,}"
+    board = _html(_app())
+    assert f"{row['pairs']:,} pairs" in board and "paired t" in board
+    _assert_readable(at)
+
+
+def test_a_stopped_comparison_leads_with_the_adjusted_estimate(store):
+    engine, _ = store
+    at = _app("views/comparison.py", name="first-contact-rate")
+    row = readback.get_comparison(engine, "first-contact-rate")
+    adjusted = row["adjusted"]
+    width = interval_width(adjusted["ci_low"], adjusted["ci_high"])
+    headline = at.metric[0]  # the first figure on the page
+    assert headline.label == "Adjusted estimate (desk-a − desk-b)"
+    assert headline.value == quantity(adjusted["estimate"], metric="proportion", width=width)  # in pp
+    assert "the estimate at the stop was " + quantity(adjusted["naive_estimate"], metric="proportion") in headline.help
+    assert _metrics(at)["Estimate at the stop"] == quantity(adjusted["naive_estimate"], metric="proportion",
+                                                            width=width)
+    _assert_readable(at)
