@@ -69,7 +69,9 @@ def _headline(row, looks):
         eta = plan_eta_text(row)
         timing += f" · next look {next_look_text(row, ref)} · " + (
             "plan completion not yet known" if eta == "unknown yet" else f"plan complete in {eta}")
-    st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
+    relative = relative_text(row)
+    st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval}"
+               + (f" · {relative}" if relative and not row["stopped"] else "") + f" · {timing}")
     if row.get("outlook_words"):
         words = row["outlook_words"]
         st.info(words[0].upper() + words[1:] + ".")

@@ -10,10 +10,10 @@ import html
 from datetime import datetime
 
 from monitor.store.readback import clustering_figures, describe_wait
-from monitor.vocabulary import STATES
+from monitor.vocabulary import STATES, interval_width, method_words, spending_words
 
 from .formats import (
-    ago, amount, clock, headline_text, comparison_link, confidence_percent, evidence_text, figure, fraction_text, groups_text,
+    ago, amount, clock, group_names, headline_text, comparison_link, confidence_percent, evidence_text, figure, fraction_text, groups_text,
     next_look_text, plan_eta_text, relative_text,
 )
 from .style import badge
@@ -54,8 +54,10 @@ def _board_row(r, ref):
     version = f' <span class="gw-sub">v{r["version"]}</span>' if r["version"] != 1 else ""
     fraction = r["fraction"] or 0.0
     bar = f'<div class="gw-bar"><div style="width:{min(fraction, 1.0) * 100:.0f}%"></div></div>'
+    # Clusters already lead the column when they are the count the evidence rests on.
+    shown = dict(r, clusters=None) if (r.get("evidence") or {}).get("noun") == "clusters" else r
     cluster_line = "".join(f'<div class="gw-sub">{html.escape(c)}</div>'
-                           for c in clustering_figures(r, _BOARD_CLUSTER_TEXT))
+                           for c in clustering_figures(shown, _BOARD_CLUSTER_TEXT))
     last = (f'{clock(r["last_look_at"], ref)}<div class="gw-sub">{ago(r["last_look_at"], ref)} · look {r["looks"]}</div>'
             if r["last_look_at"] else "—")
     if r["stopped"] or r["archived"] or not r["next_look_at"]:
@@ -67,8 +69,9 @@ def _board_row(r, ref):
     adjusted = r.get("adjusted") or {}
     if r["stopped"] and adjusted.get("estimate") is not None:
         # After a stop the headline is the adjusted estimate; the naive one is kept beside it.
-        level = (f'<div class="gw-sub">adjusted for the looks; at the stop {html.escape(amount(r["estimate"], r))}'
-                 "</div>")
+        width = interval_width(adjusted.get("ci_low"), adjusted.get("ci_high"))
+        level = (f'<div class="gw-sub">adjusted for the looks; at the stop '
+                 f'{html.escape(amount(r["estimate"], r, width))}</div>')
     change = relative_text(r, adjusted.get("estimate") if r["stopped"] and adjusted.get("estimate") is not None
                            else None)
     relative = f'<div class="gw-sub">{html.escape(change)}</div>' if change else ""
@@ -138,17 +141,24 @@ def plan_lines(row):
     design = row.get("design") or {}
     plan = design.get("plan") or {}
     inputs = plan.get("inputs") or {}
-    method = " on the ".join(str(v) for v in (design.get("method"), design.get("metric")) if v)
+    clustering = design.get("clustering") or {}
+    method = (method_words(design.get("method"), clustered_by=clustering.get("cluster_by")
+                           or clustering.get("cluster_column"))
+              + (" on the rates" if design.get("metric") == "proportion" else " on the means")
+              if design.get("method") else None)
+    unit = "percentage points (rates)" if design.get("metric") == "proportion" else (row.get("unit") or None)
     lines = [
-        ("method", method or None),
+        ("groups", " − ".join(group_names(row)) if row.get("labels") else None),
+        ("method", method),
+        ("unit", unit),
         ("alternative", design.get("alternative")),
         ("alpha", figure(design["alpha"]) if design.get("alpha") is not None else None),
-        ("spending", design.get("spending")),
+        ("spending", spending_words(design.get("spending")) if design.get("spending") else None),
         ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
-        ("null difference", figure(design.get("null_difference") or 0.0)),
+        ("null difference", amount(design.get("null_difference") or 0.0, row)),
     ]
     if inputs.get("difference") is not None:
-        lines.append(("difference worth detecting", figure(inputs["difference"])))
+        lines.append(("difference worth detecting", amount(inputs["difference"], row)))
         if inputs.get("sd") is not None:
             lines.append(("assumed standard deviation", figure(inputs["sd"])))
     if inputs.get("p1") is not None and inputs.get("p2") is not None:
@@ -156,7 +166,6 @@ def plan_lines(row):
     if inputs.get("power") is not None:
         lines.append(("power", figure(inputs["power"])))
     lines.append(("futility boundary", "yes (non-binding)" if design.get("futility") else "no"))
-    clustering = design.get("clustering") or {}
     if any(clustering.values()):
         lines.append(("clustered by", clustering.get("cluster_by") or clustering.get("cluster_column")))
         lines.append(("minimum clusters", design.get("min_clusters")))

@@ -9,7 +9,9 @@ times, starts a fresh ``gapwatch dashboard`` on it and measures with Chromium:
 * **start to board**: the two together, what a lead waits after starting the dashboard;
 * **comparison**: a first comparison page (headline, reading and a drawn chart) after that.
 
-The target is the first complete render within 3 s of the server answering. Chromium is
+and, for comparison, the same steps for a **bare** Streamlit page (one small HTML table, nothing
+imported, nothing read): what Streamlit and the browser cost on this machine before gapwatch
+does anything. The target is the first complete render within 3 s of the server answering. Chromium is
 ``--chromium`` (default ``$GAPWATCH_CHROMIUM``, else the ``chromium`` on the PATH); nothing is
 downloaded. Run from the project root:
 
@@ -60,17 +62,27 @@ def _wait_answering(base, proc, seconds=120):
     raise TimeoutError(f"no answer from {base} in {seconds} s")
 
 
-def one_start(config: Path, folder: Path, chromium: str, name: str) -> dict:
-    """A fresh server on the store: the seconds of each step."""
+_BARE_PAGE = ('import streamlit as st\n'
+              'st.html(\'<table class="gw-board"><tr class="gw-row"><td>bare</td></tr></table>\')\n')
+
+
+def one_start(config: Path, folder: Path, chromium: str, name: str | None) -> dict:
+    """A fresh server on the store (``name`` None: the bare page): the seconds of each step."""
     from playwright.sync_api import sync_playwright
 
     port = _free_port()
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     env.pop("GAPWATCH_DASHBOARD_PASSWORD", None)
+    if name is None:
+        page_file = folder / "bare_page.py"
+        page_file.write_text(_BARE_PAGE)
+        command = [sys.executable, "-m", "streamlit", "run", str(page_file), "--server.headless", "true",
+                   "--server.port", str(port), "--server.address", "127.0.0.1",
+                   "--browser.gatherUsageStats", "false"]
+    else:
+        command = [sys.executable, "-m", "monitor", "dashboard", "--config", str(config), "--port", str(port)]
     started = time.perf_counter()
-    proc = subprocess.Popen([sys.executable, "-m", "monitor", "dashboard", "--config", str(config),
-                             "--port", str(port)], cwd=folder, env=env,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(command, cwd=folder, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     base = f"http://127.0.0.1:{port}"
     try:
         _wait_answering(base, proc)
@@ -79,9 +91,12 @@ def one_start(config: Path, folder: Path, chromium: str, name: str) -> dict:
             browser = p.chromium.launch(executable_path=chromium, args=CHROMIUM_ARGS)
             page = browser.new_page(viewport={"width": 1440, "height": 1000})
             opened = time.perf_counter()
-            page.goto(base + "/board")
+            page.goto(base + ("/board" if name is not None else "/"))
             page.wait_for_selector("table.gw-board tr.gw-row", timeout=120_000)
             board = time.perf_counter() - opened
+            if name is None:
+                browser.close()
+                return {"answering": answering, "board": board, "start to board": answering + board}
             opened = time.perf_counter()
             page.goto(f"{base}/comparison?name={name}")
             page.wait_for_selector(".gw-reading", timeout=120_000)
@@ -116,13 +131,21 @@ def main(argv=None) -> int:
         print(f"demo store: {len(rehearsal.looks)} comparisons, {looks} looks "
               f"({args.hours:g} simulated hours) built in {time.perf_counter() - start:.1f} s")
         name = next(iter(rehearsal.looks))
-        runs = [one_start(folder / "gapwatch.toml", folder, args.chromium, name) for _ in range(args.repeat)]
-    for key in ("answering", "board", "start to board", "comparison"):
-        values = [r[key] for r in runs]
-        print(f"{key:<16} median {statistics.median(values):6.2f} s   max {max(values):6.2f} s   (n={len(values)})")
+        runs, bare = [], []
+        for _ in range(args.repeat):  # alternating, so the machine's load touches both alike
+            runs.append(one_start(folder / "gapwatch.toml", folder, args.chromium, name))
+            bare.append(one_start(folder / "gapwatch.toml", folder, args.chromium, None))
+    for label, measured in (("gapwatch", runs), ("bare page", bare)):
+        for key in ("answering", "board", "start to board", "comparison"):
+            values = [r[key] for r in measured if key in r]
+            if values:
+                print(f"{label:<10} {key:<16} median {statistics.median(values):6.2f} s   "
+                      f"max {max(values):6.2f} s   (n={len(values)})")
     board = statistics.median(r["board"] for r in runs)
+    floor = statistics.median(r["board"] for r in bare)
     print(f"first complete render after the server answers: {board:.2f} s = {board / TARGET:.2f} x the "
-          f"{TARGET:g} s target")
+          f"{TARGET:g} s target; a bare Streamlit page takes {floor:.2f} s here "
+          f"(gapwatch adds {board - floor:+.2f} s)")
     return 0
 
 
