@@ -50,7 +50,9 @@ def _engine(url):
 
 @st.cache_data(ttl=60, show_spinner=False)
 def _store_url(path):
-    return store_url_from_config(path)
+    # The dashboard reads the store alone: only the [store] table is read, so the first page
+    # does not wait for every comparison's validators to load.
+    return store_url_from_config(path, store_only=True)
 
 
 def store_url():

@@ -228,3 +228,23 @@ def test_design_words_name_the_method_sides_alpha_and_spending():
                                             "Saltmarsh Lane), alpha 0.025, Hwang–Shih–DeCani spending (γ = -4)")
     paired = {"method": "paired", "alternative": "two-sided", "alpha": 0.05, "spending": "pocock"}
     assert design_words(paired) == "paired t, two-sided, alpha 0.05, Pocock-type spending"
+
+
+def test_the_dashboard_reads_only_the_store_table(tmp_path, monkeypatch):
+    from monitor.config import store_url_from_config
+
+    # A comparison with a problem does not keep the dashboard (a reader of the store) from starting.
+    path = _config(tmp_path, 'labels = ["only one"]\n', alerts='[store]\nurl = "sqlite:///${STORE_FILE}"\n')
+    monkeypatch.setenv("STORE_FILE", "history.sqlite")
+    with pytest.raises(ConfigError):
+        store_url_from_config(path)
+    assert store_url_from_config(path, store_only=True) == f"sqlite:///{(tmp_path / 'history.sqlite').resolve()}"
+    path.write_text('[store]\nurl = "not a url"\n')
+    with pytest.raises(ConfigError) as caught:
+        store_url_from_config(path, store_only=True)
+    assert str(caught.value).splitlines() == ["gapwatch.toml: [store]: 'url' is not a database URL SQLAlchemy understands"]
+    monkeypatch.delenv("STORE_FILE")
+    path.write_text('[store]\nurl = "sqlite:///${STORE_FILE}"\n')
+    with pytest.raises(ConfigError) as caught:
+        store_url_from_config(path, store_only=True)
+    assert "environment variable 'STORE_FILE' is not set" in str(caught.value)
