@@ -148,13 +148,16 @@ def plan_lines(row):
               if design.get("method") else None)
     unit = "percentage points (rates)" if design.get("metric") == "proportion" else (row.get("unit") or None)
     lines = [
-        ("groups", " − ".join(group_names(row)) if row.get("labels") else None),
+        # the names shown, when they are not the group values themselves
+        ("groups", " − ".join(group_names(row))
+         if row.get("labels") and list(row["labels"]) != [str(g) for g in row.get("groups") or []] else None),
         ("method", method),
         ("unit", unit),
         ("alternative", design.get("alternative")),
         ("alpha", figure(design["alpha"]) if design.get("alpha") is not None else None),
         ("spending", spending_words(design.get("spending")) if design.get("spending") else None),
-        ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
+        ("planned pairs" if design.get("method") == "paired" else "planned events per group",
+         f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
         ("null difference", amount(design.get("null_difference") or 0.0, row)),
     ]
     if inputs.get("difference") is not None:
