@@ -20,7 +20,7 @@ import altair as alt
 import pandas as pd
 
 from . import scale
-from .formats import fmt, group_names, groups_text, zone_name
+from .formats import figure, group_names, groups_text, zone_name
 from .style import BOUNDARY_COLOUR, FUTILITY_COLOUR, GROUP_COLOURS, NULL_COLOUR, OFF_SCALE_COLOUR, REASON_COLOURS
 
 __all__ = [
@@ -114,7 +114,7 @@ def _time_axis(zone):
 
 
 def _text(value, digits=4):
-    return "" if value is None or (isinstance(value, float) and not math.isfinite(value)) else fmt(value, digits)
+    return "" if value is None or (isinstance(value, float) and not math.isfinite(value)) else figure(value, digits=digits)
 
 
 def boundary_chart(row, frame):
@@ -233,7 +233,7 @@ def off_scale_note(frame, row):
     off = data[(data["decision_z"] < low) | (data["decision_z"] > high)]
     if off.empty:
         return None
-    looks = ", ".join(f"look {k} ({fmt(z)})" for k, z in zip(off["look"], off["decision_z"]))
+    looks = ", ".join(f"look {k} ({figure(z)})" for k, z in zip(off["look"], off["decision_z"]))
     return (f"Off the chart's scale, drawn at its edge as a hollow triangle: {looks}. An early look on few "
             "events can land far out; the scale follows the later looks so they stay readable.")
 
@@ -261,7 +261,7 @@ def estimate_chart(row, frame):
         low_text=[_text(v) or "open" for v in data.loc[has_interval, "ci_low"]],
         high_text=[_text(v) or "open" for v in data.loc[has_interval, "ci_high"]],
     )
-    y_title = f"difference ({groups_text(row)})"
+    y_title = f"difference ({groups_text(row)}){_unit_suffix(row)}"
     band_tooltip = [alt.Tooltip("look:Q"), alt.Tooltip("low_text:N", title="interval low"),
                     alt.Tooltip("high_text:N", title="interval high")]
     layers = []
@@ -285,7 +285,7 @@ def estimate_chart(row, frame):
     layers.append(alt.Chart(shown).mark_line(point=True, color=GROUP_COLOURS[0], strokeWidth=2.5, clip=True).encode(
         x=x, y=alt.Y("shown:Q", title=y_title, scale=y_scale), tooltip=tooltip))
     layers += _off_scale_marks(shown, x, y_scale, "shown", "estimate_text", tooltip, "estimate")
-    layers.append(alt.Chart(pd.DataFrame({"null": [null], "label": [f"null difference {fmt(null)}"]})).mark_rule(
+    layers.append(alt.Chart(pd.DataFrame({"null": [null], "label": [f"null difference {figure(null)}"]})).mark_rule(
         color=NULL_COLOUR, strokeDash=[4, 3], strokeWidth=1.5).encode(y=alt.Y("null:Q", scale=y_scale),
                                                                         tooltip=["label:N"]))
     return alt.layer(*layers).properties(height=280)
@@ -328,6 +328,13 @@ def _look_ranges(numbers):
     return ("Look " if len(numbers) == 1 else "Looks ") + ", ".join(parts)
 
 
+def _unit_suffix(row):
+    """The unit an axis of differences is in: the comparison's unit; rates are drawn as fractions."""
+    if row.get("metric") == "proportion":
+        return " (as a fraction)"
+    return f" ({row['unit']})" if row.get("unit") else ""
+
+
 def group_chart(row, frame):
     """Each group's running mean (or rate) at each look; a far early value is clipped and marked."""
     if frame.empty or "mean1" not in frame or frame[["mean1", "mean2"]].isna().all().all():
@@ -347,7 +354,7 @@ def group_chart(row, frame):
         value_text=[_text(v) for v in long["value"]],
     )
     proportion = row.get("metric") == "proportion"
-    title = "rate" if proportion else "mean"
+    title = "rate" if proportion else ("mean" + (f" ({row['unit']})" if row.get("unit") else ""))
     x = _time_axis(zone_name(row))
     y_scale = alt.Scale(domain=domain, nice=False)
     colour = alt.Color("group:N", title=None, scale=alt.Scale(domain=list(groups[:2]), range=list(GROUP_COLOURS)))

@@ -50,7 +50,9 @@ def _engine(url):
 
 @st.cache_data(ttl=60, show_spinner=False)
 def _store_url(path):
-    return store_url_from_config(path)
+    # The dashboard reads the store alone: only the [store] table is read, so the first page
+    # does not wait for every comparison's validators to load.
+    return store_url_from_config(path, store_only=True)
 
 
 def store_url():
@@ -126,9 +128,30 @@ def alerts(url, states=()):
     return readback.list_alerts(_engine(url), list(states) or None)
 
 
+@st.cache_data(ttl=_READ_TTL, show_spinner=False)
+def review_html(url, name, version=None):
+    """One version's printable review as a self-contained HTML page (what `gapwatch report` writes)."""
+    # lazy: the review is built only on a comparison page, never for the board's first render.
+    from monitor.report import build_review, render_html
+
+    return render_html(build_review(_engine(url), name, version, now=now()))
+
+
+def review_pdf_maker(url, name, version=None):
+    """A function printing the review to PDF when called (a download deferred to the click), or
+    None when no Chromium or Chrome is on this machine to print it."""
+    # lazy: as above; the PDF printer is needed only when someone asks for the PDF.
+    from monitor.report import find_browser, html_to_pdf
+
+    if find_browser() is None:
+        return None
+    return lambda: html_to_pdf(review_html(url, name, version))
+
+
 def forget_cached_reads():
     """After a write, so the next read shows it."""
-    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, _reference, _liveness):
+    for fn in (status_rows, filtered_rows, comparison, history, versions, cells, alerts, review_html, _reference,
+               _liveness):
         fn.clear()
 
 

@@ -1,6 +1,7 @@
 """How the dashboard writes times, intervals, fractions and names: pure text, no Streamlit.
 
-Numbers go through ``readback.format_number``, the same rule the command line prints with.
+Numbers go through ``monitor.vocabulary.figure`` (and the interval, unit and open-end rules
+beside it), the same rules the command line, the alerts and the printed review write with.
 Every function that speaks of "now" takes the reference moment as an argument, so the text
 can be checked without a clock.
 """
@@ -13,10 +14,14 @@ from urllib.parse import quote
 from zoneinfo import ZoneInfo
 
 from monitor.store.readback import describe_seconds
-from monitor.store.readback import format_number as fmt
+from monitor.vocabulary import end_text, estimate_words, figure, interval_width, quantity, relative_change
 
 __all__ = [
-    "fmt",
+    "figure",
+    "amount",
+    "relative_text",
+    "evidence_text",
+    "headline_text",
     "when",
     "relative",
     "clock",
@@ -89,20 +94,64 @@ def plan_eta_text(row):
     return f"about {describe_seconds(row['seconds_to_plan'])}"
 
 
-def bounds_text(low, high):
-    """``[low, high]`` with an open end (one-sided designs) shown as infinity."""
+def bounds_text(low, high, row=None):
+    """``[low, high]`` (with the row's unit) figures to the interval's width; an open end ``open``."""
     if low is None and high is None:
         return "none at this look"
-    return f"[{'−∞' if low is None else fmt(low)}, {'∞' if high is None else fmt(high)}]"
+    metric, unit = _measure(row)
+    width = interval_width(low, high)
+    text = f"[{end_text(low, metric=metric, width=width)}, {end_text(high, metric=metric, width=width)}]"
+    suffix = "pp" if metric == "proportion" else unit
+    return f"{text} {suffix}" if suffix else text
+
+
+def _measure(row):
+    row = row or {}
+    return row.get("metric") or "mean", row.get("unit") or ""
+
+
+def amount(value, row=None, width=None, *, signed=False):
+    """A difference in the row's units: ``"4.2 s"``, rates in percentage points (``"0.6 pp"``)."""
+    metric, unit = _measure(row)
+    return quantity(value, metric=metric, unit=unit, width=width, signed=signed)
+
+
+def relative_text(row, estimate=None):
+    """The difference relative to group 2's level (``"+2.3 % of Saltmarsh Lane"``), or None."""
+    estimate = row.get("estimate") if estimate is None else estimate
+    change = relative_change(estimate, row.get("mean2"))
+    if change is None:
+        return None
+    return f"{change} of {group_names(row)[1]}"
+
+
+def evidence_text(row):
+    """The count the evidence is made of beside events: ``"14 pairs"``, ``"9 clusters"``; None for events."""
+    evidence = row.get("evidence")
+    if not evidence:
+        return None
+    count = evidence.get("count")
+    return f"{'—' if count is None else f'{count:,}'} {evidence['noun']}"
+
+
+def headline_text(row):
+    """The figure a row is read by: after a stop the adjusted estimate and interval, else the estimate's."""
+    adjusted = row.get("adjusted") or {}
+    if row.get("stopped") and adjusted.get("estimate") is not None:
+        metric, unit = _measure(row)
+        return estimate_words(adjusted["estimate"], adjusted.get("ci_low"), adjusted.get("ci_high"), metric=metric,
+                              unit=unit, no_interval="no adjusted interval")
+    return interval_text(row)
 
 
 def interval_text(row):
+    """The estimate and its interval in the row's units (``"4.2 [1.1, 7.3] s"``)."""
     if row.get("estimate") is None:
         return "—"
-    if row.get("ci_low") is None and row.get("ci_high") is None:
-        # a look that tested nothing (no new information) records no interval
-        return f"{fmt(row['estimate'])} (no interval at this look)"
-    return f"{fmt(row['estimate'])} {bounds_text(row['ci_low'], row['ci_high'])}"
+    metric, unit = _measure(row)
+    # a look that tested nothing (no new information) records no interval
+    return estimate_words(row["estimate"], row.get("ci_low"), row.get("ci_high"), metric=metric, unit=unit,
+                          no_interval="no interval at this look")
 
 
 def fraction_text(row):
@@ -110,8 +159,8 @@ def fraction_text(row):
 
 
 def group_names(row):
-    """The two groups' names as stored (placeholders when the design names none)."""
-    return row.get("groups") or ["group 1", "group 2"]
+    """The two groups as shown: their configured labels, else their values (placeholders when none)."""
+    return row.get("labels") or row.get("groups") or ["group 1", "group 2"]
 
 
 def groups_text(row):

@@ -7,12 +7,15 @@ import html
 import pandas as pd
 import streamlit as st
 
+from monitor.errors import InvalidArgumentError
 from monitor.store.export import csv_text
 from monitor.store.readback import clustering_figures
 
 from . import charts, data, look_tables, tables
-from .formats import bounds_text, confidence_percent, fmt, fraction_text, groups_text, next_look_text
-from .formats import plan_eta_text, when, zone_name
+from monitor.vocabulary import design_words, interval_width
+
+from .formats import (amount, bounds_text, confidence_percent, evidence_text, figure, fraction_text, group_names,
+                      groups_text, next_look_text, plan_eta_text, relative_text, when, zone_name)
 from .reading import reading, testing_look
 from .style import badge, pair, tiles
 
@@ -20,7 +23,7 @@ __all__ = ["show_comparison"]
 
 # The data-quality caption names the day level: that is where the look measures clustering.
 _QUALITY_CLUSTER_TEXT = {"clusters": "{} clusters".format,
-                         "design_effect": lambda value: f"day-level design effect {fmt(value, 3)}",
+                         "design_effect": lambda value: f"day-level design effect {figure(value, digits=3)}",
                          "effective_n": "effective n {:,.0f}".format}
 
 
@@ -44,6 +47,7 @@ def show_comparison(url, name, version=None):
     with quality_col:
         _data_quality(url, row, looks)
     _look_history(row, looks, frame)
+    _review_download(url, row)
 
 
 def _headline(row, looks):
@@ -53,14 +57,10 @@ def _headline(row, looks):
             + (' <span class="gw-sub">archived</span>' if row["archived"] else "")
             + f' <span class="gw-sub">{html.escape(row.get("description") or "")}</span></div>')
     interval = _newest_interval(row, looks)
-    tiles([
-        (f"Estimate ({groups_text(row)})", _figure(row["estimate"]),
-         f"{confidence_percent(row)} repeated confidence interval: {interval}"),
-        ("Events per group", f"{row['n1']:,} / {row['n2']:,}"),
-        ("Plan reached", fraction_text(row),
-         f"of {row['planned_per_group']:,.0f} planned per group" if row.get("planned_per_group") else None),
-        ("Looks", row["looks"]),
-    ])
+    tiles([_estimate_tile(row, interval), *_count_tiles(row),
+           ("Plan reached", fraction_text(row), _plan_note(row)),
+           ("Looks", row["looks"])])
+    st.caption(f"{groups_text(row)} · {design_words(row.get('design') or {}, group_names(row))}")
     ref = data.now()
     timing = f"last look {when(row['last_look_at'], ref)}"
     if row["stopped"]:
@@ -69,12 +69,79 @@ def _headline(row, looks):
         eta = plan_eta_text(row)
         timing += f" · next look {next_look_text(row, ref)} · " + (
             "plan completion not yet known" if eta == "unknown yet" else f"plan complete in {eta}")
-    st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
+    relative = relative_text(row)
+    st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval}"
+               + (f" · {relative}" if relative and not row["stopped"] else "") + f" · {timing}")
     if row.get("outlook_words"):
         words = row["outlook_words"]
         st.info(words[0].upper() + words[1:] + ".")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
+
+
+def _estimate_tile(row, interval):
+    """The headline figure: after a stop the adjusted estimate (the naive one beside it), else the
+    estimate, in the comparison's units with the relative change where it exists."""
+    adjusted = row.get("adjusted") or {}
+    if row["stopped"] and adjusted.get("estimate") is not None:
+        width = interval_width(adjusted.get("ci_low"), adjusted.get("ci_high"))
+        note = (f"median-unbiased, allowing for the looks; adjusted interval "
+                f"{bounds_text(adjusted.get('ci_low'), adjusted.get('ci_high'), row)}; the estimate at the "
+                f"stop was {amount(adjusted.get('naive_estimate') or row['estimate'], row)}")
+        relative = relative_text(row, adjusted["estimate"])
+        if relative:
+            note += f" · {relative}"
+        return (f"Adjusted estimate ({groups_text(row)})", amount(adjusted["estimate"], row, width), note)
+    width = interval_width(row.get("ci_low"), row.get("ci_high"))
+    note = f"{confidence_percent(row)} repeated confidence interval: {interval}"
+    relative = relative_text(row)
+    if relative:
+        note = f"{relative} · {note}"
+    return (f"Estimate ({groups_text(row)})", amount(row["estimate"], row, width), note)
+
+
+def _count_tiles(row):
+    """Events per group, and beside them the count the evidence rests on (pairs, clusters)."""
+    names = group_names(row)
+    events = ("Events per group", f"{row['n1']:,} / {row['n2']:,}", f"{names[0]} / {names[1]}")
+    counted = evidence_text(row)
+    if counted is None:
+        return [events]
+    noun = row["evidence"]["noun"]
+    count = row["evidence"].get("count")
+    why = {"pairs": "a paired comparison's evidence: one difference per pair",
+           "clusters": "a clustered comparison's evidence: its standard error rests on the clusters",
+           "days": "a before/after comparison's evidence: its variance rests on the days"}.get(noun)
+    return [(noun.capitalize(), "—" if count is None else f"{count:,}", why), events]
+
+
+def _plan_note(row):
+    if not row.get("planned_per_group"):
+        return None
+    noun = "pairs" if (row.get("evidence") or {}).get("noun") == "pairs" else "events per group"
+    return f"of {row['planned_per_group']:,.0f} planned {noun}"
+
+
+def _review_download(url, row):
+    """The printable review of this version, to file (HTML; PDF too when a browser can print it)."""
+    st.markdown("##### The review to file")
+    st.caption("One self-contained page: the question, the design as frozen, every look, the charts, data "
+               "quality, changes of plan, alerts and acknowledgements, the result and the caution. It prints "
+               "on A4 or Letter portrait.")
+    stem = f"{row['name']}-v{row['version']}-review"
+    try:
+        page = data.review_html(url, row["name"], row["version"])
+    except InvalidArgumentError as exc:  # a stored design this version of gapwatch cannot read
+        st.caption(f"The review cannot be built from this version's record: {exc}")
+        return
+    left, right = st.columns(2)
+    left.download_button("Download the review (HTML)", page,
+                         file_name=f"{stem}.html", mime="text/html", key=f"review-html-{row['name']}-{row['version']}",
+                         on_click="ignore")
+    pdf = data.review_pdf_maker(url, row["name"], row["version"])
+    if pdf is not None:
+        right.download_button("Download the review (PDF)", pdf, file_name=f"{stem}.pdf", mime="application/pdf",
+                              key=f"review-pdf-{row['name']}-{row['version']}", on_click="ignore")
 
 
 def _change_lines(changes):
@@ -87,7 +154,7 @@ def _change_lines(changes):
             old = (c.get("old_plan") or {}).get("planned_per_group")
             new = (c.get("new_plan") or {}).get("planned_per_group")
             lines.append(f"Replan {c['number']} after look {c['after_look']}, {made}: {old:,} → {new:,} "
-                         f"events per group{why}; alpha left for the rest {fmt(c['conditional_error'], 3)}, "
+                         f"events per group{why}; alpha left for the rest {figure(c['conditional_error'], digits=3)}, "
                          f"spent on the data after the change")
         else:
             how = "all data again (from the start)" if c.get("from_start") else "new data only"
@@ -96,17 +163,17 @@ def _change_lines(changes):
 
 
 def _figure(value, digits=4):
-    return "—" if value is None else fmt(value, digits)
+    return "—" if value is None else figure(value, digits=digits)
 
 
 def _newest_interval(row, looks):
     """This look's interval; when it tested nothing new, the newest look's that did, named."""
     if row["ci_low"] is not None or row["ci_high"] is not None:
-        return bounds_text(row["ci_low"], row["ci_high"])
+        return bounds_text(row["ci_low"], row["ci_high"], row)
     tested = testing_look(looks)
     if tested is None or (tested["ci_low"] is None and tested["ci_high"] is None):
         return "none yet"
-    return (f"{bounds_text(tested['ci_low'], tested['ci_high'])} from look {tested['look']} "
+    return (f"{bounds_text(tested['ci_low'], tested['ci_high'], row)} from look {tested['look']} "
             "(the looks since found nothing new to test)")
 
 
@@ -138,12 +205,15 @@ def _after_stop(row):
     if not (row["stopped"] and adjusted):
         return
     st.markdown("##### After the stop")
+    width = interval_width(adjusted.get("ci_low"), adjusted.get("ci_high"))
     tiles([
-        ("Adjusted estimate", _figure(adjusted["estimate"]),
+        ("Adjusted estimate", amount(adjusted["estimate"], row, width),
          "median-unbiased: corrects the overstatement of an estimate taken at a stop"),
         ("Adjusted p-value", _figure(adjusted["p_value"], 3), "stagewise ordering of the outcomes"),
-        ("Adjusted interval", bounds_text(adjusted["ci_low"], adjusted["ci_high"])
+        ("Adjusted interval", bounds_text(adjusted["ci_low"], adjusted["ci_high"], row)
          if adjusted["ci_low"] is not None or adjusted["ci_high"] is not None else "—"),
+        ("Estimate at the stop", amount(adjusted.get("naive_estimate"), row, width),
+         "as the last look computed it; it tends to overstate the difference"),
     ])
     if adjusted.get("note"):
         st.caption(adjusted["note"])
@@ -220,7 +290,7 @@ def _look_history(row, looks, frame):
     if not looks:
         st.info("No looks recorded yet.")
         return
-    table, config = look_tables.look_table(frame)
+    table, config = look_tables.look_table(frame, row)
     st.dataframe(table, hide_index=True, width="stretch", column_config=config)
     st.download_button("Download looks as CSV", csv_text(looks), file_name=f"{row['name']}-v{row['version']}-looks.csv",
                        mime="text/csv", key=f"csv-{row['name']}-{row['version']}")

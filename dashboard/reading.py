@@ -15,7 +15,8 @@ from __future__ import annotations
 from monitor.vocabulary import DESIGN_EFFECT_WARNING
 
 from . import scale
-from .formats import bounds_text, confidence_percent, fmt, fraction_text, group_names, interval_text, p_text
+from .formats import (amount, bounds_text, confidence_percent, figure, fraction_text, group_names, interval_text,
+                      p_text)
 
 __all__ = ["CAUTION", "reading", "testing_look", "statistic_phrase", "boundary_phrase"]
 
@@ -32,13 +33,14 @@ def reading(row, looks):
     groups = group_names(row)
     what = f"{groups[0]} minus {groups[1]}"
     if row.get("metric") == "proportion":
-        what += " (difference in rates)"
+        what += " (difference in rates, in percentage points)"
     lines = _state_lines(row, looks, what)
     if (row.get("design_effect") is not None and row["design_effect"] > DESIGN_EFFECT_WARNING
             and row.get("clusters") is None):
         lines.append(
             f"The day-level design effect is {row['design_effect']:.2f}: events on the same day move "
-            "together, so this interval is too narrow and the test too eager. Cluster the comparison."
+            "together, so this interval is too narrow and the test too eager: a difference found may not be "
+            "real. Add cluster_by = \"day\" to the comparison's configuration and restart it."
         )
     lines.append(CAUTION)
     return lines
@@ -55,10 +57,10 @@ def testing_look(looks):
 def boundary_phrase(boundary_z, alternative):
     """``±3.301`` two-sided, ``3.301`` for "greater", ``−3.301`` for "less"."""
     if alternative == "greater":
-        return fmt(boundary_z)
+        return figure(boundary_z)
     if alternative == "less":
-        return f"−{fmt(boundary_z)}"
-    return f"±{fmt(boundary_z)}"
+        return f"−{figure(boundary_z)}"
+    return f"±{figure(boundary_z)}"
 
 
 def statistic_phrase(look):
@@ -69,11 +71,11 @@ def statistic_phrase(look):
     """
     statistic, df = look.get("statistic"), look.get("df")
     if df is None:
-        return f"z = {fmt(statistic)}"
+        return f"z = {figure(statistic)}"
     p = scale.one_sided_p(statistic, df)
     z = scale.z_equivalent(statistic, df)
-    return (f"t = {fmt(statistic)} on {fmt(df, 3)} degrees of freedom (one-sided p-value {p_text(p)}, "
-            f"the same tail as z = {fmt(z)})")
+    return (f"t = {figure(statistic)} on {figure(df, digits=3)} degrees of freedom (one-sided p-value {p_text(p)}, "
+            f"the same tail as z = {figure(z)})")
 
 
 def _estimate_text(row, what, tested=None):
@@ -81,9 +83,9 @@ def _estimate_text(row, what, tested=None):
         return f"there is no estimate of {what} yet"
     if row.get("ci_low") is None and row.get("ci_high") is None:
         if tested is not None and (tested.get("ci_low") is not None or tested.get("ci_high") is not None):
-            return (f"the estimated difference, {what}, is {fmt(row['estimate'])}; the newest "
+            return (f"the estimated difference, {what}, is {amount(row['estimate'], row)}; the newest "
                     f"{confidence_percent(row)} repeated confidence interval, from look {tested['look']}, is "
-                    f"{bounds_text(tested.get('ci_low'), tested.get('ci_high'))}")
+                    f"{bounds_text(tested.get('ci_low'), tested.get('ci_high'), row)}")
         return f"the estimated difference, {what}, is {interval_text(row)}"
     return f"the estimated difference, {what}, is {interval_text(row)} ({confidence_percent(row)} repeated confidence interval)"
 
@@ -122,7 +124,7 @@ def _state_lines(row, looks, what):
             f"At look {look['look']} the test statistic, {statistic_phrase(look)}, crossed the efficacy "
             f"boundary of {boundary_phrase(look.get('boundary_z'), alternative)}: the groups differ. "
             f"At the stop {_estimate_text(row, what)}; the interval leaves out the null difference of "
-            f"{fmt(row.get('null_difference') or 0.0)}.",
+            f"{amount(row.get('null_difference') or 0.0, row)}.",
             "It does not say why they differ, nor whether a difference this size matters for the "
             "operation; the estimate at a stop tends to overstate the size, so read the adjusted "
             "estimate below.",

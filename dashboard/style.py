@@ -58,6 +58,7 @@ table.gw-board td.num {font-variant-numeric:tabular-nums;white-space:nowrap;}
 table.gw-board a {color:#1F6F78;font-weight:600;text-decoration:none;}
 .gw-warn {color:#8a4b08;font-size:0.85em;}
 .gw-sub {color:#5f6b73;font-size:0.85em;}
+.gw-main-count {font-weight:600;}
 .gw-bar {background:#e3e8eb;border-radius:3px;height:6px;width:7em;margin-top:4px;}
 .gw-bar > div {background:#1F6F78;height:6px;border-radius:3px;}
 .gw-counts {display:flex;flex-wrap:wrap;gap:0.5em 1.4em;margin:0.2em 0 0.6em;}

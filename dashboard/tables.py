@@ -10,11 +10,11 @@ import html
 from datetime import datetime
 
 from monitor.store.readback import clustering_figures, describe_wait
-from monitor.vocabulary import STATES
+from monitor.vocabulary import STATES, interval_width, method_words, spending_words
 
 from .formats import (
-    ago, clock, comparison_link, confidence_percent, fmt, fraction_text, groups_text,
-    interval_text, next_look_text, plan_eta_text,
+    ago, amount, clock, group_names, headline_text, comparison_link, confidence_percent, evidence_text, figure, fraction_text, groups_text,
+    next_look_text, plan_eta_text, relative_text,
 )
 from .style import badge
 
@@ -54,8 +54,10 @@ def _board_row(r, ref):
     version = f' <span class="gw-sub">v{r["version"]}</span>' if r["version"] != 1 else ""
     fraction = r["fraction"] or 0.0
     bar = f'<div class="gw-bar"><div style="width:{min(fraction, 1.0) * 100:.0f}%"></div></div>'
+    # Clusters already lead the column when they are the count the evidence rests on.
+    shown = dict(r, clusters=None) if (r.get("evidence") or {}).get("noun") == "clusters" else r
     cluster_line = "".join(f'<div class="gw-sub">{html.escape(c)}</div>'
-                           for c in clustering_figures(r, _BOARD_CLUSTER_TEXT))
+                           for c in clustering_figures(shown, _BOARD_CLUSTER_TEXT))
     last = (f'{clock(r["last_look_at"], ref)}<div class="gw-sub">{ago(r["last_look_at"], ref)} · look {r["looks"]}</div>'
             if r["last_look_at"] else "—")
     if r["stopped"] or r["archived"] or not r["next_look_at"]:
@@ -64,6 +66,18 @@ def _board_row(r, ref):
         due = (datetime.fromisoformat(r["next_look_at"]) - ref).total_seconds()
         upcoming = f'{clock(r["next_look_at"], ref)}<div class="gw-sub">{describe_wait(due)}</div>'
     level = "" if r["estimate"] is None else f'<div class="gw-sub">{confidence_percent(r)} repeated interval</div>'
+    adjusted = r.get("adjusted") or {}
+    if r["stopped"] and adjusted.get("estimate") is not None:
+        # After a stop the headline is the adjusted estimate; the naive one is kept beside it.
+        width = interval_width(adjusted.get("ci_low"), adjusted.get("ci_high"))
+        level = (f'<div class="gw-sub">adjusted for the looks; at the stop '
+                 f'{html.escape(amount(r["estimate"], r, width))}</div>')
+    change = relative_text(r, adjusted.get("estimate") if r["stopped"] and adjusted.get("estimate") is not None
+                           else None)
+    relative = f'<div class="gw-sub">{html.escape(change)}</div>' if change else ""
+    evidence = evidence_text(r)
+    # The count the evidence rests on (pairs, clusters) first, events beside it.
+    counted = f'<div class="gw-main-count">{html.escape(evidence)}</div>' if evidence else ""
     rate = ""
     if r.get("events_per_hour") and not r["stopped"]:
         rate = (f'<div class="gw-sub">{r["events_per_hour"][0]:,.0f} / {r["events_per_hour"][1]:,.0f} '
@@ -71,9 +85,9 @@ def _board_row(r, ref):
     return _row(BOARD_COLUMNS, [
         ("", badge(r["state"])),
         ("gw-name", f'<a href="{html.escape(comparison_link(r))}" target="_self">{name}</a>{version}'
-                    f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(str(r["method"] or ""))}</div>'),
-        ("num", f"{html.escape(interval_text(r))}{level}"),
-        ("num", f'{r["n1"]:,} / {r["n2"]:,}{cluster_line}'),
+                    f'<div class="gw-sub">{html.escape(groups_text(r))} · {html.escape(r.get("method_words") or "")}</div>'),
+        ("num", f"{html.escape(headline_text(r))}{level}{relative}"),
+        ("num", f'{counted}{r["n1"]:,} / {r["n2"]:,}{cluster_line}'),
         ("num", f"{fraction_text(r)}{bar}"),
         ("num", last),
         ("num", upcoming),
@@ -106,7 +120,7 @@ def review_table(rows):
                         f'<div class="gw-sub">{html.escape(groups_text(r))}</div>'),
             ("num", f'v{r["version"]}<div class="gw-sub">{kept}</div>'),
             ("num", str(r["looks"])),
-            ("num", html.escape(interval_text(r))),
+            ("num", html.escape(headline_text(r))),
             ("num", f'{r["n1"]:,} / {r["n2"]:,}'),
             ("num", fraction_text(r)),
             ("num", html.escape(_stamp(r["stopped_at"]))),
@@ -127,25 +141,34 @@ def plan_lines(row):
     design = row.get("design") or {}
     plan = design.get("plan") or {}
     inputs = plan.get("inputs") or {}
-    method = " on the ".join(str(v) for v in (design.get("method"), design.get("metric")) if v)
+    clustering = design.get("clustering") or {}
+    method = (method_words(design.get("method"), clustered_by=clustering.get("cluster_by")
+                           or clustering.get("cluster_column"))
+              + (" on the rates" if design.get("metric") == "proportion" else " on the means")
+              if design.get("method") else None)
+    unit = "percentage points (rates)" if design.get("metric") == "proportion" else (row.get("unit") or None)
     lines = [
-        ("method", method or None),
+        # the names shown, when they are not the group values themselves
+        ("groups", " − ".join(group_names(row))
+         if row.get("labels") and list(row["labels"]) != [str(g) for g in row.get("groups") or []] else None),
+        ("method", method),
+        ("unit", unit),
         ("alternative", design.get("alternative")),
-        ("alpha", fmt(design["alpha"]) if design.get("alpha") is not None else None),
-        ("spending", design.get("spending")),
-        ("planned events per group", f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
-        ("null difference", fmt(design.get("null_difference") or 0.0)),
+        ("alpha", figure(design["alpha"]) if design.get("alpha") is not None else None),
+        ("spending", spending_words(design.get("spending")) if design.get("spending") else None),
+        ("planned pairs" if design.get("method") == "paired" else "planned events per group",
+         f"{row['planned_per_group']:,.0f}" if row.get("planned_per_group") else None),
+        ("null difference", amount(design.get("null_difference") or 0.0, row)),
     ]
     if inputs.get("difference") is not None:
-        lines.append(("difference worth detecting", fmt(inputs["difference"])))
+        lines.append(("difference worth detecting", amount(inputs["difference"], row)))
         if inputs.get("sd") is not None:
-            lines.append(("assumed standard deviation", fmt(inputs["sd"])))
+            lines.append(("assumed standard deviation", figure(inputs["sd"])))
     if inputs.get("p1") is not None and inputs.get("p2") is not None:
-        lines.append(("rates worth telling apart", f"{fmt(inputs['p1'])} vs {fmt(inputs['p2'])}"))
+        lines.append(("rates worth telling apart", f"{figure(inputs['p1'])} vs {figure(inputs['p2'])}"))
     if inputs.get("power") is not None:
-        lines.append(("power", fmt(inputs["power"])))
+        lines.append(("power", figure(inputs["power"])))
     lines.append(("futility boundary", "yes (non-binding)" if design.get("futility") else "no"))
-    clustering = design.get("clustering") or {}
     if any(clustering.values()):
         lines.append(("clustered by", clustering.get("cluster_by") or clustering.get("cluster_column")))
         lines.append(("minimum clusters", design.get("min_clusters")))

@@ -36,6 +36,7 @@ _COMPARISONS = [
         "description": "Seconds per order line picked, Hollin Cross minus Saltmarsh Lane. "
                        "Hollin Cross switches to a new pick path on Wednesday 06:00.",
         "source": "warehouse", "table": "pick_tasks", "group_column": "site",
+        "labels": ["Hollin Cross", "Saltmarsh Lane"], "unit": "s",
         "groups": ["hollin", "saltmarsh"], "value_column": "seconds", "time_column": "finished_at",
         "metric": "mean", "method": "welch", "alternative": "two-sided", "alpha": 0.05,
         "spending": "obrien-fleming", "planned_per_group": 9000,
@@ -46,6 +47,7 @@ _COMPARISONS = [
         "description": "Share of contacts resolved on first contact, Desk Wren minus Desk Heron. "
                        "Wren trials a new knowledge base; does it resolve more?",
         "source": "service", "table": "contacts", "group_column": "desk",
+        "labels": ["Desk Wren", "Desk Heron"],
         "groups": ["wren", "heron"], "value_column": "resolved", "time_column": "closed_at",
         "metric": "proportion", "method": "proportions", "alternative": "greater", "alpha": 0.05,
         "spending": "obrien-fleming", "p1": 0.78, "p2": 0.74, "power": 0.9, "looks": 10,
@@ -56,6 +58,7 @@ _COMPARISONS = [
         "description": "Cases packed per hour, Line 5 minus Line 2, matched day by day "
                        "(both lines share each day's supply and crew).",
         "source": "plant", "table": "line_output", "group_column": "line",
+        "labels": ["Line 5", "Line 2"], "unit": "cases/h",
         "groups": ["line-5", "line-2"], "value_column": "cases", "time_column": "hour_ending",
         "metric": "mean", "method": "paired", "pair_by": "day", "alternative": "two-sided",
         "alpha": 0.05, "spending": "obrien-fleming", "planned_per_group": 12,
@@ -66,6 +69,7 @@ _COMPARISONS = [
         "description": "Grams per 1 kg bag, filling head 1 minus head 2; the filler's sigma "
                        "(2.4 g per head) is known from its acceptance test. Does head 1 overfill?",
         "source": "plant", "table": "fill_checks", "group_column": "head",
+        "labels": ["Head 1", "Head 2"], "unit": "g",
         "groups": ["head-1", "head-2"], "value_column": "grams", "time_column": "weighed_at",
         "metric": "mean", "method": "z", "sigmas": [2.4, 2.4], "alternative": "greater",
         "alpha": 0.05, "spending": "obrien-fleming", "planned_per_group": 2600,
@@ -77,6 +81,7 @@ _COMPARISONS = [
                        "Saltmarsh Lane vans. Drops on one day share its weather and traffic, "
                        "so the day is the unit of evidence.",
         "source": "warehouse", "table": "deliveries", "group_column": "depot",
+        "labels": ["Hollin Cross", "Saltmarsh Lane"], "unit": "min",
         "groups": ["hollin", "saltmarsh"], "value_column": "minutes_late", "time_column": "delivered_at",
         "metric": "mean", "method": "welch", "alternative": "two-sided", "alpha": 0.05,
         "spending": "obrien-fleming", "planned_per_group": 1100, "cluster_by": "day",
@@ -87,6 +92,7 @@ _COMPARISONS = [
         "description": "Minutes to grade one returned item, bench 1 minus bench 2. "
                        "Bench 2 only opens on Thursday 09:00: until then there is nothing to compare.",
         "source": "warehouse", "table": "returns_grading", "group_column": "bench",
+        "labels": ["Bench 1", "Bench 2"], "unit": "min",
         "groups": ["bench-1", "bench-2"], "value_column": "minutes", "time_column": "graded_at",
         "metric": "mean", "method": "welch", "alternative": "two-sided", "alpha": 0.05,
         "spending": "obrien-fleming", "planned_per_group": 1500,

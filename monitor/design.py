@@ -30,7 +30,8 @@ from .config.model import DEFAULT_MIN_PAIRS
 from .errors import InvalidArgumentError
 from .vocabulary import json_safe
 
-__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "RatioColumns", "design_hash"]
+__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "RatioColumns", "Display",
+           "design_hash"]
 
 
 def design_hash(stored: dict) -> str:
@@ -182,6 +183,37 @@ class Measure:
 
 
 @dataclass(frozen=True)
+class Display:
+    """How a comparison is shown: a name per group (in group order) and the unit of its values.
+
+    Display only: it is stored with the design so every reader of the store shows it, but it
+    is no part of what is tested, so changing it never starts a new version (it is left out
+    of :meth:`Design.comparable` and of the fingerprint) and the next look stores the new one.
+    """
+
+    labels: tuple | None = None
+    unit: str = ""
+
+    def to_stored(self) -> dict:
+        out = {}
+        if self.labels:
+            out["labels"] = list(self.labels)
+        if self.unit:
+            out["unit"] = self.unit
+        return out
+
+    @classmethod
+    def from_stored(cls, stored) -> Display:
+        stored = stored if isinstance(stored, dict) else {}
+        labels = stored.get("labels")
+        return cls(tuple(str(x) for x in labels) if labels else None, str(stored.get("unit") or ""))
+
+    def names(self, groups) -> tuple:
+        """The groups as shown: their labels, else the group values themselves."""
+        return tuple(self.labels) if self.labels else tuple(str(g) for g in groups)
+
+
+@dataclass(frozen=True)
 class Design:
     """A comparison's statistical design, frozen at its first look.
 
@@ -208,6 +240,8 @@ class Design:
     # "events" or "information" (monitor.look.plan): stored only when not the default, so
     # designs frozen before the choice existed compare equal.
     fraction: str = "events"
+    # Names and unit as shown (display only; see Display).
+    display: Display = Display()
 
     # ------------------------------------------------------------ derived
 
@@ -273,7 +307,12 @@ class Design:
             futility=c.futility,
             ratio=RatioColumns(c.numerator_column, c.denominator_column) if c.metric == "ratio" else None,
             fraction=getattr(c, "fraction", "events"),
+            display=Display(tuple(c.labels) if getattr(c, "labels", None) else None, getattr(c, "unit", "") or ""),
         )
+
+    def with_display(self, display: Display) -> Design:
+        """The same design shown with ``display`` (what a look stores when the names or unit change)."""
+        return replace(self, display=display)
 
     # ------------------------------------------------------------ the stored form
 
@@ -309,6 +348,7 @@ class Design:
                 "denominator_column": self.ratio.denominator_column,
                 "shift_den": self.shift_den} if self.ratio is not None else {}),
             **({"fraction": self.fraction} if self.fraction != "events" else {}),
+            **({"display": self.display.to_stored()} if self.display.to_stored() else {}),
         }
 
     @classmethod
@@ -340,15 +380,17 @@ class Design:
                    if stored.get("denominator_column") else None),
             shift_den=None if stored.get("shift_den") is None else float(stored["shift_den"]),
             fraction=stored.get("fraction") or "events",
+            display=Display.from_stored(stored.get("display")),
         )
 
     # ------------------------------------------------------------ change check
 
     def comparable(self) -> dict:
-        """The stored form without what may change: the shift and the plan's derived figures."""
+        """The stored form without what may change: the shift, the plan's derived figures and the display."""
         out = self.to_stored()
         del out["shift"]
         out.pop("shift_den", None)
+        out.pop("display", None)
         out["plan"] = {k: v for k, v in out["plan"].items() if k != "figures"}
         return out
 

@@ -26,6 +26,20 @@ __all__ = [
     "parse_duration",
     "json_safe",
     "as_utc",
+    "OPEN_END",
+    "MISSING",
+    "figure",
+    "interval_width",
+    "quantity",
+    "end_text",
+    "interval_words",
+    "relative_change",
+    "evidence_count",
+    "design_effect_warning",
+    "estimate_words",
+    "method_words",
+    "spending_words",
+    "design_words",
 ]
 
 UTC = timezone.utc
@@ -164,3 +178,224 @@ def _percent(p) -> str:
     if p > 99:
         return "over 99 %"
     return f"{p:.0f} %"
+
+
+# ---------------------------------------------------------------------------
+# Figures: one number format for every surface (command line, dashboard, alerts, review).
+
+# How an interval's open end is written (a one-sided design's interval has one).
+OPEN_END = "open"
+# A figure that does not exist (no look yet, a look that tested nothing).
+MISSING = "—"
+# Places of decimals a figure is never written beyond: past them a figure reads as noise.
+_MAX_DECIMALS = 12
+
+
+def _finite(value) -> float | None:
+    if value is None or isinstance(value, bool):
+        return None
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return None
+    return value if math.isfinite(value) else None
+
+
+def _plain(value: float, decimals: int) -> str:
+    text = f"{value:.{max(0, min(decimals, _MAX_DECIMALS))}f}"
+    if text.lstrip("-").strip("0.") == "":
+        text = text.lstrip("-")  # never "-0" or "-0.00"
+    return text
+
+
+def figure(value, width=None, *, digits: int = 4, missing: str = MISSING) -> str:
+    """A figure as every surface writes it: plain decimals, never an exponent, ``nan`` or ``inf``.
+
+    With ``width`` (the width of the interval the figure belongs to, in the same units) the
+    decimals are chosen so that the width reads with two significant figures: a figure is
+    shown as precisely as the data know it, no more. Without a width, ``digits`` significant
+    figures (trailing zeros dropped). Whole numbers stay whole; a missing or non-finite value
+    is ``missing``.
+
+    >>> figure(431.27381, 22.3), figure(0.0058761, 0.021), figure(0.05), figure(1234567.8), figure(None)
+    ('431', '0.006', '0.05', '1234568', '—')
+    """
+    if isinstance(value, int) and not isinstance(value, bool):
+        return str(value)
+    value = _finite(value)
+    if value is None:
+        return missing
+    width = _finite(width)
+    if width is not None and width > 0:
+        return _plain(value, 1 - math.floor(math.log10(width)))
+    if value == 0:
+        return "0"
+    magnitude = math.floor(math.log10(abs(value)))
+    if magnitude >= digits - 1:
+        return _plain(value, 0)
+    text = _plain(value, digits - 1 - magnitude)
+    return text.rstrip("0").rstrip(".") if "." in text else text
+
+
+def interval_width(low, high) -> float | None:
+    """The width of an interval with both ends, else None (an open end has no width)."""
+    low, high = _finite(low), _finite(high)
+    return None if low is None or high is None or high <= low else high - low
+
+
+def _scale(metric) -> float:
+    # Differences of rates are written in percentage points.
+    return 100.0 if metric == "proportion" else 1.0
+
+
+def quantity(value, *, metric="mean", unit="", width=None, missing: str = MISSING, signed=False) -> str:
+    """A difference (or a bound of one) in the operation's units: ``"4.2 s"``, ``"0.59 pp"``.
+
+    Rates are written in percentage points (``pp``); a mean carries its configured ``unit``
+    (``""``: none). ``width`` is the interval's width on the same scale as ``value``.
+    """
+    value = _finite(value)
+    if value is None:
+        return missing
+    scale = _scale(metric)
+    width = _finite(width)
+    text = figure(value * scale, None if width is None else width * scale)
+    if signed and value > 0:
+        text = "+" + text
+    suffix = "pp" if metric == "proportion" else (unit or "")
+    return f"{text} {suffix}" if suffix else text
+
+
+def end_text(value, *, metric="mean", width=None) -> str:
+    """One end of an interval: its figure, or ``open`` (the one way every surface writes it)."""
+    value = _finite(value)
+    if value is None:
+        return OPEN_END
+    width = _finite(width)
+    return figure(value * _scale(metric), None if width is None else width * _scale(metric))
+
+
+def interval_words(low, high, *, metric="mean", unit="", missing="none") -> str:
+    """``"[420, 442] s"``; an open end written ``open``; ``missing`` when neither end exists."""
+    if _finite(low) is None and _finite(high) is None:
+        return missing
+    width = interval_width(low, high)
+    suffix = "pp" if metric == "proportion" else (unit or "")
+    text = f"[{end_text(low, metric=metric, width=width)}, {end_text(high, metric=metric, width=width)}]"
+    return f"{text} {suffix}" if suffix else text
+
+
+def relative_change(estimate, reference) -> str | None:
+    """The difference relative to group 2's level (``"+2.3 %"``), or None where it does not exist.
+
+    None when either figure is missing or group 2's level is zero (nothing to be relative to).
+    """
+    estimate, reference = _finite(estimate), _finite(reference)
+    if estimate is None or reference is None or reference == 0:
+        return None
+    share = 100.0 * estimate / abs(reference)
+    text = figure(share, digits=2)
+    return f"+{text} %" if share > 0 and text != "0" else f"{text} %"
+
+
+def evidence_count(*, method=None, clustered=False, pairs=None, clusters=None, days=None):
+    """The count the evidence is really made of, as ``(noun, number)``, or None when events are.
+
+    Pairs for a paired comparison, clusters for a clustered one, days for a before/after one
+    (``days``: when a comparison measures its difference in differences by day); events
+    otherwise (None). The number is None while it is not known yet.
+    """
+    if days is not None:
+        return "days", days
+    if method == "paired":
+        return "pairs", pairs
+    if clustered:
+        return "clusters", clusters
+    return None
+
+
+def design_effect_warning(design_effect, name=None) -> str:
+    """The warning for a day-level design effect on a comparison that is not clustered.
+
+    Says what it means for the result (the interval is too narrow by the square root of the
+    design effect, a difference found may be a false alarm) and the exact remedy.
+    """
+    restart = f"`gapwatch restart {name}`" if name else "`gapwatch restart` on it"
+    return (f"day-level design effect {design_effect:.2f}: events on the same day move together, so the "
+            f"interval is about {math.sqrt(max(design_effect, 1.0)):.1f} times too narrow and the chance of a "
+            f"false alarm is above the planned alpha (a difference found may not be real). Remedy: add "
+            f"cluster_by = \"day\" to this comparison in the configuration and run {restart}; the next "
+            f"version tests day by day")
+
+
+def estimate_words(estimate, low, high, *, metric="mean", unit="", no_interval="no interval") -> str:
+    """An estimate with its interval in the operation's units: ``"4.2 [1.1, 7.3] s"``.
+
+    Figures to the interval's width, an open end ``open``, rates in percentage points;
+    ``MISSING`` with no estimate, ``"4.2 s (no interval)"`` when the look recorded none.
+    """
+    if _finite(estimate) is None:
+        return MISSING
+    suffix = "pp" if metric == "proportion" else (unit or "")
+    if _finite(low) is None and _finite(high) is None:
+        return f"{quantity(estimate, metric=metric, unit=unit)} ({no_interval})"
+    width = interval_width(low, high)
+    text = (f"{end_text(estimate, metric=metric, width=width)} [{end_text(low, metric=metric, width=width)}, "
+            f"{end_text(high, metric=metric, width=width)}]")
+    return f"{text} {suffix}" if suffix else text
+
+
+_METHOD_WORDS = {
+    "welch": "Welch t",
+    "pooled": "pooled-variance t",
+    "z": "z with known standard deviations",
+    "paired": "paired t",
+    "proportions": "score test of two rates",
+}
+
+
+def method_words(method, *, clustered_by=None) -> str:
+    """A method as a reader names it; a clustered one says so (its test is cluster-robust)."""
+    words = _METHOD_WORDS.get(method, str(method or "unknown method"))
+    if clustered_by:
+        return f"cluster-robust t (clusters: {clustered_by})"
+    return words
+
+
+def spending_words(spec) -> str:
+    """A spending function as words: ``"O'Brien–Fleming-type spending"``, ``"Pocock-type spending"``…"""
+    spec = str(spec or "")
+    if spec == "obrien-fleming":
+        return "O'Brien–Fleming-type spending"
+    if spec == "pocock":
+        return "Pocock-type spending"
+    if spec.startswith("hsd:"):
+        return f"Hwang–Shih–DeCani spending (γ = {spec[4:]})"
+    if spec.startswith("power:"):
+        return f"power-family spending (ρ = {spec[6:]})"
+    return f"{spec} spending" if spec else "spending not recorded"
+
+
+def _alternative_words(alternative, names) -> str:
+    if alternative == "greater":
+        return f"one-sided ({names[0]} above {names[1]})"
+    if alternative == "less":
+        return f"one-sided ({names[0]} below {names[1]})"
+    return "two-sided"
+
+
+def design_words(design: dict, names=None) -> str:
+    """The design in one line: ``"Welch t, two-sided, alpha 0.05, O'Brien–Fleming-type spending"``.
+
+    ``design`` is a stored design dict (``Design.to_stored()``); ``names`` the groups as shown.
+    """
+    design = design or {}
+    clustering = design.get("clustering") or {}
+    clustered_by = clustering.get("cluster_by") or clustering.get("cluster_column")
+    names = list(names or design.get("groups") or ["group 1", "group 2"])
+    parts = [method_words(design.get("method"), clustered_by=clustered_by),
+             _alternative_words(design.get("alternative"), names)]
+    if _finite(design.get("alpha")) is not None:
+        parts.append(f"alpha {figure(design['alpha'])}")
+    parts.append(spending_words(design.get("spending")))
+    return ", ".join(parts)

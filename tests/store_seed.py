@@ -66,6 +66,8 @@ class Scenario:
     description: str = ""
     futility: bool = False
     stop_at_crossing: bool = True  # False keeps every look (the scale benchmark wants exact counts)
+    labels: tuple | None = None  # display names of the groups (the design's display part)
+    unit: str = ""
 
 
 SCENARIOS = (
@@ -74,6 +76,7 @@ SCENARIOS = (
         planned_per_group=3000, per_look=(140, 150), looks=9, every="10m", state="collecting",
         design_effect=2.4, excluded={"null_value": 2, "out_of_range": 1}, late_every=3,
         description="Seconds per pick, east depot against west depot",
+        labels=("East depot", "West depot"), unit="s",
     ),
     Scenario(
         "first-contact-rate", ("desk-a", "desk-b"), "proportion", "proportions", (0.79, 0.66),
@@ -232,6 +235,8 @@ def _design(s, shift):
         "table": s.name.replace("-", "_"), "schema": None, "group_column": "grp",
         "value_column": "value", "time_column": "done_at", "time_format": "auto",
         "timezone": "UTC", "min_clusters": 10 if s.cluster_by else None, "shift": shift,
+        **({"display": {k: v for k, v in (("labels", list(s.labels or ())), ("unit", s.unit)) if v}}
+           if s.labels or s.unit else {}),
     }
 
 

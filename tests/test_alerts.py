@@ -172,7 +172,7 @@ def test_email_through_smtp_with_login(engine, caplog):
     text = message.get_content()
     assert "crossed the monitoring boundary at look 4" in text
     assert "It does not say why the groups differ" in text
-    assert "-3.25" in text and "-5.5 to -1" in text
+    assert "-3.2 [-5.5, -1.0]" in text  # the estimate to its interval's width, the interval beside it
     assert alert_id in text
     assert SMTP_PASSWORD not in caplog.text
 
@@ -214,7 +214,7 @@ def test_log_channel_structured_line(engine, caplog):
     [line] = [r.getMessage() for r in caplog.records if r.name == "gapwatch.alert"]
     assert f"alert_id={alert_id}" in line
     assert "comparison=pick-seconds" in line and "decision=difference_found" in line and "look=4" in line
-    assert "interval=[-5.5, -1]" in line
+    assert "estimate=-3.2 interval=[-5.5, -1.0] unit=none" in line  # figures to the interval's width
 
 
 def test_log_channel_appends_json_lines(engine, tmp_path):

@@ -14,6 +14,9 @@ from pathlib import Path
 import pytest
 import sqlalchemy as sa
 
+from monitor.store import readback
+from monitor.vocabulary import estimate_words
+
 from monitor.cli import main
 from monitor.commands import dashboard as dashboard_command
 from monitor.store.models import Comparison, Look
@@ -82,8 +85,14 @@ def test_status_table_shows_states_numbers_and_the_design_effect_warning(config,
     t = _last_looks(url)[("pick-seconds", 1)]
     assert "◷ collecting" in pick and f"{t['n1']} / {t['n2']}" in pick
     assert f"{100 * t['fraction']:.0f}%" in pick and "deff" in pick
-    warning = lines[lines.index(pick) + 1]
+    # the groups by their display names and the design in words, then the warning with its remedy
+    assert lines[lines.index(pick) + 1].strip() == ("East depot minus West depot: Welch t, two-sided, alpha 0.05, "
+                                                    "O'Brien–Fleming-type spending")
+    row = next(r for r in readback.comparison_status(sa.create_engine(url)) if r["name"] == "pick-seconds")
+    assert estimate_words(row["estimate"], row["ci_low"], row["ci_high"], unit="s") in pick  # in seconds
+    warning = lines[lines.index(pick) + 2]
     assert warning.strip().startswith("warning:") and "design effect" in warning
+
     assert "◆ difference found" in out and "stopped" in out
     assert "line-output-shift v2" in out and "archived" not in out
 
@@ -208,4 +217,4 @@ def test_a_look_without_an_interval_says_so(config, capsys):
     engine.dispose()
     main(["status", "--config", str(path)])
     pick = next(line for line in capsys.readouterr().out.splitlines() if line.startswith("pick-seconds"))
-    assert "[no interval]" in pick and "inf" not in pick
+    assert "(no interval)" in pick and "inf" not in pick

@@ -12,7 +12,7 @@ from streamlit.testing.v1 import AppTest
 
 from dashboard import scale
 from monitor.store import readback
-from monitor.store.readback import format_number as fmt
+from monitor.vocabulary import estimate_words, figure as fmt, interval_width, quantity
 from monitor.store.models import Alert
 from monitor.vocabulary import STATES, state_label
 
@@ -101,8 +101,15 @@ def test_board_lists_every_live_comparison_with_state_and_numbers(store):
         assert f">{row['name']}</a>" in table
         assert f"{row['n1']:,} / {row['n2']:,}" in table
         assert words in table and symbol in table  # a word and a symbol, not colour alone
-        if row["estimate"] is not None and row["ci_low"] is not None:
-            assert f"{fmt(row['estimate'])} [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]" in table
+        adjusted = row["adjusted"] or {}
+        if row["stopped"] and adjusted.get("estimate") is not None:
+            # after a stop the board is read by the adjusted estimate
+            assert estimate_words(adjusted["estimate"], adjusted["ci_low"], adjusted["ci_high"],
+                                  metric=row["metric"], unit=row["unit"]) in table
+            assert "adjusted for the looks; at the stop" in table
+        elif row["estimate"] is not None and row["ci_low"] is not None:
+            assert estimate_words(row["estimate"], row["ci_low"], row["ci_high"], metric=row["metric"],
+                                  unit=row["unit"]) in table
         assert f"{100 * row['fraction']:.0f}%" in table
     assert "design effect" in table  # the warning on pick-seconds
     counts = dict(re.findall(r'data-state="(\w+)">.*?<span class="gw-count-n">(\d+)</span>', table))
@@ -130,7 +137,9 @@ def test_comparison_page_opens_from_the_query_and_shows_the_store(store):
     assert at.selectbox(key="comparison_name").value == "pick-seconds"
     row = readback.get_comparison(engine, "pick-seconds")
     metrics = _metrics(at)
-    assert metrics["Estimate (east − west)"] == fmt(row["estimate"])
+    width = interval_width(row["ci_low"], row["ci_high"])
+    # The groups by their display names, the estimate in the comparison's unit, to the interval's width.
+    assert metrics["Estimate (East depot − West depot)"] == quantity(row["estimate"], unit="s", width=width)
     assert metrics["Events per group"] == f"{row['n1']:,} / {row['n2']:,}"
     assert metrics["Plan reached"] == f"{100 * row['fraction']:.0f}%"
     history = readback.look_history(engine, "pick-seconds")
@@ -141,14 +150,14 @@ def test_comparison_page_opens_from_the_query_and_shows_the_store(store):
     assert "not evidence that the groups are the same" in reading
     assert "never replaces, operational judgement" in reading
     assert any("design effect" in w.value for w in at.warning)
-    assert len(at.get("download_button")) == 1
+    assert [b.label for b in at.get("download_button")][:2] == ["Download looks as CSV", "Download the review (HTML)"]
     table = at.dataframe[-1].value
     assert list(table["look"]) == list(range(1, 10))
-    assert table["n1"].iloc[-1] == row["n1"]
-    assert table["interval"].iloc[-1] == f"[{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]"
+    assert table["n East depot"].iloc[-1] == row["n1"]
+    assert table["interval"].iloc[-1] == f"[{fmt(row['ci_low'], width)}, {fmt(row['ci_high'], width)}] s"
     per_day = at.dataframe[0].value  # the day cells, inside the data-quality expander
     cells = readback.cells_by_kind(engine, "pick-seconds")["day"]
-    assert per_day["n east"].sum() == sum(c["n"] for c in cells if c["group"] == "east") == row["n1"]
+    assert per_day["n East depot"].sum() == sum(c["n"] for c in cells if c["group"] == "east") == row["n1"]
     _assert_readable(at)
 
 
@@ -180,8 +189,12 @@ def test_comparison_page_switches_comparison_and_shows_the_stop(store):
     assert at.query_params["name"] == "first-contact-rate"
     metrics = _metrics(at)
     adjusted = readback.look_history(engine, "first-contact-rate")[-1]["adjusted"]
-    assert metrics["Adjusted estimate"] == fmt(adjusted["estimate"])
-    assert metrics["Adjusted p-value"] == fmt(adjusted["p_value"], 3)
+    width = interval_width(adjusted["ci_low"], adjusted["ci_high"])
+    # After a stop the headline is the adjusted estimate; rates in percentage points.
+    headline = quantity(adjusted["estimate"], metric="proportion", width=width)
+    assert metrics["Adjusted estimate (desk-a − desk-b)"] == headline
+    assert metrics["Adjusted estimate"] == headline
+    assert metrics["Adjusted p-value"] == fmt(adjusted["p_value"], digits=3)
     assert "crossed the efficacy boundary" in _html(at)
     _assert_readable(at)
 
@@ -322,7 +335,7 @@ def test_open_interval_ends_and_a_clock_running_ahead(tmp_path, monkeypatch):
     monkeypatch.setenv("GAPWATCH_CONFIG", str(path))
     at = _app()
     table = _html(at)
-    assert ", ∞]" in table
+    assert ", open]" in table  # the one way every surface writes an open end
     assert "ahead of this machine's clock" in " ".join(c.value for c in at.caption)
     assert "s ago" in table or "min ago" in table  # read against the newest look, not "in 3 days"
     at = _app("views/comparison.py", name="pick-seconds")
@@ -372,3 +385,63 @@ def test_comparison_page_shows_the_outlook_and_the_changes_of_plan(tmp_path, mon
     text = "\n".join(m.value for m in app.markdown)
     assert "Changes of plan" in text
     assert "Replan 1 after look 1" in text and "by dana" in text and "→ 300 events per group — event rate halved" in text
+
+
+def test_the_comparison_page_offers_the_printable_review(store, monkeypatch):
+    # What the page hands the browser, caught where Streamlit stores a download's bytes.
+    from streamlit.runtime.memory_media_file_storage import MemoryMediaFileStorage
+
+    files = {}
+    keep = MemoryMediaFileStorage.load_and_get_id
+
+    def load_and_get_id(self, path_or_data, mimetype, kind, filename=None):
+        file_id = keep(self, path_or_data, mimetype, kind, filename)
+        files[file_id] = (path_or_data, mimetype, filename)
+        return file_id
+
+    monkeypatch.setattr(MemoryMediaFileStorage, "load_and_get_id", load_and_get_id)
+    monkeypatch.setenv("GAPWATCH_CHROMIUM", "/nonexistent/chromium")  # no browser: no PDF offered
+    monkeypatch.setenv("PATH", "")
+    at = _app("views/comparison.py", name="pick-seconds")
+    [button] = [b for b in at.get("download_button") if b.key.startswith("review-")]
+    assert button.label == "Download the review (HTML)"
+    content, mimetype, filename = files[button.proto.url.rsplit("/", 1)[-1].split(".")[0]]
+    page = content.decode("utf-8") if isinstance(content, bytes) else content
+    assert mimetype == "text/html" and filename == "pick-seconds-v1-review.html"
+    assert page.startswith("<!DOCTYPE html>") and "Review of pick-seconds" in page
+    assert "East depot (east) vs West depot (west)" in page  # the names as configured beside the codes
+    assert "<dt>unit</dt><dd>s</dd>" in page
+    assert "<script" not in page  # one self-contained document, nothing to run
+    assert not re.search(r"\b(None|nan|NaN|inf|Infinity)\b", re.sub(r"<[^>]+>", " ", page))
+    assert any("The review to file" in m.value for m in at.markdown)
+
+
+def test_a_paired_comparison_counts_its_pairs_and_speaks_the_design(store):
+    engine, _ = store
+    at = _app("views/comparison.py", name=dashboard_seed.PAIRED)
+    row = readback.get_comparison(engine, dashboard_seed.PAIRED)
+    metrics = _metrics(at)
+    assert row["evidence"] == {"noun": "pairs", "count": row["pairs"]} and row["pairs"]
+    assert metrics["Pairs"] == f"{row['pairs']:,}"  # the count the evidence rests on, beside events
+    assert metrics["Events per group"] == f"{row['n1']:,} / {row['n2']:,}"
+    assert any("paired t, two-sided, alpha 0.05, O'Brien–Fleming-type spending" in c.value for c in at.caption)
+    table = at.dataframe[-1].value
+    assert "pairs" in table.columns and table["pairs"].iloc[-1] == f"{row['pairs']:,}"
+    board = _html(_app())
+    assert f"{row['pairs']:,} pairs" in board and "paired t" in board
+    _assert_readable(at)
+
+
+def test_a_stopped_comparison_leads_with_the_adjusted_estimate(store):
+    engine, _ = store
+    at = _app("views/comparison.py", name="first-contact-rate")
+    row = readback.get_comparison(engine, "first-contact-rate")
+    adjusted = row["adjusted"]
+    width = interval_width(adjusted["ci_low"], adjusted["ci_high"])
+    headline = at.metric[0]  # the first figure on the page
+    assert headline.label == "Adjusted estimate (desk-a − desk-b)"
+    assert headline.value == quantity(adjusted["estimate"], metric="proportion", width=width)  # in pp
+    assert "the estimate at the stop was " + quantity(adjusted["naive_estimate"], metric="proportion") in headline.help
+    assert _metrics(at)["Estimate at the stop"] == quantity(adjusted["naive_estimate"], metric="proportion",
+                                                            width=width)
+    _assert_readable(at)

@@ -23,7 +23,7 @@ import sqlalchemy as sa
 
 from monitor.store import readback
 from monitor.store.models import Alert, Comparison, Look
-from monitor.store.readback import format_number as fmt
+from monitor.vocabulary import estimate_words
 from monitor.vocabulary import STATES
 
 import dashboard_seed
@@ -210,8 +210,13 @@ def test_the_board_refreshes_in_place_and_links_to_each_comparison(served, brows
         text = line.inner_text()
         assert STATES[row["state"]][1] in text
         assert f"{row['n1']:,} / {row['n2']:,}" in text
-        if row["estimate"] is not None and row["ci_low"] is not None:
-            assert f"{fmt(row['estimate'])} [{fmt(row['ci_low'])}, {fmt(row['ci_high'])}]" in text
+        adjusted = row["adjusted"] or {}
+        if row["stopped"] and adjusted.get("estimate") is not None:
+            assert estimate_words(adjusted["estimate"], adjusted["ci_low"], adjusted["ci_high"],
+                                  metric=row["metric"], unit=row["unit"]) in text
+        elif row["estimate"] is not None and row["ci_low"] is not None:
+            assert estimate_words(row["estimate"], row["ci_low"], row["ci_high"], metric=row["metric"],
+                                  unit=row["unit"]) in text
 
     page.get_by_label("Find a comparison").fill("pick")
     page.get_by_label("Find a comparison").press("Enter")

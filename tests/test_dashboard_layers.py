@@ -7,10 +7,11 @@ import importlib.util
 from pathlib import Path
 
 DASHBOARD = Path(__file__).resolve().parent.parent / "dashboard"
-# What the dashboard may use of the monitor package: the read side, the shared vocabulary, and
-# the configuration only to find the store.
+# What the dashboard may use of the monitor package: the read side, the shared vocabulary, the
+# configuration only to find the store, and the printable review (built from the read side only)
+# for the comparison page's download.
 ALLOWED = {"monitor.store.readback", "monitor.store.export", "monitor.vocabulary", "monitor.errors",
-           "monitor.config"}
+           "monitor.config", "monitor.report"}
 
 
 def _module(package, name):

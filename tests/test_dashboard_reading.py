@@ -16,7 +16,7 @@ REF = datetime(2026, 3, 2, 12, 0, tzinfo=timezone.utc)
 def _row(**changes):
     row = {
         "name": "pick-seconds", "version": 1, "state": "collecting", "stopped": False, "archived": False,
-        "looks": 9, "groups": ["east", "west"], "metric": "mean", "alpha": 0.05, "estimate": 1.25,
+        "looks": 9, "groups": ["east", "west"], "metric": "mean", "alpha": 0.05, "estimate": 1.27,
         "ci_low": -0.5, "ci_high": 3.0, "fraction": 0.42, "null_difference": 0.0, "clusters": None,
         "design_effect": None, "next_look_at": (REF + timedelta(minutes=12)).isoformat(),
         "seconds_to_plan": 7200.0,
@@ -49,9 +49,15 @@ def test_times_against_an_injected_reference():
 
 
 def test_intervals_and_open_ends():
-    assert formats.interval_text(_row()) == "1.25 [-0.5, 3]"
-    assert formats.interval_text(_row(ci_high=None)) == "1.25 [-0.5, ∞]"
-    assert formats.interval_text(_row(ci_low=None, ci_high=None)) == "1.25 (no interval at this look)"
+    # figures to the interval's width (3.5 wide: one decimal); an open end is written "open"
+    assert formats.interval_text(_row()) == "1.3 [-0.5, 3.0]"
+    assert formats.interval_text(_row(ci_high=None)) == "1.27 [-0.5, open]"
+    assert formats.interval_text(_row(ci_low=None, ci_high=None)) == "1.27 (no interval at this look)"
+    # in the comparison's unit; rates in percentage points
+    assert formats.interval_text(_row(unit="s")) == "1.3 [-0.5, 3.0] s"
+    assert formats.interval_text(_row(metric="proportion", estimate=0.0127, ci_low=-0.005, ci_high=0.03)) == \
+        "1.3 [-0.5, 3.0] pp"
+    assert formats.bounds_text(None, 3.0, _row(unit="min")) == "[open, 3] min"
     assert formats.interval_text(_row(estimate=None)) == "—"
     assert formats.fraction_text(_row()) == "42%"
     assert formats.confidence_percent(_row(alpha=0.01)) == "99%"
@@ -60,7 +66,9 @@ def test_intervals_and_open_ends():
 
 def test_reading_while_collecting_says_what_it_does_not_show():
     text = reading.reading(_row(), [_look()])
-    assert "east minus west" in text[0] and "1.25 [-0.5, 3]" in text[0]
+    assert "east minus west" in text[0] and "1.3 [-0.5, 3.0]" in text[0]
+    named = reading.reading(_row(labels=["Hollin Cross", "Saltmarsh Lane"], unit="s"), [_look()])
+    assert "Hollin Cross minus Saltmarsh Lane" in named[0] and "1.3 [-0.5, 3.0] s" in named[0]
     assert "not evidence that the groups are the same" in text[1]
     assert text[-1] == reading.CAUTION
 
@@ -70,8 +78,9 @@ def test_reading_warns_of_clustering_only_above_the_shared_threshold():
 
     above = reading.reading(_row(design_effect=DESIGN_EFFECT_WARNING + 0.01), [_look()])
     at = reading.reading(_row(design_effect=DESIGN_EFFECT_WARNING), [_look()])
-    assert any("Cluster the comparison" in p for p in above)
-    assert not any("Cluster the comparison" in p for p in at)
+    # the consequence and the exact remedy
+    assert any("a difference found may not be real" in p and 'Add cluster_by = "day"' in p for p in above)
+    assert not any("cluster_by" in p for p in at)
 
 
 def test_reading_without_looks():

@@ -150,7 +150,7 @@ def test_clustered_by_day_matches_statsmodels_cluster_robust_ols(tmp_path):
     assert record.df == 14
     assert record.p_value == pytest.approx(fit.pvalues[1], rel=1e-6)
     assert record.decision in ("collecting", "difference_found")
-    assert not any("set cluster_by" in text for text in record.warnings)
+    assert not any("cluster_by" in text for text in record.warnings)
 
 
 def test_day_level_design_effect_warns_unclustered(tmp_path):
@@ -159,8 +159,12 @@ def test_day_level_design_effect_warns_unclustered(tmp_path):
     w = World(tmp_path, rows, planned_per_group=5000)
     record = w.look(at(12, 12))
     assert record.design_effect > 1.5 and record.effective_n < record.n1 + record.n2
-    assert any(t.startswith(f"design effect {record.design_effect:.1f} at day level: events are not "
-                            "independent; set cluster_by = \"day\"") for t in record.warnings)
+    # The warning states its consequence and the exact remedy.
+    assert any(t.startswith(f"day-level design effect {record.design_effect:.2f}: events on the same day move "
+                            "together, so the interval is about ") and "times too narrow" in t
+               and "a difference found may not be real" in t
+               and "Remedy: add cluster_by = \"day\" to this comparison" in t and "`gapwatch restart" in t
+               for t in record.warnings)
     quiet = World(tmp_path / "q" if (tmp_path / "q").mkdir() is None else None,
                   _rows(np.random.default_rng(4), 10 * 24 * 4, step_minutes=15), planned_per_group=5000)
     calm = quiet.look(at(12, 12))

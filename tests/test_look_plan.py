@@ -159,9 +159,12 @@ def test_alert_payload_and_email_carry_the_outlook():
               "p_value": 0.2, "fraction": 0.9, "n1": 90, "n2": 91, "warnings": ["zero variance"],
               "detail": {"plan": {"share": 0.45, "end": 2.0},
                          "outlook": {"completes_on": "2026-03-12", "planned_difference": 0.83}}}
-    from types import SimpleNamespace
+    from monitor.design import Design
 
-    design = SimpleNamespace(groups=("east", "west"), alpha=0.05)
+    design = Design.from_stored({"method": "welch", "metric": "mean", "groups": ["east", "west"],
+                                 "alternative": "two-sided", "alpha": 0.05, "spending": "obrien-fleming",
+                                 "plan": {"planned_per_group": 200}, "table": "picks", "group_column": "site",
+                                 "value_column": "seconds", "time_column": "done_at"})
     payload = decision_payload("pick-rate", 1, "data_problem", values, design,
                                datetime(2026, 3, 3, tzinfo=timezone.utc))
     assert payload["fraction"] == 0.45

@@ -124,3 +124,35 @@ def test_review_layout_fits_the_printable_width(stopped_world):
         finally:
             browser.close()
     assert overflow == []
+
+
+def test_review_speaks_the_operation_s_names_and_units(tmp_path):
+    from monitor.vocabulary import estimate_words, relative_change
+
+    rng = np.random.default_rng(5)
+    world = LiveWorld(tmp_path, [], planned_per_group=300, spending="pocock",
+                      labels=["Hollin Cross", "Saltmarsh Lane"], unit="s")
+    as_of = T0
+    for day in range(8):
+        insert_events(world.source_url, "events",
+                      event_rows(rng, 60, T0 + timedelta(hours=8 * day), step_minutes=4, east=108.0, west=100.0))
+        as_of = T0 + timedelta(hours=8 * day + 5)
+        record = world.look(as_of)
+        if record is None or record.decision in ("difference_found", "plan_complete"):
+            break
+    review = build_review(world.engine, "handle-time", now=as_of)
+    page = render_html(review)
+    assert review.labels == ("Hollin Cross", "Saltmarsh Lane") and review.unit == "s"
+    assert "Does the mean of Hollin Cross differ from that of Saltmarsh Lane" in page
+    assert "Hollin Cross (east) vs Saltmarsh Lane (west)" in page
+    assert "<dt>unit</dt><dd>s</dd>" in page and "estimate (s)" in page
+    assert "Welch t, two-sided, alpha 0.05, Pocock-type spending" in page
+    assert review.stopped and review.adjusted["estimate"] is not None
+    adjusted = review.adjusted
+    # after a stop the adjusted estimate leads, in seconds, with its change relative to group 2
+    interval_text = estimate_words(adjusted["estimate"], adjusted["ci_low"], adjusted["ci_high"], unit="s")
+    estimate = interval_text.split(" [", 1)[0]
+    assert f"Adjusted estimate {estimate} s</b>" in page
+    assert relative_change(adjusted["estimate"], review.extra["mean2"]) + " of Saltmarsh Lane" in page
+    text = re.sub(r"<[^>]+>", " ", page)
+    assert not FORBIDDEN.search(text), FORBIDDEN.search(text)

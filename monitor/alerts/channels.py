@@ -20,9 +20,9 @@ from pathlib import Path
 import requests
 
 from ..errors import AlertDeliveryError, InvalidArgumentError
-from ..vocabulary import parse_duration
+from ..vocabulary import end_text, interval_width, parse_duration
 from .redaction import redact
-from .wording import email_text, figure, webhook_body
+from .wording import email_text, webhook_body
 
 __all__ = [
     "Channel",
@@ -101,14 +101,17 @@ class LogChannel(Channel):
         return f"could not append to {self.path}"
 
     def _transmit(self, alert_id, payload):
+        estimate, low, high = payload.get("estimate"), payload.get("ci_low"), payload.get("ci_high")
+        metric, width = payload.get("metric") or "mean", interval_width(low, high)
         fields = {
             "alert_id": alert_id,
             "comparison": payload.get("comparison"),
             "kind": payload.get("kind"),
             "decision": payload.get("decision"),
             "look": payload.get("look"),
-            "estimate": figure(payload.get("estimate")),
-            "interval": f"[{figure(payload.get('ci_low'))}, {figure(payload.get('ci_high'))}]",
+            "estimate": end_text(estimate, metric=metric, width=width) if estimate is not None else "none",
+            "interval": f"[{end_text(low, metric=metric, width=width)}, {end_text(high, metric=metric, width=width)}]",
+            "unit": "pp" if metric == "proportion" else (payload.get("unit") or "none"),
         }
         text = " ".join(f"{k}={v}" for k, v in fields.items())
         self.logger.log(self.level, "alert %s message=%s", text, json.dumps(payload.get("message", "")))

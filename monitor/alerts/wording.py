@@ -8,11 +8,13 @@ from __future__ import annotations
 
 import json
 from datetime import datetime
+from urllib.parse import quote
 
-from ..vocabulary import json_safe, outlook_words
+from ..vocabulary import (design_words, end_text, estimate_words, figure, interval_width, json_safe, outlook_words,
+                          quantity, relative_change)
 
 __all__ = [
-    "figure",
+    "comparison_page",
     "decision_message",
     "decision_payload",
     "volume_warnings",
@@ -84,33 +86,40 @@ _KIND_WORDS = {
 }
 
 
-def figure(value, digits=4) -> str:
-    """A figure as shown in an alert: ``n/a`` for none, floats to ``digits`` significant digits."""
-    if value is None:
-        return "n/a"
-    if isinstance(value, float):
-        return f"{value:.{digits}g}"
-    return str(value)
+def comparison_page(dashboard_url, name, version=None) -> str | None:
+    """The address of a comparison's dashboard page, or None without a configured dashboard."""
+    if not dashboard_url:
+        return None
+    query = f"name={quote(str(name))}" + (f"&version={int(version)}" if version is not None else "")
+    return f"{str(dashboard_url).rstrip('/')}/comparison?{query}"
 
 
-def _bound(value, infinite: str) -> str:
-    return infinite if value is None else f"{value:.4g}"
+def _names(design):
+    return design.display.names(design.groups)
 
 
 def decision_message(name: str, kind: str, values: dict, design) -> str:
-    """One sentence on what a look decided (``values`` are the look row's values, ``design`` its Design)."""
-    groups = design.groups
+    """One sentence on what a look decided (``values`` are the look row's values, ``design`` its Design).
+
+    In the operation's names and units: the groups by their display names, the difference in
+    the comparison's unit (rates in percentage points), figures to the interval's width.
+    """
+    a, b = _names(design)
     look = values["look_number"]
+    metric, unit = design.metric, design.display.unit
     if kind == "difference_found":
         low, high = values["ci_low"], values["ci_high"]
+        width = interval_width(low, high)
         interval = ""
         if low is not None or high is not None:
+            suffix = "pp" if metric == "proportion" else unit
             interval = (f" (repeated {100 * (1 - design.alpha):.0f}% interval "
-                        f"{_bound(low, '-inf')} to {_bound(high, 'inf')})")
-        return (f"{name}: {groups[0]} minus {groups[1]} differs by {values['estimate']:.4g}{interval} at look "
-                f"{look}, with {values['n1']} and {values['n2']} events.")
+                        f"{end_text(low, metric=metric, width=width)} to {end_text(high, metric=metric, width=width)}"
+                        f"{' ' + suffix if suffix else ''})")
+        return (f"{name}: {a} minus {b} differs by {quantity(values['estimate'], metric=metric, unit=unit, width=width)}"
+                f"{interval} at look {look}, with {values['n1']} and {values['n2']} events.")
     if kind == "no_material_difference":
-        return (f"{name}: no material difference between {groups[0]} and {groups[1]} at look "
+        return (f"{name}: no material difference between {a} and {b} at look "
                 f"{look} (futility boundary crossed).")
     if kind == "plan_complete":
         return (f"{name}: the planned events were reached at look {look} without "
@@ -121,23 +130,56 @@ def decision_message(name: str, kind: str, values: dict, design) -> str:
     return f"{name}: now {kind.replace('_', ' ')} at look {look}."
 
 
-def decision_payload(name: str, version: int, kind: str, values: dict, design, as_of: datetime) -> dict:
+def _evidence(design, values) -> dict | None:
+    """The count the evidence rests on (pairs, clusters), when it is not events."""
+    if design.paired:
+        return {"noun": "pairs", "count": values.get("pairs")}
+    if design.clustered:
+        return {"noun": "clusters", "count": values.get("clusters")}
+    return None
+
+
+def decision_payload(name: str, version: int, kind: str, values: dict, design, as_of: datetime, *,
+                     dashboard_url: str | None = None) -> dict:
     """The stored payload of an alert raised by a look (the alert id is added when it is written).
 
     ``fraction`` is the share of the current plan (after a replan, of the new plan);
     ``outlook`` says when the plan completes and the chance of a finding by then, when the
-    look recorded them.
+    look recorded them. The payload carries the design in words (``design``: method, sides,
+    alpha, spending) and its parts (``alpha``, ``method``, ``alternative``, ``spending``), the
+    groups' display names (``labels``) and ``unit``, the look's ``warnings`` (each says its
+    consequence and remedy), ``evidence`` (pairs or clusters, when the count is not events),
+    the ``adjusted`` figures after a stop, and ``link`` (the comparison's dashboard page) when
+    ``dashboard_url`` is configured.
     """
     detail = values.get("detail") or {}
     share = (detail.get("plan") or {}).get("share")
+    stored = design.to_stored()
+    names = list(_names(design))
     payload = {
         "comparison": name, "version": version, "kind": kind,
         "decision": values["decision"], "look": values["look_number"], "as_of": as_of.isoformat(),
         "estimate": values["estimate"], "ci_low": values["ci_low"], "ci_high": values["ci_high"],
         "p_value": values["p_value"], "fraction": values["fraction"] if share is None else share,
         "n1": values["n1"], "n2": values["n2"], "groups": list(design.groups),
+        "labels": names, "unit": design.display.unit, "metric": design.metric,
+        "mean2": values.get("mean2"),
+        "alpha": design.alpha, "method": design.method, "alternative": design.alternative,
+        "spending": design.spending, "design": design_words(stored, names),
+        "warnings": [str(w) for w in values.get("warnings") or []],
         "message": decision_message(name, kind, values, design),
     }
+    evidence = _evidence(design, values)
+    if evidence is not None:
+        payload["evidence"] = evidence
+    after = detail.get("after_stop") or {}
+    if after.get("median_unbiased_estimate") is not None:
+        ci = after.get("adjusted_ci") or [None, None]
+        payload["adjusted"] = {"estimate": after["median_unbiased_estimate"], "ci_low": ci[0], "ci_high": ci[1],
+                               "p_value": after.get("p_value")}
+    link = comparison_page(dashboard_url, name, version)
+    if link:
+        payload["link"] = link
     outlook = outlook_words(detail.get("outlook"))
     if outlook:
         payload["outlook"] = outlook
@@ -204,12 +246,40 @@ def webhook_body(alert_id: str, payload: dict) -> bytes:
     return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode("utf-8")
 
 
+def _email_figures(payload, g1, g2) -> list[str]:
+    """The figures of a decision e-mail, in the comparison's names and units."""
+    metric, unit = payload.get("metric") or "mean", payload.get("unit") or ""
+    low, high, estimate = payload.get("ci_low"), payload.get("ci_high"), payload.get("estimate")
+    lines = []
+    adjusted = payload.get("adjusted") or {}
+    if adjusted.get("estimate") is not None:
+        lines.append(f"Adjusted estimate ({g1} minus {g2}, allowing for the looks): "
+                     + estimate_words(adjusted["estimate"], adjusted.get("ci_low"), adjusted.get("ci_high"),
+                                      metric=metric, unit=unit))
+        lines.append(f"Estimate at this look (tends to overstate at a stop): "
+                     f"{estimate_words(estimate, low, high, metric=metric, unit=unit)}")
+    else:
+        lines.append(f"Estimate ({g1} minus {g2}) with its repeated interval: "
+                     f"{estimate_words(estimate, low, high, metric=metric, unit=unit)}")
+    relative = relative_change(adjusted.get("estimate", estimate), payload.get("mean2"))
+    if relative:
+        lines.append(f"Relative to {g2}: {relative}")
+    lines.append(f"p-value at this look: {figure(payload.get('p_value'), digits=3)}")
+    counts = f"Events: {g1} {payload.get('n1', '?')}, {g2} {payload.get('n2', '?')}"
+    evidence = payload.get("evidence") or {}
+    if evidence.get("noun"):
+        count = evidence.get("count")
+        counts = f"Evidence: {'?' if count is None else count} {evidence['noun']}; " + counts[0].lower() + counts[1:]
+    lines.append(f"{counts}; information fraction {figure(payload.get('fraction'), digits=3)}")
+    return lines
+
+
 def email_text(alert_id: str, payload: dict) -> tuple[str, str]:
     """Subject and plain-text body of an alert e-mail."""
     comparison = payload.get("comparison", "?")
     kind = payload.get("kind") or "state_change"
     decision = payload.get("decision")
-    groups = payload.get("groups") or ["group 1", "group 2"]
+    groups = payload.get("labels") or payload.get("groups") or ["group 1", "group 2"]
     g1, g2 = (str(groups[0]), str(groups[1])) if len(groups) >= 2 else ("group 1", "group 2")
     if kind in _KIND_WORDS:
         title, meaning = _KIND_WORDS[kind]
@@ -219,7 +289,7 @@ def email_text(alert_id: str, payload: dict) -> tuple[str, str]:
         )
     meaning = meaning.format(
         g1=g1, g2=g2, look=payload.get("look", "?"),
-        alpha=figure(payload["alpha"], 3) if payload.get("alpha") else "the planned level",
+        alpha=figure(payload["alpha"], digits=3) if payload.get("alpha") else "the planned level",
         since=payload.get("failing_since", "?"),
     )
     subject = f"gapwatch: {comparison} - {title}"
@@ -230,17 +300,19 @@ def email_text(alert_id: str, payload: dict) -> tuple[str, str]:
         lines += [
             f"Comparison: {comparison} (version {payload.get('version', '?')})",
             f"Look: {payload.get('look', '?')} as of {payload.get('as_of', '?')}",
-            f"Estimate ({g1} minus {g2}): {figure(payload.get('estimate'))}",
-            f"Interval: {figure(payload.get('ci_low'))} to {figure(payload.get('ci_high'))}",
-            f"p-value at this look: {figure(payload.get('p_value'))}",
-            f"Events: {g1} {payload.get('n1', '?')}, {g2} {payload.get('n2', '?')}; "
-            f"information fraction {figure(payload.get('fraction'), 3)}",
+            *_email_figures(payload, g1, g2),
         ]
+        if payload.get("design"):
+            lines += [f"Design: {payload['design']}"]
         if payload.get("outlook"):
             lines += [f"Outlook: {payload['outlook'][0].upper()}{payload['outlook'][1:]}."]
+        for warning in payload.get("warnings") or []:
+            lines += [f"Warning: {warning}"]
     else:
         lines += [f"Comparison: {comparison}"]
         if payload.get("error"):
             lines += [f"Last error: {payload['error']}"]
+    if payload.get("link"):
+        lines += [f"Dashboard: {payload['link']}"]
     lines += ["", f"Alert id: {alert_id} (the same id on every repeat of this alert)"]
     return subject, "\n".join(lines) + "\n"

@@ -26,17 +26,18 @@ def readback():
     return module
 
 
-def open_store(config_path):
+def open_store(config_path, *, store_only=False):
     """The history store engine named by the configuration at ``config_path`` (None: the default search).
 
-    Checked to be at the schema this code expects (``StoreBehindError`` otherwise).
+    Checked to be at the schema this code expects (``StoreBehindError`` otherwise). With
+    ``store_only`` only the file's ``[store]`` table is read (for commands that read nothing else).
     """
     # Every command module is loaded to build the parser, and most commands never open the store.
     # lazy: so the command line does not pay for SQLAlchemy at start.
     from ..config import store_url_from_config
     from ..store.engine import open_store as open_checked
 
-    return open_checked(store_url_from_config(config_path))
+    return open_checked(store_url_from_config(config_path, store_only=store_only))
 
 
 def counted(count, noun, plural=None) -> str:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import sys
 
+from ..vocabulary import end_text, figure, interval_width
 from . import SUMMARIES
 from ._common import add_config_option, aligned_lines, open_store, print_json, readback, whole_number_type
 
@@ -42,25 +43,40 @@ def register(subparsers) -> None:
 
 def _cluster_text(fmt):
     return {"clusters": "{} clusters".format,
-            "design_effect": lambda value: f"design effect {fmt(value, 3)}",
+            "design_effect": lambda value: f"design effect {fmt(value, digits=3)}",
             "effective_n": "effective n {:.0f}".format}
 
 
-def table_lines(history):
-    fmt = readback().format_number
-    headers = ["look", "as of (UTC)", "n1", "n2", "estimate", "statistic", "boundary", "p-value",
-               "plan", "alpha spent", "excluded", "decision"]
+def _fmt(value, digits=4):
+    return figure(value, digits=digits, missing="-")
+
+
+def table_lines(history, row=None):
+    """The looks as a table; ``row`` (the comparison's status row) names the groups, the unit and
+    the count the evidence rests on (pairs, clusters)."""
+    row = row or {}
+    names = row.get("labels") or row.get("groups") or ["n1", "n2"]
+    metric = row.get("metric") or "mean"
+    unit = "pp" if metric == "proportion" else (row.get("unit") or "")
+    noun = (row.get("evidence") or {}).get("noun")
+    counted = noun if noun in ("pairs", "clusters") else None
+    headers = (["look", "as of (UTC)", f"n {names[0]}", f"n {names[1]}"] + ([counted] if counted else [])
+               + [f"estimate ({unit})" if unit else "estimate", "statistic", "boundary", "p-value",
+                  "plan", "alpha spent", "excluded", "decision"])
     body = []
     for h in history:
+        width = interval_width(h["ci_low"], h["ci_high"])
+        estimate = "-" if h["estimate"] is None else end_text(h["estimate"], metric=metric, width=width)
+        count = [("-" if h.get(counted) is None else str(h[counted]))] if counted else []
         body.append([
-            str(h["look"]), h["as_of"][:19].replace("T", " "), str(h["n1"]), str(h["n2"]),
-            fmt(h["estimate"]), fmt(h["statistic"]), fmt(h["boundary_z"]), fmt(h["p_value"], 3),
+            str(h["look"]), h["as_of"][:19].replace("T", " "), str(h["n1"]), str(h["n2"]), *count,
+            estimate, _fmt(h["statistic"]), _fmt(h["boundary_z"]), _fmt(h["p_value"], 3),
             "-" if h["plan_share"] is None else f"{100 * h['plan_share']:.0f}%",
-            fmt(h["cumulative_alpha"], 3), str(h["excluded_total"]), h["decision"],
+            _fmt(h["cumulative_alpha"], 3), str(h["excluded_total"]), h["decision"],
         ])
     lines = aligned_lines(headers, body)
     last = history[-1]
-    figures = readback().clustering_figures(last, _cluster_text(fmt))
+    figures = readback().clustering_figures(last, _cluster_text(_fmt))
     if figures:
         lines.append("latest look: " + ", ".join(figures))
     for warning in last["warnings"]:
@@ -70,7 +86,7 @@ def table_lines(history):
 
 def change_lines(history, changes):
     """How the version began (after a restart) and every replan, in words."""
-    fmt = readback().format_number
+    fmt = _fmt
     lines = []
     first = history[0]["detail"].get("restart") if history else None
     if first:
@@ -96,6 +112,7 @@ def run(args) -> int:
     try:
         history = readback().look_history(engine, args.name, version=args.version)
         changes = readback().plan_change_history(engine, args.name, version=args.version) if history else []
+        row = readback().get_comparison(engine, args.name, version=args.version) if history else None
     finally:
         engine.dispose()
     if args.format == "json":
@@ -111,5 +128,5 @@ def run(args) -> int:
     elif not history:
         print(f"{args.name}: no looks recorded yet")
     else:
-        print("\n".join(table_lines(history) + change_lines(history, changes)))
+        print("\n".join(table_lines(history, row) + change_lines(history, changes)))
     return 0

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
+from ..vocabulary import estimate_words, figure
 from . import SUMMARIES
 from ._common import add_config_option, aligned_lines, as_typed, open_store, print_json, readback
 
@@ -25,24 +26,34 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def __getattr__(name):
-    # ``fmt`` was defined here before the store's read side had a home; it stays importable.
-    if name == "fmt":
-        return readback().format_number
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+# ``fmt`` was defined here before figures had one rule for every surface; it stays importable.
+fmt = figure
 
 
 def _interval(row):
-    fmt = readback().format_number
+    """The estimate and its interval in the comparison's units; after a stop the adjusted ones.
+
+    Figures to the interval's width, an open end (one-sided designs) written ``open``, as every
+    surface writes it; a look that tested nothing says it has no interval.
+    """
+    adjusted = row.get("adjusted") or {}
+    if row["stopped"] and adjusted.get("estimate") is not None:
+        return estimate_words(adjusted["estimate"], adjusted.get("ci_low"), adjusted.get("ci_high"),
+                              metric=row.get("metric"), unit=row.get("unit"), no_interval="no interval") + " adjusted"
     if row["estimate"] is None:
         return "-"
-    if row["ci_low"] is None and row["ci_high"] is None:
-        # a look that tested nothing (no new information) records no interval
-        return f"{fmt(row['estimate'])} [no interval]"
-    # A one-sided design's interval has an open end: said in words, as the report says it.
-    low = "open" if row["ci_low"] is None else fmt(row["ci_low"])
-    high = "open" if row["ci_high"] is None else fmt(row["ci_high"])
-    return f"{fmt(row['estimate'])} [{low}, {high}]"
+    return estimate_words(row["estimate"], row["ci_low"], row["ci_high"], metric=row.get("metric"),
+                          unit=row.get("unit"))
+
+
+def _counts(row):
+    """Events per group, after the count the evidence rests on (pairs, clusters) where it is not events."""
+    events = f"{row['n1']} / {row['n2']}"
+    evidence = row.get("evidence")
+    if not evidence:
+        return events
+    count = "-" if evidence.get("count") is None else evidence["count"]
+    return f"{count} {evidence['noun']}, {events}"
 
 
 def _fraction(row):
@@ -83,7 +94,7 @@ _VOLUME_WORDS = {"ok": "ok", "warning": "warning", "not_yet_measurable": "not ye
 
 
 def table_lines(rows, now):
-    headers = ["comparison", "state", "looks", "n per group", "estimate [repeated CI]", "plan",
+    headers = ["comparison", "state", "looks", "evidence, n per group", "estimate [repeated CI]", "plan",
                "to plan", "clustering", "volume", "next look"]
     body = []
     for r in rows:
@@ -91,13 +102,16 @@ def table_lines(rows, now):
         if r["archived"]:
             name += " (archived)"
         to_plan = "-" if r["seconds_to_plan"] is None else readback().describe_seconds(r["seconds_to_plan"])
-        body.append([name, r["state_label"], str(r["looks"]), f"{r['n1']} / {r['n2']}", _interval(r),
+        body.append([name, r["state_label"], str(r["looks"]), _counts(r), _interval(r),
                      _fraction(r), to_plan, _clusters(r), _VOLUME_WORDS.get(r.get("volume_state"), "-"),
                      _when(r, now)])
     header, *row_lines = aligned_lines(headers, body)
     lines = [header]
     for r, line in zip(rows, row_lines):
         lines.append(line)
+        names = r.get("labels") or r.get("groups") or []
+        if len(names) == 2 and r.get("design_words"):
+            lines.append(f"    {names[0]} minus {names[1]}: {r['design_words']}")
         if r.get("outlook_words"):
             lines.append(f"    {r['outlook_words']}")
         lines.extend(f"    warning: {as_typed(warning)}" for warning in r["warnings"])

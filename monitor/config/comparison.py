@@ -543,6 +543,49 @@ class Settings(Part):
         return value
 
 
+# Long enough for a site's or a desk's full name; short enough for a table column.
+_LABEL_LIMIT = 60
+_UNIT_LIMIT = 20
+
+
+class Display(Part):
+    """How the comparison is shown (never frozen into its design): group names and the unit."""
+
+    labels: tuple[str, str] | None = None
+    unit: str = ""
+
+    @field_validator("labels", mode="before")
+    @classmethod
+    def _labels(cls, value, info):
+        groups = ctx(info).raw("groups")
+        count = len(groups) if isinstance(groups, list) else 2
+        if not isinstance(value, list) or not all(isinstance(x, str) for x in value):
+            raise keyed(f"must be a list of {count} names, one per group in group order; got {value!r}")
+        if len(value) != count:
+            raise keyed(f"must name each of the {count} groups once, in group order; got {len(value)} "
+                        f"name{'s' if len(value) != 1 else ''}: {value!r}")
+        empty = [i + 1 for i, x in enumerate(value) if not x.strip()]
+        if empty:
+            raise keyed(f"name {empty[0]} is empty; give each group a name to show, or leave labels out")
+        long = [x for x in value if len(x.strip()) > _LABEL_LIMIT]
+        if long:
+            raise keyed(f"names must be at most {_LABEL_LIMIT} characters; got {long[0]!r}")
+        if value[0].strip() == value[1].strip():
+            raise keyed(f"must be two different names; got {value!r}")
+        return tuple(x.strip() for x in value)
+
+    @field_validator("unit", mode="before")
+    @classmethod
+    def _unit(cls, value):
+        if not isinstance(value, str):
+            raise keyed(f"must be text such as \"s\", \"min\" or \"units\"; got {value!r}")
+        if not value.strip():
+            raise keyed("is empty; give the values' unit (e.g. \"s\"), or leave unit out")
+        if len(value.strip()) > _UNIT_LIMIT:
+            raise keyed(f"must be at most {_UNIT_LIMIT} characters; got {value!r}")
+        return value.strip()
+
+
 class ComparisonTable(BaseModel):
     """A ``[[comparison]]`` table, as its parts."""
 
@@ -554,9 +597,11 @@ class ComparisonTable(BaseModel):
     pairing: Pairing
     clustering: Clustering
     settings: Settings
+    display: Display
 
     PARTS: ClassVar[dict] = {"reading": Reading, "inference": Inference, "planning": Planning,
-                             "pairing": Pairing, "clustering": Clustering, "settings": Settings}
+                             "pairing": Pairing, "clustering": Clustering, "settings": Settings,
+                             "display": Display}
 
     @classmethod
     def keys(cls) -> set[str]:
@@ -591,6 +636,7 @@ class ComparisonTable(BaseModel):
             notify=s.notify, description=s.description, schema=r.schema_,
             numerator_column=r.numerator_column, denominator_column=r.denominator_column,
             expected_share=s.expected_share,
+            labels=self.display.labels, unit=self.display.unit,
         )))
 
 

@@ -66,14 +66,7 @@ def load_config(path=None, environ=None) -> Config:
     environ = os.environ if environ is None else environ
     path = _find_path(path, environ)
     label = path.name
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise ConfigError([f"cannot read the configuration file ({exc.strerror or exc})"], label) from None
-    try:
-        data = tomllib.loads(raw.decode("utf-8"))
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError([f"not valid TOML: {exc}"], label) from None
+    data = _read(path)
     # The validators (pydantic, SQLAlchemy's URL parser, APScheduler's cron, the spending
     # functions) load only when a file is read: every command module imports this package
     # to build the command line's parser, and most commands never read a file.
@@ -89,9 +82,47 @@ def load_config(path=None, environ=None) -> Config:
     return config
 
 
-def store_url_from_config(path=None) -> str:
-    """The ``[store] url`` of a configuration file (argument, ``$GAPWATCH_CONFIG``, ``./gapwatch.toml``)."""
-    return load_config(path).store_url
+def store_url_from_config(path=None, *, store_only: bool = False, environ=None) -> str:
+    """The ``[store] url`` of a configuration file (argument, ``$GAPWATCH_CONFIG``, ``./gapwatch.toml``).
+
+    By default the whole file is validated first. With ``store_only`` only the ``[store]`` table
+    is read and checked (by the same rule): what a reader of the store alone needs, such as the
+    dashboard, which then starts without loading every comparison's validators.
+    """
+    if not store_only:
+        return load_config(path, environ).store_url
+    environ = os.environ if environ is None else environ
+    path = _find_path(path, environ)
+    data = _read(path)
+    # lazy: the URL rule loads SQLAlchemy's URL parser, needed only when a file is read.
+    from .model import DEFAULT_STORE_URL
+    from .rules import FromEnvironment, database_url
+
+    problems: list[str] = []
+    store = data.get("store", {})
+    if not isinstance(store, dict):
+        raise ConfigError([f"[store]: 'store' must be a table; got {store!r}"], path.name)
+    store = _substitute(store, environ, problems, "store", FromEnvironment)
+    if problems:
+        raise ConfigError(problems, path.name)
+    try:
+        return str.__str__(database_url(store.get("url", DEFAULT_STORE_URL), path.resolve().parent))
+    except ValueError as problem:  # the rule's own words, after the key it concerns
+        raise ConfigError([f"[store]: 'url' {problem.message() if hasattr(problem, 'message') else problem}"],
+                          path.name) from None
+
+
+def _read(path: Path) -> dict:
+    """The file's TOML as a dict; ConfigError when it cannot be read or parsed."""
+    label = path.name
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise ConfigError([f"cannot read the configuration file ({exc.strerror or exc})"], label) from None
+    try:
+        return tomllib.loads(raw.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError([f"not valid TOML: {exc}"], label) from None
 
 
 def _substitute(value, environ, problems, where, text_type):

@@ -146,6 +146,9 @@ class ComparisonConfig:
     numerator_column: str | None = None
     denominator_column: str | None = None
     expected_share: float | None = None     # the volume check's share of group 1 (None: learned)
+    # Display only (monitor.design.Display): a name per group, in group order, and the values' unit.
+    labels: tuple | None = None
+    unit: str = ""
 
     @property
     def schedule(self):
@@ -199,6 +202,8 @@ class Config:
     comparisons: tuple
     channels: dict
     service: ServiceConfig
+    # The dashboard's address ([alerts] dashboard_url): alerts link to the comparison's page.
+    dashboard_url: str | None = None
 
     def comparison(self, name: str) -> ComparisonConfig:
         """The comparison of that name; UnknownComparisonError lists the known ones."""

@@ -1,4 +1,5 @@
-"""Validation of the file's sections: ``[store]``, ``[sources]``, ``[service]``, ``[channels]``, the whole.
+"""Validation of the file's sections: ``[store]``, ``[sources]``, ``[service]``, ``[channels]``,
+``[alerts]``, the whole.
 
 One typed model per section (pydantic), one validator per key; the comparisons are
 checked part by part in :mod:`monitor.config.comparison`.
@@ -20,7 +21,7 @@ from .rules import (Context, Part, checked, ctx, database_url, duration, is_whol
 
 __all__ = ["check_config", "config_keys"]
 
-_TOP_KEYS = ("store", "sources", "service", "channels", "comparison")
+_TOP_KEYS = ("store", "sources", "service", "channels", "alerts", "comparison")
 
 
 class StoreTable(Part):
@@ -65,6 +66,20 @@ class ServiceTable(Part):
     @classmethod
     def _seconds(cls, value, info):
         return parse_duration(duration(value, key=info.field_name))
+
+
+class AlertsTable(Part):
+    """``[alerts]``: what every alert carries beyond its own figures."""
+
+    dashboard_url: str | None = None
+
+    @field_validator("dashboard_url", mode="before")
+    @classmethod
+    def _dashboard_url(cls, value):
+        if not isinstance(value, str) or not re.match(r"^https?://[^\s/]+", value):
+            raise keyed(f"must be the dashboard's http(s) address (e.g. \"https://gapwatch.example.org\"); "
+                        f"got {value!r}")
+        return value.rstrip("/")
 
 
 # ---------------------------------------------------------------- channels
@@ -168,7 +183,7 @@ def _section(data, key, where, problems) -> dict:
 
 def config_keys() -> set[str]:
     """Every key a ``[[comparison]]``, a channel or ``[service]`` may hold (the README names each)."""
-    keys = set(ComparisonTable.keys()) | set(ServiceTable.model_fields)
+    keys = set(ComparisonTable.keys()) | set(ServiceTable.model_fields) | set(AlertsTable.model_fields)
     for model in _CHANNEL_MODELS.values():
         keys |= set(model.model_fields)
     return keys
@@ -231,8 +246,11 @@ def check_config(data: dict, path: Path, problems: list) -> Config:
     service, found = validate(ServiceTable, _section(data, "service", "[service]", problems), "[service]",
                               context)
     problems += found
+    alerts, found = validate(AlertsTable, _section(data, "alerts", "[alerts]", problems), "[alerts]", context)
+    problems += found
     context = Context(folder=folder, sources=tuple(sources), channels=tuple(channels))
     comparisons = _comparisons(data.get("comparison", []), context, problems)
     return Config(path=path, store_url=plain(store.url) if store else "", sources=sources,
                   comparisons=comparisons, channels=channels,
-                  service=ServiceConfig(**service.model_dump()) if service else ServiceConfig())
+                  service=ServiceConfig(**service.model_dump()) if service else ServiceConfig(),
+                  dashboard_url=plain(alerts.dashboard_url) if alerts else None)

@@ -45,7 +45,7 @@ from ..stats.inference import adjusted_inference, repeated_confidence_interval
 from ..stats.proportions import score_interval, score_statistic
 from ..stats.sequential_t import SequentialTBoundary
 from ..stats.summaries import MomentSummary
-from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES
+from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES, design_effect_warning
 from .cells import summary
 from .plan import (PlanState, conditional_powers, original_fraction, plan_state, projection, recent_rates,
                    z_of)
@@ -138,8 +138,7 @@ def weigh(inputs: LookInputs) -> Evidence:
 
     de = day_design_effect(design, cells, s1, s2)
     if de is not None and de.measurable and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
-        warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
-                        f"set cluster_by = \"day\"")
+        warnings.append(design_effect_warning(de.design_effect))
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
                     tuple(warnings), _projection(inputs, s1, s2, st, fraction))
 

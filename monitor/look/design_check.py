@@ -31,4 +31,5 @@ def frozen_design(name: str, stored: dict | None, configured: Design) -> Design:
             f"differs from the configuration in: {', '.join(changed)}. To start anew, give the "
             f"comparison a new name, or run `gapwatch restart {name}` (archives version "
             f"{version}; the next look starts version {version + 1} with the new design)")
-    return frozen
+    # The display (group names, unit) is not design: the configured one is shown from now on.
+    return frozen.with_display(configured.display)

@@ -217,7 +217,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         new_state=decision.decision, stopped=decision.stopped, look=values, cells=cells,
         changes=rolled.changes, watermark=batch.watermark.to_dict(), as_of=as_of,
         alert=None if alert is None else AlertDraft(
-            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify)),
+            alert, decision_payload(c.name, state.version, alert, values, design, as_of,
+                                    dashboard_url=getattr(config, "dashboard_url", None)), tuple(c.notify)),
         volume_alert=volume_alert))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.

@@ -115,7 +115,7 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         ))
     excluded = dict(history[-1]["excluded"]) if history else {}
     groups = tuple(str(g) for g in row["groups"])
-    labels = settings.get("labels") or list(groups)
+    labels = row.get("labels") or list(groups)
     alerts = tuple(a for a in readback.list_alerts(engine, comparison=name)
                    if a["comparison_id"] == row["id"])
     versions = tuple(readback.list_versions(engine, name))
@@ -123,8 +123,9 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         name=row["name"], version=row["version"], state=row["state"],
         state_words=state_words(row["state"]), stopped=row["state"] in STOPPED_STATES,
         description=row.get("description") or "", groups=groups,
-        labels=tuple(str(label) for label in labels), unit=str(settings.get("unit") or ""),
+        labels=tuple(str(label) for label in labels), unit=str(row.get("unit") or ""),
         design=design, settings=settings, created_at=row["created_at"], stopped_at=row["stopped_at"],
         looks=tuple(lines), excluded=excluded, adjusted=row["adjusted"], alerts=alerts,
         versions=versions, warnings=tuple(row["warnings"]), generated_at=now.isoformat(timespec="seconds"),
+        extra={"mean2": row.get("mean2"), "evidence": row.get("evidence")},
     )

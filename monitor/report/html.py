@@ -9,8 +9,8 @@ from __future__ import annotations
 import html
 import math
 
-from ..store.readback import format_number
-from ..vocabulary import state_label
+from ..vocabulary import (design_words, end_text, figure, interval_width, quantity, relative_change,
+                          state_label)
 from .content import Review
 
 __all__ = ["render_html"]
@@ -51,18 +51,28 @@ def _e(value) -> str:
 
 
 def _n(value, unit="") -> str:
-    text = format_number(value)
-    if text == "-":
-        return "—"
-    return f"{text} {unit}".rstrip() if unit else text
+    """A plain figure (a count, a level, a z) with an optional unit; ``—`` when missing."""
+    text = figure(value)
+    return f"{text} {unit}".rstrip() if unit and text != "—" else text
 
 
-def _interval(low, high, unit="") -> str:
+def _metric(r: Review) -> str:
+    return r.design.metric
+
+
+def _amount(r: Review, value, width=None) -> str:
+    """A difference in the comparison's units (rates in percentage points), to the interval's width."""
+    return quantity(value, metric=_metric(r), unit=r.unit, width=width)
+
+
+def _interval(low, high, r: Review | None = None, *, with_unit=True) -> str:
     if low is None and high is None:
         return "none yet"
-    lo = "open" if low is None else _n(low)
-    hi = "open" if high is None else _n(high)
-    return f"{lo} to {hi}{(' ' + unit) if unit else ''}"
+    metric = _metric(r) if r is not None else "mean"
+    width = interval_width(low, high)
+    text = f"{end_text(low, metric=metric, width=width)} to {end_text(high, metric=metric, width=width)}"
+    suffix = "pp" if metric == "proportion" else (r.unit if r is not None else "")
+    return f"{text} {suffix}" if suffix and with_unit else text
 
 
 def _when(iso) -> str:
@@ -81,7 +91,8 @@ def _question(r: Review) -> str:
     alt = r.design.alternative
     delta = float(r.design.null_difference or 0.0)
     unit = f" {r.unit}" if r.unit else ""
-    base = f"{_n(delta)}{unit}" if delta else "zero"
+    base = _amount(r, delta) if delta else "zero"
+    del unit
     if alt == "two-sided":
         claim = f"Does the {what} of {a} differ from that of {b} (difference other than {base})?"
     elif alt == "greater":
@@ -109,12 +120,13 @@ def _design_rows(r: Review) -> str:
         ("groups", " vs ".join(f"{label} ({code})" if label != code else code
                                for label, code in zip(r.labels, r.groups))),
         ("measured", f"{m.value_column} in table {m.table}, time {m.time_column}"),
-        ("method", f"{d.method} ({d.metric})"),
+        ("unit", "percentage points (differences of rates)" if d.metric == "proportion" else (r.unit or "—")),
+        ("method", f"{d.method} ({d.metric}): {design_words(d.to_stored(), r.labels)}"),
         ("alternative", d.alternative),
         ("error rate (alpha)", _n(d.alpha)),
         ("alpha spending", d.spending),
         ("planned per group", _n(d.planned_per_group)),
-        ("null difference", _n(d.null_difference, r.unit)),
+        ("null difference", _amount(r, d.null_difference)),
         ("clustering", _settings_text(d.clustering)),
         ("pairing", _settings_text(d.pairing)),
         ("time zone", m.timezone),
@@ -132,18 +144,29 @@ def _result(r: Review) -> str:
     if last is None:
         return "<p class='lead'>No look has been recorded yet.</p>"
     parts = []
+    a, b = (r.labels + ("group 1", "group 2"))[:2]
     if r.stopped and r.adjusted and r.adjusted.get("estimate") is not None:
         adj = r.adjusted
+        width = interval_width(adj.get("ci_low"), adj.get("ci_high"))
+        relative = relative_change(adj["estimate"], r.extra.get("mean2"))
         parts.append(
-            f"<p class='lead'><b>Adjusted estimate {_e(_n(adj['estimate'], unit))}</b>, "
-            f"interval {_e(_interval(adj.get('ci_low'), adj.get('ci_high'), unit))}, "
+            f"<p class='lead'><b>Adjusted estimate {_e(_amount(r, adj['estimate'], width))}</b> ({_e(a)} − {_e(b)}"
+            f"{_e(', ' + relative + ' of ' + b) if relative else ''}), "
+            f"interval {_e(_interval(adj.get('ci_low'), adj.get('ci_high'), r))}, "
             f"p-value {_e(_n(adj.get('p_value')))} (allowing for the repeated looks; stopped at look "
             f"{_e(adj.get('stop_look') or last.look)}). The last look's own estimate was "
-            f"{_e(_n(adj.get('naive_estimate'), unit))}.</p>")
+            f"{_e(_amount(r, adj.get('naive_estimate'), width))}.</p>")
     else:
+        width = interval_width(last.ci_low, last.ci_high)
+        relative = relative_change(last.estimate, r.extra.get("mean2"))
         parts.append(
-            f"<p class='lead'>Latest estimate {_e(_n(last.estimate, unit))} (group 1 − group 2), "
-            f"repeated interval {_e(_interval(last.ci_low, last.ci_high, unit))}.</p>")
+            f"<p class='lead'>Latest estimate {_e(_amount(r, last.estimate, width))} ({_e(a)} − {_e(b)}"
+            f"{_e(', ' + relative + ' of ' + b) if relative else ''}), "
+            f"repeated interval {_e(_interval(last.ci_low, last.ci_high, r))}.</p>")
+    evidence = r.extra.get("evidence") or None
+    if evidence and evidence.get("count") is not None:
+        parts.append(f"<p>The evidence rests on {_e(evidence['count'])} {_e(evidence['noun'])} "
+                     f"({_e(last.n1)} and {_e(last.n2)} events).</p>")
     parts.append(
         f"<p>{_e(len(r.looks))} looks; information {_e(_pct(last.fraction))} of the plan; "
         f"alpha spent {_e(_n(last.cumulative_alpha))} of {_e(_n(r.design.alpha))}.</p>")
@@ -153,7 +176,8 @@ def _result(r: Review) -> str:
 
 
 def _look_tables(r: Review) -> str:
-    unit = f" ({_e(r.unit)})" if r.unit else ""
+    unit_name = "pp" if _metric(r) == "proportion" else r.unit
+    unit = f" ({_e(unit_name)})" if unit_name else ""
     paired = any(lk.pairs for lk in r.looks)
     clustered = any(lk.clusters for lk in r.looks)
     count_head = "pairs" if paired else ("clusters" if clustered else "events")
@@ -170,7 +194,8 @@ def _look_tables(r: Review) -> str:
             count = f"{_n(lk.n1)} / {_n(lk.n2)}"
         evidence.append(
             f"<tr><td>{lk.look}</td><td class='text'>{_when(lk.as_of)}</td><td>{_e(count)}</td>"
-            f"<td>{_e(_n(lk.estimate))}</td><td class='text'>{_e(_interval(lk.ci_low, lk.ci_high))}</td>"
+            f"<td>{_e(end_text(lk.estimate, metric=_metric(r), width=interval_width(lk.ci_low, lk.ci_high)) if lk.estimate is not None else '—')}</td>"
+            f"<td class='text'>{_e(_interval(lk.ci_low, lk.ci_high, r, with_unit=False))}</td>"
             f"<td>{_e(lk.excluded_new)}</td></tr>")
         decision.append(
             f"<tr><td>{lk.look}</td><td>{_e(_pct(lk.fraction))}</td><td>{_e(_n(lk.z_equivalent))}</td>"

@@ -285,8 +285,10 @@ def _write_comparison(conn, w: LookWrite) -> int:
               "last_look_at": w.as_of, "settings": w.settings}
     if w.stopped:
         update["stopped_at"] = w.as_of
-    if w.design.shift is not None and row["design"].get("shift") is None:
-        update["design"] = w.design.to_stored()  # the shift is fixed at the first look with data
+    stored = w.design.to_stored()
+    if ((w.design.shift is not None and row["design"].get("shift") is None)  # fixed at the first look with data
+            or stored.get("display") != row["design"].get("display")):  # names or unit changed (display only)
+        update["design"] = stored
     # The guard: only the look that follows the one we read may be written.
     done = conn.execute(_GUARDED_UPDATE, {**update, "guard_id": row["id"], "guard_looks": row["looks_taken"],
                                           "guard_replans": row.get("replans") or 0})

@@ -21,8 +21,8 @@ from apscheduler.triggers.interval import IntervalTrigger
 
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, json_safe,
-                          parse_duration, state_label, outlook_words)
+from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, design_effect_warning,
+                          design_words, evidence_count, json_safe, method_words, parse_duration, state_label, outlook_words)
 from .engine import open_store
 from .models import Alert, Cell, Comparison, Delivery, Look, LookCheck, Worker
 from .plan_changes import plan_changes
@@ -35,7 +35,6 @@ __all__ = [
     "state_label",
     "describe_seconds",
     "describe_wait",
-    "format_number",
     "clustering_figures",
     "comparison_status",
     "list_comparisons",
@@ -81,22 +80,6 @@ def describe_seconds(seconds):
 def describe_wait(seconds):
     """How long until a look is due, in words: ``"in 12 min"``, or ``"due now"`` once its time has come."""
     return "due now" if seconds <= 0 else f"in {describe_seconds(seconds)}"
-
-
-def format_number(value, digits=4):
-    """A number with ``digits`` significant digits, never in exponent form above 1e-3; ``-`` if missing."""
-    if value is None:
-        return "-"
-    if isinstance(value, int):
-        return str(value)
-    value = float(value)
-    if not math.isfinite(value):
-        return "-"
-    if value != 0 and abs(value) < 1e-3:
-        return f"{value:.{max(digits - 2, 1)}e}"
-    if abs(value) >= 10 ** digits:
-        return f"{value:.0f}"
-    return f"{value:.{digits}g}"
 
 
 _CLUSTERING_KEYS = ("clusters", "design_effect", "effective_n")
@@ -232,7 +215,7 @@ def _recent_looks(conn, comparison_ids):
             Look.comparison_id, Look.look_number, Look.as_of, Look.n1, Look.n2, Look.estimate,
             Look.ci_low, Look.ci_high, Look.p_value, Look.statistic, Look.fraction,
             Look.boundary_z, Look.clusters, Look.design_effect, Look.effective_n,
-            Look.decision, Look.warnings, Look.mean1, Look.mean2, Look.detail,
+            Look.decision, Look.warnings, Look.mean1, Look.mean2, Look.detail, Look.pairs,
         )
         .join(Comparison, Comparison.id == Look.comparison_id)
         .where(Look.comparison_id.in_(comparison_ids))
@@ -293,9 +276,9 @@ def _latest(last) -> dict:
     """The newest look's figures (zero events and no figures before the first look)."""
     if last is None:
         return {"n1": 0, "n2": 0, **dict.fromkeys(_LATEST_FIGURES), "decision": None, "clusters": None,
-                "design_effect": None, "effective_n": None}
+                "pairs": None, "design_effect": None, "effective_n": None}
     return {"n1": last["n1"], "n2": last["n2"], **{k: _num(last[k]) for k in _LATEST_FIGURES},
-            "decision": last["decision"], "clusters": last["clusters"],
+            "decision": last["decision"], "clusters": last["clusters"], "pairs": last["pairs"],
             "design_effect": _num(last["design_effect"]), "effective_n": _num(last["effective_n"])}
 
 
@@ -326,16 +309,41 @@ def _last_interval(last, looks) -> dict:
             "interval_look": shown["look_number"]}
 
 
-def _warnings(last, design) -> list[str]:
-    """The newest look's warnings, plus the clustering advice when the design effect calls for it."""
+def _warnings(last, design, name=None) -> list[str]:
+    """The newest look's warnings, plus the clustering advice (its consequence and remedy) when the
+    design effect calls for it."""
     warnings = [str(w) for w in (last["warnings"] or [])] if last is not None else []
     deff = last["design_effect"] if last is not None else None
     clustered = design is not None and design.clustered
     if (deff is not None and deff > DESIGN_EFFECT_WARNING and not clustered
             and not any("design effect" in w.lower() for w in warnings)):
-        warnings.append(f"day-level design effect {deff:.2f}: events are not independent, so the interval "
-                        "is too narrow; consider cluster_by")
+        warnings.append(design_effect_warning(deff, name))
     return warnings
+
+
+def _display_fields(design, groups, settings, last):
+    """Names and unit as shown, and the count the evidence is made of (pairs, clusters) beside events.
+
+    ``labels`` are the design's display names (else the group values); ``evidence`` is
+    ``{"noun", "count"}`` when the evidence is counted in pairs or clusters, else None.
+    ``days`` is the hook for comparisons whose evidence is counted in days.
+    """
+    display = design.display if design is not None else None
+    labels = list(display.names(groups)) if display is not None else (settings.get("labels") or list(groups))
+    unit = (display.unit if display is not None else "") or str(settings.get("unit") or "")
+    counted = evidence_count(
+        method=design.method if design is not None else None,
+        clustered=design is not None and design.clustered,
+        pairs=last["pairs"] if last is not None else None,
+        clusters=last["clusters"] if last is not None else None,
+        days=((last["detail"] or {}).get("days") if last is not None else None))
+    evidence = None if counted is None else {"noun": counted[0], "count": counted[1]}
+    stored = design.to_stored() if design is not None else {}
+    clustering = stored.get("clustering") or {}
+    return {"labels": [str(x) for x in labels], "unit": unit, "evidence": evidence,
+            "method_words": (method_words(design.method, clustered_by=clustering.get("cluster_by")
+                                          or clustering.get("cluster_column")) if design is not None else None),
+            "design_words": design_words(stored, labels) if design is not None else None}
 
 
 def plan_share(look):
@@ -389,6 +397,7 @@ def _status_row(comp, looks, now):
         "archived": bool(comp["archived"]),
         "looks": comp["looks_taken"],
         "groups": [str(g) for g in groups],
+        **_display_fields(design, [str(g) for g in groups], settings, last),
         **_design_fields(design),
         "description": settings.get("description") or None,
         "every": every,
@@ -397,7 +406,7 @@ def _status_row(comp, looks, now):
         # After a replan, the current plan's events (the look records them).
         **({"planned_per_group": last["detail"]["planned_per_group"]}
            if last is not None and (last["detail"] or {}).get("planned_per_group") else {}),
-        "warnings": _warnings(last, design),
+        "warnings": _warnings(last, design, comp["name"]),
         # The volume check of the newest look: ok, warning or not_yet_measurable, with its figures.
         "volume_state": (volume or {}).get("state"),
         "volume": json_safe(volume) if volume else None,
