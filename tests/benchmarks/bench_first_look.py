@@ -107,7 +107,9 @@ def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Pat
         times["slotted"].append(seconds)
         counts.add(sum(r[2] for r in result))
 
-        store_url = f"sqlite:///{folder / f'store-{label}-{repeat}.sqlite'}"
+        store_path = folder / f"store-{label}-{repeat}.sqlite"
+        store_path.unlink(missing_ok=True)  # a first look needs an empty history
+        store_url = f"sqlite:///{store_path}"
         upgrade(store_url)
         config = load_config(write_config(folder, url, store_url, planned=4 * rows))
         comparison = config.comparisons[0]

@@ -7,17 +7,19 @@ schedule, with a feed inserting events for random lines all the time. Every work
 
 Reported per run, over the measured minutes after a warm-up:
 
-* looks per minute recorded against the schedule's (comparisons per minute);
-* lag: for each comparison the longest gap between its looks beyond the one-minute interval —
-  the slowest comparison's, and the median comparison's;
-* double looks: two looks of one comparison less than half an interval apart (must be 0);
-* each worker's CPU seconds per minute and peak memory (the kernel's accounting of the finished
-  process, ``wait4``).
+* checks per minute (a look recorded, or a quiet check when a line had no new event since its
+  last look: both are ticks kept) against the schedule's (comparisons per minute), counted from
+  the workers' one log line per check;
+* lag: for each comparison the longest gap between its checks (the window's edges included)
+  beyond the one-minute interval — the slowest comparison's, and the median comparison's;
+* double looks: two checks of one comparison less than half an interval apart (must be 0);
+* each worker's CPU seconds per measured minute (``/proc``) and peak memory (the kernel's
+  accounting of the finished process, ``wait4``); the core count and the load average.
 
-Run (SQLite store and source, one worker):
-    python tests/benchmarks/scale_workers.py --comparisons 1000 --minutes 3
-PostgreSQL store and source, 1, 2 and 4 workers:
-    python tests/benchmarks/scale_workers.py --comparisons 1000 --minutes 3 --pg URL --workers 1 2 4
+Run (SQLite store and source, one worker; PostgreSQL store and source, 1, 2 and 4 workers):
+    nice -n 5 python tests/benchmarks/scale_workers.py --store sqlite postgresql --workers 1
+    nice -n 5 python tests/benchmarks/scale_workers.py --store postgresql --workers 2 4 --pg URL
+(``--pg`` defaults to ``$GAPWATCH_TEST_PG_URL``; ``--keep DIR`` keeps the worker logs.)
 """
 
 from __future__ import annotations
