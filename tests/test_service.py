@@ -553,3 +553,33 @@ def test_run_service_in_a_thread_stops_on_event_and_redacts_its_handlers(site, m
     assert all(lk.as_of - datetime.now(UTC) > timedelta(minutes=50) for lk in looks)
     text = stream.getvalue()
     assert "holder=demo-worker" in text and "checking ***" in text and SECRET not in text
+
+
+def test_look_memory_has_room_for_every_comparison(site):
+    """A memory smaller than the comparisons would drop each one's cells and boundary before its
+    next tick (every look then reads them back and resumes the boundary from all its looks)."""
+    from monitor.service.scheduler import MEMORY_MIN_SIZE, Service
+
+    def configure(count):
+        return write_service_config(site["folder"], site["source_url"], site["store_url"],
+                                    [picks(name=f"line-{k:04d}") for k in range(count)])
+
+    count = MEMORY_MIN_SIZE + 44
+    service = Service(configure(count))
+    service.load()
+    engine = site["engine"]
+    for comparison_id in range(count):
+        service.memory.keep_boundary(engine, comparison_id, "design", object())
+        service.memory.keep_state(engine, comparison_id, object())
+    assert service.memory.holds(engine) == {"boundaries": count, "states": count}
+
+    # A reload with more comparisons makes room for them; one with fewer keeps what is held.
+    configure(3 * count)
+    assert service.reload("test")
+    grown = service.memory
+    for comparison_id in range(3 * count):
+        grown.keep_boundary(engine, comparison_id, "design", object())
+    assert grown.holds(engine)["boundaries"] == 3 * count
+    configure(2)
+    assert service.reload("test")
+    assert service.memory is grown and grown.holds(engine)["boundaries"] == 3 * count

@@ -73,6 +73,10 @@ CRON_FIRST_BACKOFF_SECONDS = 60.0
 STORE_RETRY_SECONDS = 5.0
 # How often a worker writes its heartbeat to the store.
 HEARTBEAT_SECONDS = 5.0
+# The executor of the heartbeat and alert-delivery jobs (never queued behind looks).
+HOUSEKEEPING = "housekeeping"
+# The look memory holds at least this many entries of each kind (more with more comparisons).
+MEMORY_MIN_SIZE = 256
 # A tick may fire this much before the schedule's time and still count as due (a share of
 # the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
 DUE_SLACK_SHARE = 0.1
@@ -203,8 +207,10 @@ class Service:
         self._file_stamp = None
         self._reported: dict = {}
         self.redactor = _RedactingFilter()
-        # What this process keeps between its looks (cells, boundaries): one for all its threads.
+        # What this process keeps between its looks (cells, boundaries): one for all its threads,
+        # sized to the comparisons it runs once the configuration is read (see _size_memory).
         self.memory = LookMemory()
+        self._memory_size = None
         self.started_at = wall_clock()
         self._looked_at = None
 
@@ -230,7 +236,23 @@ class Service:
             self._source_urls = {n: sc.url for n, sc in config.sources.items()}
             self.redactor.secrets = _secrets_of(config)
         self._file_stamp = self._file_state()
+        self._size_memory(config)
         return config
+
+    def _size_memory(self, config):
+        """Keep room in the look memory for every comparison the service runs.
+
+        The memory drops its oldest entry when full; one smaller than the number of
+        comparisons would lose every comparison's cells and boundary before its next tick, so
+        each look would read its cells back and resume its boundary from all its testing looks,
+        a cost that grows with every look. Twice the count leaves room for the entries of a
+        reloaded configuration's new objects while the old ones age out. A memory that is
+        already big enough is kept (with what it holds).
+        """
+        wanted = max(MEMORY_MIN_SIZE, 2 * len(config.comparisons))
+        if self._memory_size is None or wanted > self._memory_size:
+            self.memory = LookMemory(wanted)
+            self._memory_size = wanted
 
     def _build_sources(self, config, current):
         # Keep the open Source of every source whose address did not change.
@@ -428,19 +450,22 @@ class Service:
 
     def start_scheduler(self):
         workers = max(4, min(10, len(self.config.comparisons) + 2))
+        # Heartbeats and alert delivery get threads of their own: with many comparisons due at
+        # once every look thread is busy, and a heartbeat waiting behind the looks would make a
+        # busy worker look dead.
         self.scheduler = BackgroundScheduler(
-            executors={"default": ThreadPoolExecutor(workers)}, timezone=timezone.utc,
-            job_defaults={"coalesce": True, "max_instances": 1},
+            executors={"default": ThreadPoolExecutor(workers), HOUSEKEEPING: ThreadPoolExecutor(2)},
+            timezone=timezone.utc, job_defaults={"coalesce": True, "max_instances": 1},
         )
         for comparison in self.config.comparisons:
             self._add_look_job(comparison)
         self.scheduler.add_job(
-            self.deliver, "interval", seconds=DELIVERY_EVERY_SECONDS, id="deliver-alerts",
+            self.deliver, "interval", seconds=DELIVERY_EVERY_SECONDS, id="deliver-alerts", executor=HOUSEKEEPING,
             name="deliver pending alerts", coalesce=True, max_instances=1, misfire_grace_time=5,
             next_run_time=datetime.now(timezone.utc),
         )
         self.scheduler.add_job(
-            self.heartbeat, "interval", seconds=HEARTBEAT_SECONDS, id="heartbeat",
+            self.heartbeat, "interval", seconds=HEARTBEAT_SECONDS, id="heartbeat", executor=HOUSEKEEPING,
             name="worker heartbeat", coalesce=True, max_instances=1, misfire_grace_time=5,
             next_run_time=datetime.now(timezone.utc),
         )
@@ -466,6 +491,7 @@ class Service:
             old = self.config
             old_sources = self.sources
             self.config, self.channels, self.sources = new, channels, sources
+            self._size_memory(new)
             self._source_urls = {n: sc.url for n, sc in new.sources.items()}
             self.redactor.secrets = tuple(sorted(set(self.redactor.secrets) | set(_secrets_of(new)),
                                                  key=len, reverse=True))

@@ -212,8 +212,9 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
         # The first read scans the most: one branch per disjoint time range, each a plain index
         # range scan (cells that two branches share are added up by the reader).
         branches = [part([r], 0) for r in dialect.time_ranges(kind, time_raw, None, upper)]
-        # NULL times (and words) never fall in a time range: count them once, on the first read.
-        branches.append(part([dialect.unplaced(kind, time_raw, above=upper)], 0))
+        # NULL times (and words) never fall in a time range: count them once, on the first read,
+        # one branch each (an OR of the two would scan the whole table on SQLite).
+        branches.extend(part([where], 0) for where in dialect.unplaced_parts(kind, time_raw, above=upper))
     else:
         branches = [part([sa.or_(*dialect.time_ranges(kind, time_raw, lower, upper))], 0)]
         if arrival is not None:

@@ -7,17 +7,19 @@ schedule, with a feed inserting events for random lines all the time. Every work
 
 Reported per run, over the measured minutes after a warm-up:
 
-* looks per minute recorded against the schedule's (comparisons per minute);
-* lag: for each comparison the longest gap between its looks beyond the one-minute interval —
-  the slowest comparison's, and the median comparison's;
-* double looks: two looks of one comparison less than half an interval apart (must be 0);
-* each worker's CPU seconds per minute and peak memory (the kernel's accounting of the finished
-  process, ``wait4``).
+* checks per minute (a look recorded, or a quiet check when a line had no new event since its
+  last look: both are ticks kept) against the schedule's (comparisons per minute), counted from
+  the workers' one log line per check;
+* lag: for each comparison the longest gap between its checks (the window's edges included)
+  beyond the one-minute interval — the slowest comparison's, and the median comparison's;
+* double looks: two checks of one comparison less than half an interval apart (must be 0);
+* each worker's CPU seconds per measured minute (``/proc``) and peak memory (the kernel's
+  accounting of the finished process, ``wait4``); the core count and the load average.
 
-Run (SQLite store and source, one worker):
-    python tests/benchmarks/scale_workers.py --comparisons 1000 --minutes 3
-PostgreSQL store and source, 1, 2 and 4 workers:
-    python tests/benchmarks/scale_workers.py --comparisons 1000 --minutes 3 --pg URL --workers 1 2 4
+Run (SQLite store and source, one worker; PostgreSQL store and source, 1, 2 and 4 workers):
+    nice -n 5 python tests/benchmarks/scale_workers.py --store sqlite postgresql --workers 1
+    nice -n 5 python tests/benchmarks/scale_workers.py --store postgresql --workers 2 4 --pg URL
+(``--pg`` defaults to ``$GAPWATCH_TEST_PG_URL``; ``--keep DIR`` keeps the worker logs.)
 """
 
 from __future__ import annotations
@@ -25,6 +27,7 @@ from __future__ import annotations
 import argparse
 import os
 import random
+import re
 import signal
 import statistics
 import subprocess
@@ -95,100 +98,129 @@ class Feed(threading.Thread):
                 conn.execute(self.table.insert(), rows)
 
 
-def _looks(store_url, since, until):
-    engine = sa.create_engine(store_url)
-    try:
-        with engine.connect() as conn:
-            rows = conn.execute(sa.text(
-                "SELECT c.name, l.as_of FROM look l JOIN comparison c ON c.id = l.comparison_id "
-                "ORDER BY c.name, l.as_of")).all()
-    finally:
-        engine.dispose()
-    by_name = {}
-    for name, as_of in rows:
-        if isinstance(as_of, str):
-            as_of = datetime.fromisoformat(as_of)
-        if as_of.tzinfo is None:
-            as_of = as_of.replace(tzinfo=UTC)
-        by_name.setdefault(name, []).append(as_of)
-    return by_name
+_CHECK_LINE = re.compile(r" look (?:quiet )?comparison=(\S+) .*?as_of=(\S+)")
 
 
-def run_case(label, comparisons, minutes, workers, source_url, store_url, folder, warmup=60.0, feed_rate=40):
+def _checks(folder: Path, workers: int):
+    """Every check the workers logged (a look recorded, or a quiet check): {name: [as_of, ...]}.
+
+    A quiet check (nothing new in the source since the comparison's last look) writes no look
+    row, so the look table alone would count a line without new events as a missed tick.
+    """
+    by_name: dict = {}
+    looks = 0
+    for i in range(workers):
+        for line in (folder / f"worker{i}.log").read_text(errors="replace").splitlines():
+            found = _CHECK_LINE.search(line)
+            if found is None:
+                continue
+            looks += " look quiet " not in line
+            as_of = datetime.fromisoformat(found.group(2))
+            by_name.setdefault(found.group(1), []).append(as_of if as_of.tzinfo else as_of.replace(tzinfo=UTC))
+    return {n: sorted(ts) for n, ts in by_name.items()}
+
+
+def _cpu_seconds(pid: int) -> float:
+    """User + system CPU seconds of process ``pid`` so far (Linux ``/proc``)."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def run_case(label, comparisons, minutes, workers, source_url, store_url, folder, warmup, feed_rate, nice):
     source_engine, table = _create_source(source_url, comparisons)
     upgrade(store_url)
     config = _config(folder, comparisons, source_url, store_url)
     feed = Feed(source_engine, table, comparisons, feed_rate)
     feed.start()
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
-    procs = [subprocess.Popen([sys.executable, "-m", "monitor", "run", "--config", str(config)],
-                              stdout=open(folder / f"worker{i}.log", "wb"), stderr=subprocess.STDOUT,
+    command = [sys.executable, "-m", "monitor", "run", "--config", str(config)]
+    if nice:
+        command = ["nice", "-n", str(nice)] + command
+    procs = [subprocess.Popen(command, stdout=open(folder / f"worker{i}.log", "wb"), stderr=subprocess.STDOUT,
                               env=env, cwd=folder) for i in range(workers)]
     time.sleep(warmup)
     since = datetime.now(UTC)
+    cpu_before = [_cpu_seconds(p.pid) for p in procs]
+    load_before = os.getloadavg()[0]
     time.sleep(minutes * 60.0)
     until = datetime.now(UTC)
-    usage = []
+    cpu = [(_cpu_seconds(p.pid) - b) / minutes for p, b in zip(procs, cpu_before)]
+    load = (load_before + os.getloadavg()[0]) / 2.0
+    peak = []
     for p in procs:
         p.send_signal(signal.SIGTERM)
     for p in procs:
         _, status, rusage = os.wait4(p.pid, 0)
-        usage.append(rusage)
+        peak.append(rusage.ru_maxrss / 1024.0)  # kilobytes on Linux
     feed.stop.set()
     feed.join()
     source_engine.dispose()
 
-    looks = _looks(store_url, since, until)
-    in_window = {n: [t for t in ts if since <= t <= until] for n, ts in looks.items()}
-    recorded = sum(len(ts) for ts in in_window.values())
+    checks = _checks(folder, workers)
+    window = {n: [t for t in ts if since <= t <= until] for n, ts in checks.items()}
+    made = sum(len(ts) for ts in window.values())
     scheduled = comparisons * minutes
     lags, doubles = [], 0
     for name in (f"line-{k:04d}" for k in range(comparisons)):
-        ts = [since] + in_window.get(name, []) + [until]
+        seen = window.get(name, [])
+        ts = [since] + seen + [until]
         gaps = [(b - a).total_seconds() for a, b in zip(ts, ts[1:])]
         lags.append(max(0.0, max(gaps) - 60.0))
-        doubles += sum(1 for a, b in zip(in_window.get(name, []), in_window.get(name, [])[1:])
-                       if (b - a).total_seconds() < 30.0)
-    cpu = [(u.ru_utime + u.ru_stime) / ((until - since).total_seconds() / 60.0 + warmup / 60.0) for u in usage]
-    peak = [u.ru_maxrss / 1024.0 for u in usage]
-    print(f"{label:28} {workers:7d} {recorded / minutes:12.0f} {scheduled / minutes:10.0f} "
-          f"{recorded / scheduled:7.2f} {max(lags):10.1f} {statistics.median(lags):10.1f} {doubles:7d} "
-          f"{statistics.mean(cpu):10.1f} {max(peak):9.0f}")
+        doubles += sum(1 for a, b in zip(seen, seen[1:]) if (b - a).total_seconds() < 30.0)
+    print(f"{label:26} {workers:7d} {scheduled / minutes:9.0f} {made / minutes:9.0f} "
+          f"{made / scheduled:6.2f} {max(lags):9.1f} {statistics.median(lags):9.1f} {doubles:7d} "
+          f"{statistics.mean(cpu):9.1f} {statistics.mean(cpu) / 60.0:6.0%} {max(peak):8.0f} {load:6.1f}",
+          flush=True)
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--comparisons", type=int, default=1000)
-    ap.add_argument("--minutes", type=float, default=3.0)
+    ap.add_argument("--minutes", type=float, default=4.0, help="measured minutes after the warm-up")
+    ap.add_argument("--warmup", type=float, default=90.0,
+                    help="seconds before measuring (start-up and the first look of every comparison)")
     ap.add_argument("--workers", type=int, nargs="+", default=[1])
-    ap.add_argument("--pg", default=None, help="a PostgreSQL server URL (a database is made per case)")
+    ap.add_argument("--store", choices=["sqlite", "postgresql"], nargs="+", default=["sqlite"],
+                    help="SQLite source and store, or PostgreSQL source and store (default sqlite)")
+    ap.add_argument("--pg", default=os.environ.get("GAPWATCH_TEST_PG_URL"), metavar="URL",
+                    help="a PostgreSQL server URL; a database is made per case (default $GAPWATCH_TEST_PG_URL)")
+    ap.add_argument("--feed-rate", type=int, default=40, help="events inserted per second")
+    ap.add_argument("--nice", type=int, default=0, help="run the workers under nice -n N")
+    ap.add_argument("--keep", type=Path, default=None, help="keep the cases' folders (worker logs) here")
     args = ap.parse_args(argv)
-    print(f"{'case':28} {'workers':>7} {'looks/min':>12} {'scheduled':>10} {'ratio':>7} "
-          f"{'max lag s':>10} {'med lag s':>10} {'doubles':>7} {'cpu s/min':>10} {'peak MB':>9}")
+    if "postgresql" in args.store and not args.pg:
+        ap.error("--store postgresql needs --pg URL (or GAPWATCH_TEST_PG_URL)")
+    print(f"{os.cpu_count()} cores; {args.comparisons} comparisons every 1 min; feed {args.feed_rate} events/s; "
+          f"{args.warmup:.0f} s warm-up, {args.minutes:g} min measured; workers under nice {os.nice(0) + args.nice}")
+    print(f"{'case':26} {'workers':>7} {'sched/min':>9} {'done/min':>9} {'ratio':>6} {'max lag s':>9} "
+          f"{'med lag s':>9} {'doubles':>7} {'cpu s/min':>9} {'cpu':>6} {'peak MB':>8} {'load':>6}", flush=True)
     with tempfile.TemporaryDirectory(prefix="gapwatch-scale-") as tmp:
-        folder = Path(tmp)
-        if args.pg is None:
+        folder = args.keep or Path(tmp)
+        folder.mkdir(parents=True, exist_ok=True)
+        for store in args.store:
             for w in args.workers:
-                case = folder / f"sqlite-{w}"
-                case.mkdir()
-                run_case("SQLite source + store", args.comparisons, args.minutes, w,
-                         f"sqlite:///{case / 'ops.sqlite'}", f"sqlite:///{case / 'store.sqlite'}", case)
-        else:
-            admin = sa.create_engine(args.pg, isolation_level="AUTOCOMMIT")
-            for w in args.workers:
-                case = folder / f"pg-{w}"
-                case.mkdir()
+                case = folder / f"{store}-{w}"
+                case.mkdir(exist_ok=True)
+                common = (args.comparisons, args.minutes, w)
+                options = dict(folder=case, warmup=args.warmup, feed_rate=args.feed_rate, nice=args.nice)
+                if store == "sqlite":
+                    for stale in ("ops.sqlite", "store.sqlite"):
+                        (case / stale).unlink(missing_ok=True)
+                    run_case("SQLite source + store", *common, f"sqlite:///{case / 'ops.sqlite'}",
+                             f"sqlite:///{case / 'store.sqlite'}", **options)
+                    continue
+                admin = sa.create_engine(args.pg, isolation_level="AUTOCOMMIT")
                 name = f"gw_scale_{w}_{os.getpid()}"
                 with admin.connect() as conn:
                     conn.execute(sa.text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
                     conn.execute(sa.text(f'CREATE DATABASE "{name}"'))
                 url = sa.engine.make_url(args.pg).set(database=name).render_as_string(hide_password=False)
                 try:
-                    run_case("PostgreSQL source + store", args.comparisons, args.minutes, w, url, url, case)
+                    run_case("PostgreSQL source + store", *common, url, url, **options)
                 finally:
                     with admin.connect() as conn:
                         conn.execute(sa.text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
-            admin.dispose()
+                    admin.dispose()
 
 
 if __name__ == "__main__":

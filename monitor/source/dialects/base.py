@@ -158,12 +158,20 @@ class SourceDialect:
         date and is never readable (a readable time starts with its year). ``above`` (the first
         read's upper bounds) lets the index find them.
         """
+        found = self.unplaced_parts(kind, raw, above)
+        return found[0] if len(found) == 1 else sa.or_(*found)
+
+    def unplaced_parts(self, kind: TimeKind, raw, above=None) -> list:
+        """``unplaced`` as disjoint predicates, each one the index can serve on its own.
+
+        Joined by OR, some databases (SQLite) scan the whole table for them instead.
+        """
         if kind.kind not in ("iso", "stored"):
-            return raw.is_(None)
+            return [raw.is_(None)]
         word = sa.func.lower(sa.func.substr(raw, 1, 1)).in_(literals(_LETTERS))
         if above is not None:
             word = sa.and_(raw > above[0], word)
-        return sa.or_(raw.is_(None), word)
+        return [raw.is_(None), word]
 
     def is_text(self, raw):
         """Whether a stored time is text (always, in a typed text column)."""
