@@ -22,7 +22,7 @@ import signal
 import threading
 import time
 import traceback
-from datetime import datetime, timezone
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -79,6 +79,10 @@ HOUSEKEEPING = "housekeeping"
 MEMORY_MIN_SIZE = 256
 # A tick may fire this much before the schedule's time and still count as due (a share of
 # the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
+# From this many interval comparisons on one schedule, their first looks are spread evenly over
+# the first interval (each keeps its place after that), so a large configuration does not fall
+# due in one second and leave the end of the queue past its misfire grace every time.
+STAGGER_FROM = 20
 DUE_SLACK_SHARE = 0.1
 DUE_SLACK_CAP_SECONDS = 5.0
 
@@ -169,6 +173,25 @@ def is_due(comparison, last_checked, now) -> bool:
         return (now - last_checked).total_seconds() >= float(schedule) - slack
     following = _trigger_for(comparison).get_next_fire_time(None, last_checked)
     return following is not None and (following - now).total_seconds() <= slack
+
+
+def first_look_delays(comparisons) -> dict:
+    """Seconds each interval comparison waits before its first look: 0 unless many share a schedule.
+
+    Comparisons on the same interval are ranked by name; with at least :data:`STAGGER_FROM` of
+    them the k-th of n waits ``k · interval / n``. Cron comparisons wait for their own times.
+    """
+    by_interval = {}
+    for c in comparisons:
+        if isinstance(c.schedule, (int, float)):
+            by_interval.setdefault(float(c.schedule), []).append(c.name)
+    delays = {}
+    for interval, names in by_interval.items():
+        names.sort()
+        spread = len(names) >= STAGGER_FROM
+        for rank, name in enumerate(names):
+            delays[name] = rank * interval / len(names) if spread else 0.0
+    return delays
 
 
 def _schedule_key(comparison):
@@ -436,11 +459,12 @@ class Service:
 
     # ------------------------------------------------------------------ scheduling
 
-    def _add_look_job(self, comparison):
+    def _add_look_job(self, comparison, delay: float = 0.0):
         extra = {}
         if isinstance(comparison.schedule, (int, float)):
-            # An interval comparison looks at once; a cron one waits for its next time.
-            extra["next_run_time"] = datetime.now(timezone.utc)
+            # An interval comparison looks at once (or at its place in a spread-out start, see
+            # first_look_delays); a cron one waits for its next time.
+            extra["next_run_time"] = datetime.now(timezone.utc) + timedelta(seconds=delay)
         self.scheduler.add_job(
             self.look_once, _trigger_for(comparison), args=[comparison.name],
             id=f"look:{comparison.name}", name=f"look at {comparison.name}",
@@ -457,8 +481,9 @@ class Service:
             executors={"default": ThreadPoolExecutor(workers), HOUSEKEEPING: ThreadPoolExecutor(2)},
             timezone=timezone.utc, job_defaults={"coalesce": True, "max_instances": 1},
         )
+        delays = first_look_delays(self.config.comparisons)
         for comparison in self.config.comparisons:
-            self._add_look_job(comparison)
+            self._add_look_job(comparison, delays.get(comparison.name, 0.0))
         self.scheduler.add_job(
             self.deliver, "interval", seconds=DELIVERY_EVERY_SECONDS, id="deliver-alerts", executor=HOUSEKEEPING,
             name="deliver pending alerts", coalesce=True, max_instances=1, misfire_grace_time=5,
