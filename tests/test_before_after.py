@@ -450,3 +450,39 @@ def test_simulated_gap_and_change_come_out_on_average():
     out = monitor_site_pairs(data, planned_after_days=10, first_look_day=10)
     assert np.mean(out.baseline_gap) == pytest.approx(8.0, abs=0.3)
     assert np.mean(out.did_final_estimate) == pytest.approx(-3.0, abs=0.3)
+
+
+# ----------------------------------------------------------------------------- after a stop
+
+
+def test_estimate_after_stop_at_a_single_look_is_the_t_interval():
+    r = ba.estimate_after_stop([1.0], [1.959964], 1, -4.0, 1.5, 20.0)
+    c = stats.t.isf(0.025, 20)
+    assert r.estimate == pytest.approx(-4.0, rel=1e-9)
+    assert r.ci[0] == pytest.approx(-4.0 - c * 1.5, rel=1e-5)
+    assert r.ci[1] == pytest.approx(-4.0 + c * 1.5, rel=1e-5)
+    # A non-zero null difference: the same interval, the estimate is not moved.
+    r = ba.estimate_after_stop([1.0], [1.959964], 1, -4.0, 1.5, 20.0, null_difference=-1.0)
+    assert r.estimate == pytest.approx(-4.0, rel=1e-9)
+    assert r.ci[0] == pytest.approx(-4.0 - c * 1.5, rel=1e-5)
+
+
+def test_estimate_after_stop_with_many_degrees_of_freedom_is_the_z_estimate():
+    from monitor.stats.inference import median_unbiased_estimate
+
+    fractions, upper = [0.4, 0.7, 1.0], [3.2, 2.6, 2.0]
+    r = ba.estimate_after_stop(fractions, upper, 2, 3.3, 1.1, 1e7)
+    info = 1.0 / (1.1 ** 2 * 0.7)
+    z = median_unbiased_estimate(fractions, upper, 2, 3.3 / 1.1, info)
+    assert r.estimate == pytest.approx(z.estimate, rel=1e-5)
+    assert r.ci[0] == pytest.approx(z.ci[0], rel=1e-5)
+    assert r.p_value == pytest.approx(z.p_value, rel=1e-5)
+    # An early stop pulls the estimate back towards no change.
+    assert 0 < r.estimate < 3.3
+
+
+def test_estimate_after_stop_bad_input():
+    with pytest.raises(InvalidArgumentError, match="standard_error must be positive"):
+        ba.estimate_after_stop([1.0], [1.96], 1, 1.0, 0.0, 10.0)
+    with pytest.raises(InvalidArgumentError, match="stop_look must be at most 1"):
+        ba.estimate_after_stop([1.0], [1.96], 2, 1.0, 1.0, 10.0)
