@@ -946,9 +946,11 @@ def planned_degrees_of_freedom(after_days, baseline_days):
 
 
 def _daily_fractions(first_look_day, last_day, planned_days, baseline_days):
-    """Fractions of daily looks from ``first_look_day`` to ``last_day`` (the last is 1)."""
+    """Fractions of daily looks from ``first_look_day`` to ``last_day`` (the last at least 1)."""
     days = np.arange(min(first_look_day, last_day), last_day + 1, dtype=float)
     fractions = information_fraction(days, planned_days, baseline_days)
     fractions = np.atleast_1d(fractions)
+    # The last look may pass the plan (whole days): its fraction above 1 is kept, so the
+    # boundary's correlations match the information the looks really have.
     fractions[-1] = max(1.0, float(fractions[-1]))
-    return [float(f) for f in np.minimum(fractions, 1.0)]
+    return [float(f) for f in fractions]

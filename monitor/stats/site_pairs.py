@@ -160,6 +160,10 @@ class MonitorOutcome:
     t statistic's one-sided p-value, as the look's adjusted inference uses it.
     ``*_fixed``: one test at the plan's last day rejects at ``alpha``.
     ``did_cr1_*``: the same monitor with CR1 and t on clusters − 1.
+    ``did_known_variance_stop_day``: the same looks with the true variance of
+    the DiD given the counts and z against the boundary (values only, when the
+    spreads are given): separates the boundary and the data from the t
+    statistics' share of any excess.
     """
 
     after_only_stop_day: np.ndarray
@@ -175,6 +179,7 @@ class MonitorOutcome:
     did_cr1_stop_day: np.ndarray
     did_cr1_fixed: np.ndarray
     baseline_gap: np.ndarray
+    did_known_variance_stop_day: np.ndarray | None = None
 
     def to_dict(self) -> dict:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -215,7 +220,8 @@ def _period_parts(n1, s1, n2, s2, sign):
 
 
 def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, alpha=0.05,
-                       spending="obrien-fleming", baseline_days_for_plan=None) -> MonitorOutcome:
+                       spending="obrien-fleming", baseline_days_for_plan=None, sd=None,
+                       day_sd=None) -> MonitorOutcome:
     """Run the after-only and the before/after monitors day by day, two-sided.
 
     The before/after monitor is the library's default: CR2 with Bell–McCaffrey
@@ -235,6 +241,8 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     spending : str
     baseline_days_for_plan : float, optional
         Baseline days the fraction formula uses (default: the drawn baseline).
+    sd, day_sd : float, optional
+        The spreads the values were drawn with: adds the known-variance monitor.
 
     Returns
     -------
@@ -260,12 +268,14 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     first = min(first_look_day, last)
     plan_b = b if baseline_days_for_plan is None else baseline_days_for_plan
     days = np.arange(first, last + 1, dtype=float)
-    did_fractions = np.minimum(np.atleast_1d(information_fraction(days, planned_after_days, plan_b)), 1.0)
-    did_fractions[-1] = 1.0
+    # The last look (a whole day) may pass the plan: its fraction above 1 is kept, as the
+    # live look keeps events over planned events, so the boundary sees the real correlations.
+    did_fractions = np.atleast_1d(information_fraction(days, planned_after_days, plan_b))
+    did_fractions[-1] = max(1.0, did_fractions[-1])
     did_nominal = np.full(last + 1, np.nan)
     did_nominal[first:] = daily_boundaries(did_fractions, alpha, spending)
-    after_fractions = np.minimum(days / planned_after_days, 1.0)
-    after_fractions[-1] = 1.0
+    after_fractions = days / planned_after_days
+    after_fractions[-1] = max(1.0, after_fractions[-1])
     after_nominal = np.full(last + 1, np.nan)
     after_nominal[first:] = daily_boundaries(after_fractions, alpha, spending)
 
@@ -275,7 +285,18 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     gap_b = base["means"][0] - base["means"][1]
     total_b = base["sizes"][0] + base["sizes"][1]
 
-    stop = {key: np.zeros(streams, dtype=int) for key in ("after_only", "did", "did_cr1")}
+    stop = {key: np.zeros(streams, dtype=int) for key in ("after_only", "did", "did_cr1", "known")}
+    known = sd is not None and day_sd is not None
+    if known:
+        did_z_boundary = -special.ndtri(did_nominal)
+
+        def true_variance(counts):
+            # Σ_d (n_d/N)² (day_sd² + sd²/n_d) per site, summed over both sites.
+            size = counts.sum(axis=2)
+            w = counts / size[:, :, None]
+            return np.sum(w * w * day_sd ** 2 + w * sd ** 2 / size[:, :, None], axis=(1, 2))
+
+        base_variance = true_variance(n[:, :, :b])
     fixed = {key: np.zeros(streams, dtype=bool) for key in ("after_only", "did", "did_cr1")}
     rec = {key: np.full(streams, np.nan) for key in ("after_only_estimate", "did_estimate", "did_se",
                                                       "did_df", "did_z", "did_final")}
@@ -321,6 +342,10 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
             rec["did_z"][record] = -special.ndtri(np.clip(p_upper, 1e-300, 1 - 1e-16))
             crossed = (np.abs(t_cr1) >= _t_critical(did_nominal[k], cr1_df)) & (stop["did_cr1"] == 0)
             stop["did_cr1"][crossed] = k
+            if known:
+                z_known = did / np.sqrt(base_variance + true_variance(n[:, :, cols]))
+                crossed = (np.abs(z_known) >= did_z_boundary[k]) & (stop["known"] == 0)
+                stop["known"][crossed] = k
         if final:
             fixed["did"] = np.abs(t_did) >= _t_critical(alpha / 2, df)
             fixed["did_cr1"] = np.abs(t_cr1) >= _t_critical(alpha / 2, cr1_df)
@@ -330,4 +355,5 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
         after_only_fixed=fixed["after_only"], did_stop_day=stop["did"], did_estimate=rec["did_estimate"],
         did_standard_error=rec["did_se"], did_df=rec["did_df"], did_z=rec["did_z"],
         did_final_estimate=rec["did_final"], did_fixed=fixed["did"], did_cr1_stop_day=stop["did_cr1"],
-        did_cr1_fixed=fixed["did_cr1"], baseline_gap=gap_b)
+        did_cr1_fixed=fixed["did_cr1"], baseline_gap=gap_b,
+        did_known_variance_stop_day=stop["known"] if known else None)

@@ -103,10 +103,12 @@ def run(metric, change, streams, seed, plan, spending, first_look_day, alpha, ch
         data = draw_site_pairs(size, baseline_days=BASELINE_DAYS, after_days=plan.after_days,
                                events_per_day=s["events_per_day"], gap=s["gap"], change=change,
                                day_sd=s["day_sd"], shared_day_sd=s["shared_day_sd"], rng=rng, **draw)
+        spreads = dict(sd=s["sd"], day_sd=s["day_sd"]) if metric == "mean" else {}
         parts.append(monitor_site_pairs(data, planned_after_days=plan.after_days_exact,
-                                        first_look_day=first_look_day, alpha=alpha, spending=spending).to_dict())
+                                        first_look_day=first_look_day, alpha=alpha, spending=spending,
+                                        **spreads).to_dict())
         done += size
-    return {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
+    return {key: np.concatenate([p[key] for p in parts]) for key in parts[0] if parts[0][key] is not None}
 
 
 def reported_estimates(out, plan, spending, first_look_day, alpha, sample, rng):
@@ -119,8 +121,8 @@ def reported_estimates(out, plan, spending, first_look_day, alpha, sample, rng):
     last = plan.after_days
     first = min(first_look_day, last)
     days = np.arange(first, last + 1, dtype=float)
-    fractions = np.minimum(np.atleast_1d(information_fraction(days, plan.after_days_exact, BASELINE_DAYS)), 1.0)
-    fractions[-1] = 1.0
+    fractions = np.atleast_1d(information_fraction(days, plan.after_days_exact, BASELINE_DAYS))
+    fractions[-1] = max(1.0, fractions[-1])
     nominal = daily_boundaries(fractions, alpha, spending)
     upper = -special.ndtri(nominal)
     chosen = rng.choice(out["did_stop_day"].size, size=min(sample, out["did_stop_day"].size), replace=False)
@@ -182,6 +184,10 @@ def main(argv=None):
     for label, out, keys in rows:
         cells = [f"{r:.4f} ({se:.4f})" for r, se in (rate(out, k) for k in keys)]
         print(f"{label:34}" + "".join(f"{c:>18}" for c in cells))
+    if "did_known_variance_stop_day" in null:
+        known_null, known_alt = rate(null, "did_known_variance_stop_day"), rate(alt, "did_known_variance_stop_day")
+        print(f"    same looks, true variance, z: no change {known_null[0]:.4f} ({known_null[1]:.4f}), "
+              f"planned change {known_alt[0]:.4f} ({known_alt[1]:.4f})")
     stopped = alt["did_stop_day"][alt["did_stop_day"] > 0]
     print(f"    mean day of an efficacy stop under the planned change: {np.mean(stopped):.2f} "
           f"(plan's expected days at decision {plan.expected_days_alternative:.2f})")
