@@ -62,7 +62,7 @@ import math
 from dataclasses import dataclass, field, fields
 
 import numpy as np
-from scipy import special, stats
+from scipy import optimize, special, stats
 
 from ..errors import InvalidArgumentError
 from ._checks import check_alternative, finite, open_unit, whole
@@ -872,33 +872,50 @@ def plan_before_after(difference, sd=None, *, rate=None, day_sd=0.0, events_per_
     def t_inflation(days):
         if not t_reference or not math.isfinite(days):
             return 1.0
-        nu = planned_degrees_of_freedom(days, baseline_days)
+        nu = planned_degrees_of_freedom(max(days, 1.0 + 1e-6), baseline_days)
         return float(((stats.t.isf(alpha / 2 if alternative == "two-sided" else alpha, nu)
                        + stats.t.isf(1.0 - power, nu)) / fixed_drift) ** 2)
 
-    # The fractions of daily looks depend on the planned days, the days on the design's
-    # inflation (which depends on the fractions) and on the t reference's degrees of
-    # freedom (which depend on the days). A few rounds settle all three.
-    days, fractions, drift, info, widening = fixed_days, [1.0], fixed_drift, fixed_info, 1.0
+    def days_for(drift):
+        """Days at which the information reaches the design's, widened at those days' df."""
+        base = (drift / difference) ** 2
+        plain = _days_needed(base, baseline_days, variance)
+        if not t_reference or not math.isfinite(plain):
+            return plain
+
+        def excess(a):
+            # Fewer days mean fewer degrees of freedom and more days needed: one crossing.
+            return min(_days_needed(base * t_inflation(a), baseline_days, variance), 1e12) - a
+
+        low, high = 1.0 + 1e-6, max(2.0 * plain, 4.0)
+        while excess(high) > 0 and high < 1e9:
+            high *= 2.0
+        if excess(low) <= 0:
+            return low
+        return float(optimize.brentq(excess, low, high, xtol=1e-10, rtol=1e-12))
+
+    # The fractions of daily looks depend on the planned days, and the days on the
+    # design's inflation (which depends on the fractions). A few rounds settle both.
+    days, fractions, drift = fixed_days, [1.0], fixed_drift
     for _ in range(60):
         fractions = fractions_at(days)
         key = tuple(fractions)
         if key not in drifts:
             drifts[key] = sequential_drift(fractions, alpha, spec, alternative, power, futility=futility)
         drift = drifts[key]
-        widening = t_inflation(days)
-        info = (drift / difference) ** 2 * widening
-        new_days = _days_needed(info, baseline_days, variance)
+        new_days = days_for(drift)
         settled = not math.isfinite(new_days) or abs(new_days - days) <= 1e-7 * days
         days = new_days
-        if settled:
+        if settled or looks is not None:
             break
     if not math.isfinite(days):
-        needed = info * variance
         raise InvalidArgumentError(
             f"baseline_days {baseline_days:g} is too short to detect a change of {difference:g}: the "
             f"baseline alone leaves too much uncertainty about the old gap; it needs more than "
-            f"{needed:.1f} days (or a larger difference, more events per day)")
+            f"{(drift / difference) ** 2 * variance:.1f} days (or a larger difference, more events "
+            f"per day, less day-to-day spread)")
+    widening = t_inflation(days)
+    info = (drift / difference) ** 2 * widening
     fractions = fractions_at(days)
     upper, lower, _ = design_boundaries(fractions, alpha, spec, alternative, futility=futility,
                                         beta=1 - power, drift=drift)
