@@ -46,7 +46,7 @@ class Rehearsal:
 def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hours: float = 2.0) -> Rehearsal:
     """Build the demo in the empty ``folder`` and run it for ``hours`` of simulated time."""
     from monitor.config import load_config
-    from monitor.look import take_look
+    from monitor.look import LookMemory, take_look
     from monitor.source.reader import Source
     from monitor.store.engine import make_engine
 
@@ -57,6 +57,7 @@ def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hour
     engine = make_engine(config.store_url)
     sources = {name: Source(s.url, name=name) for name, s in config.sources.items()}
     looks = {c.name: [] for c in config.comparisons}
+    memory = LookMemory()
     try:
         at: datetime = demo.start
         end = demo.start + timedelta(hours=hours)
@@ -64,7 +65,8 @@ def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hour
             now["t"] = at
             feed.advance(at)
             for comparison in config.comparisons:
-                record = take_look(config, comparison, as_of=at, engine=engine, source=sources[comparison.source])
+                record = take_look(config, comparison, as_of=at, engine=engine, source=sources[comparison.source],
+                                   memory=memory)
                 if record is not None:
                     looks[comparison.name].append((at, record.decision, record))
             at += timedelta(hours=step_hours)

@@ -14,7 +14,7 @@ __all__ = ["main", "build_parser"]
 COMMAND_MODULES = [
     "test", "bounds", "plan", "simulate",
     "check", "db", "look", "status", "history", "verify", "restart",
-    "run", "alerts", "dashboard", "demo",
+    "run", "alerts", "report", "dashboard", "demo",
 ]
 
 

@@ -14,6 +14,7 @@ from pathlib import Path
 import sqlalchemy as sa
 
 from monitor.config import toml_value
+from monitor.look import LookMemory, take_look
 
 __all__ = [
     "UTC",
@@ -164,6 +165,8 @@ class LiveWorld:
         self.channels = channels
         self.write(**keys)
         self.engine = migrated_store(self.config.store_url)
+        # What this world's "process" keeps between its looks, as the service keeps one.
+        self.memory = LookMemory()
 
     def write(self, **keys):
         text = config_toml(self.source_url, self.store_url, [comparison_toml(**keys)], self.channels)
@@ -173,8 +176,7 @@ class LiveWorld:
         self.comparison = self.config.comparisons[0]
 
     def look(self, as_of, **kw):
-        from monitor.look import take_look
-
+        kw.setdefault("memory", self.memory)
         return take_look(self.config, self.comparison.name, as_of=as_of, engine=self.engine, **kw)
 
     def raw(self):

@@ -13,12 +13,14 @@ from scipy import stats
 
 from live_helpers import (CHANNELS, event_rows, LiveWorld as World, at, comparison_toml, config_toml,
                           create_events_table, file_digest, insert_events, migrated_store, write_config)
-from monitor import look as look_module
+from monitor.store import looks as store_looks
+from monitor.alerts import record_source_unreachable
 from monitor.stats.boundaries import SequentialBoundary
 from monitor.config import load_config
 from monitor.errors import (DesignChangedError, LookAlreadyRecordedError, SourceUnavailableError,
                             StoreBehindError)
-from monitor.look import bucket_end, bucket_key, restart_comparison, take_look
+from monitor.calendar import bucket_end, bucket_key
+from monitor.look import restart_comparison, take_look
 from monitor.store.models import Alert, Cell, Comparison, Delivery, Look
 from monitor.source.reader import Source
 
@@ -211,6 +213,38 @@ def test_bad_rows_of_every_kind_counted_per_reason(tmp_path):
     assert again.excluded["null_value"] == 2
 
 
+def test_an_alert_with_no_channel_to_notify_is_on_record_as_delivered(tmp_path):
+    # notify = []: a decision alert and a source alert follow the one rule of the store's
+    # alert writer (delivered to nobody, no deliveries); a decision alert used to stay pending.
+    rng = np.random.default_rng(15)
+    w = World(tmp_path, _rows(rng, 600, east=110.0), planned_per_group=200, notify=[])
+    record = w.look(T0 + timedelta(hours=30))
+    assert record.decision == "difference_found" and record.alert_id
+    source_alert = record_source_unreachable(w.engine, "handle-time", "connection refused",
+                                             now=T0 + timedelta(hours=31), alert_after=0, notify=())
+    with w.engine.connect() as conn:
+        alerts = {a.kind: a for a in conn.execute(sa.select(Alert))}
+        deliveries = conn.execute(sa.select(Delivery)).all()
+    assert set(alerts) == {"difference_found", "source_unreachable"}
+    assert alerts["difference_found"].id == record.alert_id
+    assert alerts["source_unreachable"].id == source_alert
+    assert {a.state for a in alerts.values()} == {"delivered"}
+    assert deliveries == []
+
+
+def test_as_of_without_a_zone_is_utc(tmp_path):
+    rng = np.random.default_rng(16)
+    rows = _rows(rng, 300)
+    aware = World(tmp_path / "a" if (tmp_path / "a").mkdir() is None else None, rows)
+    naive = World(tmp_path / "n" if (tmp_path / "n").mkdir() is None else None, rows)
+    a = aware.look(T0 + timedelta(hours=5))
+    b = naive.look((T0 + timedelta(hours=5)).replace(tzinfo=None))
+    assert b.as_of == a.as_of and b.as_of.utcoffset() == timedelta(0)
+    assert (b.cutoff, b.n1, b.n2, b.estimate) == (a.cutoff, a.n1, a.n2, a.estimate)
+    with pytest.raises(ValueError, match="as_of"):
+        naive.look("2026-03-02 11:00")
+
+
 def test_not_binary_and_data_problems(tmp_path):
     rows = [{"site": s, "seconds": v, "done_at": T0 + timedelta(minutes=i)}
             for i, (s, v) in enumerate([("east", 1.0), ("west", 0.0), ("east", 2.0), ("west", 1.0), ("east", 0.0)])]
@@ -317,7 +351,7 @@ def test_a_look_is_all_or_nothing(tmp_path, monkeypatch):
     def fail(*args, **kwargs):
         raise RuntimeError("disk full while writing cells")
 
-    monkeypatch.setattr(look_module, "_upsert_cells", fail)
+    monkeypatch.setattr(store_looks, "upsert_cells", fail)
     with pytest.raises(RuntimeError, match="disk full"):
         w.look(T0 + timedelta(hours=6))
     with w.engine.connect() as conn:
@@ -519,9 +553,8 @@ def test_boundary_resumed_from_the_store_equals_the_one_kept_in_memory(tmp_path)
         a = kept.look(T0 + timedelta(hours=hours))
         b = resumed.look(T0 + timedelta(hours=hours))
         # Forget the second store's boundary, as a freshly started process would.
-        for key in [k for k in look_module._BOUNDARY_CACHE if k[0] == str(resumed.engine.url)]:
-            del look_module._BOUNDARY_CACHE[key]
-        assert any(k[0] == str(kept.engine.url) for k in look_module._BOUNDARY_CACHE) or a.boundary_look is None
+        resumed.memory.forget()
+        assert kept.memory.holds(kept.engine)["boundaries"] == 1 or a.boundary_look is None
         if a is None:
             assert b is None
             break

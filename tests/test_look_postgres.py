@@ -12,7 +12,7 @@ import sqlalchemy as sa
 from scipy import stats
 
 from live_helpers import LiveWorld, at, event_rows, insert_events
-from monitor import look as look_module
+from monitor.store import looks as store_looks, outbox
 from monitor.commands.verify import verify_looks
 from monitor.errors import DesignChangedError, LookAlreadyRecordedError, StoreBehindError
 from monitor.look import restart_comparison
@@ -67,8 +67,8 @@ def test_all_or_nothing_and_design_change_on_postgres(pg_world, monkeypatch):
     def fail(*args, **kwargs):
         raise RuntimeError("connection dropped mid-write")
 
-    monkeypatch.setattr(look_module, "_write_alert", fail)
-    monkeypatch.setattr(look_module, "_upsert_cells", fail)
+    monkeypatch.setattr(outbox, "write_alert", fail)
+    monkeypatch.setattr(store_looks, "upsert_cells", fail)
     with pytest.raises(RuntimeError):
         w.look(T0 + timedelta(hours=5))
     assert w.count(Look) == 1

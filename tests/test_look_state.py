@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from datetime import timedelta
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
@@ -21,10 +22,11 @@ from scipy import stats
 
 from live_helpers import (CHANNELS, LiveWorld, at, comparison_toml, config_toml, create_events_table,
                           event_rows, insert_events, migrated_store, write_config)
-from monitor import look as look_module
 from monitor.config import load_config
-from monitor.look import NULL_KEY, take_look
+from monitor.look import LookMemory, take_look
 from monitor.source.reader import Source
+from monitor.store.looks import KeptState
+from monitor.vocabulary import NULL_KEY
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
 
@@ -159,13 +161,11 @@ def test_kept_state_gives_the_looks_a_store_read_gives(tmp_path):
         for hours in range(6, 80, 6):
             a = kept.look(T0 + timedelta(hours=hours), source=source_kept)
             # A fresh process: nothing kept, every look reads its state back.
-            for key in [k for k in look_module._STATE_CACHE if k[0] == str(read.engine.url)]:
-                del look_module._STATE_CACHE[key]
-            b = read.look(T0 + timedelta(hours=hours), source=source_read)
+            b = read.look(T0 + timedelta(hours=hours), source=source_read, memory=LookMemory())
             if a is None:
                 assert b is None
                 break
-            assert any(k[0] == str(kept.engine.url) for k in look_module._STATE_CACHE)
+            assert kept.memory.holds(kept.engine)["states"] == 1
             assert _figures(a) == _figures(b)
     finally:
         source_kept.dispose()
@@ -176,14 +176,12 @@ def test_kept_state_is_not_used_after_another_writer_or_a_new_store(tmp_path):
     rng = np.random.default_rng(45)
     w = LiveWorld(tmp_path, event_rows(rng, 300, T0), planned_per_group=5000)
     w.look(T0 + timedelta(hours=4))
-    # Another process (its own engine on the same store) records the next look.
+    # Another process (its own engine and memory, same store) records the next look;
+    # this one still holds the state it kept after look 1.
     other = migrated_store(w.store_url)
-    saved = dict(look_module._STATE_CACHE)
-    take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=8), engine=other)
+    take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=8), engine=other, memory=LookMemory())
     other.dispose()
-    # This process still holds the state after look 1 (as a separate process would).
-    look_module._STATE_CACHE.clear()
-    look_module._STATE_CACHE.update(saved)
+    assert w.memory.holds(w.engine)["states"] == 1
     third = w.look(T0 + timedelta(hours=12))
     raw = w.raw()
     upto = raw[raw.done_at <= pd.Timestamp(third.cutoff)]
@@ -192,18 +190,16 @@ def test_kept_state_is_not_used_after_another_writer_or_a_new_store(tmp_path):
 
     # The store is deleted and made again with other rows; another process takes looks 1-3
     # there (same comparison id, same look numbers) while this one still holds look 3's state.
-    saved = dict(look_module._STATE_CACHE)
     w.engine.dispose()
     for suffix in ("", "-wal", "-shm"):
         Path(str(tmp_path / "store.sqlite") + suffix).unlink(missing_ok=True)
     Path(tmp_path / "ops.sqlite").unlink()
     create_events_table(w.source_url, rows=event_rows(rng, 160, T0, east=130.0))
-    other = migrated_store(w.store_url)
+    other, other_memory = migrated_store(w.store_url), LookMemory()
     for hours in (4, 8, 12):
-        take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=hours), engine=other)
+        take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=hours), engine=other, memory=other_memory)
     other.dispose()
-    look_module._STATE_CACHE.clear()
-    look_module._STATE_CACHE.update(saved)
+    assert w.memory.holds(w.engine)["states"] == 1
     w.engine = migrated_store(w.store_url)
     fresh = w.look(T0 + timedelta(hours=16))
     upto = w.raw()
@@ -245,6 +241,8 @@ def test_service_keeps_one_source_per_configured_source_across_looks(tmp_path, m
             assert service.look_once(w.comparison.name, honour_backoff=False) == "recorded"
         # One Source for three looks: reflection and the built statement are reused.
         assert opened == [kept] and service.sources["ops"] is kept and kept._statements
+        # … and one memory: the cells of the newest look are kept for the next.
+        assert service.memory.holds(service.engine)["states"] == 1
         # A reload that leaves the source's address alone keeps the open Source …
         path = Path(w.config.path)
         path.write_text(path.read_text().replace('every = "10m"', 'every = "5m"'))
@@ -260,3 +258,25 @@ def test_service_keeps_one_source_per_configured_source_across_looks(tmp_path, m
     finally:
         service.shutdown()
     assert disposed[-1] is opened[-1]
+
+
+def test_look_memory_is_bounded_and_hands_an_entry_to_one_look_at_a_time():
+    store = SimpleNamespace(url="sqlite:///one.sqlite")
+    other = SimpleNamespace(url="sqlite:///two.sqlite")
+    memory = LookMemory(size=3)
+    for comparison_id in range(1, 6):
+        memory.keep_state(store, comparison_id, KeptState(f"t{comparison_id}", 1, {}, None))
+    # The oldest entries went first; at most three are kept.
+    assert memory.holds(store) == {"boundaries": 0, "states": 3}
+    assert memory.take_state(store, 1) is None and memory.take_state(store, 2) is None
+    # Same comparison id in another store: a different entry.
+    assert memory.take_state(other, 5) is None
+    kept = memory.take_state(store, 5)
+    assert kept.token == "t5"
+    # Taken out: a second look of the comparison gets nothing until the first puts it back.
+    assert memory.take_state(store, 5) is None
+    memory.keep_boundary(store, 4, "design", "boundary")
+    memory.forget(store)
+    assert memory.holds(store) == {"boundaries": 0, "states": 0}
+    with pytest.raises(ValueError, match="size"):
+        LookMemory(size=0)

@@ -55,7 +55,7 @@ def _spec(design, settings):
 def _local_bucket(times, kind, zone_name, shift_starts):
     import pandas as pd
 
-    from ..look import bucket_key
+    from ..calendar import bucket_key
 
     local = times.dt.tz_convert(zone_name)
     if kind == "day":
@@ -80,7 +80,7 @@ def _recompute(design, frame, cutoff):
     out = {"n1": int(len(g1)), "n2": int(len(g2)), "pairs": None}
     method = design["method"]
     if design.get("pairing"):
-        from ..look import bucket_end
+        from ..calendar import bucket_end
         from zoneinfo import ZoneInfo
 
         pairing = design["pairing"]
@@ -143,7 +143,7 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
     Returns one dict per look: ``look``, ``ok`` and ``mismatches`` (a list of
     ``{"field", "recorded", "recomputed"}``).
     """
-    from ..look import NULL_KEY
+    from ..vocabulary import NULL_KEY
     from ..store.models import Comparison, Look
     from ..source.reader import Source
 

@@ -21,10 +21,16 @@ import os
 import signal
 import threading
 import time
+import traceback
 from datetime import datetime, timezone
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
+import sqlalchemy as sa
+from apscheduler.executors.pool import ThreadPoolExecutor
+from apscheduler.schedulers.background import BackgroundScheduler
+from apscheduler.triggers.cron import CronTrigger
+from apscheduler.triggers.interval import IntervalTrigger
 from sqlalchemy.exc import DBAPIError, OperationalError
 
 from ..alerts import (
@@ -35,7 +41,11 @@ from ..alerts import (
     redact,
     source_backoff_until,
 )
+from ..config import load_config
+from ..look import LookMemory, take_look
+from ..source.reader import Source
 from ..store.claims import claim, make_holder
+from ..store.engine import ensure_current, make_engine
 from ..errors import (
     ClaimHeldError,
     ConfigError,
@@ -70,8 +80,6 @@ def wall_clock() -> datetime:
 
 def _secrets_of(config) -> tuple[str, ...]:
     """Every secret a configuration holds: channel keys and passwords, database passwords."""
-    import sqlalchemy as sa
-
     found = []
     for channel in (config.channels or {}).values():
         for key, value in dict(channel.options or {}).items():
@@ -105,17 +113,12 @@ class _RedactingFilter(logging.Filter):
         if clean != message:
             record.msg, record.args = clean, ()
         if record.exc_info and self.secrets:
-            import traceback
-
             record.exc_text = redact("".join(traceback.format_exception(*record.exc_info)), self.secrets).rstrip()
             record.exc_info = None
         return True
 
 
 def _trigger_for(comparison):
-    from apscheduler.triggers.cron import CronTrigger
-    from apscheduler.triggers.interval import IntervalTrigger
-
     schedule = comparison.schedule
     if isinstance(schedule, (int, float)):
         return IntervalTrigger(seconds=float(schedule), timezone=timezone.utc)
@@ -171,6 +174,8 @@ class Service:
         self._file_stamp = None
         self._reported: dict = {}
         self.redactor = _RedactingFilter()
+        # What this process keeps between its looks (cells, boundaries): one for all its threads.
+        self.memory = LookMemory()
 
     # ------------------------------------------------------------------ set-up
 
@@ -184,8 +189,6 @@ class Service:
 
     def load(self):
         """Read and validate the configuration; build sources and channels. Raises ConfigError."""
-        from ..config import load_config
-
         config = load_config(self.config_path)
         if self.config_path is None:
             self.config_path = Path(config.path)
@@ -199,8 +202,6 @@ class Service:
         return config
 
     def _build_sources(self, config, current):
-        from ..source.reader import Source
-
         # Keep the open Source of every source whose address did not change.
         sources = {}
         for name, source_config in config.sources.items():
@@ -217,8 +218,6 @@ class Service:
         With ``wait`` an unreachable store is retried until it answers or the
         service is asked to stop; a store that is behind raises StoreBehindError.
         """
-        from ..store.engine import ensure_current, make_engine
-
         engine = make_engine(self.config.store_url)
         while True:
             try:
@@ -256,8 +255,6 @@ class Service:
         Outcomes: recorded, stopped, held, backoff, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
-        from ..look import take_look
-
         with self._lock:
             config, sources = self.config, self.sources
         comparison = next((c for c in config.comparisons if c.name == name), None)
@@ -280,7 +277,7 @@ class Service:
                 began = time.perf_counter()
                 # holder=None: the claim is ours already (take_look would claim again).
                 record = take_look(config, comparison, as_of=as_of, engine=self.engine,
-                                   source=sources.get(comparison.source), holder=None)
+                                   source=sources.get(comparison.source), holder=None, memory=self.memory)
                 duration_ms = (time.perf_counter() - began) * 1000.0
         except ClaimHeldError:
             log.debug("look skipped comparison=%s reason=claimed_by_another_worker", name)
@@ -363,9 +360,6 @@ class Service:
         )
 
     def start_scheduler(self):
-        from apscheduler.executors.pool import ThreadPoolExecutor
-        from apscheduler.schedulers.background import BackgroundScheduler
-
         workers = max(4, min(10, len(self.config.comparisons) + 2))
         self.scheduler = BackgroundScheduler(
             executors={"default": ThreadPoolExecutor(workers)}, timezone=timezone.utc,
@@ -384,8 +378,6 @@ class Service:
 
     def reload(self, reason: str) -> bool:
         """Adopt the configuration file as it is now, or keep the running one if it is invalid."""
-        from ..config import load_config
-
         self._file_stamp = self._file_state()
         try:
             new = load_config(self.config_path)

@@ -368,7 +368,11 @@ class Source:
                 conn.execute("PRAGMA query_only = ON")
                 return conn
 
-            return sa.create_engine("sqlite://", creator=creator, pool_pre_ping=True)
+            # QueuePool, named: for a creator-built "sqlite://" engine SQLAlchemy would pick its
+            # SingletonThreadPool, which closes connections other threads are still using once more
+            # than five threads share it, and on dispose() — a crash inside libsqlite3.
+            return sa.create_engine("sqlite://", creator=creator, poolclass=sa.pool.QueuePool,
+                                    pool_pre_ping=True)
         connect_args = {}
         if backend == "postgresql" and self._url.get_driver_name() in ("psycopg", "psycopg2"):
             connect_args["options"] = "-c default_transaction_read_only=on"

@@ -1,0 +1,196 @@
+"""What an alert says: the words of each decision and source alert, the e-mail text, the webhook body.
+
+Kept apart from the channels (how an alert travels) so the wording can be read, reviewed and
+tested on its own, and every channel says the same thing.
+"""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime
+
+from ..vocabulary import json_safe
+
+__all__ = [
+    "figure",
+    "decision_message",
+    "decision_payload",
+    "source_unreachable_message",
+    "source_recovered_message",
+    "source_payload",
+    "webhook_body",
+    "email_text",
+]
+
+_DECISION_WORDS = {
+    "difference_found": (
+        "difference found",
+        "The difference between {g1} and {g2} crossed the monitoring boundary at look {look}. "
+        "The data so far are unlikely if the two groups did not differ, and the chance of such a "
+        "false alarm is held at {alpha} across all the planned looks. It does not say why the groups "
+        "differ, and an estimate taken at an early stop tends to overstate the size of the gap: "
+        "read the interval, not only the estimate.",
+    ),
+    "no_material_difference": (
+        "no material difference",
+        "The difference between {g1} and {g2} crossed the futility boundary at look {look}: a "
+        "difference as large as the one the plan was built to detect is now unlikely. It does not "
+        "prove the groups are the same; a smaller difference, inside the interval, is still possible.",
+    ),
+    "plan_complete": (
+        "plan complete without a difference",
+        "The comparison of {g1} and {g2} reached its planned number of events at look {look} without "
+        "crossing the boundary. No difference was shown at the planned size; that is not proof that "
+        "none exists, and the interval shows which differences the data still allow.",
+    ),
+    "data_problem": (
+        "data problem",
+        "At look {look} the data for {g1} and {g2} could not support a test (for example an empty "
+        "group, no spread in the values, or every row excluded). This says nothing about whether the "
+        "groups differ; the comparison keeps looking and will resume when usable data arrive.",
+    ),
+    "awaiting_clusters": (
+        "waiting for enough clusters",
+        "The comparison of {g1} and {g2} has too few clusters for a test at look {look}. No decision "
+        "is possible yet; this is not a signal about the groups.",
+    ),
+    "collecting": (
+        "collecting again",
+        "The comparison of {g1} and {g2} is collecting again at look {look}: no boundary has been "
+        "crossed. This is not a signal of a difference or of its absence.",
+    ),
+}
+
+_KIND_WORDS = {
+    "source_unreachable": (
+        "source unreachable",
+        "The source database for this comparison has not answered since {since}; no looks are being "
+        "recorded. This is an operations problem, not a signal about the groups. Looks resume by "
+        "themselves when the source answers again, and no data are lost.",
+    ),
+    "source_recovered": (
+        "source reachable again",
+        "The source database for this comparison answers again and looks have resumed. This is not a "
+        "signal about the groups.",
+    ),
+}
+
+
+def figure(value, digits=4) -> str:
+    """A figure as shown in an alert: ``n/a`` for none, floats to ``digits`` significant digits."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, float):
+        return f"{value:.{digits}g}"
+    return str(value)
+
+
+def _bound(value, infinite: str) -> str:
+    return infinite if value is None else f"{value:.4g}"
+
+
+def decision_message(name: str, kind: str, values: dict, design: dict) -> str:
+    """One sentence on what a look decided (``values`` are the look row's values)."""
+    groups = design["groups"]
+    look = values["look_number"]
+    if kind == "difference_found":
+        low, high = values["ci_low"], values["ci_high"]
+        interval = ""
+        if low is not None or high is not None:
+            interval = (f" (repeated {100 * (1 - design['alpha']):.0f}% interval "
+                        f"{_bound(low, '-inf')} to {_bound(high, 'inf')})")
+        return (f"{name}: {groups[0]} minus {groups[1]} differs by {values['estimate']:.4g}{interval} at look "
+                f"{look}, with {values['n1']} and {values['n2']} events.")
+    if kind == "no_material_difference":
+        return (f"{name}: no material difference between {groups[0]} and {groups[1]} at look "
+                f"{look} (futility boundary crossed).")
+    if kind == "plan_complete":
+        return (f"{name}: the planned events were reached at look {look} without "
+                f"a difference being found.")
+    if kind == "data_problem":
+        why = values["warnings"][0] if values["warnings"] else "the data cannot support a test"
+        return f"{name}: data problem at look {look}: {why}."
+    return f"{name}: now {kind.replace('_', ' ')} at look {look}."
+
+
+def decision_payload(name: str, version: int, kind: str, values: dict, design: dict, as_of: datetime) -> dict:
+    """The stored payload of an alert raised by a look (the alert id is added when it is written)."""
+    return {
+        "comparison": name, "version": version, "kind": kind,
+        "decision": values["decision"], "look": values["look_number"], "as_of": as_of.isoformat(),
+        "estimate": values["estimate"], "ci_low": values["ci_low"], "ci_high": values["ci_high"],
+        "p_value": values["p_value"], "fraction": values["fraction"], "n1": values["n1"],
+        "n2": values["n2"], "groups": list(design["groups"]),
+        "message": decision_message(name, kind, values, design),
+    }
+
+
+def source_unreachable_message(name: str, since: datetime) -> str:
+    return (f"The source for comparison {name} has not answered since {since.isoformat()}; "
+            f"no looks are being recorded until it does.")
+
+
+def source_recovered_message(name: str) -> str:
+    return f"The source for comparison {name} answers again; looks have resumed."
+
+
+def source_payload(name: str, version: int | None, kind: str, now: datetime, **extra) -> dict:
+    """The stored payload of a source alert: no look, no figures, the outage in ``extra``."""
+    return {
+        "comparison": name, "version": version, "kind": kind, "decision": None, "look": None,
+        "as_of": now.isoformat(), "estimate": None, "ci_low": None, "ci_high": None, **extra,
+    }
+
+
+def webhook_body(alert_id: str, payload: dict) -> bytes:
+    """The exact bytes POSTed for an alert: JSON, keys sorted, non-finite numbers as null.
+
+    Always carries ``alert_id`` (the stable id), ``comparison``, ``kind``,
+    ``decision``, ``look``, ``estimate`` and ``interval`` ([low, high]).
+    """
+    doc = json_safe(dict(payload))
+    doc["alert_id"] = alert_id
+    for key in ("comparison", "kind", "decision", "look", "estimate", "ci_low", "ci_high"):
+        doc.setdefault(key, None)
+    doc["interval"] = [doc.get("ci_low"), doc.get("ci_high")]
+    return json.dumps(doc, sort_keys=True, separators=(",", ":")).encode("utf-8")
+
+
+def email_text(alert_id: str, payload: dict) -> tuple[str, str]:
+    """Subject and plain-text body of an alert e-mail."""
+    comparison = payload.get("comparison", "?")
+    kind = payload.get("kind") or "state_change"
+    decision = payload.get("decision")
+    groups = payload.get("groups") or ["group 1", "group 2"]
+    g1, g2 = (str(groups[0]), str(groups[1])) if len(groups) >= 2 else ("group 1", "group 2")
+    if kind in _KIND_WORDS:
+        title, meaning = _KIND_WORDS[kind]
+    else:
+        title, meaning = _DECISION_WORDS.get(
+            decision, (str(decision), "The comparison changed state at look {look}.")
+        )
+    meaning = meaning.format(
+        g1=g1, g2=g2, look=payload.get("look", "?"),
+        alpha=figure(payload["alpha"], 3) if payload.get("alpha") else "the planned level",
+        since=payload.get("failing_since", "?"),
+    )
+    subject = f"gapwatch: {comparison} - {title}"
+    lines = [meaning, ""]
+    if payload.get("message"):
+        lines += [str(payload["message"]), ""]
+    if kind not in _KIND_WORDS:
+        lines += [
+            f"Comparison: {comparison} (version {payload.get('version', '?')})",
+            f"Look: {payload.get('look', '?')} as of {payload.get('as_of', '?')}",
+            f"Estimate ({g1} minus {g2}): {figure(payload.get('estimate'))}",
+            f"Interval: {figure(payload.get('ci_low'))} to {figure(payload.get('ci_high'))}",
+            f"p-value at this look: {figure(payload.get('p_value'))}",
+            f"Events: {g1} {payload.get('n1', '?')}, {g2} {payload.get('n2', '?')}; "
+            f"information fraction {figure(payload.get('fraction'), 3)}",
+        ]
+    else:
+        lines += [f"Comparison: {comparison}"]
+        if payload.get("error"):
+            lines += [f"Last error: {payload['error']}"]
+    lines += ["", f"Alert id: {alert_id} (the same id on every repeat of this alert)"]
+    return subject, "\n".join(lines) + "\n"

@@ -1,0 +1,79 @@
+"""Local calendar buckets: which hour, day, week or shift a moment belongs to, and when it closes.
+
+Shared meaning for the source reader, the look and verify: a slot (epoch seconds) is filed
+under the local bucket holding it, so every layer groups events by the same calendar.
+"""
+
+from __future__ import annotations
+
+from datetime import date, datetime, time as clock_time, timedelta
+
+from .errors import InvalidArgumentError
+from .vocabulary import UTC
+
+__all__ = ["BUCKET_KINDS", "bucket_key", "bucket_end"]
+
+BUCKET_KINDS = ("hour", "day", "week", "shift")
+
+
+def _local(slot: int, zone) -> datetime:
+    return datetime.fromtimestamp(slot, tz=UTC).astimezone(zone)
+
+
+def _midnight(day: date, zone) -> datetime:
+    return datetime.combine(day, clock_time(0, 0), tzinfo=zone)
+
+
+def _shift_times(shift_starts):
+    return sorted(clock_time(int(s[:2]), int(s[3:5])) for s in shift_starts)
+
+
+def _unknown_kind(kind) -> InvalidArgumentError:
+    return InvalidArgumentError(f"bucket kind must be hour, day, week or shift; got {kind!r}")
+
+
+def bucket_key(slot: int, kind: str, zone, shift_starts=()) -> str:
+    """The local calendar bucket holding a slot: ``hour``, ``day``, ``week`` or ``shift``.
+
+    Days and weeks are keyed by their local date (weeks by their Monday); hours
+    and shifts by their local start with its UTC offset (unambiguous across a
+    daylight-saving change).
+    """
+    local = _local(slot, zone)
+    if kind == "day":
+        return local.date().isoformat()
+    if kind == "week":
+        return (local.date() - timedelta(days=local.weekday())).isoformat()
+    if kind == "hour":
+        return local.replace(minute=0, second=0, microsecond=0).isoformat(timespec="minutes")
+    if kind == "shift":
+        starts = _shift_times(shift_starts)
+        today = local.date()
+        begun = [s for s in starts if s <= local.time()]
+        if begun:
+            start = datetime.combine(today, begun[-1], tzinfo=zone)
+        else:
+            start = datetime.combine(today - timedelta(days=1), starts[-1], tzinfo=zone)
+        return start.isoformat(timespec="minutes")
+    raise _unknown_kind(kind)
+
+
+def bucket_end(key: str, kind: str, zone, shift_starts=()) -> datetime:
+    """When the bucket keyed ``key`` closes (aware UTC)."""
+    if kind == "day":
+        end = _midnight(date.fromisoformat(key) + timedelta(days=1), zone)
+    elif kind == "week":
+        end = _midnight(date.fromisoformat(key) + timedelta(days=7), zone)
+    elif kind == "hour":
+        end = datetime.fromisoformat(key) + timedelta(hours=1)
+    elif kind == "shift":
+        start = datetime.fromisoformat(key).astimezone(zone)
+        starts = _shift_times(shift_starts)
+        later = [s for s in starts if s > start.time()]
+        if later:
+            end = datetime.combine(start.date(), later[0], tzinfo=zone)
+        else:
+            end = datetime.combine(start.date() + timedelta(days=1), starts[0], tzinfo=zone)
+    else:
+        raise _unknown_kind(kind)
+    return end.astimezone(UTC)

@@ -1,0 +1,110 @@
+"""Running cells: a source batch's slot cells rolled into the stored cells, and the look's counts.
+
+A cell is ``(n, Σ(x−shift), Σ(x−shift)²)`` keyed ``(kind, group_index, key)``: the total
+(key ``""``), each local calendar day, and each cluster or pair where the comparison has
+them. Merging cells is addition, so many small looks add up to one big look.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..calendar import bucket_key
+from ..stats.summaries import MomentSummary
+from ..vocabulary import NULL_KEY
+
+__all__ = ["RolledUp", "Counts", "roll_up", "merge", "summary", "of_kind", "counts"]
+
+
+@dataclass(frozen=True)
+class RolledUp:
+    """A batch's slot cells rolled into changes of stored cells, keyed (kind, group_index, key)."""
+
+    changes: dict
+    null_key: int = 0        # events whose pair/cluster column is NULL: excluded, not rolled up
+    null_key_late: int = 0   # of those, late events
+
+
+def roll_up(c, batch) -> RolledUp:
+    """Slot cells → changes to stored cells.
+
+    With a pair or cluster column, an event whose key is NULL belongs to no
+    pair or cluster. Filing it under an empty key would invent a pair (or a
+    cluster) of unrelated events, so it is left out of every cell, the total
+    included (n then matches the paired or clustered statistic), and counted
+    as excluded with reason ``null_key``.
+    """
+    zone = c.zone
+    changes: dict = {}
+    memo: dict = {}
+    needs_key = c.key_column is not None
+    null_key = null_key_late = 0
+
+    def bucket(slot, kind):
+        k = (slot, kind)
+        if k not in memo:
+            memo[k] = bucket_key(slot, kind, zone, c.shift_starts)
+        return memo[k]
+
+    def add(kind, gi, key, cell):
+        entry = changes.setdefault((kind, gi, key), [0, 0.0, 0.0])
+        entry[0] += cell.n
+        entry[1] += cell.sum_dev
+        entry[2] += cell.sum_dev2
+
+    clustered, cluster_column, cluster_by = c.clustered, c.cluster_column, c.cluster_by
+    paired, pair_column, pair_by = c.paired, c.pair_column, c.pair_by
+    for cell in batch.cells:
+        if needs_key and cell.key is None:
+            null_key += cell.n
+            null_key_late += cell.late
+            continue
+        add("total", cell.group_index, "", cell)
+        add("day", cell.group_index, bucket(cell.slot, "day"), cell)
+        column_key = "" if cell.key is None else str(cell.key)
+        if clustered:
+            add("cluster", cell.group_index, column_key if cluster_column else bucket(cell.slot, cluster_by), cell)
+        if paired:
+            add("pair", cell.group_index, column_key if pair_column else bucket(cell.slot, pair_by), cell)
+    return RolledUp(changes, null_key, null_key_late)
+
+
+def merge(stored: dict, changes: dict) -> dict:
+    """The stored cells with this look's changes added (a new dict; ``stored`` is left as it is)."""
+    merged = dict(stored)
+    for k, (n, s1, s2) in changes.items():
+        old = merged.get(k, (0, 0.0, 0.0))
+        merged[k] = (old[0] + n, old[1] + s1, old[2] + s2)
+    return merged
+
+
+def summary(cells, kind, gi, key, shift) -> MomentSummary:
+    n, s1, s2 = cells.get((kind, gi, key), (0, 0.0, 0.0))
+    return MomentSummary(int(n), float(shift), float(s1), float(s2))
+
+
+def of_kind(cells, kind):
+    """``(group_index, key, (n, sum_dev, sum_dev2))`` of every cell of one kind."""
+    return [(gi, key, v) for (k, gi, key), v in cells.items() if k == kind]
+
+
+@dataclass(frozen=True)
+class Counts:
+    """The look's event counts: new and late events used, and exclusions by reason."""
+
+    new_events: int
+    late_events: int
+    excluded_new: dict      # what this look excluded
+    excluded: dict          # running totals since the version's first look
+
+
+def counts(batch, rolled: RolledUp, last_excluded: dict) -> Counts:
+    """New, late and excluded events of a look (NULL-key events move from used to excluded)."""
+    excluded_new = {reason: int(count) for reason, count in batch.excluded.items()}
+    if rolled.null_key:
+        excluded_new[NULL_KEY] = rolled.null_key
+    excluded = dict(last_excluded)
+    for reason, count in excluded_new.items():
+        excluded[reason] = excluded.get(reason, 0) + count
+    return Counts(int(batch.new_events) - rolled.null_key, int(batch.late_events) - rolled.null_key_late,
+                  excluded_new, excluded)

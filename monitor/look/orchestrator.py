@@ -1,0 +1,236 @@
+"""One look at a live comparison, end to end: claim → read state → source read → decide → record.
+
+A look reads from the source only what is new since the comparison's watermark (per
+15-minute slot aggregates), rolls the slots into the running cells (``cells``), weighs
+and decides from them (``decision``, pure), and writes the look row, the changed cells,
+the comparison's new state and any alert in a single store transaction
+(``monitor.store.looks``). Nothing is written when the source cannot be read or the write
+fails part way.
+
+* **Time** is passed in (``as_of``; a time without a zone is UTC); the clock is read only
+  to measure the look's duration. The cutoff is ``as_of − lateness``.
+* **NULL pair or cluster keys.** With a ``pair_column`` or ``cluster_column``, events
+  whose key is NULL belong to no pair or cluster: they are left out of every cell (the
+  totals too, so n matches the statistic) and counted as excluded with reason ``null_key``.
+* **Kept state.** Every look reads the schema revision, the comparison row and its newest
+  look in one statement (so the store-behind refusal is checked at every look). What a
+  process keeps between its looks lives in the ``LookMemory`` passed in (see ``memory``).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import uuid
+from datetime import timedelta
+from functools import partial
+
+from ..config import ComparisonConfig
+from ..errors import InvalidArgumentError, UnknownComparisonError
+from ..source.reader import Source, Watermark
+from ..stats.boundaries import SequentialBoundary
+from ..store.claims import claim
+from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
+                           write_look)
+from ..alerts.wording import decision_payload
+from ..vocabulary import STOPPED_STATES, as_utc, json_safe
+from .cells import counts, merge, roll_up
+from .decision import LookInputs, alert_kind, decide, weigh
+from .design_check import design_key, frozen_design
+from .memory import LookMemory
+from .record import LookRecord
+from .row import LookMoment, look_detail, look_row
+
+__all__ = ["take_look"]
+
+# Stores whose float columns give back exactly the double written (the kept state must
+# equal what a read would return); elsewhere every look reads its state.
+_EXACT_FLOAT_STORES = ("sqlite", "postgresql")
+
+
+class _Stopwatch:
+    """Milliseconds spent in each step of a look, and since it started."""
+
+    def __init__(self, started: float):
+        self.started = self.mark = started
+        self.laps: dict = {}
+
+    def lap(self, name: str) -> None:
+        now = time.perf_counter()
+        self.laps[name] = (now - self.mark) * 1000.0
+        self.mark = now
+
+    def total(self) -> float:
+        return (time.perf_counter() - self.started) * 1000.0
+
+
+def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None):
+    """Take one look at a comparison and record it.
+
+    Parameters
+    ----------
+    config : Config
+        The loaded configuration.
+    comparison : ComparisonConfig or str
+        The comparison (or its name).
+    as_of : datetime
+        "Now" of the look (a time without a zone is UTC); the cutoff is ``as_of − lateness``.
+    engine : sqlalchemy.engine.Engine
+        The history store (must be at the current migration).
+    source : monitor.source.reader.Source, optional
+        An open source; by default one is opened for the comparison's source
+        and disposed of afterwards.
+    holder : str, optional
+        When given, the look holds the comparison's claim (lease) under this
+        name for its duration; a caller that claims by itself passes None.
+    memory : LookMemory, optional
+        What this process keeps between its looks (one per process); without one the
+        look reads everything from the store and keeps nothing.
+
+    Returns
+    -------
+    LookRecord or None
+        None when the comparison has stopped (it looks no more).
+
+    Raises
+    ------
+    SourceUnavailableError, SourceSchemaError
+        The source could not be read; nothing was recorded.
+    DesignChangedError
+        The configured design differs from the one frozen at the first look.
+    StoreBehindError
+        The store's schema is not current (`gapwatch db upgrade`).
+    LookAlreadyRecordedError
+        Another look for this comparison was recorded first; nothing was written.
+    """
+    stopwatch = _Stopwatch(time.perf_counter())
+    if isinstance(comparison, str):
+        comparison = config.comparison(comparison)
+    if not isinstance(comparison, ComparisonConfig):
+        raise InvalidArgumentError(f"comparison must be a ComparisonConfig or a name; got {comparison!r}")
+    try:
+        as_of = as_utc(as_of, "as_of")
+    except ValueError as exc:
+        raise InvalidArgumentError(str(exc)) from None
+    memory = memory if memory is not None else LookMemory()
+    if holder is None:
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+    with claim(engine, comparison.name, holder, now=as_of, seconds=config.service.lease_seconds):
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+
+
+def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch):
+    configured = memory.configured_design(c)
+    state = read_state(engine, c.name, kept=partial(memory.take_state, engine))
+    stopwatch.lap("store_read")
+    row = state.comparison
+    if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
+        return None
+    design = frozen_design(c.name, row, configured)
+    batch, cutoff = _read_source(config, c, design, row, as_of, source)
+    stopwatch.lap("source")
+
+    rolled = roll_up(c, batch)
+    cells = merge(state.cells, rolled.changes)
+    look_counts = counts(batch, rolled, state.last_excluded)
+    last = state.last_boundary_look
+    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()),
+                                last.fraction if last is not None else 0.0))
+    key = design_key(design) if evidence.tests or row is None else None
+    boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
+    decision = decide(evidence, boundary)
+
+    moment = LookMoment(state.looks_taken + 1, as_of, cutoff, batch.watermark.arrival)
+    values = look_row(moment, evidence, decision, look_counts)
+    alert = alert_kind(row["state"] if row is not None else "collecting", decision.decision)
+    values["duration_ms"] = stopwatch.total()
+    stopwatch.lap("compute")
+    detail = look_detail(evidence, decision, look_counts)
+    detail["timings_ms"] = {k: round(v, 3) for k, v in stopwatch.laps.items()}
+    # Random, not from the clock: tells the next look whether the store's newest look is this one.
+    detail["state_token"] = token = uuid.uuid4().hex
+    values["detail"] = json_safe(detail)
+
+    written = write_look(engine, LookWrite(
+        name=c.name, state=state, design=design, design_hash=key, settings=json_safe(c.settings()),
+        new_state=decision.decision, stopped=decision.stopped, look=values, cells=cells,
+        changes=rolled.changes, watermark=batch.watermark.to_dict(), as_of=as_of,
+        alert=None if alert is None else AlertDraft(
+            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify))))
+    if boundary is not None:
+        # Recorded values as stored (a float column may round): the kept boundary must match them.
+        memory.keep_boundary(engine, written.comparison_id, key, boundary)
+    if engine.dialect.name in _EXACT_FLOAT_STORES:
+        if decision.boundary is not None:
+            last = BoundaryLookRow(decision.boundary_number, values["fraction"], values["boundary_z"],
+                                   values["futility_z"])
+        memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
+    return _record(c, written, moment, evidence, decision, values, stopwatch)
+
+
+def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
+    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data."""
+    own_source = source is None
+    if own_source:
+        try:
+            source_config = config.sources[c.source]
+        except KeyError:
+            raise UnknownComparisonError(f"comparison {c.name!r} names unknown source {c.source!r}") from None
+        source = Source(source_config.url, name=c.source)
+    try:
+        if design.get("shift") is None:
+            # Proportions keep exact success counts; means shift by a value near the data.
+            shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
+            design["shift"] = None if shift is None else float(shift)
+        spec = c.source_spec(design["shift"] or 0.0)
+        watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
+        cutoff = as_of - timedelta(seconds=c.lateness_seconds)
+        if watermark is not None and cutoff < watermark.cutoff:
+            cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
+        batch = source.read_cells(spec, watermark, cutoff)
+        if design["shift"] is None and batch.cells:
+            # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
+            design["shift"] = 0.0
+    finally:
+        if own_source:
+            source.dispose()
+    return batch, cutoff
+
+
+def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
+    """The sequential boundary standing at the recorded testing looks.
+
+    The one kept in memory is used when it stands at the last recorded testing look;
+    otherwise it is resumed from the testing looks this look's read saw (another process
+    may have recorded more since).
+    """
+    last = state.last_boundary_look
+    count = last.boundary_look if last is not None else 0
+    row = state.comparison
+    kept = memory.take_boundary(engine, row["id"], key) if row is not None else None
+    if kept is not None and len(kept.looks) == count and (
+            count == 0 or (kept.looks[-1].fraction == last.fraction and kept.looks[-1].z == last.boundary_z)):
+        return kept
+    recorded = boundary_looks(engine, row["id"], count) if count else []
+    return SequentialBoundary.resume(
+        design["alpha"], design["spending"], design["alternative"],
+        [r.fraction for r in recorded], [r.boundary_z for r in recorded],
+        futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
+        if futility is not None else None,
+        futility=futility)
+
+
+def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatch) -> LookRecord:
+    low, high = decision.interval
+    return LookRecord(
+        comparison=c.name, version=written.version, look=moment.look_number, as_of=moment.as_of,
+        cutoff=moment.cutoff, decision=decision.decision, state=decision.decision,
+        n1=evidence.s1.n, n2=evidence.s2.n, pairs=evidence.stat.pairs,
+        estimate=values["estimate"], standard_error=values["standard_error"], statistic=values["statistic"],
+        df=values["df"], p_value=values["p_value"], ci_low=low, ci_high=high, fraction=evidence.fraction,
+        boundary_z=values["boundary_z"], nominal_p=values["nominal_p"], boundary_look=decision.boundary_number,
+        clusters=evidence.stat.clusters, design_effect=values["design_effect"], effective_n=values["effective_n"],
+        new_events=values["new_events"], late_events=values["late_events"], excluded=values["excluded"],
+        warnings=evidence.warnings, look_id=written.look_id, alert_id=written.alert_id,
+        duration_ms=stopwatch.total(), detail=values["detail"],
+    )

@@ -1,0 +1,185 @@
+"""The fixed-sample statistic of a look's running cells (pure: no SQL, no clock).
+
+Paired comparisons test the per-pair mean differences of closed buckets, clustered ones
+use the cluster-robust difference, the others the design's method on the two totals. The
+one-sided p-values feed the boundary; the day-level design effect feeds the warning that
+an unclustered comparison needs clustering.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from scipy import special
+
+from ..calendar import bucket_end
+from ..errors import InvalidArgumentError
+from ..stats import fixed
+from ..stats.boundaries import FutilitySpec
+from ..stats.clustered import cluster_robust_difference, design_effect
+from ..stats.summaries import MomentSummary
+from ..vocabulary import json_safe
+from .cells import of_kind
+
+__all__ = ["Stat", "statistic", "one_sided_ps", "t_critical", "futility_spec", "day_design_effect",
+           "finite_or_none"]
+
+
+def finite_or_none(x):
+    """A float, or None for none, nan and the infinities (the look's figures)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass
+class Stat:
+    """What the statistic step produced."""
+
+    estimate: float | None = None
+    standard_error: float | None = None
+    statistic: float | None = None
+    df: float | None = None
+    p_value: float | None = None
+    p_upper: float | None = None
+    p_lower: float | None = None
+    fixed: dict | None = None
+    clusters: int | None = None
+    pairs: int | None = None
+    cluster_design_effect: float | None = None
+    problem: str | None = None       # a data problem (the decision is data_problem)
+    waiting: str | None = None       # not enough data yet (collecting / awaiting_clusters)
+    awaiting_clusters: bool = False
+
+    @property
+    def testable(self) -> bool:
+        return (self.problem is None and self.waiting is None and self.statistic is not None
+                and not math.isnan(self.statistic))
+
+
+def one_sided_ps(statistic, df):
+    """(P[T >= t], P[T <= t]) under no difference; scipy.special keeps this to microseconds."""
+    if df is None:
+        return float(special.ndtr(-statistic)), float(special.ndtr(statistic))
+    return float(special.stdtr(df, -statistic)), float(special.stdtr(df, statistic))
+
+
+def t_critical(nominal_p, df):
+    """The t value with upper tail ``nominal_p`` (``-stdtrit(df, p)`` keeps tiny tails exact)."""
+    critical = float(-special.stdtrit(df, nominal_p))
+    # stdtrit gives +inf for a tail of 0 (or ~1e-300 at small df): the boundary is then out of reach.
+    return critical if critical > 0 else math.inf
+
+
+def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
+    """The fixed-sample statistic of the merged cells, or why there is none yet."""
+    common = dict(null_difference=design["null_difference"], alternative=design["alternative"],
+                  alpha=design["alpha"])
+    st = Stat()
+    if s1.n == 0 and s2.n == 0:
+        if excluded_total:
+            st.problem = "every row read so far is excluded as bad"
+        else:
+            st.waiting = "no events yet"
+        return st
+    if s1.n == 0 or s2.n == 0:
+        empty = design["groups"][0 if s1.n == 0 else 1]
+        st.problem = f"group {empty!r} has no valid events"
+        return st
+
+    if c.paired:
+        pairing = design["pairing"]
+        by = pairing["pair_by"]
+        means = {}
+        for gi, key, (n, sd, _s2) in of_kind(cells, "pair"):
+            if n > 0:
+                means.setdefault(key, {})[gi] = design["shift"] + sd / n
+        diffs = []
+        for key in sorted(means):
+            m = means[key]
+            if 0 in m and 1 in m:
+                if by is not None and bucket_end(key, by, c.zone, pairing["shift_starts"]) > cutoff:
+                    continue  # the bucket is still open: its means may move
+                diffs.append(m[0] - m[1])
+        st.pairs = len(diffs)
+        if len(diffs) < 2:
+            st.waiting = f"{len(diffs)} complete pair(s) so far; a paired test needs at least 2"
+            return st
+        result = fixed.from_summaries("paired", MomentSummary.from_values(diffs), None, **common)
+    elif c.clustered:
+        rows = [(gi, key, v) for gi, key, v in of_kind(cells, "cluster") if v[0] > 0]
+        rows.sort(key=lambda r: (r[0], r[1]))
+        shift = design["shift"] or 0.0
+        result = cluster_robust_difference(
+            [r[0] for r in rows], [r[1] for r in rows], [r[2][0] for r in rows],
+            [r[2][1] for r in rows], shift, sum_dev2=[r[2][2] for r in rows], **common)
+        st.clusters = int(result.clusters)
+        st.cluster_design_effect = finite_or_none(result.design_effect)
+        st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
+        st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
+        st.fixed = json_safe(result.to_dict())
+        if result.clusters < design["min_clusters"]:
+            st.waiting = (f"{result.clusters} clusters so far; decisions start at "
+                          f"{design['min_clusters']} (min_clusters)")
+            st.awaiting_clusters = True
+            return st
+        if result.degenerate or not math.isfinite(result.standard_error) or result.standard_error == 0:
+            st.problem = "the cluster-level spread is zero or undefined: " + "; ".join(result.notes)
+            return st
+        st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
+        return st
+    else:
+        method = design["method"]
+        if method in ("welch", "pooled") and (s1.n < 2 or s2.n < 2):
+            st.waiting = "each group needs at least 2 events for a variance"
+            return st
+        sigmas = design.get("sigmas")
+        result = fixed.from_summaries(method, s1, s2, sigmas=tuple(sigmas) if sigmas else None, **common)
+
+    st.estimate = float(result.estimate)
+    st.standard_error = finite_or_none(result.standard_error)
+    st.statistic = float(result.statistic)
+    st.df = None if result.df is None else float(result.df)
+    st.p_value = float(result.p_value)
+    st.fixed = json_safe(result.to_dict())
+    if (result.degenerate or result.standard_error is None or not math.isfinite(result.standard_error)
+            or result.standard_error == 0 or math.isnan(result.statistic)):
+        st.problem = "zero variance: every value is the same, no test is possible"
+        return st
+    st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
+    return st
+
+
+def futility_spec(design):
+    """The futility rule of the design (None without one, or without the plan's drift and power)."""
+    if not design.get("futility"):
+        return None
+    plan = design["plan"]
+    figures = plan.get("figures") or {}
+    drift = figures.get("drift")
+    power = (plan.get("inputs") or {}).get("power")
+    if drift is None or power is None:
+        return None
+    return FutilitySpec(design["spending"], 1.0 - power, drift)
+
+
+def day_design_effect(design, cells, s1, s2):
+    """Day-level design effect and effective n (None when it cannot be measured)."""
+    if s1.n < 2 or s2.n < 2:
+        return None
+    # Sorted by (group, day) so the sums run in one order whatever order the cells came in.
+    rows = sorted((gi, key, v[0], v[1], v[2]) for (kind, gi, key), v in cells.items()
+                  if kind == "day" and v[0] > 0)
+    if len({r[1] for r in rows}) < 2:
+        return None
+    groups, keys, n, sum_dev, sum_dev2 = zip(*rows)
+    try:
+        de = design_effect({"groups": groups, "keys": keys, "n": n, "sum_dev": sum_dev,
+                            "sum_dev2": sum_dev2, "shift": design["shift"] or 0.0})
+    except InvalidArgumentError:
+        return None
+    if not math.isfinite(de.design_effect):
+        return None
+    return de
