@@ -25,7 +25,7 @@ from datetime import time as clock_time
 from pathlib import Path
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from .errors import ConfigError, UnknownComparisonError
+from .errors import ConfigError, InvalidArgumentError, UnknownComparisonError
 
 __all__ = [
     "Config",
@@ -86,7 +86,7 @@ _COMPARISON_KEYS = {
     "sd", "p1", "p2", "power", "looks", "every", "sigmas", "pair_by", "pair_column",
     "shift_starts", "null_difference", "futility", "valid_range", "filters", "lateness",
     "arrival_column", "time_format", "timezone", "cluster_by", "cluster_column", "min_clusters",
-    "notify", "description",
+    "notify", "description", "start", "baseline", "baseline_from", "baseline_to", "day_sd", "events_per_day",
 }
 
 
@@ -213,6 +213,12 @@ class ComparisonConfig:
     notify: tuple = ()
     description: str = ""
     schema: str | None = None
+    start: str | None = None
+    baseline: str | None = None
+    baseline_from: str | None = None
+    baseline_to: str | None = None
+    day_sd: float | None = None
+    events_per_day: float | None = None
 
     # ------------------------------------------------------------ derived
 
@@ -237,6 +243,35 @@ class ComparisonConfig:
         return bool(self.cluster_by or self.cluster_column)
 
     @property
+    def before_after(self) -> bool:
+        """A start and a baseline before it: the comparison estimates the difference in differences."""
+        return self.start is not None and (self.baseline is not None or self.baseline_from is not None)
+
+    @functools.cached_property
+    def window(self) -> dict | None:
+        """The start and the baseline as aware UTC datetimes (None without a start).
+
+        ``{"start", "baseline_from", "baseline_to", "baseline_days"}``; the baseline entries
+        are None for a comparison with a start and no baseline.
+        """
+        if self.start is None:
+            return None
+        from datetime import timedelta
+
+        from .vocabulary import parse_moment
+
+        start = parse_moment(self.start, "start", self.zone)
+        begin = end = None
+        if self.baseline is not None:
+            end = start
+            begin = start - timedelta(seconds=parse_duration(self.baseline))
+        elif self.baseline_from is not None:
+            begin = parse_moment(self.baseline_from, "baseline_from", self.zone)
+            end = parse_moment(self.baseline_to, "baseline_to", self.zone)
+        days = None if begin is None else (end - begin).total_seconds() / 86400.0
+        return {"start": start, "baseline_from": begin, "baseline_to": end, "baseline_days": days}
+
+    @property
     def key_column(self) -> str | None:
         """The source column that keys cells (pair or cluster column), if any."""
         return self.pair_column or self.cluster_column
@@ -251,6 +286,8 @@ class ComparisonConfig:
         """
         if self.planned_per_group is not None:
             return {"planned_per_group": int(self.planned_per_group)}
+        if self.before_after:
+            return self._before_after_plan()
         from .stats.planning import plan_mean, plan_proportion
 
         common = dict(alpha=self.alpha, power=self.power, alternative=self.alternative,
@@ -264,6 +301,24 @@ class ComparisonConfig:
         if self.paired:
             planned = int(math.ceil(plan.max_per_group / 2.0))
         return {"planned_per_group": planned, "inputs": _plan_inputs(self), "figures": figures}
+
+    def _before_after_plan(self) -> dict:
+        """Planned events per group after the start, from the days the change needs."""
+        from .stats.before_after import plan_before_after
+
+        common = dict(day_sd=self.day_sd or 0.0, events_per_day=self.events_per_day,
+                      baseline_days=self.window["baseline_days"], alpha=self.alpha, power=self.power,
+                      alternative=self.alternative, spending=self.spending, looks=self.looks,
+                      futility=self.futility)
+        if self.metric == "proportion":
+            # The change is p1 − p2; the spread is taken at the rate nearer one half.
+            plan = plan_before_after(self.p1 - self.p2, rate=min((self.p1, self.p2), key=lambda q: abs(q - 0.5)),
+                                     **common)
+        else:
+            plan = plan_before_after(self.difference, self.sd, **common)
+        inputs = _plan_inputs(self)
+        inputs.update(day_sd=self.day_sd or 0.0, events_per_day=self.events_per_day)
+        return {"planned_per_group": int(plan.planned_per_group), "inputs": inputs, "figures": plan.to_dict()}
 
     @property
     def planned(self) -> int:
@@ -302,8 +357,22 @@ class ComparisonConfig:
             "time_column": self.time_column,
             "time_format": self.time_format,
             "timezone": self.timezone,
-            "min_clusters": self.min_clusters if self.clustered else None,
+            "min_clusters": self.min_clusters if (self.clustered or self.before_after) else None,
+            **self._window_design(),
         }
+
+    def _window_design(self) -> dict:
+        """The start and baseline as frozen design entries (absent without a start, as before)."""
+        window = self.window
+        if window is None:
+            return {}
+        out = {"start": window["start"].isoformat()}
+        if window["baseline_from"] is not None:
+            out["before_after"] = {"baseline_from": window["baseline_from"].isoformat(),
+                                   "baseline_to": window["baseline_to"].isoformat(),
+                                   "baseline_days": window["baseline_days"],
+                                   "events_per_day": self.events_per_day}
+        return out
 
     def settings(self) -> dict:
         """Non-design settings, shown with the comparison but never frozen."""
@@ -334,11 +403,30 @@ class ComparisonConfig:
             arrival_column=self.arrival_column,
             filters=tuple(self.filters),
             valid_range=self.valid_range,
+            start=None if self.window is None else self.window["start"],
         )
+
+    def baseline_spec(self, shift: float = 0.0):
+        """The source spec of the baseline: events from ``baseline_from`` up to (not at) ``baseline_to``."""
+        from dataclasses import replace
+
+        window = self.window
+        return replace(self.source_spec(shift), start=window["baseline_from"], end=window["baseline_to"])
 
     @property
     def zone(self) -> ZoneInfo:
         return ZoneInfo(self.timezone)
+
+
+def _has_baseline(v) -> bool:
+    return any(k in v for k in ("baseline", "baseline_from", "baseline_to"))
+
+
+def _moment_text(value):
+    """A start or baseline end as written: text stays text, a TOML date-time becomes ISO text."""
+    if value is None or isinstance(value, str):
+        return value
+    return value.isoformat() if hasattr(value, "isoformat") else None
 
 
 def _plan_inputs(c: ComparisonConfig) -> dict:
@@ -721,8 +809,8 @@ class _Checker:
         min_clusters = v.get("min_clusters", DEFAULT_MIN_CLUSTERS)
         if not isinstance(min_clusters, int) or isinstance(min_clusters, bool) or min_clusters < 2:
             p("min_clusters", f"must be an integer of at least 2; got {min_clusters!r}")
-        elif "min_clusters" in v and not (cluster_by or cluster_column):
-            p("min_clusters", "is only used with cluster_by or cluster_column")
+        elif "min_clusters" in v and not (cluster_by or cluster_column or _has_baseline(v)):
+            p("min_clusters", "is only used with cluster_by or cluster_column (or a baseline)")
 
         # What is read
         valid_range = v.get("valid_range")
@@ -747,6 +835,7 @@ class _Checker:
             p("timezone", f"{timezone_name!r} is not a known time zone (e.g. \"Europe/Lisbon\")")
             timezone_name = "UTC"
 
+        self.window_keys(v, metric, method, cluster_by, cluster_column, timezone_name, p)
         every = v.get("every", "10m")
         self.schedule(every, timezone_name, p)
         lateness = v.get("lateness", "0s")
@@ -770,7 +859,7 @@ class _Checker:
             p("description", f"must be text; got {description!r}")
 
         try:
-            return ComparisonConfig(
+            built = ComparisonConfig(
                 name=name,
                 source=source if isinstance(source, str) else "",
                 table=v.get("table", ""),
@@ -809,10 +898,92 @@ class _Checker:
                 notify=tuple(notify),
                 description=description if isinstance(description, str) else "",
                 schema=v.get("schema"),
+                start=_moment_text(v.get("start")),
+                baseline=v.get("baseline"),
+                baseline_from=_moment_text(v.get("baseline_from")),
+                baseline_to=_moment_text(v.get("baseline_to")),
+                day_sd=_float_or_none(v.get("day_sd")),
+                events_per_day=_float_or_none(v.get("events_per_day")),
             )
         except (TypeError, ValueError) as exc:  # pragma: no cover - problems above cover the causes
             self.problem(where, f"cannot be built: {exc}")
             return None
+        if built.before_after and built.planned_per_group is None and not self.problems:
+            try:
+                built.plan  # a baseline too short for the planned change is a problem of the file
+            except InvalidArgumentError as exc:
+                p("baseline", str(exc))
+        return built
+
+    def window_keys(self, v, metric, method, cluster_by, cluster_column, timezone_name, p):
+        """``start``, ``baseline`` or ``baseline_from``/``baseline_to``, and their planning inputs."""
+        from datetime import timedelta
+
+        from .vocabulary import parse_moment
+
+        zone = ZoneInfo(timezone_name)
+        start = None
+        if "start" in v:
+            try:
+                start = parse_moment(v["start"], "start", zone)
+            except ValueError as exc:
+                p("start", str(exc).removeprefix("start "))
+        has_length, has_range = "baseline" in v, ("baseline_from" in v or "baseline_to" in v)
+        if (has_length or has_range) and "start" not in v:
+            p("baseline" if has_length else "baseline_from",
+              "needs a start (the moment the change went live); the baseline is the period before it")
+        if has_length and has_range:
+            p("baseline", "give baseline (a length before the start) or baseline_from + baseline_to, not both")
+        begin = end = None
+        if has_length:
+            try:
+                length = parse_duration(v["baseline"])
+                if isinstance(v["baseline"], (int, float)) or length <= 0:
+                    raise ValueError(f"{v['baseline']!r} is not a positive length like \"28d\"")
+                if start is not None:
+                    begin, end = start - timedelta(seconds=length), start
+            except ValueError as exc:
+                p("baseline", str(exc))
+        elif has_range:
+            for key in ("baseline_from", "baseline_to"):
+                if key not in v:
+                    p(key, "is required with the other end of the baseline")
+            try:
+                if "baseline_from" in v and "baseline_to" in v:
+                    begin = parse_moment(v["baseline_from"], "baseline_from", zone)
+                    end = parse_moment(v["baseline_to"], "baseline_to", zone)
+            except ValueError as exc:
+                p("baseline_from" if "baseline_from" in str(exc) else "baseline_to",
+                  str(exc).split(" ", 1)[1])
+            if begin is not None and end is not None and not begin < end:
+                p("baseline_to", f"must be after baseline_from; got {v['baseline_from']!r} to {v['baseline_to']!r}")
+            if end is not None and start is not None and end > start:
+                p("baseline_to", f"must not be after the start {v['start']!r}; got {v['baseline_to']!r}")
+        if has_length or has_range:
+            if method not in ("welch", "pooled", "proportions"):
+                p("method", f"{method!r} cannot be a before/after comparison: it compares means "
+                            f"(welch, pooled) or rates (proportions) day by day")
+            if cluster_column is not None:
+                p("cluster_column", "a before/after comparison is clustered by calendar day; drop cluster_column")
+            elif cluster_by not in (None, "day"):
+                p("cluster_by", f"a before/after comparison is clustered by calendar day; got {cluster_by!r}")
+            if v.get("futility") is True:
+                p("futility", "is not available for before/after comparisons")
+            planning = "planned_per_group" not in v
+            for key in ("day_sd", "events_per_day"):
+                if key in v and not planning:
+                    p(key, "is a planning input; give it with difference + sd (p1 + p2) and power, "
+                           "not with planned_per_group")
+            if planning and "events_per_day" not in v:
+                p("events_per_day", "is required to plan a before/after comparison (events per group per day)")
+            if "events_per_day" in v and (not _is_number(v["events_per_day"]) or v["events_per_day"] <= 0):
+                p("events_per_day", f"must be a positive number; got {v['events_per_day']!r}")
+            if "day_sd" in v and (not _is_number(v["day_sd"]) or v["day_sd"] < 0):
+                p("day_sd", f"must be a number of at least 0; got {v['day_sd']!r}")
+        else:
+            for key in ("day_sd", "events_per_day"):
+                if key in v:
+                    p(key, "plans a before/after comparison: give start and baseline too")
 
     def plan_keys(self, v, metric, method, alternative, p):
         planned = v.get("planned_per_group")

@@ -32,6 +32,7 @@ from scipy import special
 from ..errors import InvalidArgumentError
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
+from ..stats.before_after import estimate_after_stop, information_fraction
 from ..stats.inference import median_unbiased_estimate, repeated_confidence_interval, stagewise_p_value
 from ..stats.summaries import MomentSummary
 from ..vocabulary import DESIGN_EFFECT_WARNING, QUIET_STATES, STOPPED_STATES
@@ -95,7 +96,10 @@ def weigh(inputs: LookInputs) -> Evidence:
     s2 = summary(cells, "total", 1, "", shift)
     st = statistic(c, design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
     planned = int(design["plan"]["planned_per_group"])
-    fraction = ((st.pairs or 0) if c.paired else min(s1.n, s2.n)) / planned
+    if design.get("before_after"):
+        fraction = before_after_fraction(design, cells, min(s1.n, s2.n))
+    else:
+        fraction = ((st.pairs or 0) if c.paired else min(s1.n, s2.n)) / planned
 
     state, tests, warnings = "collecting", False, []
     if st.problem:
@@ -112,7 +116,8 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if de is not None and not c.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
+    if (de is not None and not c.clustered and not design.get("before_after")
+            and de.design_effect > DESIGN_EFFECT_WARNING):
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
@@ -132,7 +137,8 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
     alternative = design["alternative"]
     look = boundary.add_look(fraction)
-    if design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered:
+    if (design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered
+            and not design.get("before_after")):
         z = st.statistic
         crossed = (z >= look.z if alternative == "greater" else z <= -look.z if alternative == "less"
                    else abs(z) >= look.z)
@@ -157,10 +163,30 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     return Decision(decision, look, len(boundary.looks), interval, after)
 
 
+def before_after_fraction(design, cells, after_events) -> float:
+    """Information fraction of a before/after comparison (counts only, never a variance).
+
+    ``(1/A_max + 1/B) / (1/A + 1/B)`` with ``A`` = events since the start (the smaller
+    group) over events per day, ``A_max`` the planned events over events per day and
+    ``B`` the baseline's days. Events per day are the plan's, else the baseline's own
+    (its smaller group's events over its days).
+    """
+    window = design["before_after"]
+    planned = int(design["plan"]["planned_per_group"])
+    days = float(window["baseline_days"])
+    per_day = window.get("events_per_day")
+    if not per_day:
+        totals = [cells.get(("baseline_total", gi, ""), (0, 0.0, 0.0))[0] for gi in (0, 1)]
+        per_day = min(totals) / days if min(totals) > 0 else planned
+    return float(information_fraction(after_events / per_day, planned / per_day, days))
+
+
 def _after_stop(boundary, st: Stat, fraction, design) -> dict:
     """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
     fractions = [b.fraction for b in boundary.looks]
     upper = [b.z for b in boundary.looks]
+    if design.get("before_after") and st.standard_error and st.df:
+        return _after_stop_on_t_scale(fractions, upper, st, design)
     # t statistics enter the z-scale calculation through their one-sided p-value.
     if st.df is None:
         z = st.statistic
@@ -177,6 +203,25 @@ def _after_stop(boundary, st: Stat, fraction, design) -> dict:
             out["adjusted_ci"] = list(est.ci)
             # The look's own estimate: for t statistics the z-scale figure differs slightly.
             out["naive_estimate"] = st.estimate
+    except (InvalidArgumentError, ValueError, RuntimeError) as exc:  # numerical trouble: keep the look
+        out["note"] = f"adjusted inference unavailable: {exc}"
+    return out
+
+
+def _after_stop_on_t_scale(fractions, upper, st: Stat, design) -> dict:
+    """Adjusted inference of a before/after stop: the median-unbiased estimate on the t scale.
+
+    Taking the z-scale drift straight to the difference scale shrinks a t-based estimate
+    by about z/t; see :func:`monitor.stats.before_after.estimate_after_stop`.
+    """
+    z = float(-special.ndtri(st.p_upper)) if 0 < st.p_upper < 1 else math.copysign(40.0, st.statistic)
+    out = {"stop_look": len(fractions), "z_observed": z}
+    try:
+        est = estimate_after_stop(fractions, upper, len(fractions), st.estimate, st.standard_error, st.df,
+                                  null_difference=design["null_difference"], alternative=design["alternative"],
+                                  alpha=design["alpha"])
+        out.update(p_value=est.p_value, median_unbiased_estimate=est.estimate, adjusted_ci=list(est.ci),
+                   naive_estimate=st.estimate)
     except (InvalidArgumentError, ValueError, RuntimeError) as exc:  # numerical trouble: keep the look
         out["note"] = f"adjusted inference unavailable: {exc}"
     return out

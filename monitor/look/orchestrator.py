@@ -34,7 +34,7 @@ from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, bo
                            write_look)
 from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
-from .cells import counts, merge, roll_up
+from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
 from .decision import LookInputs, alert_kind, decide, weigh
 from .design_check import design_key, frozen_design
 from .memory import LookMemory
@@ -127,10 +127,12 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
     design = frozen_design(c.name, row, configured)
-    batch, cutoff = _read_source(config, c, design, row, as_of, source)
+    batch, cutoff, baseline = _read_source(config, c, design, row, as_of, source, state.cells)
     stopwatch.lap("source")
 
     rolled = roll_up(c, batch)
+    if baseline:
+        rolled.changes.update(baseline)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     last = state.last_boundary_look
@@ -168,8 +170,13 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data."""
+def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, stored_cells):
+    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data.
+
+    A before/after comparison also reads its baseline, once: at the first look whose
+    cutoff has passed the baseline's end (its cells are returned as changes, frozen from
+    then on; rows dated in it that arrive later are counted as ``before_start``).
+    """
     own_source = source is None
     if own_source:
         try:
@@ -191,10 +198,44 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source):
         if design["shift"] is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
             design["shift"] = 0.0
+        baseline = None
+        window = c.window
+        if (c.before_after and BASELINE_READ not in stored_cells
+                and cutoff >= window["baseline_to"]):
+            baseline_batch = source.read_cells(c.baseline_spec(design["shift"] or 0.0), None,
+                                               window["baseline_to"])
+            baseline = roll_up_baseline(c, baseline_batch)
+            batch = _with_baseline_arrivals(batch, baseline_batch)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff
+    return batch, cutoff, baseline
+
+
+def _with_baseline_arrivals(batch, baseline_batch):
+    """The batch with its arrival watermark raised past the baseline's rows, and their bad rows counted.
+
+    Baseline rows read now must never come back as late rows dated before the start.
+    """
+    from dataclasses import replace
+
+    arrival = batch.watermark.arrival
+    seen = baseline_batch.watermark.arrival
+    if seen is not None and (arrival is None or _later(seen, arrival)):
+        batch = replace(batch, watermark=Watermark(batch.watermark.cutoff, seen))
+    if baseline_batch.excluded:
+        excluded = dict(batch.excluded)
+        for reason, count in baseline_batch.excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
+        batch = replace(batch, excluded=excluded)
+    return batch
+
+
+def _later(a, b) -> bool:
+    try:
+        return a > b
+    except TypeError:
+        return str(a) > str(b)
 
 
 def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:

@@ -42,6 +42,8 @@ def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
         detail["fixed"] = st.fixed
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
+    if st.before_after is not None:
+        detail["before_after"] = st.before_after
     if decision.after_stop is not None:
         detail["after_stop"] = decision.after_stop
     if counts.late_events:

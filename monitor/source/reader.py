@@ -82,6 +82,7 @@ EXCLUSION_REASONS = (
     "not_finite",
     "not_binary",
     "out_of_range",
+    "before_start",
 )
 
 FILTER_OPERATORS = ("=", "!=", "<", "<=", ">", ">=", "in", "not in")
@@ -118,6 +119,10 @@ class SourceSpec:
     arrival_column: str | None = None
     filters: tuple = ()
     valid_range: tuple | None = None
+    # Event-time window: ``start`` inclusive (a comparison counts events at or after its start),
+    # ``end`` exclusive (a baseline ends where the change begins).
+    start: datetime | None = None
+    end: datetime | None = None
 
     def __post_init__(self):
         for name in ("table", "group_column", "value_column", "time_column"):
@@ -162,6 +167,12 @@ class SourceSpec:
             if bounds[0] is not None and bounds[1] is not None and bounds[0] > bounds[1]:
                 raise InvalidArgumentError(f"valid_range low must not exceed high, got {self.valid_range!r}")
             object.__setattr__(self, "valid_range", bounds)
+        for name in ("start", "end"):
+            moment = getattr(self, name)
+            if moment is not None:
+                object.__setattr__(self, name, _as_utc(moment, name))
+        if self.start is not None and self.end is not None and not self.start < self.end:
+            raise InvalidArgumentError(f"start must be before end, got {self.start} and {self.end}")
 
 
 @dataclass(frozen=True)
@@ -946,6 +957,10 @@ class Source:
         kind = self._time_kind(conn, spec, cols)
         arrival, atype = self._arrival(spec, cols)
         params = {"upper": self._bind_time(kind, cutoff)}
+        if spec.start is not None:
+            params["start"] = self._bind_time(kind, spec.start)
+        if spec.end is not None:
+            params["end"] = self._bind_time(kind, spec.end)
         if since is not None:
             params["lower"] = self._bind_time(kind, _as_utc(since.cutoff, "since.cutoff"))
             if arrival is not None and since.arrival is not None:
@@ -970,13 +985,13 @@ class Source:
         # (bound parameters make each repeated expression text distinct to the database).
         by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
 
-        def part(where, late):
+        def part(where, late, why=None):
             return (
                 sa.select(
                     gi.label("gi"),
                     self._slot_expr(kind, epoch).label("slot"),
                     key.label("key"),
-                    reason.label("reason"),
+                    (reason if why is None else sa.literal(why, sa.Text)).label("reason"),
                     sa.func.count().label("n"),
                     (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
                     # Sums of bad groups are ignored; only valid groups' sums are used.
@@ -988,20 +1003,29 @@ class Source:
                 .group_by(*by_position)
             )
 
+        # A start keeps earlier events out; an end (a baseline's) keeps the change's out.
+        window = ([time_raw >= bound["start"]] if "start" in bound else []) + \
+                 ([time_raw < bound["end"]] if "end" in bound else [])
         parts = []
         if "lower" not in bound:
-            parts.append(part([time_raw <= upper], 0))
-            # NULL times never fall in a time range: count them once, on the first read.
-            parts.append(part([time_raw.is_(None)], 0))
+            parts.append(part([time_raw <= upper, *window], 0))
+            if "end" not in bound:
+                # NULL times never fall in a time range: count them once, on the first read
+                # (of the comparison, not of its baseline).
+                parts.append(part([time_raw.is_(None)], 0))
         else:
             lower = bound["lower"]
-            parts.append(part([time_raw > lower, time_raw <= upper], 0))
+            parts.append(part([time_raw > lower, time_raw <= upper, *window], 0))
             if arrival is not None:
                 # Late rows are only those at or before the previous cutoff, so rows read
                 # earlier through the time range can never come back through this branch.
                 newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
-                parts.append(part([time_raw <= lower, newer], 1))
+                parts.append(part([time_raw <= lower, newer, *window], 1))
                 parts.append(part([time_raw.is_(None), newer], 0))
+                if "start" in bound:
+                    # Rows dated before the start that arrive late: the baseline was read
+                    # once and frozen, so they are counted, never used.
+                    parts.append(part([time_raw < bound["start"], newer], 0, "before_start"))
         return sa.union_all(*parts)
 
     def _summand(self, spec, cols, value):
@@ -1027,6 +1051,10 @@ class Source:
             with self.engine.connect() as conn:
                 cols, kind, time_raw, epoch, gi, value, reason, key, arrival, atype = self._row_parts(conn, spec)
                 where = [sa.or_(time_raw <= _literal(self._bind_time(kind, cutoff)), time_raw.is_(None))]
+                if spec.start is not None:
+                    where.append(sa.or_(time_raw >= _literal(self._bind_time(kind, spec.start)), time_raw.is_(None)))
+                if spec.end is not None:
+                    where.append(time_raw < _literal(self._bind_time(kind, spec.end)))
                 if arrival_max is not None:
                     if arrival is None:
                         raise InvalidArgumentError(
