@@ -311,6 +311,9 @@ def board_table(rows):
             f'<td class="num">{html.escape(plan_eta_text(r))}{rate}</td>'
             "</tr>"
         )
+        if r.get("baseline"):
+            body.append(f'<tr class="gw-warnrow"><td></td><td colspan="{len(BOARD_COLUMNS) - 1}">'
+                        f'<span class="gw-sub">{html.escape(r["baseline"])}</span></td></tr>')
         for warning in r["warnings"]:
             body.append(f'<tr class="gw-warnrow"><td></td><td colspan="{len(BOARD_COLUMNS) - 1}">'
                         f'<span class="gw-warn">⚠ {html.escape(warning)}</span></td></tr>')
@@ -605,6 +608,9 @@ def show_comparison(url, name, version=None):
         timing += f" · next look {next_look_text(row)} · plan complete in {plan_eta_text(row)}"
     st.caption(f"{confidence_percent(row)} repeated confidence interval: "
                f"{bounds_text(row['ci_low'], row['ci_high'])} · {timing}")
+    if row.get("baseline"):
+        # A before/after comparison: the estimate is the change; say what the gap was before it.
+        st.info(row["baseline"][:1].upper() + row["baseline"][1:] + ".")
     for warning in row["warnings"]:
         st.warning(warning, icon="⚠️")
 

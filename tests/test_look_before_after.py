@@ -155,3 +155,26 @@ def test_planned_from_the_baseline_and_the_spread(tmp_path):
     design = world.comparison.design()
     assert design["before_after"]["baseline_days"] == 14.0
     assert design["start"] == "2026-03-15T06:00:00+00:00"
+
+
+def test_status_and_history_say_how_the_sites_differed_before(tmp_path):
+    from monitor.commands import history as history_command
+    from monitor.commands import status as status_command
+    from monitor.store import readback
+
+    rows = site_rows(np.random.default_rng(8), 0, 19)
+    world = LiveWorld(tmp_path, rows, **BEFORE_AFTER)
+    world.look(at(14, 12))                       # before the baseline ends: no gap measured yet
+    record = world.look(at(18, 0))
+    gap = record.detail["before_after"]["baseline_gap"]
+    status = readback.comparison_status(world.engine, now=at(18, 0))[0]
+    assert status["start"] == "2026-03-15T06:00:00+00:00"
+    assert status["baseline"].startswith(f"before the change, east was {gap['estimate']:.3g} seconds slower than west")
+    assert status["before_after"]["baseline_gap"]["estimate"] == gap["estimate"]
+    text = "\n".join(status_command.table_lines([status], at(18, 0)))
+    assert "before the change, east was" in text and "nan" not in text and "None" not in text
+    history = readback.look_history(world.engine, "handle-time")
+    assert "not measured yet" in history[0]["baseline"]
+    assert history[-1]["baseline"] == status["baseline"]
+    assert history_command.table_lines(history)[-1].startswith("before the change, east was") or any(
+        line.startswith("before the change, east was") for line in history_command.table_lines(history))

@@ -69,6 +69,8 @@ def table_lines(history):
     figures = readback.clustering_figures(last, _CLUSTER_TEXT)
     if figures:
         lines.append("latest look: " + ", ".join(figures))
+    if last.get("baseline"):
+        lines.append(last["baseline"])
     for warning in last["warnings"]:
         lines.append(f"warning: {warning}")
     return lines

@@ -74,6 +74,8 @@ def table_lines(rows, now):
     lines = [header]
     for r, line in zip(rows, row_lines):
         lines.append(line)
+        if r.get("baseline"):
+            lines.append(f"    {r['baseline']}")
         lines.extend(f"    warning: {warning}" for warning in r["warnings"])
     return lines
 

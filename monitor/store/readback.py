@@ -20,6 +20,7 @@ import sqlalchemy as sa
 from . import engine as store
 from ..config import load_config
 from ..errors import InvalidArgumentError, UnknownComparisonError
+from ..vocabulary import baseline_gap_words
 from .models import Alert, Cell, Comparison, Delivery, Look
 
 __all__ = [
@@ -341,6 +342,24 @@ def adjusted_inference(detail):
     return out
 
 
+def before_after_words(design, detail) -> str | None:
+    """The baseline gap of a before/after comparison in words (None for other comparisons).
+
+    "before the change, hollin was 7.1 seconds slower than saltmarsh (interval 5.2 to 9.0)",
+    and, once there are events after the start, what the change itself is.
+    """
+    window = (design or {}).get("before_after")
+    if not window:
+        return None
+    figures = (detail or {}).get("before_after") or {}
+    gap = figures.get("baseline_gap") or {}
+    low, high = (list(gap.get("ci") or []) + [None, None])[:2]
+    groups = [str(g) for g in (design.get("groups") or ["group 1", "group 2"])]
+    return baseline_gap_words(groups, gap.get("estimate"), low, high,
+                              value_column=str(design.get("value_column") or ""),
+                              metric=str(design.get("metric") or "mean"))
+
+
 def _status_row(comp, looks, now):
     design = comp["design"] or {}
     settings = comp["settings"] or {}
@@ -421,6 +440,9 @@ def _status_row(comp, looks, now):
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
         "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
+        "start": design.get("start"),
+        "baseline": before_after_words(design, last["detail"] if last is not None else None),
+        "before_after": _clean((last["detail"] or {}).get("before_after")) if last is not None else None,
     }
 
 
@@ -597,6 +619,7 @@ def look_history(engine, name, version=None):
             "warnings": [str(w) for w in (r["warnings"] or [])],
             "detail": _clean(detail),
             "adjusted": adjusted_inference(detail),
+            "baseline": before_after_words(comp["design"], detail),
             "duration_ms": _num(r["duration_ms"]),
         })
     return history
