@@ -178,3 +178,21 @@ def test_status_and_history_say_how_the_sites_differed_before(tmp_path):
     assert history[-1]["baseline"] == status["baseline"]
     assert history_command.table_lines(history)[-1].startswith("before the change, east was") or any(
         line.startswith("before the change, east was") for line in history_command.table_lines(history))
+
+
+@pytest.mark.parametrize("gap, warned", [(10.0, True), (0.0, False)], ids=["old-gap", "no-gap"])
+def test_check_warns_when_the_groups_differed_before_a_start_without_baseline(tmp_path, capsys, gap, warned):
+    from monitor import cli
+
+    rows = site_rows(np.random.default_rng(9), 0, 18, gap=gap)
+    world = LiveWorld(tmp_path, rows, start="2026-03-15T06:00:00+00:00", planned_per_group=600)
+    code = cli.main(["check", "--config", str(world.config.path), "--before-start"])
+    out = capsys.readouterr().out
+    assert code == 0
+    line = next(l for l in out.splitlines() if "days before the start" in l)
+    assert line.startswith("comparison 'handle-time': " + ("warning: before the change, east was" if warned
+                                                           else "before the change"))
+    assert ('Add baseline = "14d"' in line) == warned
+    # Without the option nothing is measured.
+    cli.main(["check", "--config", str(world.config.path)])
+    assert "days before the start" not in capsys.readouterr().out
