@@ -196,3 +196,19 @@ def test_check_warns_when_the_groups_differed_before_a_start_without_baseline(tm
     # Without the option nothing is measured.
     cli.main(["check", "--config", str(world.config.path)])
     assert "days before the start" not in capsys.readouterr().out
+
+
+def test_verify_replays_a_before_after_comparison_from_raw_rows(tmp_path):
+    from monitor.commands.verify import verify_looks
+
+    rng = np.random.default_rng(10)
+    rows = site_rows(rng, 0, 19, change=-5.0)
+    world = LiveWorld(tmp_path, rows, **BEFORE_AFTER)
+    world.look(at(14, 12))
+    world.look(at(16, 0))
+    insert_events(world.source_url, "events", [{"site": "west", "seconds": 90.0, "done_at": at(12, 9)},
+                                               {"site": "west", "seconds": None, "done_at": at(16, 9)}])
+    world.look(at(17, 0))
+    world.look(at(19, 0))
+    results = verify_looks(world.config, "handle-time", world.engine)
+    assert [r["ok"] for r in results] == [True] * 4, results

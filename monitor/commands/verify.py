@@ -10,6 +10,8 @@ slot roll-ups are not used, so a mismatch points at the incremental path.
 from __future__ import annotations
 
 import json
+from dataclasses import replace
+from datetime import datetime
 import math
 
 import sqlalchemy as sa
@@ -49,7 +51,37 @@ def _spec(design, settings):
         arrival_column=(settings or {}).get("arrival_column"),
         filters=tuple((f[0], f[1], tuple(f[2]) if isinstance(f[2], list) else f[2]) for f in design["filters"]),
         valid_range=tuple(design["valid_range"]) if design.get("valid_range") else None,
+        start=datetime.fromisoformat(design["start"]) if design.get("start") else None,
     )
+
+
+def _rows_before(source, spec, end, cutoff, arrival):
+    """Rows (valid and bad) dated before ``end`` that had arrived by ``arrival``."""
+    frame = source.read_rows(replace(spec, start=None, end=end), cutoff, arrival_max=arrival)
+    return len(frame) + sum(frame.attrs.get("excluded", {}).values())
+
+
+def _before_after_figures(design, baseline, frame):
+    """The DiD of one look from the frozen baseline rows and the rows since the start."""
+    from ..stats.before_after import difference_in_differences
+
+    out = {}
+    parts = []
+    for period, rows in ((0, baseline), (1, frame)):
+        days = _local_bucket(rows["time"], "day", design["timezone"], ())
+        cells = rows.assign(day=days).groupby(["group_index", "day"])["value"].agg(["count", "sum"]).reset_index()
+        parts.append(cells.assign(period=period))
+    if min(len(p) for p in parts) == 0:
+        return out
+    groups = [int(g) for p in parts for g in p["group_index"]]
+    if len(set(zip(groups, [int(x) for p in parts for x in p["period"]]))) < 4:
+        return out
+    result = difference_in_differences(
+        groups, [int(x) for p in parts for x in p["period"]], [str(d) for p in parts for d in p["day"]],
+        [int(c) for p in parts for c in p["count"]], [float(v) for p in parts for v in p["sum"]], 0.0,
+        null_difference=design["null_difference"], alternative=design["alternative"], alpha=design["alpha"])
+    return {"estimate": float(result.estimate), "statistic": float(result.statistic),
+            "p_value": float(result.p_value)}
 
 
 def _local_bucket(times, kind, zone_name, shift_starts):
@@ -168,18 +200,40 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
                                          f"which the configuration no longer names")
         source = Source(config.sources[source_name].url, name=source_name)
     results = []
+    window = design.get("before_after")
+    baseline = baseline_excluded = baseline_arrival = None
     try:
         for look in looks:
             arrival = json.loads(look.arrival_watermark) if look.arrival_watermark else None
             frame = source.read_rows(spec, look.cutoff, arrival_max=arrival)
             excluded = dict(frame.attrs.get("excluded", {}))
+            if window and baseline is None and look.cutoff >= datetime.fromisoformat(window["baseline_to"]):
+                # The baseline as this look read it (and froze it): rows that had arrived by then.
+                baseline_spec = replace(spec, start=datetime.fromisoformat(window["baseline_from"]),
+                                        end=datetime.fromisoformat(window["baseline_to"]))
+                baseline = source.read_rows(baseline_spec, look.cutoff, arrival_max=arrival)
+                baseline_excluded = dict(baseline.attrs.get("excluded", {}))
+                baseline_arrival = arrival
+            if baseline is not None:
+                for reason, count in baseline_excluded.items():
+                    excluded[reason] = excluded.get(reason, 0) + count
+                if spec.start is not None and arrival is not None and arrival != baseline_arrival:
+                    late = (_rows_before(source, spec, spec.start, look.cutoff, arrival)
+                            - _rows_before(source, spec, spec.start, look.cutoff, baseline_arrival))
+                    if late:
+                        excluded["before_start"] = late
             if spec.key_column:
                 # As the look does: an event without a pair or cluster key cannot join the statistic.
                 no_key = frame["key"].isna()
                 if no_key.any():
                     excluded[NULL_KEY] = int(no_key.sum())
                     frame = frame[~no_key]
-            figures = _recompute(design, frame, look.cutoff)
+            if window:
+                figures = {"n1": int((frame.group_index == 0).sum()), "n2": int((frame.group_index == 1).sum())}
+                if baseline is not None:
+                    figures.update(_before_after_figures(design, baseline, frame))
+            else:
+                figures = _recompute(design, frame, look.cutoff)
             mismatches = []
             for field in ("n1", "n2", "pairs", "estimate", "statistic", "p_value"):
                 if field not in figures:

@@ -1022,9 +1022,10 @@ class Source:
                 newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
                 parts.append(part([time_raw <= lower, newer, *window], 1))
                 parts.append(part([time_raw.is_(None), newer], 0))
-                if "start" in bound:
+                if "start" in bound and "seen" in bound:
                     # Rows dated before the start that arrive late: the baseline was read
-                    # once and frozen, so they are counted, never used.
+                    # once and frozen, so they are counted, never used. (Without an arrival
+                    # watermark yet nothing has been read, the baseline included.)
                     parts.append(part([time_raw < bound["start"], newer], 0, "before_start"))
         return sa.union_all(*parts)
 
