@@ -17,6 +17,7 @@ import altair as alt
 import pandas as pd
 import streamlit as st
 
+from monitor.config import store_url_from_config
 from monitor.store import readback
 from monitor.commands.history import csv_rows
 from monitor.store.readback import format_number as fmt
@@ -58,7 +59,7 @@ def _engine(url):
 
 @st.cache_data(ttl=60, show_spinner=False)
 def _store_url(path):
-    return readback.store_url_from_config(path)
+    return store_url_from_config(path)
 
 
 def store_url():

@@ -12,6 +12,8 @@ from datetime import datetime
 from pathlib import Path
 
 from monitor.config import toml_value
+from monitor.store.engine import make_engine, upgrade
+from monitor.store.readback import comparison_status
 
 from .feed import create_databases, database_path, fed_until
 from .scenario import COMPANY, DATABASES, DEFAULT_SEED, LIVE_START
@@ -147,10 +149,18 @@ class DemoFolder:
     rows: dict               # rows inserted by creation ({} when resumed)
 
 
-# From the top of a checkout the default folder `demo_db/` is this package's own folder: the
-# demo then writes its databases beside the generator's code, and leaves the code alone.
+# From the top of a checkout the default folder `demo_db/` is this package's own source folder:
+# the demo then writes its databases beside the generator's code, and leaves the code alone.
+# The checkout may not be where gapwatch is installed from (an installed copy, another clone),
+# so the source folder is recognised by its files, not by being this very package.
 PACKAGE_FOLDER = Path(__file__).resolve().parent
 PACKAGE_FILES = {p.name for p in PACKAGE_FOLDER.iterdir() if p.suffix == ".py" or p.name == "__pycache__"}
+
+
+def _is_scenario_source(path: Path) -> bool:
+    """Whether ``path`` holds this package's source (the ``demo_db/`` of a checkout)."""
+    return path == PACKAGE_FOLDER or all(
+        (path / name).is_file() for name in ("__init__.py", "scenario.py", "feed.py", "folder.py"))
 
 
 def is_demo_folder(path: Path) -> bool:
@@ -179,12 +189,10 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
     the later of where the feed stopped and the store's latest look, so no
     look is ever taken at an earlier ``as_of`` than one already recorded.
     """
-    from monitor.store.engine import upgrade
-
     path = Path(folder).resolve()
     if path.exists() and not path.is_dir():
         raise NotADirectoryError(f"{path} is not a folder")
-    inside_package = path == PACKAGE_FOLDER
+    inside_package = _is_scenario_source(path)
     existing = path.exists() and any(p.name not in PACKAGE_FILES or not inside_package for p in path.iterdir())
     if existing and not is_demo_folder(path):
         raise FileExistsError(f"{path} holds files that are not a gapwatch demo; choose an empty or new folder")
@@ -218,9 +226,6 @@ def prepare_folder(folder, *, reset: bool = False, seed: int = DEFAULT_SEED) -> 
 
 
 def _latest_look(store_url):
-    from monitor.store.readback import comparison_status
-    from monitor.store.engine import make_engine
-
     engine = make_engine(store_url)
     try:
         times = [row["last_look_at"] for row in comparison_status(engine, include_archived=True)]

@@ -6,7 +6,7 @@ feeds what has arrived and takes one look at every comparison per step, with
 the real look code and a real store. It answers "does the demo tell its story
 for this seed?" in seconds, and across many seeds from the command line::
 
-    python -m demo_db.rehearsal --seeds 1 2 3 4 5 --hours 96 --step 2
+    .venv/bin/python -m demo_db.rehearsal --seeds 1 2 3 4 5 --hours 144 --step 2
 """
 
 from __future__ import annotations
@@ -17,6 +17,11 @@ import tempfile
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
+
+from monitor.config import load_config
+from monitor.look import LookMemory, take_look
+from monitor.source.reader import Source
+from monitor.store.engine import make_engine
 
 from .feed import LiveFeed
 from .folder import prepare_folder
@@ -45,11 +50,6 @@ class Rehearsal:
 
 def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hours: float = 2.0) -> Rehearsal:
     """Build the demo in the empty ``folder`` and run it for ``hours`` of simulated time."""
-    from monitor.config import load_config
-    from monitor.look import LookMemory, take_look
-    from monitor.source.reader import Source
-    from monitor.store.engine import make_engine
-
     demo = prepare_folder(folder, reset=True, seed=seed)
     config = load_config(demo.config_path)
     now = {"t": demo.start}

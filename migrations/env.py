@@ -36,6 +36,7 @@ def run_migrations_online():
         with context.begin_transaction():
             context.run_migrations()
         return
+    # lazy: Alembic loads this file for offline runs too, which need no engine.
     from monitor.store.engine import make_engine
 
     engine = make_engine(config.get_main_option("sqlalchemy.url"))

@@ -1,4 +1,10 @@
-"""The ``gapwatch`` command line: one module per command under ``monitor/commands``."""
+"""The ``gapwatch`` command line: one module per command under ``monitor/commands``.
+
+Start-up time matters here (``gapwatch --help`` should answer in a blink), so only the
+command being run is imported and registered in full; every other command appears in
+the parser by its name and one-line summary alone. ``build_parser()`` without an
+argument list registers every command (for the documentation tests).
+"""
 
 from __future__ import annotations
 
@@ -6,37 +12,44 @@ import argparse
 import importlib
 import sys
 
+from .commands import SUMMARIES
+from .commands._common import as_typed, program
 from .errors import GapwatchError
 
-__all__ = ["main", "build_parser"]
+__all__ = ["main", "build_parser", "COMMAND_MODULES"]
 
-# Order is the order of ``gapwatch --help``.
-COMMAND_MODULES = [
-    "test", "bounds", "plan", "simulate",
-    "check", "db", "look", "status", "history", "verify", "restart",
-    "run", "alerts", "report", "dashboard", "demo",
-]
+COMMAND_MODULES = list(SUMMARIES)
+
+DESCRIPTION = "Watch a live two-group comparison on operational data without false alarms from repeated looks."
 
 
-def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
-        prog="gapwatch",
-        description="Watch a live two-group comparison on operational data without false alarms from repeated looks.",
-    )
+def _command_named(argv) -> str | None:
+    """The command ``argv`` asks for: its first word that is not an option (None: none named)."""
+    for word in argv:
+        if word == "--":
+            return None
+        if not word.startswith("-"):
+            return word if word in SUMMARIES else None
+    return None
+
+
+def build_parser(argv=None) -> argparse.ArgumentParser:
+    """The parser; with ``argv``, only the command it names is registered in full."""
+    # prog: usage lines and examples show the command as this user can type it.
+    parser = argparse.ArgumentParser(prog=program(), description=DESCRIPTION)
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for name in COMMAND_MODULES:
-        try:
-            module = importlib.import_module(f"monitor.commands.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name != f"monitor.commands.{name}":
-                raise
-            continue
-        module.register(subparsers)
+    wanted = set(SUMMARIES) if argv is None else {_command_named(argv)}
+    for name, summary in SUMMARIES.items():
+        if name in wanted:
+            importlib.import_module(f"monitor.commands.{name}").register(subparsers)
+        else:
+            subparsers.add_parser(name, help=summary, add_help=False)
     return parser
 
 
 def main(argv=None) -> int:
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()
@@ -44,7 +57,7 @@ def main(argv=None) -> int:
     try:
         return int(args.func(args) or 0)
     except GapwatchError as exc:
-        print(f"gapwatch {args.command}: {exc}", file=sys.stderr)
+        print(f"gapwatch {args.command}: {as_typed(exc)}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130

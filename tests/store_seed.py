@@ -216,7 +216,7 @@ def _looks_for(scenario, rng, start, interval):
 
 
 def _design(s, shift):
-    # The shape of ComparisonConfig.design(), plus the shift fixed at the first look.
+    # The stored shape of a Design (Design.to_stored()), the shift fixed at the first look.
     if s.metric == "proportion":
         inputs = {"p1": s.true_means[0], "p2": s.true_means[1], "power": 0.8}
     else:

@@ -7,7 +7,8 @@ from pathlib import Path
 import pytest
 
 from live_helpers import comparison_toml, config_toml, write_config
-from monitor.config import load_config, parse_duration
+from monitor.config import load_config
+from monitor.vocabulary import parse_duration
 from monitor.errors import ConfigError, UnknownComparisonError
 
 CHANNELS = """
@@ -203,38 +204,40 @@ def test_cron_schedule_and_service(tmp_path):
     assert any("unknown key 'speed'" in p for p in info.value.problems)
 
 
-def test_design_holds_what_is_measured_and_not_the_settings(tmp_path):
-    def design(**keys):
-        path = write_config(tmp_path, config_toml("sqlite:///o.sqlite", "sqlite:///s.sqlite",
-                                                  [comparison_toml(**keys)], CHANNELS))
-        return load_config(path, environ={"HOOK_SECRET": "x"}).comparisons[0].design()
-
-    base = design()
-    assert base["method"] == "welch" and base["plan"] == {"planned_per_group": 400}
-    assert base["table"] == "events" and base["groups"] == ["east", "west"]
-    # Settings do not touch the design.
-    assert design(every="1h", notify=["hook"], lateness="5m", description="x") == base
-    # What is measured does.
-    for keys in (dict(table="events2"), dict(value_column="wait"), dict(filters=[["a", "=", 1]]),
-                 dict(valid_range=[0, 10]), dict(alpha=0.01), dict(timezone="Europe/Lisbon"),
-                 dict(groups=["west", "east"])):
-        assert design(**keys) != base, keys
-
-
-def test_planning_inputs_give_the_plan(tmp_path):
-    from monitor.stats.planning import plan_mean
-
-    path = write_config(tmp_path, config_toml("sqlite:///o.sqlite", "sqlite:///s.sqlite", [comparison_toml(
-        planned_per_group=None, difference=5.0, sd=20.0, power=0.9, looks=4)]))
-    c = load_config(path, environ={}).comparisons[0]
-    expected = plan_mean(5.0, 20.0, alpha=0.05, power=0.9, spending="obrien-fleming", looks=4)
-    assert c.planned == expected.max_per_group
-    assert c.design()["plan"]["figures"]["inflation"] == pytest.approx(expected.inflation)
-    assert c.design()["plan"]["inputs"] == {"power": 0.9, "looks": 4, "difference": 5.0, "sd": 20.0}
-
-
 @pytest.mark.parametrize("text, seconds", [("30s", 30), ("10m", 600), ("1h", 3600), ("1d", 86400), ("1.5m", 90)])
 def test_durations(text, seconds):
     assert parse_duration(text) == seconds
     with pytest.raises(ValueError, match="10x"):
         parse_duration("10x")
+
+
+def test_a_value_from_the_environment_is_never_echoed_in_a_problem(tmp_path):
+    secret = "tok-93f1c"
+    channels = """
+[channels.hook]
+type = "webhook"
+url = "ftp://${HOOK_URL}"
+[channels.mail]
+type = "email"
+host = "h"
+port = "${MAIL_PORT}"
+sender = "s@x"
+recipients = ["${MAIL_TO}"]
+"""
+    environ = {"HOOK_URL": secret, "MAIL_PORT": secret, "MAIL_TO": secret, "WHEN": secret, "ZONE": secret}
+    error = _problems(tmp_path, comparison_toml(every="${WHEN}", timezone="${ZONE}", spending="${WHEN}"),
+                      channels=channels, environ=environ)
+    text = "\n".join(error.problems)
+    for key in ("'url' must be an http(s) URL", "'port' must be an integer", "'recipients'", "'every'",
+                "'timezone'", "'spending'"):
+        assert key in text, key
+    assert "'ftp://${HOOK_URL}'" in text and "'${MAIL_PORT}'" in text
+    assert secret not in text
+
+
+def test_values_from_the_environment_are_plain_text_once_valid(tmp_path):
+    path = write_config(tmp_path, config_toml("sqlite:///o.sqlite", "sqlite:///s.sqlite",
+                                              [comparison_toml(table="${TABLE}")], CHANNELS))
+    config = load_config(path, environ={"HOOK_SECRET": "s3cret", "TABLE": "events"})
+    assert type(config.comparisons[0].table) is str and config.comparisons[0].table == "events"
+    assert type(config.channels["hook"].options["secret"]) is str

@@ -20,6 +20,7 @@ from demo_db import scenario
 from demo_db.feed import LiveFeed, SimulatedClock, create_databases, database_url, fed_until
 from demo_db.folder import CONFIG_NAME, STORE_NAME, comparisons, config_text, prepare_folder
 from demo_db.scenario import EPOCH, LIVE_START, TABLES, day_events, events_between
+from monitor.design import Design
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -178,7 +179,7 @@ def test_databases_have_integer_keys_time_indexes_and_the_backlog(tmp_path):
 def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
     """What the monitor itself counts as excluded on the first look, per comparison."""
     from monitor.config import load_config
-    from monitor.source.reader import Source
+    from monitor.source.reader import Source, SourceSpec
 
     create_databases(tmp_path)
     (tmp_path / CONFIG_NAME).write_text(config_text())
@@ -187,12 +188,15 @@ def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
     for comparison in config.comparisons:
         source = Source(config.sources[comparison.source].url)
         try:
-            spec = comparison.source_spec(0.0)
+            spec = SourceSpec.from_design(Design.from_config(comparison), shift=0.0,
+                                           arrival_column=comparison.arrival_column)
             assert source.check(spec) == [], comparison.name
             batch = source.read_cells(spec, None, LIVE_START)
             if comparison.before_after:
                 # Its backlog is its baseline, read once at the first look after it ends.
-                baseline = source.read_cells(comparison.baseline_spec(0.0), None, comparison.window["baseline_to"])
+                window = comparison.window
+                baseline = source.read_cells(replace(spec, start=window["baseline_from"], end=window["baseline_to"]),
+                                             None, window["baseline_to"])
                 batch = replace(baseline, excluded={**baseline.excluded, **batch.excluded})
         finally:
             source.dispose()
@@ -204,7 +208,7 @@ def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
 
 def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path):
     from monitor.config import load_config
-    from monitor.source.reader import Source
+    from monitor.source.reader import Source, SourceSpec
 
     create_databases(tmp_path)
     (tmp_path / CONFIG_NAME).write_text(config_text())
@@ -220,7 +224,8 @@ def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path)
     feed = LiveFeed(tmp_path, clock)
     try:
         # The whole history, not only the events from the comparison's start.
-        spec = replace(comparison.source_spec(90.0), start=None)
+        spec = replace(SourceSpec.from_design(Design.from_config(comparison), shift=90.0,
+                                              arrival_column=comparison.arrival_column), start=None)
         first = source.read_cells(spec, None, LIVE_START)
         assert sum(first.excluded.values()) > 0
         assert {"null_value", "non_numeric", "unknown_group", "out_of_range"} <= set(first.excluded)

@@ -32,11 +32,7 @@ def test_command_and_its_options_are_documented(name):
     assert not missing, f"gapwatch {name}: options missing from the README: {missing}"
 
 
-CONFIG_KEYS = sorted(
-    config._COMPARISON_KEYS
-    | set(config._SERVICE_DEFAULTS)
-    | {k for allowed, _ in config._CHANNEL_OPTIONS.values() for k in allowed}
-)
+CONFIG_KEYS = sorted(config.config_keys())
 
 
 @pytest.mark.parametrize("key", CONFIG_KEYS)

@@ -17,6 +17,7 @@ from monitor.store import looks as store_looks
 from monitor.alerts import record_source_unreachable
 from monitor.stats.boundaries import SequentialBoundary
 from monitor.config import load_config
+from monitor.design import Design
 from monitor.errors import (DesignChangedError, LookAlreadyRecordedError, SourceUnavailableError,
                             StoreBehindError)
 from monitor.calendar import bucket_end, bucket_key
@@ -443,7 +444,7 @@ def test_futility_boundary_stops_for_no_material_difference(tmp_path):
                 futility=True)
     w = World(tmp_path, _rows(rng, 600, east=97.0, west=100.0), **keys)  # east is worse, not better
     plan = plan_mean(5.0, 10.0, alpha=0.05, power=0.8, alternative="greater", looks=4, futility=True)
-    assert w.comparison.planned == plan.max_per_group
+    assert Design.from_config(w.comparison).planned_per_group == plan.max_per_group
     fresh = SequentialBoundary(0.05, "obrien-fleming", "greater", futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
     decisions = []
     for hours in (2, 4, 6, 8, 12, 16):

@@ -149,12 +149,16 @@ def test_bad_before_after_keys_name_the_key(tmp_path, keys, message):
 def test_planned_from_the_baseline_and_the_spread(tmp_path):
     world = LiveWorld(tmp_path, (), start="2026-03-15T06:00+00:00", baseline="14d", planned_per_group=None,
                       difference=-6.0, sd=8.0, power=0.8, day_sd=1.5, events_per_day=40, looks=3)
-    plan = world.comparison.plan
+    from monitor.design import Design
+
+    design = Design.from_config(world.comparison)
+    plan = design.plan.to_stored()
     assert plan["inputs"]["events_per_day"] == 40 and plan["figures"]["baseline_days"] == 14
     assert plan["planned_per_group"] == math.ceil(plan["figures"]["after_days_exact"] * 40 - 1e-9)
-    design = world.comparison.design()
-    assert design["before_after"]["baseline_days"] == 14.0
-    assert design["start"] == "2026-03-15T06:00:00+00:00"
+    stored = design.to_stored()
+    assert stored["before_after"]["baseline_days"] == 14.0
+    assert stored["start"] == "2026-03-15T06:00:00+00:00"
+    assert Design.from_stored(stored) == design
 
 
 def test_status_and_history_say_how_the_sites_differed_before(tmp_path):
@@ -199,7 +203,7 @@ def test_check_warns_when_the_groups_differed_before_a_start_without_baseline(tm
 
 
 def test_verify_replays_a_before_after_comparison_from_raw_rows(tmp_path):
-    from monitor.commands.verify import verify_looks
+    from monitor.verify import verify_looks
 
     rng = np.random.default_rng(10)
     rows = site_rows(rng, 0, 19, change=-5.0)

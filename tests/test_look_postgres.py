@@ -13,7 +13,7 @@ from scipy import stats
 
 from live_helpers import LiveWorld, at, event_rows, insert_events
 from monitor.store import looks as store_looks, outbox
-from monitor.commands.verify import verify_looks
+from monitor.verify import verify_looks
 from monitor.errors import DesignChangedError, LookAlreadyRecordedError, StoreBehindError
 from monitor.look import restart_comparison
 from monitor.store.models import Cell, Comparison, Look

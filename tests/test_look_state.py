@@ -125,7 +125,7 @@ def test_null_pair_keys_never_form_a_pair(tmp_path):
                                   dict(method="paired", pair_column="crew", planned_per_group=200)],
                          ids=["clustered", "paired"])
 def test_verify_replays_looks_with_null_keys(tmp_path, keys):
-    from monitor.commands.verify import verify_looks
+    from monitor.verify import verify_looks
 
     rng = np.random.default_rng(45)
     crews = [f"crew-{k:02d}" for k in range(12)]

@@ -136,6 +136,12 @@ def test_next_look_time_cron_in_local_time():
     assert readback.next_look_time("not a schedule", now=datetime(2026, 7, 1, tzinfo=timezone.utc)) is None
 
 
+@pytest.mark.parametrize("every", ["2w", "600", "0s"])
+def test_next_look_time_follows_the_configuration_duration_rule(every):
+    # The configuration refuses these as a schedule, so the read side shows no next look for them.
+    assert readback.next_look_time(every, now=datetime(2026, 7, 1, tzinfo=timezone.utc)) is None
+
+
 def test_look_history_matches_the_look_rows(seeded):
     engine, _ = seeded
     history = readback.look_history(engine, "pick-seconds")

@@ -482,7 +482,7 @@ def test_secrets_are_redacted_from_log_records(tmp_path):
 def test_triggers_follow_every(every, zone, now, expected):
     from types import SimpleNamespace
 
-    from monitor.config import parse_duration
+    from monitor.vocabulary import parse_duration
     from monitor.service.scheduler import _misfire_grace, _trigger_for
 
     try:

@@ -10,7 +10,7 @@ import sqlalchemy as sa
 
 from live_helpers import LiveWorld, at, event_rows, insert_events
 from monitor.cli import main
-from monitor.commands.verify import verify_looks
+from monitor.verify import verify_looks
 from monitor.store.models import Look
 
 T0 = at(2, 6)

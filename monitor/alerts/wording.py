@@ -89,15 +89,15 @@ def _bound(value, infinite: str) -> str:
     return infinite if value is None else f"{value:.4g}"
 
 
-def decision_message(name: str, kind: str, values: dict, design: dict) -> str:
-    """One sentence on what a look decided (``values`` are the look row's values)."""
-    groups = design["groups"]
+def decision_message(name: str, kind: str, values: dict, design) -> str:
+    """One sentence on what a look decided (``values`` are the look row's values, ``design`` its Design)."""
+    groups = design.groups
     look = values["look_number"]
     if kind == "difference_found":
         low, high = values["ci_low"], values["ci_high"]
         interval = ""
         if low is not None or high is not None:
-            interval = (f" (repeated {100 * (1 - design['alpha']):.0f}% interval "
+            interval = (f" (repeated {100 * (1 - design.alpha):.0f}% interval "
                         f"{_bound(low, '-inf')} to {_bound(high, 'inf')})")
         return (f"{name}: {groups[0]} minus {groups[1]} differs by {values['estimate']:.4g}{interval} at look "
                 f"{look}, with {values['n1']} and {values['n2']} events.")
@@ -113,14 +113,14 @@ def decision_message(name: str, kind: str, values: dict, design: dict) -> str:
     return f"{name}: now {kind.replace('_', ' ')} at look {look}."
 
 
-def decision_payload(name: str, version: int, kind: str, values: dict, design: dict, as_of: datetime) -> dict:
+def decision_payload(name: str, version: int, kind: str, values: dict, design, as_of: datetime) -> dict:
     """The stored payload of an alert raised by a look (the alert id is added when it is written)."""
     return {
         "comparison": name, "version": version, "kind": kind,
         "decision": values["decision"], "look": values["look_number"], "as_of": as_of.isoformat(),
         "estimate": values["estimate"], "ci_low": values["ci_low"], "ci_high": values["ci_high"],
         "p_value": values["p_value"], "fraction": values["fraction"], "n1": values["n1"],
-        "n2": values["n2"], "groups": list(design["groups"]),
+        "n2": values["n2"], "groups": list(design.groups),
         "message": decision_message(name, kind, values, design),
     }
 

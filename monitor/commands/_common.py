@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
+import os
+import shutil
 import sys
-
-from ..store import readback
+from pathlib import Path
 
 CONFIG_HELP = "configuration file (default $GAPWATCH_CONFIG, else ./gapwatch.toml)"
 
@@ -18,24 +18,30 @@ def add_config_option(parser, **kwargs) -> None:
     parser.add_argument("--config", metavar="FILE", default=None, **kwargs)
 
 
+def readback():
+    """``monitor.store.readback``, the store's read side, imported on first use."""
+    # lazy: start-up time of the command line (the store stack is SQLAlchemy and Alembic).
+    from ..store import readback as module
+
+    return module
+
+
 def open_store(config_path):
-    """The history store engine named by the configuration at ``config_path`` (None: the default search)."""
-    return readback.open_store(readback.store_url_from_config(config_path))
+    """The history store engine named by the configuration at ``config_path`` (None: the default search).
 
-
-def json_safe(value):
-    """``value`` with every non-finite float, nested or not, replaced by ``None``.
-
-    JSON has no infinity or nan; an infinite boundary means "this look cannot stop" and a
-    nan statistic comes with a note saying why, so ``null`` loses nothing.
+    Checked to be at the schema this code expects (``StoreBehindError`` otherwise).
     """
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, dict):
-        return {k: json_safe(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [json_safe(v) for v in value]
-    return value
+    # Every command module is loaded to build the parser, and most commands never open the store.
+    # lazy: so the command line does not pay for SQLAlchemy at start.
+    from ..config import store_url_from_config
+    from ..store.engine import open_store as open_checked
+
+    return open_checked(store_url_from_config(config_path))
+
+
+def counted(count, noun, plural=None) -> str:
+    """``"1 comparison"``, ``"3 comparisons"``: a count with its noun in the right number."""
+    return f"{count} {noun if count == 1 else (plural or noun + 's')}"
 
 
 def print_json(value) -> None:
@@ -65,3 +71,40 @@ def whole_number_type(low, high=None):
         return value
 
     return parse
+
+
+def path_as_typed(path) -> str:
+    """A path as the user would type it here: relative when inside the current folder."""
+    absolute = os.path.abspath(path)
+    relative = os.path.relpath(absolute)
+    return relative if not relative.startswith(os.pardir) else absolute
+
+
+def program() -> str:
+    """How to run gapwatch again from here, written so it works when pasted as printed.
+
+    ``gapwatch`` when that name on the PATH is this very program; otherwise the program's
+    path as started (``.venv/bin/gapwatch`` after the README's set-up, which puts nothing
+    on the PATH), relative to the current folder when it lies inside it; for
+    ``python -m monitor``, the program installed beside that interpreter, else the
+    interpreter with ``-m monitor``.
+    """
+    started = Path(sys.argv[0]) if sys.argv and sys.argv[0] else None
+    if started is not None and started.name == "__main__.py" and started.parent.name == "monitor":
+        beside = Path(sys.executable).with_name("gapwatch")
+        return path_as_typed(beside) if beside.exists() else f"{path_as_typed(sys.executable)} -m monitor"
+    if started is None or started.name != "gapwatch":
+        return "gapwatch"  # called as a library (tests, an embedding program)
+    on_path = shutil.which("gapwatch")
+    try:
+        if on_path and os.path.samefile(on_path, started):
+            return "gapwatch"
+    except OSError:
+        pass
+    return path_as_typed(started)
+
+
+def as_typed(text) -> str:
+    """``text`` with every quoted `gapwatch ...` command written as :func:`program` runs it."""
+    text = str(text)
+    return text.replace("`gapwatch ", f"`{program()} ") if "`gapwatch " in text else text

@@ -5,20 +5,21 @@ from __future__ import annotations
 import argparse
 import getpass
 import json
+import sys
 from datetime import datetime, timezone
 
-from ..store import readback
-from ._common import add_config_option, open_store
+from ..errors import UnknownComparisonError
+from ..vocabulary import ALERT_STATES as STATES
+from . import SUMMARIES
+from ._common import add_config_option, open_store, readback
 
 __all__ = ["register", "run"]
-
-STATES = readback.ALERT_STATES
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "alerts",
-        help="list alerts and their deliveries, or acknowledge one (alerts ack ID)",
+        help=SUMMARIES["alerts"],
         description="List alerts from the history store, newest first, with the state of each "
                     "delivery; 'gapwatch alerts ack ID' records that someone has seen an alert.",
     )
@@ -64,8 +65,50 @@ def _table(alerts) -> str:
         lines.append(f"{a['id']:36}  {created:19}  {_short(a['comparison'], 24):24}  {_short(what, 28):28}  "
                      f"{look:>4}  {a['state']:12}  {deliveries}")
         if a["state"] == "acknowledged" and a.get("acknowledged_by"):
-            lines.append(f"{'':36}  acknowledged by {a['acknowledged_by']} at {a['acknowledged_at']}")
+            lines.append(f"{'':36}  acknowledged by {a['acknowledged_by']} at {_moment(a['acknowledged_at'])}")
     return "\n".join(lines)
+
+
+def _login_name() -> str:
+    try:
+        return getpass.getuser()
+    except Exception:  # noqa: BLE001 - no login name in this environment
+        return "unknown"
+
+
+def _moment(iso) -> str:
+    """A stored ISO time as ``2026-03-02 08:00:00 UTC``."""
+    return "-" if iso is None else f"{iso[:19].replace('T', ' ')} UTC"
+
+
+def _acknowledge(engine, args, fmt) -> int:
+    by = (args.by or _login_name()).strip()
+    now = datetime.now(timezone.utc)
+    alert = readback().acknowledge_alert(engine, args.alert_id, by=by, now=now)
+    if fmt == "json":
+        print(json.dumps(alert, indent=2, sort_keys=True))
+    if alert["acknowledged_by"] != by[:200]:  # the store keeps the first 200 characters of a name
+        # The first acknowledgement is history; a second person is told, not silently ignored.
+        print(f"gapwatch alerts ack: alert {alert['id']} was already acknowledged by "
+              f"{alert['acknowledged_by']} at {_moment(alert['acknowledged_at'])}; that record is kept",
+              file=sys.stderr)
+        return 1
+    if fmt != "json":
+        again = "" if alert["acknowledged_at"] == now.isoformat() else "already "
+        print(f"alert {alert['id']} {again}acknowledged by {alert['acknowledged_by']} "
+              f"at {_moment(alert['acknowledged_at'])}")
+    return 0
+
+
+def _no_alerts_text(engine, comparison) -> str:
+    """What to print when the listing is empty; an unknown comparison name is an error."""
+    if comparison is None:
+        return "no alerts"
+    known = sorted({row["name"] for row in readback().list_comparisons(engine, archived=None)})
+    if comparison not in known:
+        hint = f"; known: {', '.join(known)}" if known else "; the store holds no comparisons yet"
+        raise UnknownComparisonError(f"no comparison {comparison!r} in the store{hint}")
+    return f"no alerts for comparison {comparison!r}"
 
 
 def run(args) -> int:
@@ -73,19 +116,13 @@ def run(args) -> int:
     engine = _engine(args)
     try:
         if args.alerts_action == "ack":
-            by = args.by
-            if by is None:
-                try:
-                    by = getpass.getuser()
-                except Exception:  # noqa: BLE001 - no login name in this environment
-                    by = "unknown"
-            alert = readback.acknowledge_alert(engine, args.alert_id, by=by, now=datetime.now(timezone.utc))
-            if fmt == "json":
-                print(json.dumps(alert, indent=2, sort_keys=True))
-            else:
-                print(f"alert {alert['id']} acknowledged by {alert['acknowledged_by']} at {alert['acknowledged_at']}")
-            return 0
-        alerts = readback.list_alerts(engine, states=args.state, comparison=args.comparison)
+            return _acknowledge(engine, args, fmt)
+        alerts = readback().list_alerts(engine, states=args.state, comparison=args.comparison)
+        if not alerts and args.comparison is not None:
+            text = _no_alerts_text(engine, args.comparison)
+            if fmt != "json":
+                print(text)
+                return 0
         if fmt == "json":
             print(json.dumps(alerts, indent=2, sort_keys=True))
         else:

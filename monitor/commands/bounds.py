@@ -6,11 +6,10 @@ import argparse
 import json
 import math
 
-from ..stats import boundaries
-from ..stats._checks import finite, open_unit
-from ._common import json_safe
 from ..errors import InvalidArgumentError, UnknownSpendingError
-from ..stats.spending import parse_spending
+from ..stats._checks import ALTERNATIVES, finite, open_unit
+from ..vocabulary import json_safe
+from . import SUMMARIES
 
 ALTERNATIVE_RULE = {
     "two-sided": "|z| at or beyond the boundary",
@@ -22,7 +21,7 @@ ALTERNATIVE_RULE = {
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "bounds",
-        help="show alpha-spending boundaries for given information fractions",
+        help=SUMMARIES["bounds"],
         description="Compute group-sequential efficacy boundaries (Lan–DeMets alpha spending, "
                     "recursive numerical integration) at the information fractions given. "
                     "A fraction of 1 or more is the final look and spends all remaining alpha.",
@@ -38,7 +37,7 @@ def register(subparsers) -> None:
     p.add_argument("--spending", default="obrien-fleming", metavar="SPEC",
                    help="alpha-spending function (default obrien-fleming)")
     p.add_argument("--alpha", default="0.05", help="overall false-alarm rate in (0, 1) (default 0.05)")
-    p.add_argument("--alternative", default="two-sided", choices=list(boundaries.ALTERNATIVES),
+    p.add_argument("--alternative", default="two-sided", choices=list(ALTERNATIVES),
                    help="direction tested (default two-sided)")
     p.add_argument("--fractions", required=True, metavar="F1,F2,...",
                    help="information fractions of the looks, increasing, each > 0")
@@ -54,7 +53,7 @@ def register(subparsers) -> None:
 # parsing
 
 
-def _fractions(text):
+def _fractions(text, min_increment):
     parts = [part.strip() for part in str(text).split(",")]
     if not parts or any(part == "" for part in parts):
         raise InvalidArgumentError(f"--fractions must be numbers separated by commas; got {text!r}")
@@ -66,9 +65,9 @@ def _fractions(text):
             raise InvalidArgumentError(
                 f"--fractions must strictly increase; got {parts[k]!r} after {parts[k - 1]!r}"
             )
-        if k and value - values[k - 1] < boundaries.MIN_INCREMENT:
+        if k and value - values[k - 1] < min_increment:
             raise InvalidArgumentError(
-                f"--fractions must rise by at least {boundaries.MIN_INCREMENT:g} a look; "
+                f"--fractions must rise by at least {min_increment:g} a look; "
                 f"got {parts[k]!r} after {parts[k - 1]!r}"
             )
         if k < len(values) - 1 and value >= 1:
@@ -79,6 +78,9 @@ def _fractions(text):
 
 
 def _spending(text, option):
+    # lazy: start-up time of the command line (spending functions load scipy).
+    from ..stats.spending import parse_spending
+
     try:
         return parse_spending(text)
     except UnknownSpendingError as exc:
@@ -88,9 +90,12 @@ def _spending(text, option):
 
 
 def _design(args):
+    # lazy: start-up time of the command line (the boundary integration loads scipy).
+    from ..stats import boundaries
+
     spending = _spending(args.spending, "--spending")
     alpha = open_unit(args.alpha, "--alpha")
-    fractions = _fractions(args.fractions)
+    fractions = _fractions(args.fractions, boundaries.MIN_INCREMENT)
     futility = None
     if args.futility is not None:
         beta = open_unit(args.beta, "--beta")
@@ -182,6 +187,9 @@ def _table(spending, alpha, alternative, looks, futility, direction):
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (the boundary integration loads scipy).
+    from ..stats import boundaries
+
     spending, alpha, fractions, futility = _design(args)
     boundary = boundaries.SequentialBoundary(alpha, spending, args.alternative, futility=futility)
     looks = [boundary.add_look(t) for t in fractions]

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from ..config import load_config
-from ..errors import SourceUnavailableError
-from ._common import add_config_option
+from ..errors import InvalidArgumentError, SourceUnavailableError
+from . import SUMMARIES
+from ._common import add_config_option, counted, program
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "check", help="validate the configuration, the sources' tables and columns, and the store",
+        "check", help=SUMMARIES["check"],
         description="Validate the configuration file, connect to each source and confirm the tables and "
                     "columns exist with usable types, and report the history store's migration state.")
     add_config_option(p)
@@ -33,12 +33,15 @@ def _days(text):
 
 
 def run(args) -> int:
-    from ..source.reader import Source
+    # lazy: start-up time of the command line (configuration, source and store stacks).
+    from ..config import load_config
+    from ..design import Design
+    from ..source.reader import Source, SourceSpec
     from ..store.engine import make_engine, migration_state
 
     config = load_config(args.config)  # every problem at once, as a ConfigError
-    print(f"{config.path}: configuration valid ({len(config.comparisons)} comparisons, "
-          f"{len(config.sources)} sources, {len(config.channels)} channels)")
+    print(f"{config.path}: configuration valid ({counted(len(config.comparisons), 'comparison')}, "
+          f"{counted(len(config.sources), 'source')}, {counted(len(config.channels), 'channel')})")
     failed = False
     sources = {}
     try:
@@ -46,8 +49,9 @@ def run(args) -> int:
             if c.source not in sources:
                 sources[c.source] = Source(config.sources[c.source].url, name=c.source)
             try:
-                problems = sources[c.source].check(c.source_spec(0.0))
-            except SourceUnavailableError as exc:
+                spec = SourceSpec.from_design(Design.from_config(c), shift=0.0, arrival_column=c.arrival_column)
+                problems = sources[c.source].check(spec)
+            except (SourceUnavailableError, InvalidArgumentError) as exc:  # unreachable, or no plan possible
                 print(f"comparison {c.name!r}: {exc}")
                 failed = True
                 continue
@@ -59,7 +63,7 @@ def run(args) -> int:
             else:
                 print(f"comparison {c.name!r}: source {c.source!r} table {c.table!r} ok")
                 if args.before_start is not None and c.start is not None and not c.before_after:
-                    line, differed = gap_before_start(sources[c.source], c, args.before_start)
+                    line, differed = gap_before_start(sources[c.source], c, spec, args.before_start)
                     print(f"comparison {c.name!r}: {line}")
     finally:
         for s in sources.values():
@@ -76,12 +80,12 @@ def run(args) -> int:
         print(f"store: at revision {state['current']} (up to date)")
     else:
         print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
-              f"run `gapwatch db upgrade`")
+              f"run `{program()} db upgrade`")
         failed = True
     return 1 if failed else 0
 
 
-def gap_before_start(source, c, days):
+def gap_before_start(source, c, spec, days):
     """Whether a comparison's groups already differed in the ``days`` before its start.
 
     Reads per-(group, local day) aggregates of that period (nothing from the start on) and
@@ -96,8 +100,8 @@ def gap_before_start(source, c, days):
     from ..vocabulary import baseline_gap_words
 
     start = c.window["start"]
-    shift = 0.0 if c.metric == "proportion" else (source.first_value(c.source_spec(0.0)) or 0.0)
-    spec = replace(c.source_spec(shift), start=start - timedelta(days=days), end=start)
+    shift = 0.0 if c.metric == "proportion" else (source.first_value(spec) or 0.0)
+    spec = replace(spec, shift=float(shift), start=start - timedelta(days=days), end=start)
     batch = source.read_cells(spec, None, start)
     cells: dict = {}
     for cell in batch.cells:

@@ -2,20 +2,23 @@
 
 from __future__ import annotations
 
+import importlib.util
 import os
+import socket
 import subprocess
 import sys
 from pathlib import Path
 
+from . import SUMMARIES
 from ._common import add_config_option, open_store, whole_number_type
 
-__all__ = ["register", "run", "app_path", "streamlit_command"]
+__all__ = ["register", "run", "app_path", "streamlit_command", "port_is_free", "free_port"]
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "dashboard",
-        help="open the dashboard on the history store",
+        help=SUMMARIES["dashboard"],
         description="Start the Streamlit dashboard on the history store. It binds to 127.0.0.1 "
                     "unless told otherwise, sends no usage statistics and opens no browser. "
                     "Acknowledging alerts needs the password in $GAPWATCH_DASHBOARD_PASSWORD; "
@@ -29,10 +32,32 @@ def register(subparsers) -> None:
 
 
 def app_path() -> Path:
-    """The dashboard entry script, found from the installed package."""
-    import dashboard
+    """The dashboard entry script, found from the installed package.
 
-    return Path(dashboard.__file__).resolve().parent / "app.py"
+    Found, not imported: the dashboard runs in its own Streamlit process, and the
+    command line never imports the layer above it.
+    """
+    spec = importlib.util.find_spec("dashboard")
+    return Path(spec.origin).resolve().parent / "app.py"
+
+
+def port_is_free(address: str, port: int) -> bool:
+    """Whether a server could listen on ``address:port`` now (nothing else holds it)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
+        # As the server will: a port left in TIME_WAIT by a server that just stopped is free.
+        probe.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            probe.bind((address, port))
+        except OSError:
+            return False
+    return True
+
+
+def free_port(address: str) -> int:
+    """A port nothing listens on at ``address``, chosen by the system."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as probe:
+        probe.bind((address, 0))
+        return probe.getsockname()[1]
 
 
 def streamlit_command(*, port, address, app=None):
@@ -64,6 +89,10 @@ def dashboard_environment(config_path, environ=None):
 def run(args) -> int:
     # Fail here, with the CLI's one-line message, rather than inside the browser.
     open_store(args.config).dispose()
+    if not port_is_free(args.address, args.port):
+        print(f"gapwatch dashboard: --port {args.port}: {args.address}:{args.port} is already in use; "
+              f"choose another with --port P", file=sys.stderr)
+        return 2
     command = streamlit_command(port=args.port, address=args.address)
     env = dashboard_environment(args.config)
     print(f"gapwatch dashboard on http://{args.address}:{args.port} (Ctrl+C stops it)", file=sys.stderr)

@@ -1,21 +1,21 @@
-"""``gapwatch db upgrade|downgrade REV|current``: the history store's schema."""
+"""``gapwatch db upgrade [REV]|downgrade REV|current``: the history store's schema."""
 
 from __future__ import annotations
 
 import sys
 
-from ..store import engine as store
-from ..config import load_config
-from ._common import add_config_option
+from . import SUMMARIES
+from ._common import add_config_option, program
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "db", help="migrate the history store (upgrade, downgrade REV, current)",
+        "db", help=SUMMARIES["db"],
         description="Manage the history store's schema with the migrations shipped in gapwatch.")
     p.add_argument("action", choices=["upgrade", "downgrade", "current"],
-                   help="upgrade: to the newest (or --revision); downgrade: to REV; current: show the revision")
-    p.add_argument("revision", nargs="?", default=None,
+                   help="upgrade: to the newest revision (or to REV); downgrade: to REV; "
+                        "current: show the revision")
+    p.add_argument("revision", nargs="?", default=None, metavar="REV",
                    help="target revision (downgrade needs one, e.g. base; upgrade defaults to head)")
     add_config_option(p)
     p.add_argument("--store", default=None, metavar="URL", help="store URL instead of the configuration's [store] url")
@@ -25,10 +25,16 @@ def register(subparsers) -> None:
 def store_url(args) -> str:
     if args.store:
         return args.store
+    # lazy: start-up time of the command line (the configuration stack).
+    from ..config import load_config
+
     return load_config(args.config).store_url
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (the store stack is SQLAlchemy and Alembic).
+    from ..store import engine as store
+
     url = store_url(args)
     if args.action == "downgrade" and not args.revision:
         print("gapwatch db: downgrade needs a revision (e.g. 'base'); got none", file=sys.stderr)
@@ -43,8 +49,9 @@ def run(args) -> int:
     finally:
         engine.dispose()
     current = state["current"] or "none (empty store)"
-    note = "up to date" if state["up_to_date"] else "run `gapwatch db upgrade`"
+    upgrade = f"`{program()} db upgrade`"
+    note = "up to date" if state["up_to_date"] else f"run {upgrade}"
     if state["current"] and not state["up_to_date"] and args.action == "downgrade":
-        note = "behind: `gapwatch db upgrade` brings it back"
+        note = f"behind: {upgrade} brings it back"
     print(f"store revision: {current}; newest: {state['head']} ({note})")
     return 0

@@ -8,22 +8,33 @@ looks with that same clock as ``as_of``, and the dashboard (a subprocess).
 
 from __future__ import annotations
 
+import argparse
 import logging
 import os
+import shlex
 import signal
 import subprocess
 import sys
 import threading
 import time
+from datetime import datetime, timezone
 from pathlib import Path
+
+from ..vocabulary import parse_duration, state_label
+from . import SUMMARIES
+from ._common import path_as_typed, program
+from .dashboard import free_port, port_is_free
 
 __all__ = ["register", "run", "DEFAULT_FOLDER", "DEFAULT_SPEED"]
 
-# Not "demo_db": run from a checkout, that is the scenario's own package folder.
+# From the top of a checkout this is the scenario's own source folder: the demo writes its
+# databases beside the generator's code and leaves the code alone (see demo_db/folder.py).
 DEFAULT_FOLDER = "demo_db"
 # One simulated hour per real second: a working day passes in a quarter of a minute.
 DEFAULT_SPEED = 3600.0
 DEFAULT_PORT = 8501
+# The dashboard's address (the dashboard command's default: this machine only).
+DASHBOARD_ADDRESS = "127.0.0.1"
 
 EXPLANATION = """\
 What you are watching: {company} (an invented grocery distributor) compares pairs of
@@ -45,7 +56,7 @@ every look. A signal supports, never replaces, operational judgement and local r
 def register(subparsers):
     parser = subparsers.add_parser(
         "demo",
-        help="run the invented live demo (feed, monitor and dashboard) in one folder",
+        help=SUMMARIES["demo"],
         description="Create the demo databases and configuration in a folder, feed them live on a "
                     "simulated clock, take looks and show them on the dashboard. Stops on Ctrl-C "
                     "or after --duration seconds. Nothing is written outside --dir.",
@@ -56,13 +67,26 @@ def register(subparsers):
     parser.add_argument("--speed", type=float, default=DEFAULT_SPEED, metavar="X",
                         help=f"simulated seconds per real second (default {DEFAULT_SPEED:g})")
     parser.add_argument("--no-dashboard", action="store_true", help="do not start the dashboard")
-    parser.add_argument("--duration", type=float, default=None, metavar="SECONDS",
-                        help="stop after this many real seconds (default: run until Ctrl-C)")
+    parser.add_argument("--duration", type=_real_seconds, default=None, metavar="SECONDS",
+                        help="stop after this many real seconds, or a duration such as 90s or 10m "
+                             "(default: run until Ctrl-C)")
     parser.add_argument("--port", type=int, default=DEFAULT_PORT, metavar="P",
                         help=f"dashboard port (default {DEFAULT_PORT})")
     parser.add_argument("--seed", type=int, default=None, metavar="N",
                         help="random seed of a new demo (default: the scenario's own)")
     parser.set_defaults(func=run)
+
+
+def _real_seconds(text) -> float:
+    """argparse type of ``--duration``: a number of seconds, or a duration with its unit (``10m``)."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = text
+    try:
+        return parse_duration(value)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def _bad(option, value, why) -> int:
@@ -85,14 +109,12 @@ def _check(args) -> int:
 _LOGGERS = {"gapwatch": logging.INFO, "apscheduler": logging.WARNING}
 
 
-def _setup_logging(folder: Path) -> list[logging.Handler]:
+def _setup_logging(log_path: Path) -> list[logging.Handler]:
     """Service, alert and scheduler logs go to the demo's log file, not the terminal.
 
     The terminal gets one line per change of state instead (see ``_Watcher``).
     """
-    from demo_db.folder import LOG_NAME
-
-    handler = logging.FileHandler(folder / LOG_NAME, encoding="utf-8")
+    handler = logging.FileHandler(log_path, encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s %(message)s"))
     for name, level in _LOGGERS.items():
         logger = logging.getLogger(name)
@@ -156,9 +178,16 @@ def _stop_dashboard(process):
             time.sleep(0.2)
 
 
-def _describe(row) -> str:
-    from monitor.store.readback import state_label
+def _bad_rows(excluded) -> str:
+    """``"bad rows 17 (null 5, out of range 12)"``; empty when nothing was excluded."""
+    counts = {reason: int(count) for reason, count in (excluded or {}).items() if count}
+    if not counts:
+        return ""
+    detail = ", ".join(f"{reason.replace('_', ' ')} {count}" for reason, count in sorted(counts.items()))
+    return f"bad rows {sum(counts.values())} ({detail})"
 
+
+def _describe(row, excluded=None) -> str:
     parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
     if row.get("estimate") is not None:
         low, high = row.get("ci_low"), row.get("ci_high")
@@ -168,36 +197,67 @@ def _describe(row) -> str:
         parts.append(f"difference {row['estimate']:.3g}{interval}")
     if row.get("fraction") is not None:
         parts.append(f"fraction {row['fraction']:.2f}")
+    bad = _bad_rows(excluded)
+    if bad:
+        parts.append(bad)
     return ", ".join(parts)
 
 
+def _simulated(moment) -> str:
+    """A simulated time as the terminal shows it, zone included."""
+    return moment.astimezone(timezone.utc).strftime("%a %d %b %H:%M UTC")
+
+
 class _Watcher:
-    """Prints a line whenever a comparison's state changes (read from the store)."""
+    """Prints a line whenever a comparison's state changes (read from the store).
 
-    def __init__(self, store_url, clock):
-        from monitor.store.engine import make_engine
+    Each line is stamped with the simulated time of the look that brought the change
+    (its recorded ``as_of``) and carries the bad rows excluded so far.
+    """
 
-        self.engine = make_engine(store_url)
+    def __init__(self, engine, read_status, read_history, clock):
+        self.engine = engine
+        self.read_status = read_status
+        self.read_history = read_history
         self.clock = clock
         self.states = {}
 
-    def poll(self, *, final=False):
-        from monitor.store.readback import comparison_status
+    def _latest_look(self, name):
+        history = self.read_history(self.engine, name)
+        return history[-1] if history else None
 
+    def poll(self, *, final=False):
         try:
-            rows = comparison_status(self.engine, now=self.clock())
+            rows = self.read_status(self.engine, now=self.clock())
+            changed = [row for row in rows if final or self.states.get(row["name"]) != row["state"]]
+            latest = {row["name"]: self._latest_look(row["name"]) for row in changed}
         except Exception as exc:  # noqa: BLE001 - a busy store must not end the demo
             logging.getLogger("gapwatch.demo").info("status read failed: %s", exc)
             return []
-        for row in rows:
-            if final or self.states.get(row["name"]) != row["state"]:
-                self.states[row["name"]] = row["state"]
-                stamp = self.clock().strftime("%a %d %b %H:%M")
-                print(f"  [{stamp} simulated] {_describe(row)}", flush=True)
+        for row in changed:
+            self.states[row["name"]] = row["state"]
+            look = latest[row["name"]]
+            at = datetime.fromisoformat(look["as_of"]) if look else self.clock()
+            excluded = look["excluded"] if look else None
+            print(f"  [{_simulated(at)}, simulated] {_describe(row, excluded)}", flush=True)
         return rows
 
     def close(self):
         self.engine.dispose()
+
+
+def _demo_command(args) -> str:
+    return f"{program()} demo" + ("" if args.dir == DEFAULT_FOLDER else f" --dir {shlex.quote(args.dir)}")
+
+
+def _all_stopped_text(args, demo) -> str:
+    """What to say once every comparison has reached its decision."""
+    again = f"{_demo_command(args)} --reset"
+    return ("  every comparison has stopped at its decision; the feed goes on, but nothing more "
+            "will be decided.\n"
+            "  Press Ctrl-C to end. To watch one comparison again, archive its version from another "
+            f"terminal: GAPWATCH_CONFIG={shlex.quote(path_as_typed(demo.config_path))} {program()} restart NAME "
+            f"(its next look starts anew); or start the whole demo over: {again}")
 
 
 def run(args) -> int:
@@ -205,11 +265,14 @@ def run(args) -> int:
     if problem:
         return problem
 
+    # lazy: start-up time of the command line (the demo and the live stack load only here).
     from demo_db.feed import LiveFeed, SimulatedClock
-    from demo_db.folder import folder_seed, prepare_folder
+    from demo_db.folder import LOG_NAME, folder_seed, prepare_folder
     from demo_db.scenario import COMPANY, DEFAULT_SEED
-    from monitor.config import load_config
-    from monitor.service.scheduler import run_service
+    from ..config import load_config
+    from ..service.scheduler import run_service
+    from ..store.engine import make_engine
+    from ..store.readback import comparison_status, look_history
 
     folder_arg = Path(args.dir)
     try:
@@ -221,7 +284,7 @@ def run(args) -> int:
         return 2
     load_config(demo.config_path)  # a broken demo config fails here, with every problem listed
 
-    handlers = _setup_logging(demo.path)
+    handlers = _setup_logging(demo.path / LOG_NAME)
     clock = SimulatedClock(demo.start, args.speed)
     feed = LiveFeed(demo.path, clock, seed=seed)
     stop = threading.Event()
@@ -244,19 +307,24 @@ def run(args) -> int:
         total = sum(demo.rows.values())
         print(f"  {total} events of history seeded in {len(demo.rows)} tables", flush=True)
     print(f"  config: {demo.config_path}", flush=True)
-    print(f"  from another terminal: GAPWATCH_CONFIG={demo.config_path} gapwatch status", flush=True)
+    print(f"  from another terminal in this folder: GAPWATCH_CONFIG={shlex.quote(path_as_typed(demo.config_path))} "
+          f"{program()} status", flush=True)
 
     dashboard = None
     previous_term = signal.getsignal(signal.SIGTERM)
     if threading.current_thread() is threading.main_thread():
         signal.signal(signal.SIGTERM, lambda *_: stop.set())
-    watcher = _Watcher(demo.store_url, clock)
+    watcher = _Watcher(make_engine(demo.store_url), comparison_status, look_history, clock)
+    port = args.port
+    if not args.no_dashboard and not port_is_free(DASHBOARD_ADDRESS, port):
+        port = free_port(DASHBOARD_ADDRESS)
+        print(f"  port {args.port} is in use; the dashboard takes port {port} instead", flush=True)
     try:
         feed_thread.start()
         service_thread.start()
         if not args.no_dashboard:
-            dashboard = _start_dashboard(demo.config_path, args.port, demo.path)
-            print(f"  dashboard: http://127.0.0.1:{args.port}/  (log: {demo.path / 'dashboard.log'})", flush=True)
+            dashboard = _start_dashboard(demo.config_path, port, demo.path)
+            print(f"  dashboard: http://{DASHBOARD_ADDRESS}:{port}/  (log: {demo.path / 'dashboard.log'})", flush=True)
         print("", flush=True)
         print(EXPLANATION.format(company=COMPANY, speed=args.speed,
                                  start=demo.start.strftime("%A %d %B %Y %H:%M UTC")), flush=True)
@@ -264,13 +332,17 @@ def run(args) -> int:
         print("Press Ctrl-C to stop." if args.duration is None else
               f"Stopping after {args.duration:g} seconds (or Ctrl-C).", flush=True)
         deadline = None if args.duration is None else time.monotonic() + args.duration
+        all_stopped_told = False
         try:
             while not stop.is_set():
                 left = None if deadline is None else deadline - time.monotonic()
                 if left is not None and left <= 0:
                     break
                 stop.wait(2.0 if left is None else min(2.0, left))
-                watcher.poll()
+                rows = watcher.poll()
+                if rows and all(row["stopped"] for row in rows) and not all_stopped_told:
+                    all_stopped_told = True
+                    print(_all_stopped_text(args, demo), flush=True)
                 if dashboard is not None and dashboard.poll() is not None and not stop.is_set():
                     print(f"  the dashboard exited (code {dashboard.returncode}); see dashboard.log", flush=True)
                     dashboard = None
@@ -285,7 +357,7 @@ def run(args) -> int:
         if threading.current_thread() is threading.main_thread():
             signal.signal(signal.SIGTERM, previous_term)
 
-    print(f"\nwhere things stand (simulated time {clock().strftime('%a %d %b %H:%M')}):", flush=True)
+    print(f"\nwhere things stand (simulated time {_simulated(clock())}):", flush=True)
     watcher.poll(final=True)
     watcher.close()
     if feed.errors:
@@ -297,5 +369,6 @@ def run(args) -> int:
     if failures:
         print(f"gapwatch demo: the monitoring service stopped: {failures[0]}", file=sys.stderr)
         return 1
-    print(f"Run again to continue where it stopped, or add --reset to start over. Files: {demo.path}", flush=True)
+    print(f"Run `{_demo_command(args)}` again to continue where it stopped, or add --reset to start over. "
+          f"Files: {demo.path}", flush=True)
     return 0

@@ -5,9 +5,8 @@ from __future__ import annotations
 import csv
 import sys
 
-from ..store import readback
-from ..store.readback import format_number as fmt
-from ._common import add_config_option, aligned_lines, open_store, print_json, whole_number_type
+from . import SUMMARIES
+from ._common import add_config_option, aligned_lines, open_store, print_json, readback, whole_number_type
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
 
@@ -23,7 +22,7 @@ CSV_COLUMNS = [
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "history",
-        help="list every look of one comparison",
+        help=SUMMARIES["history"],
         description="List every recorded look of one comparison: events, estimate, statistic, "
                     "boundary, alpha spent, decision and excluded rows.",
     )
@@ -48,12 +47,14 @@ def csv_rows(history):
     return header, rows
 
 
-_CLUSTER_TEXT = {"clusters": "{} clusters".format,
-                 "design_effect": lambda value: f"design effect {fmt(value, 3)}",
-                 "effective_n": "effective n {:.0f}".format}
+def _cluster_text(fmt):
+    return {"clusters": "{} clusters".format,
+            "design_effect": lambda value: f"design effect {fmt(value, 3)}",
+            "effective_n": "effective n {:.0f}".format}
 
 
 def table_lines(history):
+    fmt = readback().format_number
     headers = ["look", "as of (UTC)", "n1", "n2", "estimate", "statistic", "boundary", "p-value",
                "plan", "alpha spent", "excluded", "decision"]
     body = []
@@ -66,7 +67,7 @@ def table_lines(history):
         ])
     lines = aligned_lines(headers, body)
     last = history[-1]
-    figures = readback.clustering_figures(last, _CLUSTER_TEXT)
+    figures = readback().clustering_figures(last, _cluster_text(fmt))
     if figures:
         lines.append("latest look: " + ", ".join(figures))
     if last.get("baseline"):
@@ -79,7 +80,7 @@ def table_lines(history):
 def run(args) -> int:
     engine = open_store(args.config)
     try:
-        history = readback.look_history(engine, args.name, version=args.version)
+        history = readback().look_history(engine, args.name, version=args.version)
     finally:
         engine.dispose()
     if args.format == "json":

@@ -6,20 +6,22 @@ import json
 import sys
 from datetime import datetime, timezone
 
-from ..config import load_config
 from ..errors import (DesignChangedError, InvalidArgumentError, LookAlreadyRecordedError,
                       SourceSchemaError, SourceUnavailableError)
+from ..vocabulary import as_utc, json_safe
+from . import SUMMARIES
+from ._common import add_config_option, as_typed, program
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
-        "look", help="take one look at comparisons now and record it",
+        "look", help=SUMMARIES["look"],
         description="Take one look at each named comparison (default: all) and record it in the store. "
                     "Prints one line per comparison: look number, decision, estimate and interval.")
     p.add_argument("names", nargs="*", metavar="NAME", help="comparisons to look at (default: all)")
     p.add_argument("--as-of", default=None, metavar="TIMESTAMP",
                    help="ISO time of the look, e.g. 2026-03-02T08:00:00+00:00 (no offset = UTC; default: now)")
-    p.add_argument("--config", default=None, help="configuration file (default $GAPWATCH_CONFIG or ./gapwatch.toml)")
+    add_config_option(p)
     p.add_argument("--json", action="store_true", help="print one JSON object per comparison")
     p.set_defaults(func=run)
 
@@ -32,12 +34,12 @@ def parse_as_of(text) -> datetime:
         moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
     except ValueError:
         raise InvalidArgumentError(f"--as-of must be an ISO timestamp like 2026-03-02T08:00:00+00:00; got {text!r}") from None
-    if moment.tzinfo is None:
-        moment = moment.replace(tzinfo=timezone.utc)
-    return moment.astimezone(timezone.utc)
+    return as_utc(moment, "--as-of")
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (configuration, look and store stacks).
+    from ..config import load_config
     from ..look import take_look
     from ..store.engine import ensure_current, make_engine
 
@@ -57,13 +59,13 @@ def run(args) -> int:
                 status = max(status, 1)
                 continue
             except (DesignChangedError, LookAlreadyRecordedError) as exc:
-                print(f"gapwatch look: {exc}", file=sys.stderr)
+                print(f"gapwatch look: {as_typed(exc)}", file=sys.stderr)
                 status = max(status, 1)
                 continue
             if record is None:
-                print(f"{c.name}: stopped; no look taken (see `gapwatch history {c.name}`)")
+                print(f"{c.name}: stopped; no look taken (see `{program()} history {c.name}`)")
             elif args.json:
-                print(json.dumps(record.to_dict(), default=str))
+                print(json.dumps(json_safe(record.to_dict()), allow_nan=False))
             else:
                 print(record.line())
                 for warning in record.warnings:

@@ -6,11 +6,10 @@ import argparse
 import json
 import math
 
-from ..stats import planning
-from ..stats.before_after import plan_before_after
-from ..stats._checks import ALTERNATIVES
 from ..errors import InvalidArgumentError
-from ._common import json_safe
+from ..stats._checks import ALTERNATIVES
+from ..vocabulary import json_safe
+from . import SUMMARIES
 
 # The two numbers each metric is planned from, as option destinations.
 _METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}
@@ -61,11 +60,18 @@ def add_plan_arguments(parser) -> None:
                         help="number of equally spaced looks the plan assumes (default 5)")
     parser.add_argument("--futility", action="store_true",
                         help="add a non-binding futility boundary (stop early when a difference "
-                             "of the planned size has become unlikely)")
+                             "of the planned size has become unlikely); one-sided designs only")
 
 
 def plan_from_args(args):
     """Build the :class:`monitor.stats.planning.Plan` the options describe."""
+    # lazy: start-up time of the command line (planning loads scipy.stats and scipy.optimize).
+    from ..stats import planning
+
+    if args.futility and args.alternative == "two-sided":
+        # As the configuration: the futility boundary is for one-sided designs only.
+        raise InvalidArgumentError("--futility needs a one-sided --alternative (greater or less); "
+                                   "got two-sided")
     common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative,
                   spending=args.spending, looks=args.looks, futility=args.futility)
     for metric, names in _METRIC_OPTIONS.items():
@@ -132,9 +138,9 @@ def human_text(plan) -> str:
             row += f"  {_z_text(f):>12}"
         lines.append(row)
     lines.append("")
-    rule = {"two-sided": "|z| at or above the efficacy bound",
-            "greater": "z at or above the efficacy bound",
-            "less": "z at or below minus the efficacy bound"}[plan.alternative]
+    rule = {"two-sided": "|z| is at or above the efficacy bound",
+            "greater": "z is at or above the efficacy bound",
+            "less": "z is at or below minus the efficacy bound"}[plan.alternative]
     lines.append(f"A look finds a difference when {rule}. The bounds are wide early, so looking "
                  f"often does not raise the false-alarm rate; 'none' means that look cannot stop.")
     if plan.futility:
@@ -146,14 +152,14 @@ def human_text(plan) -> str:
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "plan",
-        help="events per group needed to detect a difference with repeated looks",
+        help=SUMMARIES["plan"],
         description="Work out how many events per group a sequential comparison needs to detect "
                     "a difference worth acting on, and how many it is expected to use.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog="examples:\n"
-               "  gapwatch plan --metric mean --difference 2.5 --sd 12 --looks 8\n"
-               "  gapwatch plan --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json\n"
-               "  gapwatch plan --metric mean --difference -6 --sd 50 --baseline-days 28 --day-sd 4 "
+               "  %(prog)s --metric mean --difference 2.5 --sd 12 --looks 8\n"
+               "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json\n"
+               "  %(prog)s --metric mean --difference -6 --sd 50 --baseline-days 28 --day-sd 4 "
                "--events-per-day 400",
     )
     add_plan_arguments(p)
@@ -199,6 +205,9 @@ def add_before_after_arguments(parser) -> None:
 
 
 def _before_after_plan(args):
+    # Imported here, as the other plans are: the command line starts without scipy.
+    from ..stats.before_after import plan_before_after
+
     if args.events_per_day is None:
         raise InvalidArgumentError("--events-per-day is required with --baseline-days")
     if args.futility:

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import logging
 import sys
+import time
 
+from . import SUMMARIES
 from ._common import add_config_option
 
 __all__ = ["register", "run", "configure_logging"]
@@ -13,7 +15,7 @@ __all__ = ["register", "run", "configure_logging"]
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "run",
-        help="run the service: look at every comparison on its schedule and deliver alerts",
+        help=SUMMARIES["run"],
         description="Run until stopped (SIGINT/SIGTERM): each comparison is looked at on its "
                     "'every' schedule under a claim in the store, so several workers can share "
                     "one PostgreSQL store; pending alerts are delivered with retries. SIGHUP, or "
@@ -31,8 +33,6 @@ def register(subparsers) -> None:
 
 def configure_logging(level: str = "INFO") -> None:
     """One line per event on standard error, UTC timestamps."""
-    import time
-
     handler = logging.StreamHandler(sys.stderr)
     formatter = logging.Formatter("%(asctime)s %(levelname)s %(name)s %(message)s", "%Y-%m-%dT%H:%M:%SZ")
     formatter.converter = time.gmtime
@@ -46,6 +46,7 @@ def configure_logging(level: str = "INFO") -> None:
 
 
 def run(args) -> int:
+    # lazy: start-up time of the command line (the service loads the whole live stack).
     from ..service.scheduler import run_once, run_service
 
     configure_logging(args.log_level)

@@ -6,22 +6,27 @@ import argparse
 import json
 import sys
 
-from ..stats import simulate
-from ._common import json_safe
+from ..errors import InvalidArgumentError
+from ..vocabulary import json_safe
+from . import SUMMARIES
+from ._common import whole_number_type
 from .plan import _whole_number, add_plan_arguments, describe_design, plan_from_args
+
+# The simulation's own arguments, as the options that give them.
+_OPTION_OF = {"looks": "--actual-looks", "streams": "--streams", "seed": "--seed"}
 
 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "simulate",
-        help="simulate a design: false-alarm rate, power and events at decision",
+        help=SUMMARIES["simulate"],
         description="Simulate many comparisons under the design, with no real difference and with "
                     "the planned difference, and report how often each crosses a boundary and how "
                     "many events it uses.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog="examples:\n"
-               "  gapwatch simulate --metric mean --difference 2.5 --sd 12 --looks 8 --seed 1\n"
-               "  gapwatch simulate --metric proportion --p1 0.18 --p2 0.15 --schedule irregular "
+               "  %(prog)s --metric mean --difference 2.5 --sd 12 --looks 8 --seed 1\n"
+               "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --schedule irregular "
                "--actual-looks 20 --json",
     )
     add_plan_arguments(p)
@@ -31,7 +36,7 @@ def register(subparsers) -> None:
                    help="looks actually taken in the simulation (default: --looks)")
     p.add_argument("--schedule", default="regular", choices=("regular", "irregular"),
                    help="regular: equally spaced looks; irregular: random look times per comparison")
-    p.add_argument("--seed", type=_whole_number, default=None, metavar="S",
+    p.add_argument("--seed", type=whole_number_type(0), default=None, metavar="S",
                    help="random seed, for a repeatable run")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     p.set_defaults(func=run)
@@ -77,16 +82,29 @@ def human_text(plan, oc) -> str:
     return "\n".join(lines)
 
 
+def _in_option_words(exc) -> InvalidArgumentError:
+    """The library's message about one of its arguments, naming the option the user typed."""
+    name, _, rest = str(exc).partition(" ")
+    option = _OPTION_OF.get(name)
+    return InvalidArgumentError(f"{option} {rest}" if option else str(exc))
+
+
 def run(args) -> int:
+    # lazy: start-up time of the command line (the simulation loads scipy through planning).
+    from ..stats import simulate
+
     plan = plan_from_args(args)
-    oc = simulate.simulate_design(
-        plan,
-        streams=args.streams,
-        looks=args.actual_looks,
-        schedule=args.schedule,
-        seed=args.seed,
-        progress=sys.stderr.isatty() and not args.json,
-    )
+    try:
+        oc = simulate.simulate_design(
+            plan,
+            streams=args.streams,
+            looks=args.actual_looks,
+            schedule=args.schedule,
+            seed=args.seed,
+            progress=sys.stderr.isatty() and not args.json,
+        )
+    except InvalidArgumentError as exc:
+        raise _in_option_words(exc) from None
     if args.json:
         out = {"plan": plan.to_dict(), **oc.to_dict()}
         print(json.dumps(json_safe(out), indent=2))

@@ -4,10 +4,8 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
-from ..store import readback
-# fmt keeps the name the dashboard tests import from here.
-from ..store.readback import format_number as fmt
-from ._common import add_config_option, aligned_lines, open_store, print_json
+from . import SUMMARIES
+from ._common import add_config_option, aligned_lines, open_store, print_json, readback
 
 __all__ = ["register", "run", "fmt"]
 
@@ -15,7 +13,7 @@ __all__ = ["register", "run", "fmt"]
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "status",
-        help="show every comparison's state, looks, estimate and progress",
+        help=SUMMARIES["status"],
         description="Show one line per comparison from the history store: state, looks, events "
                     "per group, the latest estimate with its repeated confidence interval, the "
                     "fraction of the plan reached, clustering figures and warnings.",
@@ -27,7 +25,15 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
+def __getattr__(name):
+    # ``fmt`` was defined here before the store's read side had a home; it stays importable.
+    if name == "fmt":
+        return readback().format_number
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 def _interval(row):
+    fmt = readback().format_number
     if row["estimate"] is None:
         return "-"
     if row["ci_low"] is None and row["ci_high"] is None:
@@ -48,7 +54,7 @@ _CLUSTER_TEXT = {"clusters": "{} clusters".format, "design_effect": "deff {:.2f}
 
 
 def _clusters(row):
-    return ", ".join(readback.clustering_figures(row, _CLUSTER_TEXT)) or "-"
+    return ", ".join(readback().clustering_figures(row, _CLUSTER_TEXT)) or "-"
 
 
 def _when(row, now):
@@ -56,7 +62,7 @@ def _when(row, now):
         return "stopped"
     if row["next_look_at"] is None:
         return "-"
-    return readback.describe_wait((datetime.fromisoformat(row["next_look_at"]) - now).total_seconds())
+    return readback().describe_wait((datetime.fromisoformat(row["next_look_at"]) - now).total_seconds())
 
 
 def table_lines(rows, now):
@@ -67,7 +73,7 @@ def table_lines(rows, now):
         name = r["name"] if r["version"] == 1 and not r["archived"] else f"{r['name']} v{r['version']}"
         if r["archived"]:
             name += " (archived)"
-        to_plan = "-" if r["seconds_to_plan"] is None else readback.describe_seconds(r["seconds_to_plan"])
+        to_plan = "-" if r["seconds_to_plan"] is None else readback().describe_seconds(r["seconds_to_plan"])
         body.append([name, r["state_label"], str(r["looks"]), f"{r['n1']} / {r['n2']}", _interval(r),
                      _fraction(r), to_plan, _clusters(r), _when(r, now)])
     header, *row_lines = aligned_lines(headers, body)
@@ -83,8 +89,8 @@ def table_lines(rows, now):
 def run(args) -> int:
     engine = open_store(args.config)
     try:
-        now, note = readback.reference_time(engine, datetime.now(timezone.utc))
-        rows = readback.comparison_status(engine, include_archived=args.all, now=now)
+        now, note = readback().reference_time(engine, datetime.now(timezone.utc))
+        rows = readback().comparison_status(engine, include_archived=args.all, now=now)
     finally:
         engine.dispose()
     if args.format == "json":

@@ -8,8 +8,9 @@ import math
 import sys
 
 from ..errors import InvalidArgumentError
-from ..stats import fixed
-from ._common import json_safe
+from ..stats._checks import ALTERNATIVES, INTERVALS
+from ..vocabulary import json_safe
+from . import SUMMARIES
 
 METHOD_HELP = {
     "z": "two-sample z with known population standard deviations",
@@ -31,15 +32,15 @@ METHOD_TITLE = {
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "test",
-        help="run one fixed-sample two-group test from summary numbers",
+        help=SUMMARIES["test"],
         description="Run one fixed-sample two-group test (group 1 − group 2) from counts, means "
                     "and standard deviations, or counts and successes for rates.",
         formatter_class=argparse.RawDescriptionHelpFormatter,
         epilog="examples:\n"
-               "  gapwatch test welch --group1 40,12.5,3.1 --group2 38,11.2,2.7\n"
-               "  gapwatch test z --group1 50,105,15 --group2 50,100,15   (third number = known sigma)\n"
-               "  gapwatch test paired --differences 20,0.8,1.9\n"
-               "  gapwatch test proportions --group1 400,52 --group2 380,31 --json",
+               "  %(prog)s welch --group1 40,12.5,3.1 --group2 38,11.2,2.7\n"
+               "  %(prog)s z --group1 50,105,15 --group2 50,100,15   (third number = known sigma)\n"
+               "  %(prog)s paired --differences 20,0.8,1.9\n"
+               "  %(prog)s proportions --group1 400,52 --group2 380,31 --json",
     )
     p.add_argument("method", choices=list(METHOD_HELP), metavar="METHOD",
                    help="; ".join(f"{k}: {v}" for k, v in METHOD_HELP.items()))
@@ -48,11 +49,11 @@ def register(subparsers) -> None:
     p.add_argument("--group2", metavar="N,MEAN,SD", help="group 2, same form as --group1")
     p.add_argument("--differences", metavar="N,MEAN,SD",
                    help="paired only: number of pairs, mean and SD of the differences")
-    p.add_argument("--alternative", default="two-sided", choices=list(fixed.ALTERNATIVES),
+    p.add_argument("--alternative", default="two-sided", choices=list(ALTERNATIVES),
                    help="greater: group 1 − group 2 > null difference (default two-sided)")
     p.add_argument("--alpha", default="0.05", help="significance level in (0, 1) (default 0.05)")
     p.add_argument("--null-difference", default="0", help="hypothesised difference (default 0)")
-    p.add_argument("--interval", default="newcombe", choices=list(fixed.INTERVALS),
+    p.add_argument("--interval", default="newcombe", choices=list(INTERVALS),
                    help="proportions only: interval for the difference (default newcombe)")
     p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     p.set_defaults(func=run)
@@ -109,6 +110,9 @@ _OPTION_OF = {
 
 
 def _compute(args):
+    # lazy: start-up time of the command line (the tests load scipy.special).
+    from ..stats import fixed
+
     alpha = _parse_scalar(args.alpha, "--alpha")
     delta0 = _parse_scalar(args.null_difference, "--null-difference")
     common = {"null_difference": delta0, "alternative": args.alternative, "alpha": alpha}

@@ -30,8 +30,8 @@ class RolledUp:
     null_key_late: int = 0   # of those, late events
 
 
-def roll_up(c, batch) -> RolledUp:
-    """Slot cells → changes to stored cells.
+def roll_up(design, batch) -> RolledUp:
+    """Slot cells → changes to stored cells, by the frozen design's pairing and clustering.
 
     With a pair or cluster column, an event whose key is NULL belongs to no
     pair or cluster. Filing it under an empty key would invent a pair (or a
@@ -39,16 +39,18 @@ def roll_up(c, batch) -> RolledUp:
     included (n then matches the paired or clustered statistic), and counted
     as excluded with reason ``null_key``.
     """
-    zone = c.zone
+    zone = design.measure.zone
+    pairing, clustering = design.pairing, design.clustering
+    shift_starts = pairing.shift_starts if pairing is not None else ()
     changes: dict = {}
     memo: dict = {}
-    needs_key = c.key_column is not None
+    needs_key = design.key_column is not None
     null_key = null_key_late = 0
 
     def bucket(slot, kind):
         k = (slot, kind)
         if k not in memo:
-            memo[k] = bucket_key(slot, kind, zone, c.shift_starts)
+            memo[k] = bucket_key(slot, kind, zone, shift_starts)
         return memo[k]
 
     def add(kind, gi, key, cell):
@@ -57,8 +59,9 @@ def roll_up(c, batch) -> RolledUp:
         entry[1] += cell.sum_dev
         entry[2] += cell.sum_dev2
 
-    clustered, cluster_column, cluster_by = c.clustered, c.cluster_column, c.cluster_by
-    paired, pair_column, pair_by = c.paired, c.pair_column, c.pair_by
+    clustered, paired = clustering is not None, pairing is not None
+    cluster_column, cluster_by = (clustering.cluster_column, clustering.cluster_by) if clustered else (None, None)
+    pair_column, pair_by = (pairing.pair_column, pairing.pair_by) if paired else (None, None)
     for cell in batch.cells:
         if needs_key and cell.key is None:
             null_key += cell.n
@@ -74,18 +77,18 @@ def roll_up(c, batch) -> RolledUp:
     return RolledUp(changes, null_key, null_key_late)
 
 
-def roll_up_baseline(c, batch) -> dict:
+def roll_up_baseline(design, batch) -> dict:
     """The baseline's slot cells → ``baseline`` cells per local day and ``baseline_total``.
 
     Read once, at the first look after the baseline ends, and stored with that look; the
     marker cell says it was read. Events whose key column is NULL are left out as for
     the comparison's own cells.
     """
-    zone = c.zone
+    zone = design.measure.zone
     changes: dict = {BASELINE_READ: [1, 0.0, 0.0]}
     memo: dict = {}
     for cell in batch.cells:
-        if c.key_column is not None and cell.key is None:
+        if design.key_column is not None and cell.key is None:
             continue
         if cell.slot not in memo:
             memo[cell.slot] = bucket_key(cell.slot, "day", zone)

@@ -29,6 +29,7 @@ from datetime import datetime
 
 from scipy import special
 
+from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
@@ -46,10 +47,9 @@ _Z_METHODS = ("z", "proportions")
 
 @dataclass(frozen=True)
 class LookInputs:
-    """What the decision step reads: the comparison, its design, and the running cells."""
+    """What the decision step reads: the frozen design and the running cells."""
 
-    comparison: object          # the ComparisonConfig (pairing, clustering, local zone)
-    design: dict                # the frozen design, its shift fixed
+    design: Design              # the frozen design, its shift fixed
     cells: dict                 # the merged running cells
     cutoff: datetime            # events up to here are in the cells
     excluded_total: int         # events excluded so far, all reasons
@@ -90,16 +90,16 @@ class Decision:
 
 def weigh(inputs: LookInputs) -> Evidence:
     """Statistic, fraction, design effect and warnings of the running cells."""
-    c, design, cells = inputs.comparison, inputs.design, inputs.cells
-    shift = design["shift"] or 0.0
+    design, cells = inputs.design, inputs.cells
+    shift = design.shift or 0.0
     s1 = summary(cells, "total", 0, "", shift)
     s2 = summary(cells, "total", 1, "", shift)
-    st = statistic(c, design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
-    planned = int(design["plan"]["planned_per_group"])
-    if design.get("before_after"):
+    st = statistic(design, cells, s1, s2, inputs.cutoff, inputs.excluded_total)
+    planned = design.planned_per_group
+    if design.before_after:
         fraction = before_after_fraction(design, cells, min(s1.n, s2.n))
     else:
-        fraction = ((st.pairs or 0) if c.paired else min(s1.n, s2.n)) / planned
+        fraction = ((st.pairs or 0) if design.paired else min(s1.n, s2.n)) / planned
 
     state, tests, warnings = "collecting", False, []
     if st.problem:
@@ -116,7 +116,7 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if (de is not None and not c.clustered and not design.get("before_after")
+    if (de is not None and not design.clustered and not design.before_after
             and de.design_effect > DESIGN_EFFECT_WARNING):
         warnings.append(f"design effect {de.design_effect:.1f} at day level: events are not independent; "
                         f"set cluster_by = \"day\"")
@@ -135,10 +135,9 @@ def decide(evidence: Evidence, boundary: SequentialBoundary | None = None) -> De
     if boundary is None:
         raise InvalidArgumentError("a testing look needs the boundary resumed at the recorded testing looks")
     st, design, fraction = evidence.stat, evidence.inputs.design, evidence.fraction
-    alternative = design["alternative"]
+    alternative = design.alternative
     look = boundary.add_look(fraction)
-    if (design["method"] in _Z_METHODS and not evidence.inputs.comparison.clustered
-            and not design.get("before_after")):
+    if design.method in _Z_METHODS and not design.clustered and not design.before_after:
         z = st.statistic
         crossed = (z >= look.z if alternative == "greater" else z <= -look.z if alternative == "less"
                    else abs(z) >= look.z)
@@ -171,21 +170,21 @@ def before_after_fraction(design, cells, after_events) -> float:
     ``B`` the baseline's days. Events per day are the plan's, else the baseline's own
     (its smaller group's events over its days).
     """
-    window = design["before_after"]
-    planned = int(design["plan"]["planned_per_group"])
-    days = float(window["baseline_days"])
-    per_day = window.get("events_per_day")
+    window = design.window
+    planned = design.planned_per_group
+    days = float(window.baseline_days)
+    per_day = window.events_per_day
     if not per_day:
         totals = [cells.get(("baseline_total", gi, ""), (0, 0.0, 0.0))[0] for gi in (0, 1)]
         per_day = min(totals) / days if min(totals) > 0 else planned
     return float(information_fraction(after_events / per_day, planned / per_day, days))
 
 
-def _after_stop(boundary, st: Stat, fraction, design) -> dict:
+def _after_stop(boundary, st: Stat, fraction, design: Design) -> dict:
     """Stagewise-ordering p-value and median-unbiased estimate at the stop look."""
     fractions = [b.fraction for b in boundary.looks]
     upper = [b.z for b in boundary.looks]
-    if design.get("before_after") and st.standard_error and st.df:
+    if design.before_after and st.standard_error and st.df:
         return _after_stop_on_t_scale(fractions, upper, st, design)
     # t statistics enter the z-scale calculation through their one-sided p-value.
     if st.df is None:
@@ -194,11 +193,11 @@ def _after_stop(boundary, st: Stat, fraction, design) -> dict:
         z = float(-special.ndtri(st.p_upper)) if 0 < st.p_upper < 1 else math.copysign(40.0, st.statistic)
     out = {"stop_look": len(fractions), "z_observed": z}
     try:
-        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design["alternative"])
+        out["p_value"] = stagewise_p_value(fractions, upper, len(fractions), z, design.alternative)
         if st.standard_error:
             info_max = 1.0 / (st.standard_error ** 2 * fraction)
             est = median_unbiased_estimate(fractions, upper, len(fractions), z, info_max,
-                                           design["alternative"], alpha=design["alpha"])
+                                           design.alternative, alpha=design.alpha)
             out["median_unbiased_estimate"] = est.estimate
             out["adjusted_ci"] = list(est.ci)
             # The look's own estimate: for t statistics the z-scale figure differs slightly.
@@ -218,8 +217,8 @@ def _after_stop_on_t_scale(fractions, upper, st: Stat, design) -> dict:
     out = {"stop_look": len(fractions), "z_observed": z}
     try:
         est = estimate_after_stop(fractions, upper, len(fractions), st.estimate, st.standard_error, st.df,
-                                  null_difference=design["null_difference"], alternative=design["alternative"],
-                                  alpha=design["alpha"])
+                                  null_difference=design.null_difference, alternative=design.alternative,
+                                  alpha=design.alpha)
         out.update(p_value=est.p_value, median_unbiased_estimate=est.estimate, adjusted_ci=list(est.ci),
                    naive_estimate=st.estimate)
     except (InvalidArgumentError, ValueError, RuntimeError) as exc:  # numerical trouble: keep the look

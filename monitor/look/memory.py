@@ -2,7 +2,7 @@
 
 A look can always be taken from the store alone; this memory only saves work:
 
-* the configured design in JSON normal form, per configuration object (frozen, so its
+* the configured :class:`~monitor.design.Design`, per configuration object (frozen, so its
   design cannot change under it; a reloaded configuration brings new objects);
 * the sequential boundary after its latest testing look, so a long-running service does
   not re-integrate every earlier look each time (resume costs grow with looks);
@@ -21,19 +21,14 @@ one memory per process; each test makes its own; a caller that passes none keeps
 
 from __future__ import annotations
 
-import json
 import threading
 
+from ..design import Design
 from ..store.looks import KeptState
 
-__all__ = ["LookMemory", "normal_form"]
+__all__ = ["LookMemory"]
 
 DEFAULT_SIZE = 256
-
-
-def normal_form(design: dict) -> dict:
-    """A design as it comes back from the store's JSON (dates as text, tuples as lists)."""
-    return json.loads(json.dumps(design, default=str))
 
 
 class _Bounded:
@@ -66,15 +61,12 @@ class LookMemory:
 
     # ------------------------------------------------------------------ configured designs
 
-    def configured_design(self, comparison) -> dict:
-        """``comparison.design()`` in normal form, computed once per configuration object.
-
-        Shared between looks: callers copy it before changing anything.
-        """
+    def configured_design(self, comparison) -> Design:
+        """``Design.from_config(comparison)``, built once per configuration object (it is frozen)."""
         with self._lock:
             entry = self._designs.entries.get(id(comparison))
         if entry is None or entry[0] is not comparison:
-            entry = (comparison, normal_form(comparison.design()))
+            entry = (comparison, Design.from_config(comparison))
             with self._lock:
                 self._designs.put(id(comparison), entry)
         return entry[1]

@@ -22,12 +22,14 @@ from __future__ import annotations
 import math
 import time
 import uuid
+from dataclasses import replace
 from datetime import timedelta
 from functools import partial
 
 from ..config import ComparisonConfig
+from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..source.reader import Source, Watermark
+from ..source.reader import Source, SourceSpec, Watermark
 from ..stats.boundaries import SequentialBoundary
 from ..store.claims import claim
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
@@ -36,7 +38,7 @@ from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
 from .decision import LookInputs, alert_kind, decide, weigh
-from .design_check import design_key, frozen_design
+from .design_check import frozen_design
 from .memory import LookMemory
 from .record import LookRecord
 from .row import LookMoment, look_detail, look_row
@@ -127,18 +129,18 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
     design = frozen_design(c.name, row, configured)
-    batch, cutoff, baseline = _read_source(config, c, design, row, as_of, source, state.cells)
+    batch, cutoff, design, baseline = _read_source(config, c, design, row, as_of, source, state.cells)
     stopwatch.lap("source")
 
-    rolled = roll_up(c, batch)
+    rolled = roll_up(design, batch)
     if baseline:
         rolled.changes.update(baseline)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
     last = state.last_boundary_look
-    evidence = weigh(LookInputs(c, design, cells, cutoff, sum(look_counts.excluded.values()),
+    evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
                                 last.fraction if last is not None else 0.0))
-    key = design_key(design) if evidence.tests or row is None else None
+    key = design.fingerprint() if evidence.tests or row is None else None
     boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
     decision = decide(evidence, boundary)
 
@@ -170,8 +172,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, stored_cells):
-    """The batch of new slot cells up to the cutoff; fixes the design's shift at the first data.
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, stored_cells):
+    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data.
 
     A before/after comparison also reads its baseline, once: at the first look whose
     cutoff has passed the baseline's end (its cells are returned as changes, frozen from
@@ -185,31 +187,33 @@ def _read_source(config, c: ComparisonConfig, design: dict, row, as_of, source, 
             raise UnknownComparisonError(f"comparison {c.name!r} names unknown source {c.source!r}") from None
         source = Source(source_config.url, name=c.source)
     try:
-        if design.get("shift") is None:
+        if design.shift is None:
             # Proportions keep exact success counts; means shift by a value near the data.
-            shift = 0.0 if c.metric == "proportion" else source.first_value(c.source_spec(0.0))
-            design["shift"] = None if shift is None else float(shift)
-        spec = c.source_spec(design["shift"] or 0.0)
+            shift = 0.0 if design.metric == "proportion" else source.first_value(
+                SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
+            design = design.with_shift(shift)
+        spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
         watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
         batch = source.read_cells(spec, watermark, cutoff)
-        if design["shift"] is None and batch.cells:
+        if design.shift is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
-            design["shift"] = 0.0
+            design = design.with_shift(0.0)
         baseline = None
-        window = c.window
-        if (c.before_after and BASELINE_READ not in stored_cells
-                and cutoff >= window["baseline_to"]):
-            baseline_batch = source.read_cells(c.baseline_spec(design["shift"] or 0.0), None,
-                                               window["baseline_to"])
-            baseline = roll_up_baseline(c, baseline_batch)
-            batch = _with_baseline_arrivals(batch, baseline_batch)
+        if design.before_after and BASELINE_READ not in stored_cells:
+            window = design.window.moments()
+            if cutoff >= window["baseline_to"]:
+                baseline_spec = replace(SourceSpec.from_design(design, arrival_column=c.arrival_column),
+                                        start=window["baseline_from"], end=window["baseline_to"])
+                baseline_batch = source.read_cells(baseline_spec, None, window["baseline_to"])
+                baseline = roll_up_baseline(design, baseline_batch)
+                batch = _with_baseline_arrivals(batch, baseline_batch)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff, baseline
+    return batch, cutoff, design, baseline
 
 
 def _with_baseline_arrivals(batch, baseline_batch):
@@ -217,8 +221,6 @@ def _with_baseline_arrivals(batch, baseline_batch):
 
     Baseline rows read now must never come back as late rows dated before the start.
     """
-    from dataclasses import replace
-
     arrival = batch.watermark.arrival
     seen = baseline_batch.watermark.arrival
     if seen is not None and (arrival is None or _later(seen, arrival)):
@@ -238,7 +240,7 @@ def _later(a, b) -> bool:
         return str(a) > str(b)
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) -> SequentialBoundary:
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility) -> SequentialBoundary:
     """The sequential boundary standing at the recorded testing looks.
 
     The one kept in memory is used when it stands at the last recorded testing look;
@@ -254,7 +256,7 @@ def _resumed_boundary(engine, memory: LookMemory, state, design, key, futility) 
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
     return SequentialBoundary.resume(
-        design["alpha"], design["spending"], design["alternative"],
+        design.alpha, design.spending, design.alternative,
         [r.fraction for r in recorded], [r.boundary_z for r in recorded],
         futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
         if futility is not None else None,

@@ -36,7 +36,7 @@ class LookMoment:
 def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
     """The look's ``detail`` (before its timings and state token are added)."""
     st = evidence.stat
-    detail = {"shift": evidence.inputs.design["shift"] or 0.0, "planned_per_group": evidence.planned,
+    detail = {"shift": evidence.inputs.design.shift or 0.0, "planned_per_group": evidence.planned,
               "excluded_new": counts.excluded_new}
     if st.fixed is not None:
         detail["fixed"] = st.fixed

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from scipy import special
 
 from ..calendar import bucket_end
+from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats import fixed
 from ..stats.boundaries import FutilitySpec
@@ -75,11 +76,10 @@ def t_critical(nominal_p, df):
     return critical if critical > 0 else math.inf
 
 
-def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
+def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
     """The fixed-sample statistic of the merged cells, or why there is none yet."""
-    common = dict(null_difference=design["null_difference"], alternative=design["alternative"],
-                  alpha=design["alpha"])
-    if design.get("before_after"):
+    common = dict(null_difference=design.null_difference, alternative=design.alternative, alpha=design.alpha)
+    if design.before_after:
         return _before_after(design, cells, s1, s2, common)
     st = Stat()
     if s1.n == 0 and s2.n == 0:
@@ -89,22 +89,22 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = "no events yet"
         return st
     if s1.n == 0 or s2.n == 0:
-        empty = design["groups"][0 if s1.n == 0 else 1]
+        empty = design.groups[0 if s1.n == 0 else 1]
         st.problem = f"group {empty!r} has no valid events"
         return st
 
-    if c.paired:
-        pairing = design["pairing"]
-        by = pairing["pair_by"]
+    if design.paired:
+        pairing, zone = design.pairing, design.measure.zone
+        by = pairing.pair_by
         means = {}
         for gi, key, (n, sd, _s2) in of_kind(cells, "pair"):
             if n > 0:
-                means.setdefault(key, {})[gi] = design["shift"] + sd / n
+                means.setdefault(key, {})[gi] = design.shift + sd / n
         diffs = []
         for key in sorted(means):
             m = means[key]
             if 0 in m and 1 in m:
-                if by is not None and bucket_end(key, by, c.zone, pairing["shift_starts"]) > cutoff:
+                if by is not None and bucket_end(key, by, zone, pairing.shift_starts) > cutoff:
                     continue  # the bucket is still open: its means may move
                 diffs.append(m[0] - m[1])
         st.pairs = len(diffs)
@@ -112,10 +112,10 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = f"{len(diffs)} complete pair(s) so far; a paired test needs at least 2"
             return st
         result = fixed.from_summaries("paired", MomentSummary.from_values(diffs), None, **common)
-    elif c.clustered:
+    elif design.clustered:
         rows = [(gi, key, v) for gi, key, v in of_kind(cells, "cluster") if v[0] > 0]
         rows.sort(key=lambda r: (r[0], r[1]))
-        shift = design["shift"] or 0.0
+        shift = design.shift or 0.0
         result = cluster_robust_difference(
             [r[0] for r in rows], [r[1] for r in rows], [r[2][0] for r in rows],
             [r[2][1] for r in rows], shift, sum_dev2=[r[2][2] for r in rows], **common)
@@ -124,9 +124,9 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
         st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
         st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
         st.fixed = json_safe(result.to_dict())
-        if result.clusters < design["min_clusters"]:
+        if result.clusters < design.min_clusters:
             st.waiting = (f"{result.clusters} clusters so far; decisions start at "
-                          f"{design['min_clusters']} (min_clusters)")
+                          f"{design.min_clusters} (min_clusters)")
             st.awaiting_clusters = True
             return st
         if result.degenerate or not math.isfinite(result.standard_error) or result.standard_error == 0:
@@ -135,12 +135,11 @@ def statistic(c, design, cells, s1, s2, cutoff, excluded_total) -> Stat:
         st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
         return st
     else:
-        method = design["method"]
+        method = design.method
         if method in ("welch", "pooled") and (s1.n < 2 or s2.n < 2):
             st.waiting = "each group needs at least 2 events for a variance"
             return st
-        sigmas = design.get("sigmas")
-        result = fixed.from_summaries(method, s1, s2, sigmas=tuple(sigmas) if sigmas else None, **common)
+        result = fixed.from_summaries(method, s1, s2, sigmas=design.sigmas, **common)
 
     st.estimate = float(result.estimate)
     st.standard_error = finite_or_none(result.standard_error)
@@ -169,18 +168,18 @@ def _before_after(design, cells, s1, s2, common) -> Stat:
     the comparison can test yet; decisions wait for ``min_clusters`` days since the start.
     """
     st = Stat()
-    window = design["before_after"]
-    groups = design["groups"]
+    window = design.window
+    groups = design.groups
     if BASELINE_READ not in cells:
-        st.waiting = (f"the baseline ends at {window['baseline_to']}; it is read at the first look after "
+        st.waiting = (f"the baseline ends at {window.baseline_to}; it is read at the first look after "
                       f"that, and the comparison counts events from the start on")
         return st
-    shift = design["shift"] or 0.0
+    shift = design.shift or 0.0
     base = sorted((gi, key, v) for gi, key, v in of_kind(cells, "baseline") if v[0] > 0)
     for gi in (0, 1):
         if not any(r[0] == gi for r in base):
             st.problem = (f"group {groups[gi]!r} has no valid events in the baseline "
-                          f"({window['baseline_from']} to {window['baseline_to']})")
+                          f"({window.baseline_from} to {window.baseline_to})")
             return st
     gap = cluster_robust_difference([r[0] for r in base], [r[1] for r in base], [r[2][0] for r in base],
                                     [r[2][1] for r in base], shift, alpha=common["alpha"])
@@ -204,9 +203,9 @@ def _before_after(design, cells, s1, s2, common) -> Stat:
     st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
     st.statistic, st.df, st.p_value = float(result.statistic), finite_or_none(result.df), float(result.p_value)
     st.fixed = json_safe(result.to_dict())
-    if result.clusters_after < design["min_clusters"]:
+    if result.clusters_after < design.min_clusters:
         st.waiting = (f"{result.clusters_after} day(s) since the start so far; decisions start at "
-                      f"{design['min_clusters']} (min_clusters)")
+                      f"{design.min_clusters} (min_clusters)")
         st.awaiting_clusters = True
         return st
     if result.degenerate or st.standard_error is None or st.standard_error == 0 or st.df is None:
@@ -216,20 +215,18 @@ def _before_after(design, cells, s1, s2, common) -> Stat:
     return st
 
 
-def futility_spec(design):
+def futility_spec(design: Design):
     """The futility rule of the design (None without one, or without the plan's drift and power)."""
-    if not design.get("futility"):
+    if not design.futility:
         return None
-    plan = design["plan"]
-    figures = plan.get("figures") or {}
-    drift = figures.get("drift")
-    power = (plan.get("inputs") or {}).get("power")
+    drift = design.plan.drift
+    power = design.plan.inputs.power if design.plan.inputs is not None else None
     if drift is None or power is None:
         return None
-    return FutilitySpec(design["spending"], 1.0 - power, drift)
+    return FutilitySpec(design.spending, 1.0 - power, drift)
 
 
-def day_design_effect(design, cells, s1, s2):
+def day_design_effect(design: Design, cells, s1, s2):
     """Day-level design effect and effective n (None when it cannot be measured)."""
     if s1.n < 2 or s2.n < 2:
         return None
@@ -241,7 +238,7 @@ def day_design_effect(design, cells, s1, s2):
     groups, keys, n, sum_dev, sum_dev2 = zip(*rows)
     try:
         de = design_effect({"groups": groups, "keys": keys, "n": n, "sum_dev": sum_dev,
-                            "sum_dev2": sum_dev2, "shift": design["shift"] or 0.0})
+                            "sum_dev2": sum_dev2, "shift": design.shift or 0.0})
     except InvalidArgumentError:
         return None
     if not math.isfinite(de.design_effect):

@@ -10,6 +10,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from statistics import NormalDist
 
+from ..design import Design
 from ..store import readback
 from ..vocabulary import STOPPED_STATES, state_words
 
@@ -78,7 +79,7 @@ class Review:
     groups: tuple
     labels: tuple
     unit: str
-    design: dict
+    design: Design              # the design frozen at the version's first look
     settings: dict
     created_at: str | None
     stopped_at: str | None
@@ -97,9 +98,9 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
     """Gather one comparison's review from the store (``version``: the live one unless given)."""
     row = readback.get_comparison(engine, name, version, now=now)
     history = readback.look_history(engine, name, row["version"])
-    design = row["design"] or {}
+    design = Design.from_stored(row["design"])
     settings = row["settings"] or {}
-    alternative = design.get("alternative", "two-sided")
+    alternative = design.alternative
     lines = []
     for look in history:
         lines.append(LookLine(
@@ -114,7 +115,7 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         ))
     excluded = dict(history[-1]["excluded"]) if history else {}
     groups = tuple(str(g) for g in row["groups"])
-    labels = settings.get("labels") or design.get("labels") or list(groups)
+    labels = settings.get("labels") or list(groups)
     alerts = tuple(a for a in readback.list_alerts(engine, comparison=name)
                    if a["comparison_id"] == row["id"])
     versions = tuple(readback.list_versions(engine, name))
@@ -122,7 +123,7 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         name=row["name"], version=row["version"], state=row["state"],
         state_words=state_words(row["state"]), stopped=row["state"] in STOPPED_STATES,
         description=row.get("description") or "", groups=groups,
-        labels=tuple(str(label) for label in labels), unit=str(settings.get("unit") or design.get("unit") or ""),
+        labels=tuple(str(label) for label in labels), unit=str(settings.get("unit") or ""),
         design=design, settings=settings, created_at=row["created_at"], stopped_at=row["stopped_at"],
         looks=tuple(lines), excluded=excluded, adjusted=row["adjusted"], alerts=alerts,
         versions=versions, warnings=tuple(row["warnings"]), generated_at=now.isoformat(timespec="seconds"),

@@ -77,10 +77,9 @@ def _pct(value) -> str:
 
 def _question(r: Review) -> str:
     a, b = (r.labels + ("group 1", "group 2"))[:2]
-    metric = r.design.get("metric", "mean")
-    what = "rate" if metric == "proportion" else "mean"
-    alt = r.design.get("alternative", "two-sided")
-    delta = float(r.design.get("null_difference") or 0.0)
+    what = "rate" if r.design.metric == "proportion" else "mean"
+    alt = r.design.alternative
+    delta = float(r.design.null_difference or 0.0)
     unit = f" {r.unit}" if r.unit else ""
     base = f"{_n(delta)}{unit}" if delta else "zero"
     if alt == "two-sided":
@@ -92,27 +91,38 @@ def _question(r: Review) -> str:
     return _e(claim)
 
 
+def _settings_text(part) -> str:
+    """A design part's settings as "name value, …" (its stored keys), or "none" without one."""
+    if part is None:
+        return "none"
+    return ", ".join(f"{k} {v}" for k, v in part.to_stored().items() if v) or "none"
+
+
+def _filter_text(f) -> str:
+    column, op, value = f
+    return f"{column} {op} {list(value) if isinstance(value, tuple) else value}"
+
+
 def _design_rows(r: Review) -> str:
-    d = r.design
-    plan = d.get("plan") or {}
+    d, m = r.design, r.design.measure
     rows = [
         ("groups", " vs ".join(f"{label} ({code})" if label != code else code
                                for label, code in zip(r.labels, r.groups))),
-        ("measured", f"{d.get('value_column', '—')} in table {d.get('table', '—')}, time {d.get('time_column', '—')}"),
-        ("method", f"{d.get('method', '—')} ({d.get('metric', 'mean')})"),
-        ("alternative", d.get("alternative", "—")),
-        ("error rate (alpha)", _n(d.get("alpha"))),
-        ("alpha spending", d.get("spending", "—")),
-        ("planned per group", _n(plan.get("planned_per_group"))),
-        ("null difference", _n(d.get("null_difference", 0.0), r.unit)),
-        ("clustering", ", ".join(f"{k} {v}" for k, v in (d.get("clustering") or {}).items() if v) or "none"),
-        ("pairing", ", ".join(f"{k} {v}" for k, v in (d.get("pairing") or {}).items() if v) or "none"),
-        ("time zone", d.get("timezone", "UTC")),
+        ("measured", f"{m.value_column} in table {m.table}, time {m.time_column}"),
+        ("method", f"{d.method} ({d.metric})"),
+        ("alternative", d.alternative),
+        ("error rate (alpha)", _n(d.alpha)),
+        ("alpha spending", d.spending),
+        ("planned per group", _n(d.planned_per_group)),
+        ("null difference", _n(d.null_difference, r.unit)),
+        ("clustering", _settings_text(d.clustering)),
+        ("pairing", _settings_text(d.pairing)),
+        ("time zone", m.timezone),
     ]
-    if d.get("filters"):
-        rows.append(("filters", "; ".join(" ".join(str(p) for p in f) for f in d["filters"])))
-    if d.get("valid_range"):
-        rows.append(("valid range", " to ".join(_n(v) for v in d["valid_range"])))
+    if m.filters:
+        rows.append(("filters", "; ".join(_filter_text(f) for f in m.filters)))
+    if m.valid_range:
+        rows.append(("valid range", " to ".join(_n(v) for v in m.valid_range)))
     return "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in rows)
 
 
@@ -136,7 +146,7 @@ def _result(r: Review) -> str:
             f"repeated interval {_e(_interval(last.ci_low, last.ci_high, unit))}.</p>")
     parts.append(
         f"<p>{_e(len(r.looks))} looks; information {_e(_pct(last.fraction))} of the plan; "
-        f"alpha spent {_e(_n(last.cumulative_alpha))} of {_e(_n(r.design.get('alpha')))}.</p>")
+        f"alpha spent {_e(_n(last.cumulative_alpha))} of {_e(_n(r.design.alpha))}.</p>")
     for w in r.warnings:
         parts.append(f"<p class='warn'>Warning: {_e(w)}</p>")
     return "".join(parts)
@@ -164,7 +174,7 @@ def _look_tables(r: Review) -> str:
             f"<td>{_e(lk.excluded_new)}</td></tr>")
         decision.append(
             f"<tr><td>{lk.look}</td><td>{_e(_pct(lk.fraction))}</td><td>{_e(_n(lk.z_equivalent))}</td>"
-            f"<td>{_e('±' + _n(lk.boundary_z) if lk.boundary_z is not None and r.design.get('alternative') == 'two-sided' else _n(lk.boundary_z))}</td>"
+            f"<td>{_e('±' + _n(lk.boundary_z) if lk.boundary_z is not None and r.design.alternative == 'two-sided' else _n(lk.boundary_z))}</td>"
             f"<td>{_e(_n(lk.p_value))}</td><td>{_e(_n(lk.nominal_p))}</td>"
             f"<td>{_e(_n(lk.cumulative_alpha))}</td><td class='text'>{_e(state_label(lk.decision))}</td></tr>")
     return (f"<table class='looks'>{''.join(evidence)}</table>"
@@ -186,7 +196,7 @@ def _chart(r: Review) -> str:
     # evidence, clip anything beyond and mark it.
     bulk = values[int(0.9 * (len(values) - 1))] if values else 1.0
     y_lim = max([3.0, bulk * 1.15] + [b * 1.15 for b in finite_bounds[-3:]])
-    two_sided = r.design.get("alternative") == "two-sided"
+    two_sided = r.design.alternative == "two-sided"
     y_min = -y_lim if two_sided or any(p[1] < 0 for p in points) else min(0.0, -0.5)
 
     def sx(x):

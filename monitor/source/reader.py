@@ -174,6 +174,25 @@ class SourceSpec:
         if self.start is not None and self.end is not None and not self.start < self.end:
             raise InvalidArgumentError(f"start must be before end, got {self.start} and {self.end}")
 
+    @classmethod
+    def from_design(cls, design, *, shift=None, arrival_column=None):
+        """What to read for a :class:`monitor.design.Design` (the one place a design becomes a spec).
+
+        ``shift`` defaults to the design's own (0 before it is fixed); ``arrival_column``
+        is a setting of the comparison, not part of its design.
+        """
+        measure = design.measure
+        if shift is None:
+            shift = design.shift or 0.0
+        return cls(
+            table=measure.table, group_column=measure.group_column, groups=tuple(design.groups),
+            value_column=measure.value_column, time_column=measure.time_column, metric=design.metric,
+            shift=float(shift), schema=measure.schema, time_format=measure.time_format,
+            key_column=design.key_column, arrival_column=arrival_column, filters=measure.filters,
+            valid_range=measure.valid_range,
+            start=None if design.window is None else design.window.moments()["start"],
+        )
+
 
 @dataclass(frozen=True)
 class Watermark:
@@ -1037,6 +1056,27 @@ class Source:
         raw = cols.query_table.c[spec.value_column]
         limit = Decimal(repr(_FLOAT_MAX)) if not isinstance(vtype, sa.Float) else _FLOAT_MAX
         return sa.case((sa.and_(raw <= sa.literal(limit), raw >= sa.literal(-limit)), value), else_=None)
+
+    def count_before(self, spec: SourceSpec, moment: datetime, arrival_max) -> int:
+        """Rows (valid or not) dated before ``moment`` that had arrived by ``arrival_max``.
+
+        For verification: a before/after look counts rows dated before its start that
+        arrive after the baseline was read (``before_start``); the difference of two
+        counts replays that without pulling the rows.
+        """
+        try:
+            with self.engine.connect() as conn:
+                cols, kind, time_raw, epoch, gi, value, reason, key, arrival, atype = self._row_parts(conn, spec)
+                if arrival is None:
+                    raise InvalidArgumentError(f"table {spec.table!r} has no arrival column to count by")
+                where = [time_raw < _literal(self._bind_time(kind, _as_utc(moment, "moment"))),
+                         arrival <= _literal(self._bind_arrival(atype, arrival_max)), *self._filters(spec, cols)]
+                return int(conn.execute(sa.select(sa.func.count()).select_from(cols.query_table)
+                                        .where(*where)).scalar())
+        except (SourceSchemaError, InvalidArgumentError):
+            raise
+        except sa_exc.SQLAlchemyError as error:
+            raise self._unavailable(spec, error) from None
 
     def read_rows(self, spec: SourceSpec, cutoff: datetime, arrival_max=None):
         """Valid rows with time <= ``cutoff`` (and arrival <= ``arrival_max``), for verification.

@@ -16,6 +16,9 @@ import numbers
 from ..errors import InvalidArgumentError
 
 ALTERNATIVES = ("two-sided", "greater", "less")
+# Intervals for a difference of two rates (here, beside ALTERNATIVES, so the command line can
+# offer both as choices without loading scipy).
+INTERVALS = ("newcombe", "wald")
 
 
 def check_alternative(alternative):

@@ -42,7 +42,7 @@ from dataclasses import dataclass, field, fields
 
 from scipy import special
 
-from ._checks import ALTERNATIVES
+from ._checks import ALTERNATIVES, INTERVALS
 # Under the names monitor.stats.clustered imports from here.
 from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
@@ -65,7 +65,6 @@ __all__ = [
 ]
 
 METHODS = ("z", "pooled", "welch", "paired", "proportions")
-INTERVALS = ("newcombe", "wald")
 DEGENERATE_NOTE = "degenerate: both groups have zero variance"
 
 

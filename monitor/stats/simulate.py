@@ -247,7 +247,8 @@ def simulate_design(
 
     bar = None
     if progress:
-        from tqdm import tqdm  # only the terminal needs it
+        # lazy: only the terminal needs the progress bar.
+        from tqdm import tqdm
 
         bar = tqdm(total=count + 2 * chunks, desc="simulating design", unit="step", leave=False)
 

@@ -12,8 +12,13 @@ import functools
 from pathlib import Path
 
 import sqlalchemy as sa
+from alembic import command
+from alembic.config import Config as AlembicConfig
+from alembic.script import ScriptDirectory
 from sqlalchemy import event
 from sqlalchemy.engine import Engine
+
+import migrations
 
 from ..errors import StoreBehindError, StoreUnavailableError
 
@@ -26,6 +31,7 @@ __all__ = [
     "head_revision",
     "ensure_current",
     "migration_state",
+    "open_store",
 ]
 
 # Seconds a SQLite writer waits for another writer before giving up.
@@ -34,8 +40,6 @@ _SQLITE_BUSY_SECONDS = 30
 
 @functools.lru_cache(maxsize=1)
 def _migrations_folder() -> Path:
-    import migrations
-
     return Path(migrations.__file__).resolve().parent
 
 
@@ -71,8 +75,6 @@ def make_engine(url, **kwargs) -> Engine:
 
 def alembic_config(url):
     """An Alembic ``Config`` pointed at the packaged migrations and this store."""
-    from alembic.config import Config as AlembicConfig
-
     folder = _migrations_folder()
     cfg = AlembicConfig(str(folder / "alembic.ini"))
     cfg.set_main_option("script_location", str(folder))
@@ -83,8 +85,6 @@ def alembic_config(url):
 
 
 def _run(url, action, revision):
-    from alembic import command
-
     cfg = alembic_config(url)
     engine = make_engine(url)
     try:
@@ -109,8 +109,6 @@ def downgrade(url, revision: str) -> None:
 
 @functools.lru_cache(maxsize=8)
 def _head_for(folder: str) -> str:
-    from alembic.script import ScriptDirectory
-
     return ScriptDirectory(folder).get_current_head()
 
 
@@ -164,8 +162,6 @@ def ensure_current(engine) -> str:
     if current is None:
         raise StoreBehindError(
             "the history store has no gapwatch schema yet; run `gapwatch db upgrade` first")
-    from alembic.script import ScriptDirectory
-
     script = ScriptDirectory(str(_migrations_folder()))
     known = {rev.revision for rev in script.walk_revisions()}
     if current not in known:
@@ -174,6 +170,17 @@ def ensure_current(engine) -> str:
             f"(newest here: {head}); upgrade gapwatch itself")
     raise StoreBehindError(
         f"the history store is at revision {current}, behind {head}; run `gapwatch db upgrade`")
+
+
+def open_store(url) -> Engine:
+    """An engine on the history store, checked to be at the schema this code expects."""
+    engine = make_engine(url)
+    try:
+        ensure_current(engine)
+    except BaseException:
+        engine.dispose()
+        raise
+    return engine
 
 
 def _brief(exc) -> str:

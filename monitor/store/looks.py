@@ -198,7 +198,8 @@ class LookWrite:
 
     name: str
     state: LookState            # what the look read (the guard: only the next look may be written)
-    design: dict                # the frozen design (written with the first look, or when the shift is fixed)
+    design: object              # the frozen monitor.design.Design (stored with the first look, and when
+                                # its shift is fixed)
     design_hash: str
     settings: dict
     new_state: str
@@ -246,7 +247,7 @@ def _write_comparison(conn, w: LookWrite) -> int:
     row = w.state.comparison
     if row is None:
         return conn.execute(_INSERT_COMPARISON, dict(
-            name=w.name, version=w.state.version, design=w.design, design_hash=w.design_hash,
+            name=w.name, version=w.state.version, design=w.design.to_stored(), design_hash=w.design_hash,
             settings=w.settings, state=w.new_state, looks_taken=1, watermark=w.watermark,
             created_at=w.as_of, last_look_at=w.as_of, stopped_at=w.as_of if w.stopped else None,
             archived=False)).scalar_one()
@@ -254,8 +255,8 @@ def _write_comparison(conn, w: LookWrite) -> int:
               "last_look_at": w.as_of, "settings": w.settings}
     if w.stopped:
         update["stopped_at"] = w.as_of
-    if w.design.get("shift") is not None and row["design"].get("shift") is None:
-        update["design"] = w.design  # the shift is fixed at the first look with data
+    if w.design.shift is not None and row["design"].get("shift") is None:
+        update["design"] = w.design.to_stored()  # the shift is fixed at the first look with data
     # The guard: only the look that follows the one we read may be written.
     done = conn.execute(_GUARDED_UPDATE, {**update, "guard_id": row["id"], "guard_looks": row["looks_taken"]})
     if done.rowcount != 1:

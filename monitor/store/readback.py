@@ -12,15 +12,18 @@ Only SQLAlchemy Core queries; every function opens one short connection.
 from __future__ import annotations
 
 import math
-import re
 from datetime import datetime, timedelta, timezone
+from zoneinfo import ZoneInfo
 
 import sqlalchemy as sa
+from apscheduler.triggers.cron import CronTrigger
+from apscheduler.triggers.interval import IntervalTrigger
 
-from . import engine as store
-from ..config import load_config
+from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..vocabulary import baseline_gap_words
+from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, baseline_gap_words,
+                          json_safe, parse_duration, state_label)
+from .engine import open_store
 from .models import Alert, Cell, Comparison, Delivery, Look
 
 __all__ = [
@@ -45,34 +48,12 @@ __all__ = [
     "acknowledge_alert",
     "next_look_time",
     "adjusted_inference",
-    "store_url_from_config",
     "open_store",
 ]
-
-# state -> (symbol, words). The symbol lets a reader tell states apart without colour.
-STATES = {
-    "collecting": ("◷", "collecting"),
-    "awaiting_clusters": ("◌", "waiting for clusters"),
-    "difference_found": ("◆", "difference found"),
-    "no_material_difference": ("≈", "no material difference"),
-    "plan_complete": ("■", "plan complete"),
-    "data_problem": ("⚠", "data problem"),
-}
-STOPPED_STATES = frozenset({"difference_found", "no_material_difference", "plan_complete"})
-ALERT_STATES = ("pending", "delivered", "failed", "acknowledged")
 
 # How many recent looks the event rate is measured over: long enough to smooth one slow
 # look, short enough to follow a change of pace in the operation.
 _RATE_LOOKS = 6
-# A day-level design effect above this, on a comparison that is not clustered, means the
-# event-level standard error is materially too small.
-_DESIGN_EFFECT_WARN = 1.5
-
-
-def state_label(state):
-    """Return ``"SYMBOL words"`` for a state (unknown states are shown as they are)."""
-    symbol, words = STATES.get(state, ("?", str(state)))
-    return f"{symbol} {words}"
 
 
 def describe_seconds(seconds):
@@ -147,19 +128,6 @@ def _num(value):
     return value if math.isfinite(value) else None
 
 
-def _clean(value):
-    """Make a JSON column value safe to serialise strictly (no NaN, no datetimes)."""
-    if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    if isinstance(value, float):
-        return _num(value)
-    if isinstance(value, datetime):
-        return _iso(value)
-    return value
-
-
 def _aware(value, name):
     if value is None:
         return None
@@ -178,30 +146,14 @@ def _now(now):
 # schedule
 
 
-_DURATION = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([smhdw]?)\s*$")
-_UNIT_SECONDS = {"": 1, "s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
-
-
 def _schedule_trigger(every, start, tz_name):
-    from apscheduler.triggers.cron import CronTrigger
-    from apscheduler.triggers.interval import IntervalTrigger
-
+    """The trigger for ``every``: an interval by the one duration rule, else a cron expression."""
     if every is None:
         return None
-    if isinstance(every, (int, float)) and not isinstance(every, bool):
-        seconds = float(every)
-    else:
-        text = str(every)
-        match = _DURATION.match(text)
-        if match:
-            seconds = float(match.group(1)) * _UNIT_SECONDS[match.group(2)]
-        else:
-            tz = timezone.utc
-            if tz_name:
-                from zoneinfo import ZoneInfo
-
-                tz = ZoneInfo(tz_name)
-            return CronTrigger.from_crontab(text, timezone=tz)
+    try:
+        seconds = parse_duration(every)
+    except ValueError:
+        return CronTrigger.from_crontab(str(every), timezone=ZoneInfo(tz_name) if tz_name else timezone.utc)
     if seconds <= 0:
         return None
     return IntervalTrigger(seconds=seconds, start_date=start, timezone=timezone.utc)
@@ -210,9 +162,9 @@ def _schedule_trigger(every, start, tz_name):
 def next_look_time(every, *, last_look_at=None, created_at=None, now, timezone_name=None):
     """When the scheduler will next look, by APScheduler's own trigger arithmetic.
 
-    ``every`` is interval seconds, a duration such as ``"10m"``, or a cron
-    expression. Returns an aware UTC datetime, or ``None`` when there is no
-    usable schedule.
+    ``every`` is interval seconds, a duration such as ``"10m"`` (by the configuration's
+    own rule, so ``"600"`` or ``"2w"`` is no schedule), or a cron expression. Returns an
+    aware UTC datetime, or ``None`` when there is no usable schedule.
     """
     now = _aware(now, "now")
     start = last_look_at or created_at or now
@@ -231,25 +183,12 @@ def next_look_time(every, *, last_look_at=None, created_at=None, now, timezone_n
 # comparisons
 
 
-def _design_value(design, *keys, default=None):
-    for key in keys:
-        if isinstance(design, dict) and design.get(key) is not None:
-            return design[key]
-    return default
-
-
-def _planned_per_group(design):
-    value = _design_value(design, "planned_per_group", "max_per_group")
-    if value is None and isinstance(design.get("plan"), dict):
-        value = _design_value(design["plan"], "max_per_group", "planned_per_group")
-    return _num(value)
-
-
-def _is_clustered(design):
-    clustering = design.get("clustering")
-    if isinstance(clustering, dict) and any(clustering.values()):
-        return True
-    return bool(_design_value(design, "cluster_by", "cluster_column"))
+def _design(stored):
+    """The comparison's :class:`Design`, or None for a row whose design cannot be read."""
+    try:
+        return Design.from_stored(stored)
+    except (InvalidArgumentError, KeyError, TypeError, ValueError):
+        return None
 
 
 def _comparison_select():
@@ -348,54 +287,68 @@ def before_after_words(design, detail) -> str | None:
     "before the change, hollin was 7.1 seconds slower than saltmarsh (interval 5.2 to 9.0)",
     and, once there are events after the start, what the change itself is.
     """
-    window = (design or {}).get("before_after")
-    if not window:
+    if design is None or not design.before_after:
         return None
     figures = (detail or {}).get("before_after") or {}
     gap = figures.get("baseline_gap") or {}
     low, high = (list(gap.get("ci") or []) + [None, None])[:2]
-    groups = [str(g) for g in (design.get("groups") or ["group 1", "group 2"])]
-    return baseline_gap_words(groups, gap.get("estimate"), low, high,
-                              value_column=str(design.get("value_column") or ""),
-                              metric=str(design.get("metric") or "mean"))
+    return baseline_gap_words([str(g) for g in design.groups], gap.get("estimate"), low, high,
+                              value_column=design.measure.value_column, metric=design.metric)
+
+
+_LATEST_FIGURES = ("mean1", "mean2", "estimate", "ci_low", "ci_high", "p_value", "statistic", "boundary_z",
+                   "fraction")
+
+
+def _latest(last) -> dict:
+    """The newest look's figures (zero events and no figures before the first look)."""
+    if last is None:
+        return {"n1": 0, "n2": 0, **dict.fromkeys(_LATEST_FIGURES), "decision": None, "clusters": None,
+                "design_effect": None, "effective_n": None}
+    return {"n1": last["n1"], "n2": last["n2"], **{k: _num(last[k]) for k in _LATEST_FIGURES},
+            "decision": last["decision"], "clusters": last["clusters"],
+            "design_effect": _num(last["design_effect"]), "effective_n": _num(last["effective_n"])}
+
+
+def _progress(last, stopped, fraction_rate):
+    """Seconds until the plan completes and when, at the recent pace (None when unknown)."""
+    if last is None or stopped or last["fraction"] is None:
+        return None, None
+    if last["fraction"] >= 1:
+        return 0.0, None
+    if fraction_rate and fraction_rate > 0:
+        remaining = (1.0 - last["fraction"]) / fraction_rate
+        return remaining, last["as_of"] + timedelta(seconds=remaining)
+    return None, None
+
+
+def _warnings(last, design) -> list[str]:
+    """The newest look's warnings, plus the clustering advice when the design effect calls for it."""
+    warnings = [str(w) for w in (last["warnings"] or [])] if last is not None else []
+    deff = last["design_effect"] if last is not None else None
+    clustered = design is not None and design.clustered
+    if (deff is not None and deff > DESIGN_EFFECT_WARNING and not clustered
+            and not any("design effect" in w.lower() for w in warnings)):
+        warnings.append(f"day-level design effect {deff:.2f}: events are not independent, so the interval "
+                        "is too narrow; consider cluster_by")
+    return warnings
 
 
 def _status_row(comp, looks, now):
-    design = comp["design"] or {}
+    design = _design(comp["design"])
     settings = comp["settings"] or {}
+    every = settings.get("every", settings.get("schedule"))
     last = looks[-1] if looks else None
     stopped = comp["state"] in STOPPED_STATES
     rate1, rate2, fraction_rate = _rates(looks)
-
-    remaining = None
-    completes_at = None
-    if last is not None and not stopped and last["fraction"] is not None:
-        if last["fraction"] >= 1:
-            remaining = 0.0
-        elif fraction_rate and fraction_rate > 0:
-            remaining = (1.0 - last["fraction"]) / fraction_rate
-            completes_at = last["as_of"] + timedelta(seconds=remaining)
-
+    remaining, completes_at = _progress(last, stopped, fraction_rate)
     next_look = None
     if not stopped and not comp["archived"]:
         next_look = next_look_time(
-            settings.get("every", settings.get("schedule")),
-            last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
-            timezone_name=settings.get("timezone") or design.get("timezone"),
+            every, last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
+            timezone_name=design.measure.timezone if design is not None else None,
         )
-
-    warnings = list(last["warnings"] or []) if last is not None else []
-    deff = last["design_effect"] if last is not None else None
-    if (
-        deff is not None and deff > _DESIGN_EFFECT_WARN and not _is_clustered(design)
-        and not any("design effect" in str(w).lower() for w in warnings)
-    ):
-        warnings.append(
-            f"day-level design effect {deff:.2f}: events are not independent, so the interval "
-            "is too narrow; consider cluster_by"
-        )
-
-    groups = design.get("groups") or settings.get("groups") or []
+    groups = design.groups if design is not None else settings.get("groups") or []
     return {
         "id": comp["id"],
         "name": comp["name"],
@@ -406,32 +359,11 @@ def _status_row(comp, looks, now):
         "archived": bool(comp["archived"]),
         "looks": comp["looks_taken"],
         "groups": [str(g) for g in groups],
-        "method": design.get("method"),
-        "metric": design.get("metric"),
-        "alternative": design.get("alternative"),
-        "alpha": _num(design.get("alpha")),
-        "spending": design.get("spending"),
-        "planned_per_group": _planned_per_group(design),
-        "plan": _clean(design.get("plan")) if isinstance(design.get("plan"), dict) else None,
-        "null_difference": _num(design.get("null_difference", 0.0)),
-        "description": settings.get("description") or design.get("description"),
-        "every": settings.get("every", settings.get("schedule")),
-        "n1": last["n1"] if last is not None else 0,
-        "n2": last["n2"] if last is not None else 0,
-        "mean1": _num(last["mean1"]) if last is not None else None,
-        "mean2": _num(last["mean2"]) if last is not None else None,
-        "estimate": _num(last["estimate"]) if last is not None else None,
-        "ci_low": _num(last["ci_low"]) if last is not None else None,
-        "ci_high": _num(last["ci_high"]) if last is not None else None,
-        "p_value": _num(last["p_value"]) if last is not None else None,
-        "statistic": _num(last["statistic"]) if last is not None else None,
-        "boundary_z": _num(last["boundary_z"]) if last is not None else None,
-        "fraction": _num(last["fraction"]) if last is not None else None,
-        "decision": last["decision"] if last is not None else None,
-        "clusters": last["clusters"] if last is not None else None,
-        "design_effect": _num(deff),
-        "effective_n": _num(last["effective_n"]) if last is not None else None,
-        "warnings": [str(w) for w in warnings],
+        **_design_fields(design),
+        "description": settings.get("description") or None,
+        "every": every,
+        **_latest(last),
+        "warnings": _warnings(last, design),
         "created_at": _iso(comp["created_at"]),
         "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
         "stopped_at": _iso(comp["stopped_at"]),
@@ -440,9 +372,25 @@ def _status_row(comp, looks, now):
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
         "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
-        "start": design.get("start"),
+        "start": None if design is None or design.window is None else design.window.start,
         "baseline": before_after_words(design, last["detail"] if last is not None else None),
-        "before_after": _clean((last["detail"] or {}).get("before_after")) if last is not None else None,
+        "before_after": json_safe((last["detail"] or {}).get("before_after")) if last is not None else None,
+    }
+
+
+def _design_fields(design):
+    if design is None:
+        return dict.fromkeys(("method", "metric", "alternative", "alpha", "spending", "planned_per_group",
+                              "plan", "null_difference"))
+    return {
+        "method": design.method,
+        "metric": design.metric,
+        "alternative": design.alternative,
+        "alpha": _num(design.alpha),
+        "spending": design.spending,
+        "planned_per_group": design.planned_per_group,
+        "plan": json_safe(design.plan.to_stored()),
+        "null_difference": _num(design.null_difference),
     }
 
 
@@ -550,9 +498,9 @@ def get_comparison(engine, name, version=None, *, now=None):
             sa.select(Comparison.watermark).where(Comparison.id == comp["id"])
         ).scalar_one()
     row = _status_row(comp, recent.get(comp["id"], []), now)
-    row["design"] = _clean(comp["design"] or {})
-    row["settings"] = _clean(comp["settings"] or {})
-    row["watermark"] = _clean(watermark)
+    row["design"] = json_safe(comp["design"] or {})
+    row["settings"] = json_safe(comp["settings"] or {})
+    row["watermark"] = json_safe(watermark)
     return row
 
 
@@ -573,10 +521,10 @@ def look_history(engine, name, version=None):
     for r in rows:
         # Look.excluded holds running totals by reason; what this look added is in the detail
         # (or, for looks written without it, the change from the look before).
-        excluded = _clean(r["excluded"] or {})
+        excluded = json_safe(r["excluded"] or {})
         detail = r["detail"] or {}
         if isinstance(detail.get("excluded_new"), dict):
-            excluded_new = _clean(detail["excluded_new"])
+            excluded_new = json_safe(detail["excluded_new"])
         else:
             excluded_new = {k: v - previous.get(k, 0) for k, v in excluded.items() if v - previous.get(k, 0) > 0}
         previous = excluded
@@ -617,9 +565,9 @@ def look_history(engine, name, version=None):
             "effective_n": _num(r["effective_n"]),
             "decision": r["decision"],
             "warnings": [str(w) for w in (r["warnings"] or [])],
-            "detail": _clean(detail),
+            "detail": json_safe(detail),
             "adjusted": adjusted_inference(detail),
-            "baseline": before_after_words(comp["design"], detail),
+            "baseline": before_after_words(_design(comp["design"]), detail),
             "duration_ms": _num(r["duration_ms"]),
         })
     return history
@@ -648,9 +596,9 @@ def cells_by_kind(engine, name, version=None):
             .where(Cell.comparison_id == comp["id"])
             .order_by(Cell.kind, Cell.key, Cell.group_index)
         ).all()
-    design = comp["design"] or {}
-    shift = float(_design_value(design, "shift", default=0.0))
-    groups = [str(g) for g in (design.get("groups") or [])]
+    design = _design(comp["design"])
+    shift = (design.shift or 0.0) if design is not None else 0.0
+    groups = [str(g) for g in design.groups] if design is not None else []
     out = {}
     for r in rows:
         mean = shift + r.sum_dev / r.n if r.n else None
@@ -673,7 +621,7 @@ def cells_by_kind(engine, name, version=None):
 
 
 def _alert_dict(alert, deliveries):
-    payload = _clean(alert["payload"] or {})
+    payload = json_safe(alert["payload"] or {})
     return {
         "id": alert["id"],
         "comparison": alert["comparison_name"],
@@ -761,23 +709,3 @@ def acknowledge_alert(engine, alert_id, *, by, now):
             ).mappings().first()
         deliveries = _deliveries_for(conn, [alert["id"]])
     return _alert_dict(alert, deliveries.get(alert["id"], []))
-
-
-# ---------------------------------------------------------------------------
-# opening the store from a configuration file
-
-
-def store_url_from_config(path=None):
-    """The ``[store] url`` of a configuration file (argument, ``$GAPWATCH_CONFIG``, ``./gapwatch.toml``)."""
-    return load_config(path).store_url
-
-
-def open_store(url):
-    """An engine on the history store, checked to be at the schema this code expects."""
-    engine = store.make_engine(url)
-    try:
-        store.ensure_current(engine)
-    except BaseException:
-        engine.dispose()
-        raise
-    return engine

@@ -221,8 +221,9 @@ every = "10m"
 
 def measure(label: str, url: str, pg: bool, rows: int, new: int, repeats: int, naive_repeats: int, folder: Path, build_seconds: float):
     from monitor.config import load_config
+    from monitor.design import Design
     from monitor.look import LookMemory, take_look
-    from monitor.source.reader import Source, Watermark
+    from monitor.source.reader import Source, SourceSpec, Watermark
     from monitor.store.engine import make_engine, upgrade
 
     store_url = f"sqlite:///{folder / f'store-{label}.sqlite'}"
@@ -242,7 +243,8 @@ def measure(label: str, url: str, pg: bool, rows: int, new: int, repeats: int, n
     first_look = time.perf_counter() - began
     assert first is not None
 
-    spec = comparison.source_spec(0.0)
+    spec = SourceSpec.from_design(Design.from_config(comparison), shift=0.0,
+                                  arrival_column=comparison.arrival_column)
     began = time.perf_counter()
     Source(url, name="ops").read_cells(spec, None, newest)
     first_read = time.perf_counter() - began
