@@ -23,6 +23,7 @@ import hashlib
 import json
 import math
 from dataclasses import dataclass, field, replace
+from datetime import datetime
 from types import MappingProxyType
 from zoneinfo import ZoneInfo
 
@@ -189,8 +190,6 @@ class Window:
 
     def moments(self) -> dict:
         """``start``, ``baseline_from``, ``baseline_to`` as aware datetimes (None where unset)."""
-        from datetime import datetime
-
         return {k: None if getattr(self, k) is None else datetime.fromisoformat(getattr(self, k))
                 for k in ("start", "baseline_from", "baseline_to")}
 

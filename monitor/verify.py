@@ -25,6 +25,7 @@ from .design import Design
 from .errors import UnknownComparisonError
 from .source.reader import Source, SourceSpec
 from .stats import fixed
+from .stats.before_after import difference_in_differences
 from .stats.clustered import cluster_robust_difference
 from .store.models import Comparison, Look
 from .vocabulary import NULL_KEY
@@ -161,7 +162,6 @@ class _Baseline:
 
 def _before_after(design: Design, baseline, frame) -> dict:
     """The DiD of one look from the frozen baseline rows and the rows since the start (CR2)."""
-    from .stats.before_after import difference_in_differences
 
     out = {"n1": int((frame.group_index == 0).sum()), "n2": int((frame.group_index == 1).sum())}
     if baseline is None:

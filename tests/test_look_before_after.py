@@ -138,12 +138,23 @@ def test_a_start_without_a_baseline_counts_events_from_the_start_only(tmp_path):
      "cannot be a before/after comparison"),
     (dict(start="2026-03-15T06:00+00:00", baseline="14d", cluster_by="week"), "clustered by calendar day"),
     (dict(day_sd=2.0), "plans a before/after comparison"),
-    (dict(start="2026-03-15T06:00+00:00", baseline="1d", planned_per_group=None, difference=-1.0, sd=10.0,
-          power=0.8, day_sd=5.0, events_per_day=40), "is too short"),
 ])
 def test_bad_before_after_keys_name_the_key(tmp_path, keys, message):
     with pytest.raises(ConfigError, match=message):
         LiveWorld(tmp_path, (), **keys)
+
+
+def test_a_baseline_too_short_for_the_plan_is_said_by_check_and_the_look(tmp_path, capsys):
+    from monitor import cli
+    from monitor.design import Design
+    from monitor.errors import InvalidArgumentError
+
+    world = LiveWorld(tmp_path, (), start="2026-03-15T06:00:00+00:00", baseline="1d", planned_per_group=None,
+                      difference=-1.0, sd=10.0, power=0.8, day_sd=5.0, events_per_day=40)
+    with pytest.raises(InvalidArgumentError, match="baseline_days 1 is too short"):
+        Design.from_config(world.comparison)
+    assert cli.main(["check", "--config", str(world.config.path)]) == 1
+    assert "baseline_days 1 is too short" in capsys.readouterr().out
 
 
 def test_planned_from_the_baseline_and_the_spread(tmp_path):

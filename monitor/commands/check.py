@@ -2,6 +2,11 @@
 
 from __future__ import annotations
 
+import argparse
+import math
+from dataclasses import replace
+from datetime import timedelta
+
 from ..errors import InvalidArgumentError, SourceUnavailableError
 from . import SUMMARIES
 from ._common import add_config_option, counted, program
@@ -20,9 +25,6 @@ def register(subparsers) -> None:
 
 
 def _days(text):
-    import argparse
-    import math
-
     try:
         value = float(text)
     except ValueError:
@@ -92,9 +94,7 @@ def gap_before_start(source, c, spec, days):
     compares the groups with a day-clustered (CR1) difference at the comparison's alpha.
     Returns ``(line, differed)``: a warning naming the remedy, or what was found.
     """
-    from dataclasses import replace
-    from datetime import timedelta
-
+    # lazy: start-up time of the command line (the clustered statistics load numpy and scipy).
     from ..calendar import bucket_key
     from ..stats.clustered import cluster_robust_difference
     from ..vocabulary import baseline_gap_words

@@ -205,7 +205,7 @@ def add_before_after_arguments(parser) -> None:
 
 
 def _before_after_plan(args):
-    # Imported here, as the other plans are: the command line starts without scipy.
+    # lazy: start-up time of the command line (planning loads scipy.stats and scipy.optimize).
     from ..stats.before_after import plan_before_after
 
     if args.events_per_day is None:

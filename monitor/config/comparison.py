@@ -665,27 +665,7 @@ def check_comparison(index, table, context: Context):
     context = Context(folder=context.folder, sources=context.sources, channels=context.channels, table=table)
     model, found = validate(ComparisonTable, ComparisonTable.split(table), where, context)
     problems += [line for p in found for line in _split_lines(p, where)]
-    built = model.build(name) if model is not None else None
-    if built is not None and not problems and built.before_after and built.planned_per_group is None:
-        problems += _before_after_plan_problems(built, where)
-    return name, built, problems
-
-
-def _before_after_plan_problems(c, where) -> list[str]:
-    """A baseline too short for the planned change is a problem of the file, found at load."""
-    from ..errors import InvalidArgumentError
-    from ..stats.before_after import plan_before_after
-
-    common = dict(day_sd=c.day_sd or 0.0, events_per_day=c.events_per_day, baseline_days=c.window["baseline_days"],
-                  alpha=c.alpha, power=c.power, alternative=c.alternative, spending=c.spending, looks=c.looks)
-    try:
-        if c.metric == "proportion":
-            plan_before_after(c.p1 - c.p2, rate=min((c.p1, c.p2), key=lambda q: abs(q - 0.5)), **common)
-        else:
-            plan_before_after(c.difference, c.sd, **common)
-    except InvalidArgumentError as exc:
-        return [f"{where}: 'baseline' {exc}"]
-    return []
+    return name, (model.build(name) if model is not None else None), problems
 
 
 def _split_lines(problem, where):

@@ -10,11 +10,12 @@ from __future__ import annotations
 import functools
 
 from dataclasses import dataclass, field
+from datetime import timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
 from ..errors import UnknownComparisonError
-from ..vocabulary import parse_duration
+from ..vocabulary import parse_duration, parse_moment
 
 __all__ = [
     "Config",
@@ -171,10 +172,6 @@ class ComparisonConfig:
         """
         if self.start is None:
             return None
-        from datetime import timedelta
-
-        from ..vocabulary import parse_duration, parse_moment
-
         start = parse_moment(self.start, "start", self.zone)
         begin = end = None
         if self.baseline is not None:
