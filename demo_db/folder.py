@@ -41,7 +41,7 @@ _COMPARISONS = [
         "metric": "mean", "method": "welch", "alternative": "two-sided", "alpha": 0.05,
         "spending": "obrien-fleming", "start": "2026-03-04T06:00:00+00:00", "baseline": "14d",
         "difference": -8.0, "sd": 52.0, "power": 0.8, "day_sd": 3.0, "events_per_day": 1400,
-        "min_clusters": 3, "valid_range": [1, 3600], "every": "2s",
+        "min_clusters": 4, "valid_range": [1, 3600], "every": "2s",
     },
     {
         "name": "desk-first-contact",

@@ -67,7 +67,7 @@ def rehearse(folder, *, seed: int = DEFAULT_SEED, hours: float = 48.0, step_hour
             for comparison in config.comparisons:
                 record = take_look(config, comparison, as_of=at, engine=engine, source=sources[comparison.source],
                                    memory=memory)
-                if record is not None:
+                if record is not None and not getattr(record, "quiet", False):  # a quiet check is no look
                     looks[comparison.name].append((at, record.decision, record))
             at += timedelta(hours=step_hours)
     finally:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
 from .commands import SUMMARIES
@@ -55,12 +56,20 @@ def main(argv=None) -> int:
         parser.print_help()
         return 2
     try:
-        return int(args.func(args) or 0)
+        code = int(args.func(args) or 0)
+        sys.stdout.flush()  # inside the try: a reader that went away is met here, not at exit
+        return code
     except GapwatchError as exc:
         print(f"gapwatch {args.command}: {as_typed(exc)}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError:
+        # The reader went away (`gapwatch history … | head`): stop quietly, the way a shell tool does.
+        # Later writes, including the interpreter's final flush, go to the null device.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 141
 
 
 if __name__ == "__main__":

@@ -27,6 +27,7 @@ from datetime import datetime
 from types import MappingProxyType
 from zoneinfo import ZoneInfo
 
+from .config.model import DEFAULT_MIN_PAIRS
 from .errors import InvalidArgumentError
 from .vocabulary import json_safe
 
@@ -110,14 +111,20 @@ class Pairing:
     pair_by: str | None
     pair_column: str | None
     shift_starts: tuple = ()
+    min_pairs: int = DEFAULT_MIN_PAIRS
 
     def to_stored(self) -> dict:
-        return {"pair_by": self.pair_by, "pair_column": self.pair_column,
-                "shift_starts": list(self.shift_starts)}
+        stored = {"pair_by": self.pair_by, "pair_column": self.pair_column,
+                  "shift_starts": list(self.shift_starts)}
+        if self.min_pairs != DEFAULT_MIN_PAIRS:
+            # Only when set: designs frozen before min_pairs existed stay equal to the config.
+            stored["min_pairs"] = self.min_pairs
+        return stored
 
     @classmethod
     def from_stored(cls, stored: dict) -> Pairing:
-        return cls(stored.get("pair_by"), stored.get("pair_column"), tuple(stored.get("shift_starts") or ()))
+        return cls(stored.get("pair_by"), stored.get("pair_column"), tuple(stored.get("shift_starts") or ()),
+                   int(stored.get("min_pairs", DEFAULT_MIN_PAIRS)))
 
 
 @dataclass(frozen=True)
@@ -232,6 +239,9 @@ class Design:
     futility: bool = False
     shift: float | None = None
     window: Window | None = None
+    # "events" or "information" (monitor.look.plan): stored only when not the default, so
+    # designs frozen before the choice existed compare equal.
+    fraction: str = "events"
 
     # ------------------------------------------------------------ derived
 
@@ -295,10 +305,11 @@ class Design:
                 valid_range=tuple(c.valid_range) if c.valid_range else None,
             ),
             sigmas=tuple(c.sigmas) if c.sigmas else None,
-            pairing=Pairing(c.pair_by, c.pair_column, tuple(c.shift_starts)) if paired else None,
+            pairing=Pairing(c.pair_by, c.pair_column, tuple(c.shift_starts), c.min_pairs) if paired else None,
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
             window=_window_of(c),
+            fraction=getattr(c, "fraction", "events"),
         )
 
     # ------------------------------------------------------------ the stored form
@@ -332,6 +343,7 @@ class Design:
             "shift": self.shift,
             # Only a comparison with a start stores these: every other design keeps its shape.
             **({} if self.window is None else self.window.to_stored()),
+            **({"fraction": self.fraction} if self.fraction != "events" else {}),
         }
 
     @classmethod
@@ -360,6 +372,7 @@ class Design:
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
             window=Window.from_stored(stored),
+            fraction=stored.get("fraction") or "events",
         )
 
     # ------------------------------------------------------------ change check

@@ -18,6 +18,7 @@ __all__ = [
     "ClaimHeldError",
     "UnknownComparisonError",
     "UnknownSpendingError",
+    "ReplanRefusedError",
     "AlertDeliveryError",
 ]
 
@@ -32,6 +33,10 @@ class InvalidArgumentError(GapwatchError, ValueError):
 
 class UnknownSpendingError(InvalidArgumentError):
     """A spending-function specification names no known family."""
+
+
+class ReplanRefusedError(InvalidArgumentError):
+    """A change of plan cannot keep the false-alarm rate (plan ended, stopped, or no alpha left)."""
 
 
 class ConfigError(GapwatchError, ValueError):
@@ -62,6 +67,10 @@ class StoreBehindError(GapwatchError, RuntimeError):
 
 class StoreUnavailableError(GapwatchError, ConnectionError):
     """The history store could not be reached."""
+
+
+class AsOfBeforeLastLookError(InvalidArgumentError):
+    """A look's as-of is earlier than the comparison's last look: history never goes back."""
 
 
 class LookAlreadyRecordedError(GapwatchError, RuntimeError):

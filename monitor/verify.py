@@ -25,8 +25,9 @@ from .design import Design
 from .errors import UnknownComparisonError
 from .source.reader import Source, SourceSpec
 from .stats import fixed
+from .look.statistic import cluster_variance
 from .stats.before_after import difference_in_differences
-from .stats.clustered import cluster_robust_difference
+from .stats.clustered import cluster_counts, cluster_robust_difference
 from .store.models import Comparison, Look
 from .vocabulary import NULL_KEY
 
@@ -72,8 +73,14 @@ def _clustered(design: Design, frame, g1, g2, common):
     if len(g1) == 0 or len(g2) == 0:
         return None
     cells = cells.reset_index()
-    return cluster_robust_difference(cells["group_index"].tolist(), cells["cluster"].tolist(),
-                                     cells["count"].tolist(), cells["sum"].tolist(), 0.0, **common)
+    enough = cluster_counts(cells["group_index"].tolist(), cells["cluster"].tolist(), cells["count"].tolist(),
+                            min_clusters=design.min_clusters).enough
+    if not enough:
+        return None     # the look records no statistic while it waits for clusters
+    result = cluster_robust_difference(cells["group_index"].tolist(), cells["cluster"].tolist(),
+                                       cells["count"].tolist(), cells["sum"].tolist(), 0.0,
+                                       variance=cluster_variance(design), **common)
+    return None if result.degenerate else result
 
 
 def _unclustered(design: Design, g1, g2, common):
@@ -128,7 +135,10 @@ def _stored(engine, name, version):
             query = query.order_by(Comparison.version.desc())
         comp = session.scalars(query.limit(1)).first()
         if comp is None:
-            raise UnknownComparisonError(f"no comparison named {name!r} in the store")
+            known = sorted(set(session.scalars(sa.select(Comparison.name))))
+            what = f"version {version} of {name!r}" if version and name in known else repr(name)
+            hint = f"; known: {', '.join(known)}" if known else "; the store holds no comparison yet"
+            raise UnknownComparisonError(f"no comparison {what} in the store{hint}")
         looks = list(session.scalars(
             sa.select(Look).where(Look.comparison_id == comp.id).order_by(Look.look_number)))
         session.expunge_all()

@@ -12,6 +12,7 @@ import re
 from datetime import datetime, timezone
 
 __all__ = [
+    "outlook_words",
     "UTC",
     "STATES",
     "STOPPED_STATES",
@@ -176,3 +177,42 @@ def baseline_gap_words(groups, gap, low, high, *, value_column: str = "", metric
     if low is not None and high is not None and math.isfinite(low) and math.isfinite(high):
         sentence += f" (interval {low * scale:.3g} to {high * scale:.3g})"
     return sentence
+def outlook_words(outlook) -> str | None:
+    """When a comparison will decide, in plain words, from a look's recorded outlook.
+
+    ``outlook`` holds ``completes_on`` (ISO local date, or absent when the rate is zero),
+    ``days_left`` and the conditional powers ``planned_difference`` / ``current_estimate``
+    (each the chance of finding that difference by the plan's end). None when there is
+    nothing to say.
+
+    >>> outlook_words({"completes_on": "2026-03-12", "days_left": 9.2, "planned_difference": 0.83})
+    'at the current rate the plan completes around Thu 12 Mar; if the planned difference is real, the chance of finding it by then is 83 %'
+    """
+    if not outlook:
+        return None
+    parts = []
+    when = outlook.get("completes_on")
+    if when:
+        day = datetime.fromisoformat(when)
+        parts.append(f"at the current rate the plan completes around {day:%a} {day.day} {day:%b}")
+    elif "days_left" in outlook and outlook.get("days_left") is None:
+        parts.append("at the current rate the plan does not complete (a group has no recent events)")
+    then = "by then" if when else "by the plan's end"
+    chance = outlook.get("planned_difference")
+    if chance is not None:
+        parts.append(f"if the planned difference is real, the chance of finding it {then} is {_percent(chance)}")
+    else:
+        chance = outlook.get("current_estimate")
+        if chance is not None:
+            parts.append(f"if the difference seen so far is real, the chance of finding it {then} is "
+                         f"{_percent(chance)}")
+    return "; ".join(parts) or None
+
+
+def _percent(p) -> str:
+    p = 100.0 * float(p)
+    if p < 1:
+        return "under 1 %"
+    if p > 99:
+        return "over 99 %"
+    return f"{p:.0f} %"

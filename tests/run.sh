@@ -14,6 +14,8 @@ pg_bin() { ls -d /usr/lib/postgresql/*/bin 2>/dev/null | sort -V | tail -n 1; }
 missing=()
 [ -n "$(pg_bin)" ] && [ -x "$(pg_bin)/initdb" ] || missing+=(postgresql)
 [ -x /usr/bin/chromium ] || missing+=(chromium)
+# pdftoppm and pdfinfo check the printed review's pages.
+[ -x /usr/bin/pdftoppm ] || missing+=(poppler-utils)
 if [ ${#missing[@]} -gt 0 ]; then
   log "installing system packages: ${missing[*]}"
   sudo_cmd=""
@@ -52,6 +54,11 @@ log "starting PostgreSQL on 127.0.0.1:$port"
 run_pg "'$PGBIN/initdb' -D '$pgdir/data' -A trust -U postgres" >"$pgdir/initdb.log" 2>&1 || { cat "$pgdir/initdb.log"; exit 1; }
 run_pg "'$PGBIN/pg_ctl' -D '$pgdir/data' -w -l '$pgdir/server.log' -o \"-p $port -k '$pgdir' -c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=200\" start" >/dev/null
 export GAPWATCH_TEST_PG_URL="postgresql+psycopg://postgres@127.0.0.1:$port/postgres"
+
+# 3b. A throwaway MariaDB server (MySQL/MariaDB sources), stopped with PostgreSQL on exit.
+. tests/mariadb.sh
+trap 'stop_mariadb; cleanup' EXIT
+start_mariadb
 
 # 4. The suite. Exit status 5 (no test collected) counts as a failure.
 export GAPWATCH_CHROMIUM=/usr/bin/chromium

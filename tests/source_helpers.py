@@ -12,11 +12,15 @@ Example::
 from __future__ import annotations
 
 import math
+import os
+import uuid
 from datetime import datetime, timedelta, timezone
 
 import numpy as np
 import pandas as pd
+import pytest
 import sqlalchemy as sa
+from sqlalchemy.dialects import mysql
 
 __all__ = [
     "START",
@@ -24,9 +28,66 @@ __all__ = [
     "events_table",
     "create_events_table",
     "append_events",
+    "seconds_table",
+    "insert_seconds",
+    "numbering",
     "stored_time",
     "sqlite_url",
+    "backends",
+    "backend_url",
+    "TIMESTAMP_STORAGE",
+    "DOUBLE",
+    "TIME_TEXT",
 ]
+
+# Column types that mean the same on every tested database: a double (MySQL's and DuckDB's
+# FLOAT is single precision), a timestamp keeping microseconds (MySQL's DATETIME drops them),
+# and indexable text for ISO times (MySQL cannot index an unbounded TEXT).
+DOUBLE = sa.Double()
+TIMESTAMP = sa.DateTime(timezone=False).with_variant(mysql.DATETIME(fsp=6), "mysql", "mariadb")
+TIME_TEXT = sa.String(64)
+
+# The time storage each database's tests use for a "real timestamp" column.
+TIMESTAMP_STORAGE = {"sqlite": "iso", "postgresql": "timestamptz", "mysql": "timestamp", "duckdb": "timestamp"}
+_MARKS = {"postgresql": (pytest.mark.postgres,), "mysql": (pytest.mark.mysql,)}
+
+
+def backends(*names):
+    """``pytest.param`` per database name (sqlite, postgresql, mysql, duckdb), for ``backend_url``."""
+    return [pytest.param(name, id=name, marks=_MARKS.get(name, ())) for name in names]
+
+
+@pytest.fixture
+def backend_url(request, tmp_path):
+    """URL of an empty database of the kind named by the parameter (see ``backends``)."""
+    name = request.param
+    if name == "sqlite":
+        yield sqlite_url(tmp_path / "ops.sqlite")
+    elif name == "duckdb":
+        yield f"duckdb:///{tmp_path / 'ops.duckdb'}"
+    elif name == "postgresql":
+        yield request.getfixturevalue("pg_database_url")
+    elif name == "mysql":
+        yield from _mysql_database()
+    else:
+        raise ValueError(f"unknown backend {name!r}")
+
+
+def _mysql_database():
+    server = os.environ.get("GAPWATCH_TEST_MYSQL_URL")
+    if not server:
+        pytest.skip("GAPWATCH_TEST_MYSQL_URL is not set (tests/run.sh sets it)")
+    name = f"gw_{uuid.uuid4().hex[:12]}"
+    admin = sa.create_engine(server, isolation_level="AUTOCOMMIT")
+    with admin.connect() as conn:
+        conn.execute(sa.text(f"CREATE DATABASE `{name}`"))
+    try:
+        yield sa.engine.make_url(server).set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.execute(sa.text(f"DROP DATABASE IF EXISTS `{name}`"))
+        admin.dispose()
+
 
 START = datetime(2026, 3, 2, 6, 0, tzinfo=timezone.utc)
 
@@ -65,6 +126,11 @@ def make_events(
     return frame
 
 
+def numbering(name: str) -> dict:
+    """Column options that number ids from a sequence, also for inserts that do not name the id."""
+    return {"server_default": sa.text(f"nextval('{name}')"), "default": sa.Sequence(name)}
+
+
 def stored_time(moment, storage: str):
     """``moment`` (aware datetime or None) as the table stores it for ``storage``."""
     if moment is None or (isinstance(moment, float) and math.isnan(moment)):
@@ -100,26 +166,31 @@ def events_table(
     id_column="id",
     time_index=True,
     schema=None,
+    id_sequence=False,
 ):
-    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key]."""
+    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key].
+
+    ``id_sequence`` numbers the ids from a sequence (DuckDB has no auto-increment column).
+    """
     time_type = {
-        "iso": sa.Text(),
-        "iso_z": sa.Text(),
-        "epoch": sa.Float(),
+        "iso": TIME_TEXT,
+        "iso_z": TIME_TEXT,
+        "epoch": DOUBLE,
         "epoch_int": sa.BigInteger(),
         "timestamptz": sa.DateTime(timezone=True),
-        "timestamp": sa.DateTime(timezone=False),
+        "timestamp": TIMESTAMP,
     }[time_storage]
     columns = []
     if id_column:
-        columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True))
+        ids = numbering(f"{table}_{id_column}_seq") if id_sequence else {}
+        columns.append(sa.Column(id_column, sa.Integer, primary_key=True, autoincrement=True, **ids))
     columns += [
-        sa.Column("site", group_type if group_type is not None else sa.Text()),
-        sa.Column("value", value_type if value_type is not None else sa.Float()),
+        sa.Column("site", group_type if group_type is not None else sa.String(40)),
+        sa.Column("value", value_type if value_type is not None else DOUBLE),
         sa.Column("done_at", time_type),
     ]
     if key_column:
-        columns.append(sa.Column(key_column, sa.Text()))
+        columns.append(sa.Column(key_column, sa.String(40)))
     t = sa.Table(table, metadata, *columns, schema=schema)
     if time_index:
         sa.Index(f"ix_{table}_done_at", t.c.done_at)
@@ -151,6 +222,7 @@ def create_events_table(url, rows, *, table="events", time_storage="iso", chunk=
     engine = sa.create_engine(url)
     try:
         metadata = sa.MetaData()
+        table_options.setdefault("id_sequence", engine.dialect.name == "duckdb")
         t = events_table(metadata, table=table, time_storage=time_storage, **table_options)
         metadata.create_all(engine)
         _insert(engine, t, rows, time_storage, chunk)
@@ -160,17 +232,63 @@ def create_events_table(url, rows, *, table="events", time_storage="iso", chunk=
 
 
 def append_events(url, rows, *, table="events", time_storage="iso", chunk=5000, schema=None):
-    """Insert more rows into an existing events table."""
+    """Insert more rows (the columns they name) into an existing events table."""
+    frame = rows if isinstance(rows, pd.DataFrame) else pd.DataFrame(list(rows))
+    # Named columns, not reflection: not every dialect reflects (DuckDB's cannot).
+    t = sa.table(table, *(sa.column(name) for name in frame.columns), schema=schema)
     engine = sa.create_engine(url)
     try:
-        t = sa.Table(table, sa.MetaData(), autoload_with=engine, schema=schema)
-        _insert(engine, t, rows, time_storage, chunk)
+        _insert(engine, t, frame, time_storage, chunk)
+    finally:
+        engine.dispose()
+
+
+def _seconds_definition(dialect_name, *, time_type=None, value_type=None, table="events"):
+    ids = numbering(f"{table}_id_seq") if dialect_name == "duckdb" else {}
+    return sa.Table(
+        table, sa.MetaData(),
+        sa.Column("id", sa.Integer, primary_key=True, autoincrement=True, **ids),
+        sa.Column("site", sa.String(40)),
+        sa.Column("seconds", value_type if value_type is not None else DOUBLE),
+        sa.Column("done_at", time_type if time_type is not None else TIMESTAMP),
+        sa.Index(f"ix_{table}_done_at", "done_at"),
+    )
+
+
+def seconds_table(url, rows=(), *, time_type=None, value_type=None, table="events"):
+    """The live tests' ``(id, site, seconds, done_at)`` table on any database, with ``rows`` inserted.
+
+    ``rows`` are dicts; aware times are stored as naive UTC for timestamp columns.
+    """
+    engine = sa.create_engine(url)
+    try:
+        t = _seconds_definition(engine.dialect.name, time_type=time_type, value_type=value_type, table=table)
+        t.metadata.create_all(engine)
+    finally:
+        engine.dispose()
+    insert_seconds(url, rows, time_type=time_type, value_type=value_type, table=table)
+    return t
+
+
+def insert_seconds(url, rows, *, time_type=None, value_type=None, table="events"):
+    """Append dicts to a ``seconds_table`` (typed, so times are stored as the table's type stores them)."""
+    rows = [
+        {k: (v.astimezone(timezone.utc).replace(tzinfo=None) if isinstance(v, datetime) else v) for k, v in r.items()}
+        for r in rows
+    ]
+    if not rows:
+        return
+    engine = sa.create_engine(url)
+    try:
+        t = _seconds_definition(engine.dialect.name, time_type=time_type, value_type=value_type, table=table)
+        with engine.begin() as conn:
+            conn.execute(sa.insert(t), rows)
     finally:
         engine.dispose()
 
 
 def _insert(engine, t, rows, time_storage, chunk):
-    names = [c.name for c in t.columns if not (c.primary_key and c.autoincrement)]
+    names = [c.name for c in t.columns if not (getattr(c, "primary_key", False) and c.autoincrement)]
     records = _records(rows, time_storage, names)
     with engine.begin() as conn:
         for i in range(0, len(records), chunk):

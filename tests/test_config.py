@@ -130,7 +130,7 @@ def test_every_problem_reported_in_one_pass(tmp_path):
     (dict(every="0s"), "'every'"),
     (dict(cluster_by="day", cluster_column="crew"), "give cluster_by or cluster_column, not both"),
     (dict(cluster_by="month"), "'cluster_by' 'month' is not one of hour, day, week"),
-    (dict(cluster_by="day", min_clusters=1), "'min_clusters' must be an integer of at least 2"),
+    (dict(cluster_by="day", min_clusters=1), "'min_clusters' must be an integer of at least 4"),
     (dict(min_clusters=5), "'min_clusters' is only used with cluster_by or cluster_column"),
     (dict(filters=[["status", "like", "x%"]]), "operator 'like' is not one of"),
     (dict(filters=[["status", "in", "done"]]), "'in' needs a non-empty list"),

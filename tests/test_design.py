@@ -136,7 +136,7 @@ def test_a_design_the_store_cannot_hold_is_refused_by_name():
     dict(),
     dict(planned_per_group=None, difference=5.0, sd=20.0, power=0.9, looks=4),
     dict(method="paired", pair_by="hour"),
-    dict(cluster_by="day", min_clusters=2),
+    dict(cluster_by="day", min_clusters=4),
 ], ids=["welch", "planned", "paired", "clustered"])
 def test_the_look_stores_the_design_and_its_fingerprint(tmp_path, keys):
     start = at(2, 6)

@@ -63,9 +63,7 @@ def test_the_layers_contract_names_every_part_of_monitor():
 # Files with imports inside functions that do not say why yet; each is being rewritten on its
 # own branch. An entry that no longer has any (or no longer exists) fails the test below, so the
 # list only shrinks.
-PENDING_LAZY_REASONS = {
-    "monitor/source/reader.py",     # dialect variants
-}
+PENDING_LAZY_REASONS: set[str] = set()
 
 
 def _unexplained_imports(path: Path) -> list[int]:

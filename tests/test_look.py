@@ -24,6 +24,7 @@ from monitor.calendar import bucket_end, bucket_key
 from monitor.look import restart_comparison, take_look
 from monitor.store.models import Alert, Cell, Comparison, Delivery, Look
 from monitor.source.reader import Source
+from monitor.stats.sequential_t import SequentialTBoundary
 
 T0 = at(2, 6)  # Monday 2 March 2026, 06:00 UTC
 
@@ -36,7 +37,8 @@ def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):
     rng = np.random.default_rng(20260302)
     w = World(tmp_path, _rows(rng, 900, east=101.5, west=100.0), lateness="5m", planned_per_group=600)
     raw = w.raw()
-    fresh = SequentialBoundary(0.05, "obrien-fleming", "two-sided")
+    # Welch's t: exact sequential t boundaries at the looks' df (stats.sequential_t).
+    fresh = SequentialTBoundary(0.05, "obrien-fleming", "two-sided")
     records = []
     for hours in (4, 9, 15, 22, 30, 45):
         record = w.look(T0 + timedelta(hours=hours))
@@ -55,7 +57,7 @@ def test_multi_look_welch_matches_scipy_at_every_cutoff(tmp_path):
         assert record.df == pytest.approx(ref.df, rel=1e-9)
         assert record.fraction == pytest.approx(min(len(east), len(west)) / 600)
         # The resumed boundary equals one computed afresh at the same fractions.
-        expected = fresh.add_look(record.fraction)
+        expected = fresh.add_look(record.fraction, record.df)
         assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
         critical = stats.t.isf(expected.nominal_p, ref.df)
         se = (east.mean() - west.mean()) / ref.statistic
@@ -306,16 +308,30 @@ def test_design_change_refused_and_restart_starts_a_new_version(tmp_path):
     w.write(every="1h")  # back to the frozen design: looks again
     assert w.look(T0 + timedelta(hours=4)).look == 2
     w.write(alpha=0.01)
-    assert restart_comparison(w.engine, "handle-time") == {"name": "handle-time", "archived_version": 1,
-                                                            "next_version": 2}
+    done = restart_comparison(w.engine, "handle-time", made_at=T0 + timedelta(hours=4), made_by="dana")
+    assert (done["name"], done["archived_version"], done["next_version"], done["from_start"]) == (
+        "handle-time", 1, 2, False)
     record = w.look(T0 + timedelta(hours=5))
     assert (record.version, record.look) == (2, 1)
     raw = w.raw()
+    # Only what came after version 1's last cutoff: nothing version 1 tested is tested again.
+    last_cutoff = pd.Timestamp(T0 + timedelta(hours=4))
+    new = (raw.done_at > last_cutoff) & (raw.done_at <= pd.Timestamp(record.cutoff))
+    assert 0 < record.n1 + record.n2 == new.sum()
+    assert record.detail["restart"] == {"after_version": 1, "from_start": False,
+                                        "starts_after": last_cutoff.isoformat(), "made_by": "dana"}
+    # --from-start reads everything again, and the first look says so.
+    restart_comparison(w.engine, "handle-time", made_at=T0 + timedelta(hours=5), made_by="dana",
+                       reason="audit wants all data", from_start=True)
+    record = w.look(T0 + timedelta(hours=6))
+    assert (record.version, record.look) == (3, 1)
     assert record.n1 + record.n2 == (raw.done_at <= pd.Timestamp(record.cutoff)).sum()  # reads from the start
+    assert record.detail["restart"]["from_start"] is True
+    assert any("tested again" in w for w in record.warnings)
     with w.engine.connect() as conn:
         versions = conn.execute(sa.select(Comparison.version, Comparison.archived, Comparison.looks_taken)
                                 .order_by(Comparison.version)).all()
-    assert versions == [(1, True, 2), (2, False, 1)]
+    assert versions == [(1, True, 2), (2, True, 1), (3, False, 1)]
 
 
 def test_injection_in_filter_values_is_harmless_and_source_unchanged(tmp_path):
@@ -445,13 +461,14 @@ def test_futility_boundary_stops_for_no_material_difference(tmp_path):
     w = World(tmp_path, _rows(rng, 600, east=97.0, west=100.0), **keys)  # east is worse, not better
     plan = plan_mean(5.0, 10.0, alpha=0.05, power=0.8, alternative="greater", looks=4, futility=True)
     assert Design.from_config(w.comparison).planned_per_group == plan.max_per_group
-    fresh = SequentialBoundary(0.05, "obrien-fleming", "greater", futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
+    fresh = SequentialTBoundary(0.05, "obrien-fleming", "greater",
+                                futility=FutilitySpec("obrien-fleming", 0.2, plan.drift))
     decisions = []
     for hours in (2, 4, 6, 8, 12, 16):
         record = w.look(T0 + timedelta(hours=hours))
         if record is None:
             break
-        expected = fresh.add_look(record.fraction)
+        expected = fresh.add_look(record.fraction, record.df)
         assert record.boundary_z == pytest.approx(expected.z, rel=1e-9)
         assert w.looks()[-1].futility_z == pytest.approx(expected.futility_z, rel=1e-9)
         z_equivalent = stats.norm.isf(stats.t.sf(record.statistic, record.df))

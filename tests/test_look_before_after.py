@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 from datetime import timedelta
 
 import numpy as np
@@ -11,6 +12,7 @@ import pytest
 from live_helpers import LiveWorld, at, insert_events
 from monitor.errors import ConfigError
 from monitor.stats.before_after import difference_in_differences
+from monitor.store.readback import format_number
 
 START = at(15, 6)          # the change goes live: Sunday 15 March 2026, 06:00 UTC
 
@@ -45,7 +47,7 @@ def did_from_rows(rows, start, baseline_from):
                                      sum_dev2=[cells[k][2] for k in keys])
 
 
-BEFORE_AFTER = dict(start="2026-03-15T06:00:00+00:00", baseline="14d", min_clusters=3, planned_per_group=600,
+BEFORE_AFTER = dict(start="2026-03-15T06:00:00+00:00", baseline="14d", min_clusters=4, planned_per_group=600,
                     every="1d", arrival_column="id")
 
 
@@ -99,7 +101,7 @@ def test_decisions_wait_for_days_since_the_start(tmp_path):
     world = LiveWorld(tmp_path, rows, **BEFORE_AFTER)
     record = world.look(at(16, 12))
     assert record.decision == "awaiting_clusters"
-    assert "2 day(s) since the start so far; decisions start at 3" in record.warnings[0]
+    assert "2 day(s) since the start so far; decisions start at 4" in record.warnings[0]
     assert record.detail["before_after"]["baseline_gap"]["estimate"] == pytest.approx(10.0, abs=2.0)
 
 
@@ -227,3 +229,32 @@ def test_verify_replays_a_before_after_comparison_from_raw_rows(tmp_path):
     world.look(at(19, 0))
     results = verify_looks(world.config, "handle-time", world.engine)
     assert [r["ok"] for r in results] == [True] * 4, results
+
+
+def test_the_printed_review_says_the_baseline_gap_and_shows_its_figures(tmp_path):
+    from monitor.report import build_review, render_html
+
+    rng = np.random.default_rng(4)
+    rows = site_rows(rng, 0, 40, change=-12.0)
+    world = LiveWorld(tmp_path, rows, **BEFORE_AFTER)
+    record = as_of = None
+    for day in range(16, 40):
+        as_of = at(1, 0) + timedelta(days=day - 1)
+        record = world.look(as_of)
+        if record is None or record.decision == "difference_found":
+            break
+    review = build_review(world.engine, "handle-time", now=as_of)
+    page = render_html(review)
+    text = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", page))
+    figures = record.detail["before_after"]
+    gap = figures["baseline_gap"]
+    # The sentence status and history print, and the baseline's own figures beside the change.
+    assert review.baseline and review.baseline.startswith("before the change, east was")
+    assert review.baseline[:1].upper() + review.baseline[1:] in text
+    assert "Did the change that went live at 2026-03-15 06:00 UTC" in text
+    assert "before the change (baseline)" in text and "since the start" in text
+    assert format_number(gap["estimate"]) in text and format_number(figures["after_gap"]["estimate"]) in text
+    assert f"{gap['n'][0]:,} / {gap['n'][1]:,}" in text or f"{gap['n'][0]} / {gap['n'][1]}" in text
+    assert "difference in differences" in text and "Bell–McCaffrey" in text
+    assert "Adjusted estimate" in text
+    assert not re.search(r"\b(None|nan|NaN|inf|-inf|Infinity)\b|<object|\{'", text)

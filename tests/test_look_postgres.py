@@ -79,7 +79,7 @@ def test_all_or_nothing_and_design_change_on_postgres(pg_world, monkeypatch):
     w.write(arrival_column="id", method="pooled", planned_per_group=2000)
     with pytest.raises(DesignChangedError, match="method"):
         w.look(T0 + timedelta(hours=6))
-    restart_comparison(w.engine, "handle-time")
+    restart_comparison(w.engine, "handle-time", made_at=T0 + timedelta(hours=5), made_by="test")
     record = w.look(T0 + timedelta(hours=6))
     assert (record.version, record.look) == (2, 1)
 

@@ -140,7 +140,7 @@ def test_verify_replays_looks_with_null_keys(tmp_path, keys):
 
 def test_null_keys_without_a_key_column_are_not_a_reason(tmp_path):
     rng = np.random.default_rng(43)
-    w = LiveWorld(tmp_path, event_rows(rng, 200, T0), cluster_by="day", min_clusters=2, planned_per_group=5000)
+    w = LiveWorld(tmp_path, event_rows(rng, 200, T0), cluster_by="day", min_clusters=4, planned_per_group=5000)
     record = w.look(T0 + timedelta(days=1))
     assert NULL_KEY not in record.excluded and record.n1 + record.n2 == record.new_events
 
@@ -194,7 +194,9 @@ def test_kept_state_is_not_used_after_another_writer_or_a_new_store(tmp_path):
     for suffix in ("", "-wal", "-shm"):
         Path(str(tmp_path / "store.sqlite") + suffix).unlink(missing_ok=True)
     Path(tmp_path / "ops.sqlite").unlink()
-    create_events_table(w.source_url, rows=event_rows(rng, 160, T0, east=130.0))
+    # Rows up to 15 h: every one of the looks below finds something new (a look that finds
+    # nothing records only a check).
+    create_events_table(w.source_url, rows=event_rows(rng, 300, T0, east=130.0))
     other, other_memory = migrated_store(w.store_url), LookMemory()
     for hours in (4, 8, 12):
         take_look(w.config, w.comparison.name, as_of=T0 + timedelta(hours=hours), engine=other, memory=other_memory)

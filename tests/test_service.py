@@ -419,11 +419,26 @@ def test_once_takes_one_look_each_and_exits(site):
         config = write_service_config(site["folder"], site["source_url"], site["store_url"],
                                       [calls(), picks(planned_per_group=100000)], channels=hook_channel(hook.url))
         for expected in (1, 2):
+            if expected == 2:  # new events, or the second run would only record that it checked
+                with sqlite3.connect(site["source_path"], timeout=30) as conn:
+                    when = (datetime.now(UTC) - timedelta(seconds=1)).replace(tzinfo=None).isoformat(sep=" ")
+                    for table in ("calls", "picks"):
+                        conn.executemany(f'INSERT INTO "{table}" (site, seconds, done_at) VALUES (?, ?, ?)',
+                                         [("east", 301.0, when), ("west", 299.0, when)] * 3)
             once = ServiceProcess(config, site["folder"] / f"once{expected}.log", args=["--once"],
                                   env={"HOOK_SECRET": SECRET})
             assert once.run() == 0, once.log()
             assert [lk.look_number for lk in looks_of(engine, "call-seconds")] == list(range(1, expected + 1))
             assert [lk.look_number for lk in looks_of(engine, "pick-seconds")] == list(range(1, expected + 1))
+        # Nothing new: the run checks, records no look, and exits 0.
+        quiet = ServiceProcess(config, site["folder"] / "once-quiet.log", args=["--once"], env={"HOOK_SECRET": SECRET})
+        assert quiet.run() == 0, quiet.log()
+        assert "look quiet comparison=call-seconds" in quiet.log()
+        assert len(looks_of(engine, "call-seconds")) == 2
+        from monitor.store.workers import last_check
+
+        check = last_check(engine, "call-seconds")
+        assert check["outcome"] == "quiet" and check["holder"]  # the worker that checked is named
         # The source file is gone: the look fails, nothing is recorded, the exit status says so.
         site["source_path"].rename(site["folder"] / "elsewhere.sqlite")
         failed = ServiceProcess(config, site["folder"] / "once3.log", args=["--once"], env={"HOOK_SECRET": SECRET})
@@ -519,15 +534,17 @@ def test_run_service_in_a_thread_stops_on_event_and_redacts_its_handlers(site, m
     result = []
     monkeypatch.setenv("HOOK_SECRET", SECRET)
     try:
-        thread = threading.Thread(target=lambda: result.append(
-            run_service(config, stop_event=stop, clock=lambda: datetime.now(UTC) + ahead, holder="demo-worker")))
-        thread.start()
-        deadline = time.monotonic() + 30
-        while len(looks_of(engine, "call-seconds")) < 2 and time.monotonic() < deadline:
-            time.sleep(0.2)
-        logging.getLogger("gapwatch.service").error("checking %s", SECRET)
-        stop.set()
-        thread.join(timeout=30)
+        # Events keep arriving (a look that finds nothing new records only a check).
+        with Feeder(site["source_path"], {"calls": (300.0, 300.0)}):
+            thread = threading.Thread(target=lambda: result.append(
+                run_service(config, stop_event=stop, clock=lambda: datetime.now(UTC) + ahead, holder="demo-worker")))
+            thread.start()
+            deadline = time.monotonic() + 30
+            while len(looks_of(engine, "call-seconds")) < 2 and time.monotonic() < deadline:
+                time.sleep(0.2)
+            logging.getLogger("gapwatch.service").error("checking %s", SECRET)
+            stop.set()
+            thread.join(timeout=30)
     finally:
         logger.removeHandler(handler)
     assert result == [0] and not thread.is_alive()

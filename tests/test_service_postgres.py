@@ -73,8 +73,9 @@ def test_two_workers_share_one_store(pg_site):
         assert len({lk.look_number for lk in looks}) == len(looks)
         assert_one_alert_per_state_change(engine, name)
     lines = {w: [ln for ln in w.log().splitlines() if " look comparison=" in ln] for w in (a, b)}
-    # Both workers took part, and together they recorded each look exactly once.
-    assert all(lines[w] for w in (a, b)), {w.log_path.name: len(v) for w, v in lines.items()}
+    # Both workers ran; which one takes a due look is the claim's race (on a loaded machine one
+    # may win every time). Together they recorded each look exactly once.
+    assert all("service started" in w.log() for w in (a, b))
     total = sum(len(looks_of(engine, n)) for n in ("call-seconds", "pick-seconds"))
     assert len(lines[a]) + len(lines[b]) == total
 
@@ -172,7 +173,10 @@ def test_postgres_source_goes_away_and_comes_back(pg_site, pg_source):
     create_events_table(url, "calls", [{"site": s, "seconds": 300.0 + i, "done_at": past}
                                        for i in range(10) for s in ("east", "west")])
 
-    def feed(seconds_ahead=0.3):
+    # Rows carry a time a little ahead of now: without an arrival column a row that commits
+    # after a look whose cutoff already passed its time is late and missed (the README says so),
+    # and a loaded machine can delay a commit by most of a second.
+    def feed(seconds_ahead=2.0):
         when = datetime.now(UTC) + timedelta(seconds=seconds_ahead)
         insert_events(url, "calls", [{"site": s, "seconds": 300.0, "done_at": when} for s in ("east", "west")] * 2)
 
@@ -197,11 +201,12 @@ def test_postgres_source_goes_away_and_comes_back(pg_site, pg_source):
             with admin.connect() as conn:
                 conn.execute(sa.text(f'ALTER DATABASE "{name}" WITH ALLOW_CONNECTIONS true'))
             back_at = datetime.now(UTC)
-            for _ in range(3):
+            # Events keep arriving: a look that finds nothing new records only a check.
+            def fed_and_looked():
                 feed()
-                time.sleep(0.4)
-            service.wait_for(lambda: len(looks_of(engine, "call-seconds")) >= before + 2, timeout=30,
-                             what="looks to resume")
+                return len(looks_of(engine, "call-seconds")) >= before + 2
+
+            service.wait_for(fed_and_looked, timeout=30, interval=0.4, what="looks to resume")
             time.sleep(0.5)
         finally:
             code = service.stop()

@@ -35,14 +35,16 @@ def test_empty_store_refused_with_the_command_to_run(tmp_path):
 
 
 def _migrations_with_a_newer_revision(tmp_path, monkeypatch):
-    """A copy of the packaged migrations plus a revision 0099, as a newer gapwatch would ship."""
+    """A copy of the packaged migrations plus a revision 0099 after the packaged head, as a newer
+    gapwatch would ship."""
     import shutil
 
     folder = tmp_path / "migrations"
+    shipped = store.head_revision()
     shutil.copytree(store._migrations_folder(), folder, ignore=shutil.ignore_patterns("__pycache__"))
     (folder / "versions" / "0099_note.py").write_text(
         "from alembic import op\nimport sqlalchemy as sa\n"
-        "revision = '0099'\ndown_revision = '0002'\nbranch_labels = None\ndepends_on = None\n"
+        f"revision = '0099'\ndown_revision = '{shipped}'\nbranch_labels = None\ndepends_on = None\n"
         "def upgrade():\n    op.create_table('note', sa.Column('id', sa.Integer, primary_key=True))\n"
         "def downgrade():\n    op.drop_table('note')\n")
     monkeypatch.setattr(store, "_migrations_folder", lambda: folder)
@@ -50,12 +52,13 @@ def _migrations_with_a_newer_revision(tmp_path, monkeypatch):
 
 def test_store_a_migration_behind_refused(tmp_path, monkeypatch):
     url = f"sqlite:///{tmp_path / 's.sqlite'}"
-    store.upgrade(url)  # the packaged head, 0002
+    store.upgrade(url)  # the packaged head
+    shipped = store.head_revision()
     engine = store.make_engine(url)
     _migrations_with_a_newer_revision(tmp_path, monkeypatch)
-    with pytest.raises(StoreBehindError, match=r"revision 0002, behind 0099; run `gapwatch db upgrade`"):
+    with pytest.raises(StoreBehindError, match=rf"revision {shipped}, behind 0099; run `gapwatch db upgrade`"):
         store.ensure_current(engine)
-    assert store.migration_state(engine) == {"current": "0002", "head": "0099", "up_to_date": False}
+    assert store.migration_state(engine) == {"current": shipped, "head": "0099", "up_to_date": False}
     store.upgrade(url)
     assert store.ensure_current(engine) == "0099"
 

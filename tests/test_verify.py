@@ -26,7 +26,7 @@ def _history(world, hours=(3, 8, 14, 27, 40)):
     dict(method="pooled", lateness="10m"),
     dict(method="paired", pair_by="hour"),
     dict(method="paired", pair_by="shift", shift_starts=["06:00", "14:00", "22:00"], timezone="Europe/Lisbon"),
-    dict(cluster_by="day", min_clusters=2),
+    dict(cluster_by="day", min_clusters=4),
     dict(metric="proportion", method="proportions"),
 ], ids=["welch", "pooled-lateness", "paired-hour", "paired-shift", "clustered-day", "proportions"])
 def test_every_look_matches_its_replay(tmp_path, keys):
@@ -63,3 +63,11 @@ def test_tampered_look_is_reported_and_the_command_exits_1(tmp_path, capsys):
     assert main(["verify", "handle-time", "--config", str(world.config.path)]) == 1
     out = capsys.readouterr().out
     assert "handle-time look 3: MISMATCH: n1 recorded" in out and "4 of 5 looks match" in out
+
+
+def test_a_misspelled_name_lists_the_known_ones(tmp_path, capsys):
+    world = LiveWorld(tmp_path, event_rows(np.random.default_rng(2), 200, T0), planned_per_group=5000)
+    _history(world)
+    assert main(["verify", "handel-time", "--config", str(world.config.path)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "handel-time" in err[0] and "known: handle-time" in err[0]

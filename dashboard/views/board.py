@@ -2,38 +2,38 @@
 
 import streamlit as st
 
-from dashboard import common
-from monitor.store import readback
+from dashboard import data, style, tables
+from dashboard.formats import when
+from monitor.vocabulary import STATES, state_label
 
-common.style()
+style.apply()
 st.title("Board")
 st.caption("Every live comparison in the history store. The table refreshes itself every "
-           f"{common.REFRESH_SECONDS} seconds; filters stay as you set them.")
+           f"{data.REFRESH_SECONDS} seconds; filters stay as you set them.")
 
-url = common.store_url()
-filter_col, state_col = st.columns([2, 3])
+url = data.store_url()
+filter_col, state_col = style.filter_row("board", [2, 3])
 needle = filter_col.text_input("Find a comparison", key="board_find", placeholder="part of a name")
-chosen = state_col.multiselect(
-    "States", list(readback.STATES), key="board_states", format_func=readback.state_label,
-    placeholder="all states",
-)
+chosen = state_col.multiselect("States", list(STATES), key="board_states", format_func=state_label,
+                               placeholder="all states")
 
 
-@st.fragment(run_every=common.REFRESH_SECONDS)
+@st.fragment(run_every=data.REFRESH_SECONDS)
 def board():
-    rows = common.status_rows(url)
+    rows = data.status_rows(url)
     shown = [r for r in rows
              if (not needle or needle.lower() in r["name"].lower()) and (not chosen or r["state"] in chosen)]
-    counts = st.columns(len(readback.STATES))
-    for col, state in zip(counts, readback.STATES):
-        col.metric(readback.state_label(state), sum(r["state"] == state for r in rows))
+    st.html(tables.state_counts(rows))
     if not rows:
         st.info("No comparisons in the store yet: the first look of each configured comparison records it.")
         return
-    st.html(common.board_table(shown))
-    if common.clock_note():
-        st.caption(common.clock_note())
-    st.caption(f"{len(shown)} of {len(rows)} comparisons shown · read {common.when(common.now().isoformat())}")
+    if data.monitor_notice():
+        st.warning(data.monitor_notice())
+    ref = data.now()
+    st.html(tables.board_table(shown, ref))
+    if data.clock_note():
+        st.caption(data.clock_note())
+    st.caption(f"{len(shown)} of {len(rows)} comparisons shown · read {when(ref.isoformat(), ref)}")
 
 
 board()

@@ -1,13 +1,17 @@
-"""Comparison: every view of one comparison; ?name=...&version=... opens it directly."""
+"""Comparison: every view of one comparison; ?name=...&version=... opens it directly.
+
+The views refresh themselves (a fragment) while the choice of comparison and version stays put.
+"""
 
 import streamlit as st
 
-from dashboard import common
+from dashboard import data, style
+from dashboard.panels import show_comparison
 
-common.style()
+style.apply()
 st.title("Comparison")
-url = common.store_url()
-rows = common.status_rows(url, include_archived=True)
+url = data.store_url()
+rows = data.status_rows(url, include_archived=True)
 names = sorted({r["name"] for r in rows})
 if not names:
     st.info("No comparisons in the store yet.")
@@ -16,7 +20,7 @@ if not names:
 wanted = st.query_params.get("name")
 index = names.index(wanted) if wanted in names else 0
 name = st.selectbox("Comparison", names, index=index, key="comparison_name")
-versions = [v["version"] for v in common.versions(url, name)]
+versions = [v["version"] for v in data.versions(url, name)]
 version = None
 if len(versions) > 1:
     asked = st.query_params.get("version")
@@ -32,4 +36,4 @@ if version is not None:
 elif "version" in st.query_params:
     del st.query_params["version"]
 
-common.show_comparison(url, name, version)
+st.fragment(show_comparison, run_every=data.REFRESH_SECONDS)(url, name, version)

@@ -1,45 +1,45 @@
-"""Review: stopped and archived comparisons, filterable, with the same views as a live one."""
+"""Review: every archived version and every stopped comparison, filterable, with the same views as a live one."""
 
 from datetime import datetime, time, timezone
 
-import pandas as pd
 import streamlit as st
 
-from dashboard import common
-from monitor.store import readback
+from dashboard import data, style
+from dashboard.panels import show_comparison
+from dashboard.tables import review_table
+from monitor.vocabulary import STATES, state_label
 
-common.style()
+style.apply()
 st.title("Review")
-st.caption("Comparisons that have stopped or were archived by a restart: what was known, and when.")
-url = common.store_url()
+st.caption("Every version archived by a restart or a replan, whatever its state, and every comparison "
+           "that has stopped: what was known, and when.")
+url = data.store_url()
 
-c1, c2, c3 = st.columns([2, 3, 2])
+c1, c2, c3 = style.filter_row("review", [2, 3, 2])
 needle = c1.text_input("Name contains", key="review_name")
-stopped_states = [s for s in readback.STATES if s in readback.STOPPED_STATES]
-states = c2.multiselect("States", list(readback.STATES), default=stopped_states, key="review_states",
-                        format_func=readback.state_label)
+states = c2.multiselect("States", list(STATES), key="review_states", format_func=state_label,
+                        placeholder="all states")
 span = c3.date_input("Running between", value=(), key="review_dates")
-include_live = st.toggle("Include live comparisons that are still collecting", key="review_live")
+include_live = st.toggle("Include live comparisons that are still running", key="review_live")
 
 since = until = None
 if isinstance(span, (list, tuple)) and len(span) == 2:
     since = datetime.combine(span[0], time.min, tzinfo=timezone.utc)
     until = datetime.combine(span[1], time.max, tzinfo=timezone.utc)
 
-rows = common.filtered_rows(url, needle, tuple(states), since, until, None)
-rows = [r for r in rows if r["stopped"] or r["archived"] or include_live]
-if not rows:
-    st.info("No comparison matches these filters.")
-    st.stop()
 
-st.dataframe(pd.DataFrame([{
-    "comparison": r["name"], "version": r["version"], "state": r["state_label"],
-    "archived": "yes" if r["archived"] else "no", "looks": r["looks"],
-    "estimate [repeated CI]": common.interval_text(r), "events per group": f"{r['n1']:,} / {r['n2']:,}",
-    "plan": common.fraction_text(r), "stopped (UTC)": (r["stopped_at"] or "—")[:16].replace("T", " "),
-} for r in rows]), hide_index=True, width="stretch")
+@st.fragment(run_every=data.REFRESH_SECONDS)
+def review():
+    rows = data.filtered_rows(url, needle, tuple(states), since, until, None)
+    rows = [r for r in rows if r["stopped"] or r["archived"] or include_live]
+    if not rows:
+        st.info("No comparison matches these filters.")
+        return
+    st.html(review_table(rows))
+    keys = [(r["name"], r["version"]) for r in rows]
+    picked = st.selectbox("Open", keys, format_func=lambda k: f"{k[0]} v{k[1]}", key="review_open")
+    st.divider()
+    show_comparison(url, picked[0], picked[1])
 
-keys = [(r["name"], r["version"]) for r in rows]
-picked = st.selectbox("Open", keys, format_func=lambda k: f"{k[0]} v{k[1]}", key="review_open")
-st.divider()
-common.show_comparison(url, picked[0], picked[1])
+
+review()

@@ -9,7 +9,7 @@ from __future__ import annotations
 import json
 from datetime import datetime
 
-from ..vocabulary import json_safe
+from ..vocabulary import json_safe, outlook_words
 
 __all__ = [
     "figure",
@@ -114,15 +114,26 @@ def decision_message(name: str, kind: str, values: dict, design) -> str:
 
 
 def decision_payload(name: str, version: int, kind: str, values: dict, design, as_of: datetime) -> dict:
-    """The stored payload of an alert raised by a look (the alert id is added when it is written)."""
-    return {
+    """The stored payload of an alert raised by a look (the alert id is added when it is written).
+
+    ``fraction`` is the share of the current plan (after a replan, of the new plan);
+    ``outlook`` says when the plan completes and the chance of a finding by then, when the
+    look recorded them.
+    """
+    detail = values.get("detail") or {}
+    share = (detail.get("plan") or {}).get("share")
+    payload = {
         "comparison": name, "version": version, "kind": kind,
         "decision": values["decision"], "look": values["look_number"], "as_of": as_of.isoformat(),
         "estimate": values["estimate"], "ci_low": values["ci_low"], "ci_high": values["ci_high"],
-        "p_value": values["p_value"], "fraction": values["fraction"], "n1": values["n1"],
-        "n2": values["n2"], "groups": list(design.groups),
+        "p_value": values["p_value"], "fraction": values["fraction"] if share is None else share,
+        "n1": values["n1"], "n2": values["n2"], "groups": list(design.groups),
         "message": decision_message(name, kind, values, design),
     }
+    outlook = outlook_words(detail.get("outlook"))
+    if outlook:
+        payload["outlook"] = outlook
+    return payload
 
 
 def source_unreachable_message(name: str, since: datetime) -> str:
@@ -188,6 +199,8 @@ def email_text(alert_id: str, payload: dict) -> tuple[str, str]:
             f"Events: {g1} {payload.get('n1', '?')}, {g2} {payload.get('n2', '?')}; "
             f"information fraction {figure(payload.get('fraction'), 3)}",
         ]
+        if payload.get("outlook"):
+            lines += [f"Outlook: {payload['outlook'][0].upper()}{payload['outlook'][1:]}."]
     else:
         lines += [f"Comparison: {comparison}"]
         if payload.get("error"):

@@ -18,6 +18,7 @@ SUMMARIES = {
     "history": "list every look of one comparison",
     "verify": "recompute every recorded look from raw source rows and report mismatches",
     "restart": "archive a comparison's current version so its next look starts a new one",
+    "replan": "change a running comparison's plan, keeping its looks and the alpha it spent",
     "run": "run the service: look at every comparison on its schedule and deliver alerts",
     "alerts": "list alerts and their deliveries, or acknowledge one (alerts ack ID)",
     "report": "write a printable review of one comparison (HTML or PDF)",

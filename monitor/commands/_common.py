@@ -108,3 +108,16 @@ def as_typed(text) -> str:
     """``text`` with every quoted `gapwatch ...` command written as :func:`program` runs it."""
     text = str(text)
     return text.replace("`gapwatch ", f"`{program()} ") if "`gapwatch " in text else text
+
+
+def operator(given=None) -> str:
+    """Who runs a command that records a change: ``given`` (``--by``), else the operating-system user."""
+    if given:
+        return given
+    # lazy: only the commands that record a change need it.
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):  # no login name in this environment
+        return "unknown"

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 import math
 from dataclasses import replace
-from datetime import timedelta
+from datetime import datetime, timedelta, timezone
 
-from ..errors import InvalidArgumentError, SourceUnavailableError
+from ..errors import InvalidArgumentError, SourceUnavailableError, StoreBehindError, StoreUnavailableError
 from . import SUMMARIES
 from ._common import add_config_option, counted, program
 
@@ -38,6 +38,7 @@ def run(args) -> int:
     # lazy: start-up time of the command line (configuration, source and store stacks).
     from ..config import load_config
     from ..design import Design
+    from ..source.groups import group_problems
     from ..source.reader import Source, SourceSpec
     from ..store.engine import make_engine, migration_state
 
@@ -53,6 +54,8 @@ def run(args) -> int:
             try:
                 spec = SourceSpec.from_design(Design.from_config(c), shift=0.0, arrival_column=c.arrival_column)
                 problems = sources[c.source].check(spec)
+                if not [p for p in problems if not p.startswith("warning:")]:
+                    problems += group_problems(sources[c.source], spec)
             except (SourceUnavailableError, InvalidArgumentError) as exc:  # unreachable, or no plan possible
                 print(f"comparison {c.name!r}: {exc}")
                 failed = True
@@ -67,10 +70,17 @@ def run(args) -> int:
                 if args.before_start is not None and c.start is not None and not c.before_after:
                     line, differed = gap_before_start(sources[c.source], c, spec, args.before_start)
                     print(f"comparison {c.name!r}: {line}")
+            if not c.notify:
+                print(f"comparison {c.name!r}: warning: no alert channel configured (notify is empty); "
+                      f"its alerts are recorded and nobody is told")
     finally:
         for s in sources.values():
             s.dispose()
-    engine = make_engine(config.store_url)
+    try:
+        engine = make_engine(config.store_url, create=False)
+    except (StoreBehindError, StoreUnavailableError) as exc:
+        print(f"store: {exc}")
+        return 1
     try:
         state = migration_state(engine)
     except Exception as exc:  # noqa: BLE001 - any store failure is reported, not raised
@@ -80,6 +90,18 @@ def run(args) -> int:
         engine.dispose()
     if state["up_to_date"]:
         print(f"store: at revision {state['current']} (up to date)")
+        # lazy: start-up time of the command line (the read side), as above.
+        from ..store.readback import monitor_liveness
+
+        engine = make_engine(config.store_url, create=False)
+        try:
+            liveness = monitor_liveness(engine, now=datetime.now(timezone.utc))
+        finally:
+            engine.dispose()
+        if liveness["quiet"]:
+            print(f"service: warning: {liveness['message']}")
+        elif liveness["last_beat_at"] is not None:
+            print(f"service: {liveness['workers_alive']} worker(s) alive; last check {liveness['last_check_at'] or 'none yet'}")
     else:
         print(f"store: at revision {state['current'] or 'none (empty)'}, newest {state['head']}; "
               f"run `{program()} db upgrade`")

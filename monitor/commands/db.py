@@ -1,8 +1,13 @@
-"""``gapwatch db upgrade [REV]|downgrade REV|current``: the history store's schema."""
+"""``gapwatch db upgrade [REV]|downgrade REV|current``: the history store's schema.
+
+A downgrade that would drop rows asks first (``--yes``); a SQLite store is then copied
+beside itself before anything is dropped, and the output names the copy.
+"""
 
 from __future__ import annotations
 
 import sys
+from datetime import datetime, timezone
 
 from . import SUMMARIES
 from ._common import add_config_option, program
@@ -19,6 +24,8 @@ def register(subparsers) -> None:
                    help="target revision (downgrade needs one, e.g. base; upgrade defaults to head)")
     add_config_option(p)
     p.add_argument("--store", default=None, metavar="URL", help="store URL instead of the configuration's [store] url")
+    p.add_argument("--yes", action="store_true",
+                   help="downgrade even though it drops recorded history (a SQLite store is copied beside itself first)")
     p.set_defaults(func=run)
 
 
@@ -42,6 +49,22 @@ def run(args) -> int:
     if args.action == "upgrade":
         store.upgrade(url, args.revision or "head")
     elif args.action == "downgrade":
+        store.check_revision(args.revision)
+        engine = store.make_engine(url)
+        try:
+            at_risk = store.rows_at_risk(engine, args.revision)
+        finally:
+            engine.dispose()
+        if at_risk:
+            held = ", ".join(f"{table} {rows}" for table, rows in sorted(at_risk.items()))
+            if not args.yes:
+                print(f"gapwatch db: downgrade to {args.revision} would drop recorded history (rows: {held}); "
+                      f"run again with --yes to go ahead", file=sys.stderr)
+                return 2
+            stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+            copy = store.backup_sqlite(url, f"before-downgrade-{stamp}")
+            if copy is not None:
+                print(f"backup of the store before the downgrade: {copy}")
         store.downgrade(url, args.revision)
     engine = store.make_engine(url)
     try:

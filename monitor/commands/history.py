@@ -10,13 +10,18 @@ from ._common import add_config_option, aligned_lines, open_store, print_json, r
 
 __all__ = ["register", "run", "CSV_COLUMNS"]
 
-# The flat columns of the CSV export (excluded rows are spread into one column per reason).
-CSV_COLUMNS = [
-    "look", "as_of", "cutoff", "n1", "n2", "mean1", "mean2", "estimate", "standard_error",
-    "statistic", "df", "p_value", "fraction", "boundary_z", "futility_z", "nominal_p",
-    "cumulative_alpha", "ci_low", "ci_high", "decision", "late_events", "excluded_total",
-    "clusters", "design_effect", "effective_n",
-]
+# The CSV's columns and rows live on the store's read side (``monitor.store.export``), which the
+# dashboard uses too; they stay importable from here, looked up on first use.
+_FROM_EXPORT = ("CSV_COLUMNS", "csv_rows")
+
+
+def __getattr__(name):
+    if name in _FROM_EXPORT:
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store import export
+
+        return getattr(export, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def register(subparsers) -> None:
@@ -35,18 +40,6 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def csv_rows(history):
-    reasons = sorted({reason for look in history for reason in look["excluded"]})
-    header = CSV_COLUMNS + [f"excluded_{reason}" for reason in reasons] + ["warnings"]
-    rows = []
-    for look in history:
-        row = [look[c] for c in CSV_COLUMNS]
-        row += [look["excluded"].get(reason, 0) for reason in reasons]
-        row.append("; ".join(look["warnings"]))
-        rows.append(row)
-    return header, rows
-
-
 def _cluster_text(fmt):
     return {"clusters": "{} clusters".format,
             "design_effect": lambda value: f"design effect {fmt(value, 3)}",
@@ -62,7 +55,7 @@ def table_lines(history):
         body.append([
             str(h["look"]), h["as_of"][:19].replace("T", " "), str(h["n1"]), str(h["n2"]),
             fmt(h["estimate"]), fmt(h["statistic"]), fmt(h["boundary_z"]), fmt(h["p_value"], 3),
-            "-" if h["fraction"] is None else f"{100 * h['fraction']:.0f}%",
+            "-" if h["plan_share"] is None else f"{100 * h['plan_share']:.0f}%",
             fmt(h["cumulative_alpha"], 3), str(h["excluded_total"]), h["decision"],
         ])
     lines = aligned_lines(headers, body)
@@ -77,15 +70,42 @@ def table_lines(history):
     return lines
 
 
+def change_lines(history, changes):
+    """How the version began (after a restart) and every replan, in words."""
+    fmt = readback().format_number
+    lines = []
+    first = history[0]["detail"].get("restart") if history else None
+    if first:
+        if first.get("from_start"):
+            lines.append(f"began after a restart of version {first['after_version']} --from-start: the data "
+                         f"version {first['after_version']} tested were tested again")
+        else:
+            lines.append(f"began after a restart of version {first['after_version']}, on the data after "
+                         f"{first.get('starts_after', 'its last look')} only")
+    for c in changes:
+        if c["kind"] != "replan":
+            continue
+        old = c["old_plan"].get("planned_per_group")
+        new = c["new_plan"].get("planned_per_group")
+        lines.append(f"replan {c['number']} after look {c['after_look']}, {c['made_at'][:16].replace('T', ' ')} "
+                     f"by {c['made_by']}: {old:,} -> {new:,} per group ({c['reason']}); alpha left "
+                     f"{fmt(c['conditional_error'], 3)}, spent on the data after the change")
+    return lines
+
+
 def run(args) -> int:
     engine = open_store(args.config)
     try:
         history = readback().look_history(engine, args.name, version=args.version)
+        changes = readback().plan_change_history(engine, args.name, version=args.version) if history else []
     finally:
         engine.dispose()
     if args.format == "json":
         print_json(history)
     elif args.format == "csv":
+        # lazy: start-up time of the command line (the store package loads SQLAlchemy).
+        from ..store.export import csv_rows
+
         header, rows = csv_rows(history)
         writer = csv.writer(sys.stdout, lineterminator="\n")
         writer.writerow(header)
@@ -93,5 +113,5 @@ def run(args) -> int:
     elif not history:
         print(f"{args.name}: no looks recorded yet")
     else:
-        print("\n".join(table_lines(history)))
+        print("\n".join(table_lines(history) + change_lines(history, changes)))
     return 0

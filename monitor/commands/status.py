@@ -39,8 +39,9 @@ def _interval(row):
     if row["ci_low"] is None and row["ci_high"] is None:
         # a look that tested nothing (no new information) records no interval
         return f"{fmt(row['estimate'])} [no interval]"
-    low = "-inf" if row["ci_low"] is None else fmt(row["ci_low"])
-    high = "inf" if row["ci_high"] is None else fmt(row["ci_high"])
+    # A one-sided design's interval has an open end: said in words, as the report says it.
+    low = "open" if row["ci_low"] is None else fmt(row["ci_low"])
+    high = "open" if row["ci_high"] is None else fmt(row["ci_high"])
     return f"{fmt(row['estimate'])} [{low}, {high}]"
 
 
@@ -82,6 +83,8 @@ def table_lines(rows, now):
         lines.append(line)
         if r.get("baseline"):
             lines.append(f"    {r['baseline']}")
+        if r.get("outlook_words"):
+            lines.append(f"    {r['outlook_words']}")
         lines.extend(f"    warning: {warning}" for warning in r["warnings"])
     return lines
 
@@ -91,6 +94,7 @@ def run(args) -> int:
     try:
         now, note = readback().reference_time(engine, datetime.now(timezone.utc))
         rows = readback().comparison_status(engine, include_archived=args.all, now=now)
+        liveness = readback().monitor_liveness(engine, now=datetime.now(timezone.utc))
     finally:
         engine.dispose()
     if args.format == "json":
@@ -99,6 +103,9 @@ def run(args) -> int:
     if not rows:
         print("no comparisons in the store yet (the first look records one)")
         return 0
+    if liveness["quiet"]:
+        # First, so a dead monitor is never read as "next look in 3 s".
+        print(f"warning: {liveness['message']}")
     print("\n".join(table_lines(rows, now)))
     if note:
         print(f"note: {note}")

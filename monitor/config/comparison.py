@@ -19,7 +19,8 @@ from zoneinfo import ZoneInfo
 
 from ..stats.spending import parse_spending
 from ..vocabulary import parse_duration, parse_moment
-from .model import (ALTERNATIVES, CLUSTER_BUCKETS, DEFAULT_MIN_CLUSTERS, FILTER_OPS, METHODS, METRICS,
+from .model import (ALTERNATIVES, CLUSTER_BUCKETS, DEFAULT_MIN_CLUSTERS, DEFAULT_MIN_PAIRS, MIN_CLUSTERS_FLOOR,
+                    MIN_PAIRS_FLOOR, FILTER_OPS, METHODS, METRICS,
                     PAIR_BUCKETS, TIME_FORMATS, ComparisonConfig)
 from .rules import (IDENTIFIER, Context, FromEnvironment, Part, checked, ctx, duration, float_or_none, identifier,
                     is_number, is_whole, keyed, one_of, plain, unknown_keys, validate, whole,
@@ -145,6 +146,7 @@ class Inference(Part):
     spending: str = checked("obrien-fleming")
     null_difference: float = checked(0.0)
     futility: bool = checked(False)
+    fraction: str = checked("events")
     sigmas: tuple[float, float] | None = checked(None)
 
     @field_validator("metric", mode="before")
@@ -205,6 +207,20 @@ class Inference(Part):
             raise keyed("needs the planning inputs (difference + sd, or p1 + p2, and power) "
                          "instead of planned_per_group: the futility boundary is built from the "
                          "planned difference")
+        return value
+
+    @field_validator("fraction", mode="before")
+    @classmethod
+    def _fraction(cls, value, info):
+        c = ctx(info)
+        if value not in ("events", "information"):
+            raise keyed(f"must be 'events' or 'information'; got {value!r}")
+        if value == "information" and (c.metric != "mean" or c.raw("difference") is None or c.raw("sd") is None):
+            raise keyed("'information' needs a mean comparison planned from difference + sd (the maximum "
+                         "information comes from the planned difference and the design)")
+        if value == "information" and _has_baseline(c):
+            raise keyed("'information' is not used with a baseline: a before/after comparison's fraction "
+                         "comes from its days after the start and in the baseline")
         return value
 
     @field_validator("sigmas", mode="before")
@@ -337,7 +353,20 @@ class Pairing(Part):
 
     pair_by: str | None = checked(None)
     pair_column: str | None = checked(None)
+    min_pairs: int = checked(None)
     shift_starts: tuple[str, ...] = checked(None)
+
+    @field_validator("min_pairs", mode="before")
+    @classmethod
+    def _min_pairs(cls, value, info):
+        method = ctx(info).method
+        if value is None:
+            return DEFAULT_MIN_PAIRS
+        if not is_whole(value) or value < MIN_PAIRS_FLOOR:
+            raise keyed(f"must be an integer of at least {MIN_PAIRS_FLOOR}; got {value!r}")
+        if method != "paired":
+            raise keyed(f"is only used by method 'paired', not {method!r}")
+        return value
 
     @field_validator("pair_by", mode="before")
     @classmethod
@@ -416,8 +445,8 @@ class Clustering(Part):
         c = ctx(info)
         if value is None:
             return DEFAULT_MIN_CLUSTERS
-        if not is_whole(value) or value < 2:
-            raise keyed(f"must be an integer of at least 2; got {value!r}")
+        if not is_whole(value) or value < MIN_CLUSTERS_FLOOR:
+            raise keyed(f"must be an integer of at least {MIN_CLUSTERS_FLOOR}; got {value!r}")
         if not c.clustered and not _has_baseline(c):
             raise keyed("is only used with cluster_by or cluster_column (or a baseline)")
         return value
@@ -637,8 +666,9 @@ class ComparisonTable(BaseModel):
             alternative=t.alternative, alpha=t.alpha, spending=t.spending,
             planned_per_group=p.planned_per_group, difference=p.difference, sd=p.sd, p1=p.p1, p2=p.p2,
             power=p.power, looks=p.looks, every=s.every, sigmas=t.sigmas, pair_by=pr.pair_by,
-            pair_column=pr.pair_column, shift_starts=pr.shift_starts, null_difference=t.null_difference,
-            futility=t.futility, valid_range=r.valid_range, filters=r.filters, lateness=s.lateness,
+            pair_column=pr.pair_column, min_pairs=pr.min_pairs, shift_starts=pr.shift_starts, null_difference=t.null_difference,
+            futility=t.futility, fraction=t.fraction, valid_range=r.valid_range, filters=r.filters,
+            lateness=s.lateness,
             arrival_column=r.arrival_column, time_format=r.time_format, timezone=r.timezone,
             cluster_by=cl.cluster_by, cluster_column=cl.cluster_column, min_clusters=cl.min_clusters,
             notify=s.notify, description=s.description, schema=r.schema_, start=ba.start, baseline=ba.baseline,

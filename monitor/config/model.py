@@ -33,6 +33,9 @@ __all__ = [
     "CHANNEL_TYPES",
     "DEFAULT_STORE_URL",
     "DEFAULT_MIN_CLUSTERS",
+    "DEFAULT_MIN_PAIRS",
+    "MIN_CLUSTERS_FLOOR",
+    "MIN_PAIRS_FLOOR",
 ]
 
 METHODS = ("welch", "pooled", "z", "paired", "proportions")
@@ -46,6 +49,15 @@ CHANNEL_TYPES = ("log", "webhook", "email")
 
 DEFAULT_STORE_URL = "sqlite:///gapwatch-store.sqlite"
 DEFAULT_MIN_CLUSTERS = 10
+# Below four clusters a cluster-robust t has at most two degrees of freedom, and clusters
+# that belong to one group need at least three per group (see stats.clustered).
+MIN_CLUSTERS_FLOOR = 4
+# Pairs a paired comparison needs before it decides: below five the t has three df or fewer
+# and its interval spans ±3.2 standard errors or more, which says little even when the exact
+# sequential t boundary holds the error rate.
+DEFAULT_MIN_PAIRS = 5
+# A paired t on one degree of freedom (two pairs) has an interval of ±12.7 standard errors.
+MIN_PAIRS_FLOOR = 3
 
 
 @dataclass(frozen=True)
@@ -116,9 +128,11 @@ class ComparisonConfig:
     sigmas: tuple | None = None
     pair_by: str | None = None
     pair_column: str | None = None
+    min_pairs: int = DEFAULT_MIN_PAIRS
     shift_starts: tuple = ()
     null_difference: float = 0.0
     futility: bool = False
+    fraction: str = "events"
     valid_range: tuple | None = None
     filters: tuple = ()
     lateness: str = "0s"

@@ -8,13 +8,16 @@
 * ``row``          — the Look row's values from the evidence and decision (pure);
 * ``memory``       — ``LookMemory``, what a process keeps between its looks (injected);
 * ``design_check`` — the design frozen at the first look, and what may not change;
-* ``record``       — ``LookRecord``, what a look recorded;
-* ``restart``      — ``restart_comparison``: archive a version, the next look starts anew.
+* ``record``       — ``LookRecord``, what a look recorded; ``QuietCheck``, a look that found nothing new;
+* ``plan``         — the plan a look measures against: replans, events or information
+  fraction, conditional power and projected completion (pure);
+* ``restart``      — ``restart_comparison``: archive a version, the next look starts anew
+  after its watermark.
 """
 
 from .memory import LookMemory
 from .orchestrator import take_look
-from .record import LookRecord
+from .record import LookRecord, QuietCheck
 from .restart import restart_comparison
 
-__all__ = ["take_look", "restart_comparison", "LookRecord", "LookMemory"]
+__all__ = ["take_look", "restart_comparison", "LookRecord", "QuietCheck", "LookMemory"]

@@ -19,7 +19,6 @@ fails part way.
 
 from __future__ import annotations
 
-import math
 import time
 import uuid
 from dataclasses import replace
@@ -28,19 +27,21 @@ from functools import partial
 
 from ..config import ComparisonConfig
 from ..design import Design
-from ..errors import InvalidArgumentError, UnknownComparisonError
+from ..errors import AsOfBeforeLastLookError, DesignChangedError, InvalidArgumentError, UnknownComparisonError
 from ..source.reader import Source, SourceSpec, Watermark
-from ..stats.boundaries import SequentialBoundary
+from ..stats.adaptive import AdaptiveBoundary
 from ..store.claims import claim
-from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, boundary_looks, read_state,
-                           write_look)
+from ..store.workers import record_check
+from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, archive_active, boundary_looks,
+                           read_state, write_look)
 from ..alerts.wording import decision_payload
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
-from .decision import LookInputs, alert_kind, decide, weigh
+from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
 from .design_check import frozen_design
 from .memory import LookMemory
-from .record import LookRecord
+from .plan import plan_state, resume_boundary
+from .record import LookRecord, QuietCheck
 from .row import LookMoment, look_detail, look_row
 
 __all__ = ["take_look"]
@@ -66,7 +67,8 @@ class _Stopwatch:
         return (time.perf_counter() - self.started) * 1000.0
 
 
-def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None):
+def take_look(config, comparison, *, as_of, engine, source=None, holder=None, memory=None, checked_at=None,
+              checked_by=None):
     """Take one look at a comparison and record it.
 
     Parameters
@@ -88,11 +90,20 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
     memory : LookMemory, optional
         What this process keeps between its looks (one per process); without one the
         look reads everything from the store and keeps nothing.
+    checked_at : datetime, optional
+        Wall time of the check, recorded for a quiet look (default ``as_of``); the
+        service passes the real time, which its schedule runs on.
+    checked_by : str, optional
+        Who checked, recorded for a quiet look (default ``holder``): the service claims by
+        itself and names its worker here.
 
     Returns
     -------
-    LookRecord or None
-        None when the comparison has stopped (it looks no more).
+    LookRecord, QuietCheck or None
+        None when the comparison has stopped (it looks no more); a ``QuietCheck`` when
+        the source held nothing new since the last look: the check is recorded (the
+        ``look_check`` row: when, up to which cutoff, from which watermark) and no look
+        row is written, so the last look's figures and interval stand.
 
     Raises
     ------
@@ -104,6 +115,8 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         The store's schema is not current (`gapwatch db upgrade`).
     LookAlreadyRecordedError
         Another look for this comparison was recorded first; nothing was written.
+    AsOfBeforeLastLookError
+        ``as_of`` is earlier than the comparison's last look; nothing was read or written.
     """
     stopwatch = _Stopwatch(time.perf_counter())
     if isinstance(comparison, str):
@@ -116,20 +129,40 @@ def take_look(config, comparison, *, as_of, engine, source=None, holder=None, me
         raise InvalidArgumentError(str(exc)) from None
     memory = memory if memory is not None else LookMemory()
     if holder is None:
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by)
     with claim(engine, comparison.name, holder, now=as_of, seconds=config.service.lease_seconds):
-        return _look(config, comparison, as_of, engine, source, memory, stopwatch)
+        return _look(config, comparison, as_of, engine, source, memory, stopwatch, checked_at, checked_by or holder)
 
 
-def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch):
+def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory, stopwatch: _Stopwatch,
+          checked_at=None, holder=None):
     configured = memory.configured_design(c)
     state = read_state(engine, c.name, kept=partial(memory.take_state, engine))
     stopwatch.lap("store_read")
     row = state.comparison
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
         return None
-    design = frozen_design(c.name, row, configured)
-    batch, cutoff, design, baseline = _read_source(config, c, design, row, as_of, source, state.cells)
+    if row is not None and row["last_look_at"] is not None and as_of < row["last_look_at"]:
+        raise AsOfBeforeLastLookError(
+            f"comparison {c.name!r}: as-of {as_of.isoformat()} is before its last look "
+            f"(look {row['looks_taken']} as of {row['last_look_at'].isoformat()}); history never goes back")
+    try:
+        design = frozen_design(c.name, row, configured)
+    except DesignChangedError:
+        if not _groups_without_rows(state):
+            raise
+        # A configured group never had a row (a typo'd group name, or a site not live yet) and
+        # nothing was tested: the design was never really frozen. The version that waited is
+        # archived as it stands and the configuration as it is now starts the next one, reading
+        # the table from its start (the rows a typo left out as unknown_group are read again).
+        archive_active(engine, c.name)
+        state = read_state(engine, c.name)
+        row = state.comparison
+        design = frozen_design(c.name, row, configured)
+        restart = None   # not a restart: the new version reads the table from its start
+    else:
+        restart = state.restart
+    batch, cutoff, design, baseline = _read_source(config, c, design, row, as_of, source, restart, state.cells)
     stopwatch.lap("source")
 
     rolled = roll_up(design, batch)
@@ -137,19 +170,36 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         rolled.changes.update(baseline)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
+    if row is not None and not (look_counts.new_events or look_counts.late_events or baseline
+                                or any(look_counts.excluded_new.values())):
+        return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
+    stored = design.to_stored()
+    plan = plan_state(stored, state.replans)
     evidence = weigh(LookInputs(design, cells, cutoff, sum(look_counts.excluded.values()),
-                                last.fraction if last is not None else 0.0))
+                                last.fraction if last is not None else 0.0, plan))
     key = design.fingerprint() if evidence.tests or row is None else None
-    boundary = _resumed_boundary(engine, memory, state, design, key, evidence.futility) if evidence.tests else None
+    boundary = (_resumed_boundary(engine, memory, state, design, stored, key, evidence.futility, plan)
+                if evidence.tests else None)
     decision = decide(evidence, boundary)
 
     moment = LookMoment(state.looks_taken + 1, as_of, cutoff, batch.watermark.arrival)
     values = look_row(moment, evidence, decision, look_counts)
+    waiting = _groups_without_rows(state, design, cells)
+    if waiting:
+        values["warnings"] = list(values["warnings"]) + [
+            f"group {', '.join(repr(g) for g in waiting)} has had no row in {c.table!r} yet: the design is not "
+            f"frozen until every group has had one (a corrected group name is then accepted)"]
     alert = alert_kind(row["state"] if row is not None else "collecting", decision.decision)
     values["duration_ms"] = stopwatch.total()
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
+    if row is None and restart is not None:
+        detail["restart"] = _restart_detail(restart)
+        if restart["from_start"]:
+            values["warnings"] = values["warnings"] + [
+                f"restarted from the start: the data version {restart['after_version']} tested are "
+                f"tested again (its false alarms add to this version's)"]
     detail["timings_ms"] = {k: round(v, 3) for k, v in stopwatch.laps.items()}
     # Random, not from the clock: tells the next look whether the store's newest look is this one.
     detail["state_token"] = token = uuid.uuid4().hex
@@ -163,21 +213,56 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
             alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify))))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.
-        memory.keep_boundary(engine, written.comparison_id, key, boundary)
+        memory.keep_boundary(engine, written.comparison_id, _boundary_key(key, state), boundary)
     if engine.dialect.name in _EXACT_FLOAT_STORES:
         if decision.boundary is not None:
             last = BoundaryLookRow(decision.boundary_number, values["fraction"], values["boundary_z"],
-                                   values["futility_z"])
+                                   values["futility_z"], values["df"],
+                                   (values.get("detail") or {}).get("bounds"))
         memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
     return _record(c, written, moment, evidence, decision, values, stopwatch)
 
 
-def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, stored_cells):
-    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data.
+def _quiet(engine, c, state, as_of, cutoff, checked_at, holder) -> QuietCheck:
+    """Record that the comparison was checked and found nothing new (no look row, nothing spent).
 
-    A before/after comparison also reads its baseline, once: at the first look whose
-    cutoff has passed the baseline's end (its cells are returned as changes, frozen from
-    then on; rows dated in it that arrive later are counted as ``before_start``).
+    The watermark stays where the last look left it, so the next look reads from there.
+    """
+    row = state.comparison
+    watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
+    n1, n2 = (state.cells.get(("total", i, ""), (0, 0.0, 0.0))[0] for i in (0, 1))
+    quiet = QuietCheck(comparison=c.name, version=row["version"], look=row["looks_taken"], as_of=as_of,
+                       cutoff=cutoff, read_from=None if watermark is None else watermark.cutoff,
+                       state=row["state"], n1=int(n1), n2=int(n2))
+    record_check(engine, c.name, checked_at=checked_at or as_of, as_of=as_of, holder=holder, outcome="quiet",
+                 detail=json_safe({"version": quiet.version, "look": quiet.look, "cutoff": cutoff.isoformat(),
+                                   "read_from": None if quiet.read_from is None else quiet.read_from.isoformat(),
+                                   "new_events": 0}))
+    return quiet
+
+
+def _groups_without_rows(state, design=None, cells=None) -> list[str]:
+    """The design's groups that never had a valid row, while no look has tested: [] once the design is frozen."""
+    if state.last_boundary_look is not None:
+        return []
+    if design is None:
+        if state.comparison is None:
+            return []
+        groups, cells = list(state.comparison["design"].get("groups") or []), state.cells
+    else:
+        groups = list(design.groups)
+    return [g for i, g in enumerate(groups) if cells.get(("total", i, ""), (0, 0.0, 0.0))[0] == 0]
+
+
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, restart=None, stored_cells=()):
+    """The batch of new slot cells up to the cutoff, the design with its shift fixed at the first data,
+    and a before/after comparison's baseline cells when this look reads them (else None).
+
+    The first look of a restarted comparison's new version starts after the archived
+    version's watermark, unless the restart was made ``--from-start``. A before/after
+    comparison also reads its baseline, once: at the first look whose cutoff has passed
+    the baseline's end (its cells are returned as changes, frozen from then on; rows dated
+    in it that arrive later are counted as ``before_start``).
     """
     own_source = source is None
     if own_source:
@@ -193,7 +278,12 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
                 SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
             design = design.with_shift(shift)
         spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
-        watermark = Watermark.from_dict(row["watermark"]) if row is not None and row["watermark"] else None
+        if row is not None:
+            watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
+        elif restart is not None and not restart["from_start"] and restart["watermark"]:
+            watermark = Watermark.from_dict(restart["watermark"])
+        else:
+            watermark = None
         cutoff = as_of - timedelta(seconds=c.lateness_seconds)
         if watermark is not None and cutoff < watermark.cutoff:
             cutoff = watermark.cutoff  # never read backwards: an earlier as_of adds nothing
@@ -240,8 +330,15 @@ def _later(a, b) -> bool:
         return str(a) > str(b)
 
 
-def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, futility) -> SequentialBoundary:
-    """The sequential boundary standing at the recorded testing looks.
+def _boundary_key(key, state) -> str:
+    """Kept boundaries are keyed by design and replans: a replan makes a kept one stale."""
+    replans = state.comparison["replans"] if state.comparison is not None else 0
+    return f"{key}:{replans}"
+
+
+def _resumed_boundary(engine, memory: LookMemory, state, design: Design, stored: dict, key, futility, plan):
+    """The boundary standing at the recorded testing looks: the design's sequential boundary
+    while the plan is the original one, an ``AdaptiveBoundary`` with the replans applied after a change.
 
     The one kept in memory is used when it stands at the last recorded testing look;
     otherwise it is resumed from the testing looks this look's read saw (another process
@@ -250,17 +347,27 @@ def _resumed_boundary(engine, memory: LookMemory, state, design: Design, key, fu
     last = state.last_boundary_look
     count = last.boundary_look if last is not None else 0
     row = state.comparison
-    kept = memory.take_boundary(engine, row["id"], key) if row is not None else None
-    if kept is not None and len(kept.looks) == count and (
-            count == 0 or (kept.looks[-1].fraction == last.fraction and kept.looks[-1].z == last.boundary_z)):
+    kept = memory.take_boundary(engine, row["id"], _boundary_key(key, state)) if row is not None else None
+    if kept is not None and len(kept.looks) == count and (count == 0 or (
+            kept.looks[-1].fraction == last.fraction
+            and (isinstance(kept, AdaptiveBoundary) or kept.looks[-1].z == last.boundary_z))):
         return kept
     recorded = boundary_looks(engine, row["id"], count) if count else []
-    return SequentialBoundary.resume(
-        design.alpha, design.spending, design.alternative,
-        [r.fraction for r in recorded], [r.boundary_z for r in recorded],
-        futility_z=[(-math.inf if r.futility_z is None else r.futility_z) for r in recorded]
-        if futility is not None else None,
-        futility=futility)
+    if plan.replans:
+        return resume_boundary(stored, plan, futility, [r._asdict() for r in recorded])
+    return resumed_boundary(design, recorded, futility)
+
+
+def _restart_detail(restart: dict) -> dict:
+    """How this version began: after the archived version's watermark, or from the start again."""
+    out = {"after_version": restart["after_version"], "from_start": restart["from_start"]}
+    mark = restart.get("watermark") or {}
+    if not restart["from_start"] and mark.get("cutoff"):
+        out["starts_after"] = mark["cutoff"]
+    for key in ("made_by", "reason"):
+        if restart.get(key):
+            out[key] = restart[key]
+    return out
 
 
 def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatch) -> LookRecord:
@@ -274,6 +381,6 @@ def _record(c, written, moment: LookMoment, evidence, decision, values, stopwatc
         boundary_z=values["boundary_z"], nominal_p=values["nominal_p"], boundary_look=decision.boundary_number,
         clusters=evidence.stat.clusters, design_effect=values["design_effect"], effective_n=values["effective_n"],
         new_events=values["new_events"], late_events=values["late_events"], excluded=values["excluded"],
-        warnings=evidence.warnings, look_id=written.look_id, alert_id=written.alert_id,
+        warnings=tuple(values["warnings"]), look_id=written.look_id, alert_id=written.alert_id,
         duration_ms=stopwatch.total(), detail=values["detail"],
     )

@@ -5,7 +5,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass, field
 from datetime import datetime
 
-__all__ = ["LookRecord"]
+__all__ = ["LookRecord", "QuietCheck"]
 
 
 @dataclass(frozen=True)
@@ -66,4 +66,43 @@ class LookRecord:
         out["as_of"] = self.as_of.isoformat()
         out["cutoff"] = self.cutoff.isoformat()
         out["warnings"] = list(self.warnings)
+        return out
+
+
+@dataclass(frozen=True)
+class QuietCheck:
+    """A look that found nothing new: the comparison was checked, no testing look was recorded.
+
+    ``look`` is the comparison's last recorded look, whose figures (and interval) still stand.
+    """
+
+    comparison: str
+    version: int
+    look: int
+    as_of: datetime
+    cutoff: datetime
+    read_from: datetime | None
+    state: str
+    n1: int
+    n2: int
+    new_events: int = 0
+    quiet: bool = True
+    warnings: tuple = ()
+
+    @property
+    def decision(self) -> str:
+        return self.state
+
+    def line(self) -> str:
+        """One printable line saying what was checked and that nothing was recorded."""
+        return (f"{self.comparison} v{self.version}: nothing new up to {self.cutoff.isoformat()}; "
+                f"checked, no look recorded (look {self.look} stands: {self.state}; n {self.n1}/{self.n2})")
+
+    def to_dict(self) -> dict:
+        out = asdict(self)
+        out["as_of"] = self.as_of.isoformat()
+        out["cutoff"] = self.cutoff.isoformat()
+        out["read_from"] = None if self.read_from is None else self.read_from.isoformat()
+        out["warnings"] = list(self.warnings)
+        out["decision"] = self.state
         return out

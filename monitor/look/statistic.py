@@ -19,13 +19,20 @@ from ..errors import InvalidArgumentError
 from ..stats import fixed
 from ..stats.boundaries import FutilitySpec
 from ..stats.before_after import difference_in_differences
-from ..stats.clustered import cluster_robust_difference, design_effect
+from ..stats.clustered import cluster_counts, cluster_robust_difference, design_effect
 from ..stats.summaries import MomentSummary
 from ..vocabulary import json_safe
 from .cells import BASELINE_READ, of_kind
 
+
+def cluster_variance(design: Design) -> str:
+    """Cluster-robust variance of a clustered design: CR1 for calendar buckets shared by both
+    groups; for a cluster column, CR2 (Bell–McCaffrey) when every cluster belongs to one group."""
+    return "auto" if design.clustering is not None and design.clustering.cluster_column else "cr1"
+
+
 __all__ = ["Stat", "statistic", "one_sided_ps", "t_critical", "futility_spec", "day_design_effect",
-           "finite_or_none"]
+           "finite_or_none", "cluster_variance"]
 
 
 def finite_or_none(x):
@@ -54,7 +61,9 @@ class Stat:
     problem: str | None = None       # a data problem (the decision is data_problem)
     waiting: str | None = None       # not enough data yet (collecting / awaiting_clusters)
     awaiting_clusters: bool = False
-    before_after: dict | None = None  # baseline gap, after-only gap, relative effect (before/after)
+    cluster_counts: dict | None = None   # clusters per group and the minimum that applies
+    counts: tuple | None = None          # (successes1, n1, successes2, n2) for rates
+    before_after: dict | None = None     # baseline gap, after-only gap, relative effect (before/after)
 
     @property
     def testable(self) -> bool:
@@ -112,26 +121,33 @@ def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = f"{len(diffs)} complete pair(s) so far; a paired test needs at least 2"
             return st
         result = fixed.from_summaries("paired", MomentSummary.from_values(diffs), None, **common)
+        min_pairs = pairing.min_pairs
+        if len(diffs) < min_pairs:
+            # The statistic is shown; the comparison decides from min_pairs pairs on.
+            st.waiting = f"{len(diffs)} complete pairs so far; decisions start at {min_pairs} (min_pairs)"
     elif design.clustered:
         rows = [(gi, key, v) for gi, key, v in of_kind(cells, "cluster") if v[0] > 0]
         rows.sort(key=lambda r: (r[0], r[1]))
-        shift = design.shift or 0.0
-        result = cluster_robust_difference(
-            [r[0] for r in rows], [r[1] for r in rows], [r[2][0] for r in rows],
-            [r[2][1] for r in rows], shift, sum_dev2=[r[2][2] for r in rows], **common)
-        st.clusters = int(result.clusters)
-        st.cluster_design_effect = finite_or_none(result.design_effect)
-        st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
-        st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
-        st.fixed = json_safe(result.to_dict())
-        if result.clusters < design.min_clusters:
-            st.waiting = (f"{result.clusters} clusters so far; decisions start at "
-                          f"{design.min_clusters} (min_clusters)")
+        groups, keys = [r[0] for r in rows], [r[1] for r in rows]
+        count = cluster_counts(groups, keys, [r[2][0] for r in rows], min_clusters=design.min_clusters)
+        st.clusters = count.total
+        st.cluster_counts = count.to_dict()
+        if not count.enough:
+            # No statistic while waiting: with too few clusters of a group its figures mean nothing.
+            st.waiting = count.reason
             st.awaiting_clusters = True
             return st
+        shift = design.shift or 0.0
+        result = cluster_robust_difference(
+            groups, keys, [r[2][0] for r in rows], [r[2][1] for r in rows], shift,
+            sum_dev2=[r[2][2] for r in rows], variance=cluster_variance(design), **common)
+        st.cluster_design_effect = finite_or_none(result.design_effect)
+        st.fixed = json_safe(result.to_dict())
         if result.degenerate or not math.isfinite(result.standard_error) or result.standard_error == 0:
             st.problem = "the cluster-level spread is zero or undefined: " + "; ".join(result.notes)
             return st
+        st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
+        st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
         st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
         return st
     else:
@@ -140,6 +156,8 @@ def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
             st.waiting = "each group needs at least 2 events for a variance"
             return st
         result = fixed.from_summaries(method, s1, s2, sigmas=design.sigmas, **common)
+        if method == "proportions":
+            st.counts = (int(round(s1.total)), s1.n, int(round(s2.total)), s2.n)
 
     st.estimate = float(result.estimate)
     st.standard_error = finite_or_none(result.standard_error)
@@ -243,4 +261,4 @@ def day_design_effect(design: Design, cells, s1, s2):
         return None
     if not math.isfinite(de.design_effect):
         return None
-    return de
+    return de   # de.measurable says whether enough days hold events to report it

@@ -91,6 +91,10 @@ class Review:
     warnings: tuple
     generated_at: str
     caution: str = CAUTION
+    # A before/after comparison: the baseline gap in words and the latest look's figures
+    # (``baseline_gap``, ``after_gap``, ``relative``, ``means`` …); None for other comparisons.
+    baseline: str | None = None
+    before_after: dict | None = None
     extra: dict = field(default_factory=dict)
 
 
@@ -127,4 +131,5 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         design=design, settings=settings, created_at=row["created_at"], stopped_at=row["stopped_at"],
         looks=tuple(lines), excluded=excluded, adjusted=row["adjusted"], alerts=alerts,
         versions=versions, warnings=tuple(row["warnings"]), generated_at=now.isoformat(timespec="seconds"),
+        baseline=row.get("baseline"), before_after=row.get("before_after") if design.before_after else None,
     )

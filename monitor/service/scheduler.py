@@ -46,7 +46,9 @@ from ..look import LookMemory, take_look
 from ..source.reader import Source
 from ..store.claims import claim, make_holder
 from ..store.engine import ensure_current, make_engine
+from ..store.workers import beat, last_check, record_check, worker_stopped
 from ..errors import (
+    AsOfBeforeLastLookError,
     ClaimHeldError,
     ConfigError,
     DesignChangedError,
@@ -69,6 +71,12 @@ DELIVERY_EVERY_SECONDS = 2.0
 CRON_FIRST_BACKOFF_SECONDS = 60.0
 # While the store is unreachable at start-up, try again this often.
 STORE_RETRY_SECONDS = 5.0
+# How often a worker writes its heartbeat to the store.
+HEARTBEAT_SECONDS = 5.0
+# A tick may fire this much before the schedule's time and still count as due (a share of
+# the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
+DUE_SLACK_SHARE = 0.1
+DUE_SLACK_CAP_SECONDS = 5.0
 
 _FAILED_OUTCOMES = ("source_failed", "store_unavailable", "design_changed", "error")
 
@@ -138,6 +146,27 @@ def _misfire_grace(comparison) -> int:
     return 60
 
 
+def due_slack(comparison) -> float:
+    """Seconds by which a tick may come early and still be due."""
+    return min(DUE_SLACK_SHARE * _first_backoff(comparison), DUE_SLACK_CAP_SECONDS)
+
+
+def is_due(comparison, last_checked, now) -> bool:
+    """Whether ``comparison`` is due at wall time ``now``, given when any worker last checked it.
+
+    An interval schedule is due ``every`` after the last check; a cron schedule is due once
+    one of its times has passed since the last check. Never checked: due.
+    """
+    if last_checked is None:
+        return True
+    slack = due_slack(comparison)
+    schedule = comparison.schedule
+    if isinstance(schedule, (int, float)):
+        return (now - last_checked).total_seconds() >= float(schedule) - slack
+    following = _trigger_for(comparison).get_next_fire_time(None, last_checked)
+    return following is not None and (following - now).total_seconds() <= slack
+
+
 def _schedule_key(comparison):
     return (comparison.every, comparison.timezone)
 
@@ -176,6 +205,8 @@ class Service:
         self.redactor = _RedactingFilter()
         # What this process keeps between its looks (cells, boundaries): one for all its threads.
         self.memory = LookMemory()
+        self.started_at = wall_clock()
+        self._looked_at = None
 
     # ------------------------------------------------------------------ set-up
 
@@ -252,7 +283,11 @@ class Service:
     def look_once(self, name: str, *, honour_backoff: bool = True) -> str:
         """One tick for comparison ``name``: claim, look, log, release. Returns the outcome.
 
-        Outcomes: recorded, stopped, held, backoff, duplicate, removed,
+        With ``honour_backoff`` (every scheduled tick) a comparison is looked at only when it
+        is due by the store's record of its last check, whichever worker took it; ``--once``
+        looks regardless.
+
+        Outcomes: recorded, quiet, stopped, held, not_due, backoff, as_of_behind, duplicate, removed,
         source_failed, store_unavailable, design_changed, error. Never raises.
         """
         with self._lock:
@@ -273,12 +308,26 @@ class Service:
                     return "backoff"
             with claim(self.engine, name, self.holder, now=wall_clock(), seconds=service.lease_seconds,
                        renew_clock=wall_clock):
+                checked_at = wall_clock()
+                if honour_backoff:
+                    previous = last_check(self.engine, name)
+                    if not is_due(comparison, previous and previous["checked_at"], checked_at):
+                        log.debug("look skipped comparison=%s reason=not_due", name)
+                        return "not_due"
                 as_of = self.clock()
                 began = time.perf_counter()
                 # holder=None: the claim is ours already (take_look would claim again).
                 record = take_look(config, comparison, as_of=as_of, engine=self.engine,
-                                   source=sources.get(comparison.source), holder=None, memory=self.memory)
+                                   source=sources.get(comparison.source), holder=None, memory=self.memory,
+                                   checked_at=checked_at, checked_by=self.holder)
                 duration_ms = (time.perf_counter() - began) * 1000.0
+                quiet = getattr(record, "quiet", False)
+                if not quiet:  # a quiet look recorded its own check
+                    # Still under the claim, so the next worker to win it sees this check.
+                    record_check(self.engine, name, checked_at=checked_at, as_of=as_of, holder=self.holder,
+                                 outcome="recorded" if record is not None else "stopped",
+                                 detail={} if record is None else {"look": _record_field(record, "look")})
+                self._looked_at = checked_at
         except ClaimHeldError:
             log.debug("look skipped comparison=%s reason=claimed_by_another_worker", name)
             return "held"
@@ -301,6 +350,11 @@ class Service:
             self._report_once(name, ("design", str(exc)), logging.ERROR,
                               "look refused comparison=%s reason=design_changed error=%s", name, exc)
             return "design_changed"
+        except AsOfBeforeLastLookError as exc:
+            # The clock went back (or another worker's runs ahead): wait until it passes the last look.
+            self._report_once(name, ("as_of", "behind"), logging.WARNING,
+                              "look refused comparison=%s reason=as_of_before_last_look error=%s", name, exc)
+            return "as_of_behind"
         except StoreBehindError as exc:
             log.error("look refused comparison=%s reason=store_behind error=%s", name, exc)
             return "store_unavailable"
@@ -318,17 +372,21 @@ class Service:
                               "look skipped comparison=%s reason=comparison_stopped", name)
             return "stopped"
         self._reported.pop(name, None)
-        log.info(
-            "look comparison=%s version=%s look=%s decision=%s n1=%s n2=%s as_of=%s duration_ms=%.1f",
-            name, _record_field(record, "version"), _record_field(record, "look_number", "look"),
-            _record_field(record, "decision"), _record_field(record, "n1"), _record_field(record, "n2"),
-            as_of.isoformat(), duration_ms,
-        )
+        if quiet:
+            log.info("look quiet comparison=%s version=%s stands_at_look=%s nothing_new_to=%s as_of=%s",
+                     name, record.version, record.look, record.cutoff.isoformat(), as_of.isoformat())
+        else:
+            log.info(
+                "look comparison=%s version=%s look=%s decision=%s n1=%s n2=%s as_of=%s duration_ms=%.1f",
+                name, _record_field(record, "version"), _record_field(record, "look_number", "look"),
+                _record_field(record, "decision"), _record_field(record, "n1"), _record_field(record, "n2"),
+                as_of.isoformat(), duration_ms,
+            )
         try:
             record_source_recovered(self.engine, name, now=as_of, notify=comparison.notify)
         except (OperationalError, DBAPIError) as exc:
             log.error("store unavailable comparison=%s error=%s", name, redact(exc, self.redactor.secrets))
-        return "recorded"
+        return "quiet" if quiet else "recorded"
 
     def deliver(self) -> int:
         """Deliver due alerts once; never raises."""
@@ -344,6 +402,15 @@ class Service:
             log.exception("alert delivery failed reason=unexpected error=%s",
                           redact(f"{type(exc).__name__}: {exc}", self.redactor.secrets))
         return 0
+
+    def heartbeat(self) -> None:
+        """Tell the store this worker is alive (and when it last looked); never raises."""
+        try:
+            beat(self.engine, self.holder, now=wall_clock(), started_at=self.started_at,
+                 looked_at=self._looked_at)
+        except Exception as exc:  # noqa: BLE001 - a missed beat only makes the worker look older
+            log.warning("heartbeat not written error=%s", redact(f"{type(exc).__name__}: {exc}",
+                                                                 self.redactor.secrets))
 
     # ------------------------------------------------------------------ scheduling
 
@@ -370,6 +437,11 @@ class Service:
         self.scheduler.add_job(
             self.deliver, "interval", seconds=DELIVERY_EVERY_SECONDS, id="deliver-alerts",
             name="deliver pending alerts", coalesce=True, max_instances=1, misfire_grace_time=5,
+            next_run_time=datetime.now(timezone.utc),
+        )
+        self.scheduler.add_job(
+            self.heartbeat, "interval", seconds=HEARTBEAT_SECONDS, id="heartbeat",
+            name="worker heartbeat", coalesce=True, max_instances=1, misfire_grace_time=5,
             next_run_time=datetime.now(timezone.utc),
         )
         self.scheduler.start()
@@ -437,6 +509,11 @@ class Service:
             log.info("service stopping: waiting for running looks to finish")
             self.scheduler.shutdown(wait=True)
             self.scheduler = None
+            if self.engine is not None:
+                try:
+                    worker_stopped(self.engine, self.holder, now=wall_clock())
+                except Exception:  # noqa: BLE001 - the heartbeat simply ages
+                    pass
         for source in self.sources.values():
             try:
                 source.dispose()

@@ -62,13 +62,12 @@ import math
 from dataclasses import dataclass, field, fields
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import optimize, stats
 
 from ..errors import InvalidArgumentError
 from ._checks import check_alternative, finite, open_unit, whole
 from .clustered import ClusteredResult, _as_array, _key_codes, cluster_robust_difference
 from .fixed import _critical_values, _interval, _p_value
-from .inference import SequentialEstimate, median_unbiased_estimate
 from .planning import _quantiles, _stop_profile, design_boundaries, sequential_drift
 from .spending import parse_spending
 
@@ -79,7 +78,6 @@ __all__ = [
     "degrees_of_freedom",
     "day_variance",
     "information",
-    "estimate_after_stop",
     "information_fraction",
     "planned_degrees_of_freedom",
     "plan_before_after",
@@ -513,80 +511,6 @@ def _relative(means, covariance, events, sizes, variance, clusters, alpha, alter
 
 
 # ----------------------------------------------------------------------------- after a stop
-
-
-def estimate_after_stop(fractions, upper_z, stop_look, estimate, standard_error, df, *,
-                        null_difference=0.0, alternative="two-sided", alpha=0.05) -> SequentialEstimate:
-    """Median-unbiased estimate and adjusted interval after a stop, on the t statistic's own scale.
-
-    The look decides by the nominal-level approach: its t statistic crosses
-    when its one-sided p-value reaches the boundary's nominal level, so the
-    stagewise ordering is that of ``z = Φ⁻¹(1 − p)``. The median-unbiased drift
-    and the interval's drifts (:func:`monitor.stats.inference.median_unbiased_estimate`)
-    are found on that z scale and turned back into differences through the same
-    t mapping: a drift ``θ`` (at the stop look) leaves the observed ``z`` a
-    distance ``z − θ`` with tail ``Φ(θ − z)``; the t distance with that tail on
-    ``df`` gives ``δ0 + (t − distance) · SE``. At a single look this returns the
-    estimate and its t interval; taking the z drift straight onto the
-    difference scale instead shrinks every estimate by about ``z/t`` (a tenth
-    at 16 degrees of freedom).
-
-    Parameters
-    ----------
-    fractions, upper_z : sequence of float
-        Information fractions and efficacy boundaries (z) of the testing looks up to the stop.
-    stop_look : int
-        The testing look that stopped (1-based).
-    estimate, standard_error, df : float
-        The look's estimate, standard error and degrees of freedom.
-    null_difference, alternative, alpha
-        As for the comparison.
-
-    Returns
-    -------
-    SequentialEstimate
-        ``estimate``, ``ci``, the stagewise ``p_value``, ``naive_estimate`` (the
-        look's estimate) and ``stop_look``.
-
-    Examples
-    --------
-    >>> r = estimate_after_stop([1.0], [1.96], 1, -4.0, 1.5, 20.0)
-    >>> round(r.estimate, 6), [round(c, 3) for c in r.ci]
-    (-4.0, [-7.129, -0.871])
-    """
-    se = finite(standard_error, "standard_error")
-    if se <= 0:
-        raise InvalidArgumentError(f"standard_error must be positive; got {standard_error!r}")
-    df = float(df)
-    if not df > 0:
-        raise InvalidArgumentError(f"df must be positive; got {df!r}")
-    estimate = finite(estimate, "estimate")
-    null_difference = finite(null_difference, "null_difference")
-    t_fractions = np.asarray(fractions, dtype=float)
-    look = whole(stop_look, "stop_look", 1)
-    if look > t_fractions.size:
-        raise InvalidArgumentError(f"stop_look must be at most {t_fractions.size}; got {stop_look!r}")
-    fraction = float(t_fractions[look - 1])
-    t = (estimate - null_difference) / se
-    z = float(-special.ndtri(special.stdtr(df, -t))) if abs(t) < 1e300 else math.copysign(40.0, t)
-    if not math.isfinite(z):
-        z = math.copysign(40.0, t)
-    information = 1.0 / (se * se * fraction)
-    mue = median_unbiased_estimate(fractions, upper_z, look, z, information, alternative, alpha=alpha)
-    root = math.sqrt(information * fraction)
-
-    def back(value):
-        if value is None:
-            return None
-        # How far the observed z sits above the drift at the stop look, as a tail
-        # probability, and the t distance with that tail: at a single look this is
-        # exactly the t interval about the estimate.
-        distance = float(special.stdtrit(df, special.ndtr(z - value * root)))
-        return null_difference + (t - distance) * se
-
-    return SequentialEstimate(estimate=back(mue.estimate), ci=tuple(back(c) for c in mue.ci),
-                              alpha=mue.alpha, p_value=mue.p_value, naive_estimate=estimate,
-                              stop_look=look)
 
 
 # ----------------------------------------------------------------------------- planning

@@ -66,8 +66,10 @@ t-based tests: the nominal-level rule
 Tests whose statistic is not normal (pooled, Welch, paired and clustered t) are
 compared through p-values: at look ``k`` reject when the look's one-sided
 p-value in the tested direction (for two-sided, in either direction) is at or
-below the boundary's nominal level ``1 − Φ(z_k)``; see
-:func:`nominal_decision`. Futility uses the same idea: the one-sided p-value in
+below the boundary's nominal level; see :func:`nominal_decision`. With this
+z engine's ``1 − Φ(z_k)`` that rule runs above alpha at small degrees of
+freedom; the look takes its nominal levels from the exact sequential t
+boundaries of :mod:`monitor.stats.sequential_t` instead. Futility uses the same idea: the one-sided p-value in
 the planned direction is turned back into a z by ``Φ⁻¹(1 − p)`` and compared
 with ``f_k`` (:func:`futility_decision`).
 
@@ -577,6 +579,26 @@ class SequentialBoundary:
                 f = _recorded("futility_z", futility_z[k], allow_negative=True, allow_minus_inf=True)
             boundary._take(t, z, f)
         return boundary
+
+    def add_recorded_look(self, fraction, z, futility_z=None) -> LookBoundary:
+        """Append one recorded look, using its boundary as it is (see :meth:`resume`).
+
+        Examples
+        --------
+        >>> b = SequentialBoundary(0.025, "pocock", "greater")
+        >>> look = b.add_recorded_look(0.5, 2.2)
+        >>> round(b.alpha_used, 6)   # 1 - Φ(2.2): what the recorded boundary spent
+        0.013903
+        """
+        z = _recorded("upper_z", z, allow_negative=not self._two_sided)
+        f = None
+        if self.futility is not None:
+            if futility_z is None:
+                raise InvalidArgumentError("futility_z: required when the design has futility")
+            f = _recorded("futility_z", futility_z, allow_negative=True, allow_minus_inf=True)
+        elif futility_z is not None:
+            raise InvalidArgumentError("futility_z: given without a futility design")
+        return self._take(fraction, z, f)
 
     def _take(self, fraction, z_recorded, f_recorded) -> LookBoundary:
         if self.complete:

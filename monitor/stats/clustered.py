@@ -51,26 +51,47 @@ __all__ = [
     "clusters_needed",
     "DEGENERATE_CLUSTER_NOTE",
     "TOO_FEW_CLUSTERS_NOTE",
+    "ONE_CLUSTER_NOTE",
+    "VARIANCES",
+    "MIN_CLUSTERS_PER_GROUP",
+    "ClusterCounts",
+    "cluster_counts",
+    "MIN_CLUSTERS_FOR_DESIGN_EFFECT",
+    "NOT_YET_MEASURABLE",
 ]
 
 DEGENERATE_CLUSTER_NOTE = "degenerate: the cluster-level residuals are all zero"
+ONE_CLUSTER_NOTE = ("degenerate: a group has only one cluster of its own, so its between-cluster "
+                    "variance cannot be estimated")
+VARIANCES = ("cr1", "cr2", "auto")
+#: Clusters of its own each group needs before a comparison with clusters nested in
+#: groups decides: CR2 is undefined with one, and with two its Bell–McCaffrey df are
+#: about one (a t on one df makes every interval nearly unbounded).
+MIN_CLUSTERS_PER_GROUP = 3
+#: Days (clusters) with events before a measured design effect is reported: the CR1
+#: variance over G days rests on G − 1 degrees of freedom, so from two days the ratio
+#: is noise (its relative standard error is about √(2/(G − 1)): 1.4 at 2 days, 0.47 at 10).
+MIN_CLUSTERS_FOR_DESIGN_EFFECT = 10
+NOT_YET_MEASURABLE = "not yet measurable"
+# Variance below this share of the estimate's scale is zero up to rounding.
+_ZERO_VARIANCE = 1e-24
 TOO_FEW_CLUSTERS_NOTE = "degenerate: fewer than two clusters (no degrees of freedom)"
 
 
 @dataclass(frozen=True)
 class ClusteredResult:
-    """Difference between two groups with a cluster-robust (CR1) standard error.
+    """Difference between two groups with a cluster-robust (CR1 or CR2) standard error.
 
     Attributes
     ----------
     estimate : float
         ``mean1 − mean2`` (event-weighted means).
     standard_error : float
-        CR1 standard error of the estimate.
+        Cluster-robust standard error of the estimate (see ``variance_method``).
     statistic : float
         ``(estimate − null_difference) / standard_error``.
     df : float
-        ``clusters − 1``.
+        ``clusters − 1`` for CR1; the Bell–McCaffrey degrees of freedom for CR2.
     p_value : float
         From Student t on ``df`` for the alternative.
     ci : tuple
@@ -88,8 +109,9 @@ class ClusteredResult:
         CR1 variance / naive variance: how many times the event-level variance
         understates the variance of the difference.
     effective_n : tuple or None
-        ``(n1 / design_effect, n2 / design_effect)``: events per group an
-        independent sample of equal precision would need.
+        ``(n1 / d, n2 / d)`` with ``d = max(design_effect, 1)``: events per
+        group an independent sample of equal precision would need (never more
+        than the events there are).
     critical_values : tuple
         ``(-c, c)`` for two-sided, ``(c,)`` / ``(-c,)`` for one-sided, on the t scale.
     reject : bool
@@ -100,6 +122,8 @@ class ClusteredResult:
         The test asked for.
     clusters_group1, clusters_group2, shared_clusters : int
         Clusters with events of group 1, of group 2, and of both.
+    variance_method : str
+        ``"cr1"`` or ``"cr2"`` (Bell–McCaffrey).
     """
 
     estimate: float
@@ -123,6 +147,7 @@ class ClusteredResult:
     clusters_group1: int = 0
     clusters_group2: int = 0
     shared_clusters: int = 0
+    variance_method: str = "cr1"
     _interval: tuple = field(default=(), repr=False, compare=False)
 
     @property
@@ -191,13 +216,17 @@ class DesignEffect:
     design_effect : float
         CR1 variance of the difference / event-level (Welch-type) variance.
     effective_n : tuple of float
-        ``(n1 / design_effect, n2 / design_effect)``.
+        ``(n1 / d, n2 / d)`` with ``d = max(design_effect, 1)`` (never above n).
     effective_total : float
-        ``(n1 + n2) / design_effect``.
+        ``(n1 + n2) / d``.
     clusters : int
         Distinct clusters.
     cr1_variance, naive_variance : float
         The two variances compared.
+    measurable : bool
+        Whether enough clusters hold events (``MIN_CLUSTERS_FOR_DESIGN_EFFECT``
+        by default) for the figure to mean something; when False, show
+        ``NOT_YET_MEASURABLE`` instead of the number.
     """
 
     design_effect: float
@@ -206,6 +235,7 @@ class DesignEffect:
     clusters: int
     cr1_variance: float
     naive_variance: float
+    measurable: bool = True
 
     def to_dict(self) -> dict:
         return {f.name: (list(getattr(self, f.name)) if isinstance(getattr(self, f.name), tuple)
@@ -227,6 +257,10 @@ class _Core:
     clusters_group1: int
     clusters_group2: int
     shared: int
+    # Per cluster with events: events, residual sum about its group's mean, group (0, 1; -1 shared).
+    cluster_n: np.ndarray = None
+    cluster_residual: np.ndarray = None
+    cluster_group: np.ndarray = None
 
 
 def _as_array(values, name, count=None):
@@ -314,8 +348,12 @@ def _core(groups, keys, n, sum_dev, shift, sum_dev2) -> _Core:
             naive = ss1 / (n1 - 1) / n1 + ss2 / (n2 - 1) / n2
         else:
             naive = math.nan
+    cluster_n = np.bincount(codes, weights=counts)[present]
+    cluster_residual = np.bincount(codes, weights=residual)[present]
+    cluster_group = np.where(in1 & in2, -1, np.where(in1, 0, 1))[present]
     return _Core(float(means[0] - means[1]), cr1, naive, clusters, n1, n2,
-                 int(in1.sum()), int(in2.sum()), int((in1 & in2).sum()))
+                 int(in1.sum()), int(in2.sum()), int((in1 & in2).sum()),
+                 cluster_n, cluster_residual, cluster_group)
 
 
 # ----------------------------------------------------------------------------
@@ -323,8 +361,9 @@ def _core(groups, keys, n, sum_dev, shift, sum_dev2) -> _Core:
 
 
 def cluster_robust_difference(groups, keys, n, sum_dev, shift, *, null_difference=0.0,
-                              alternative="two-sided", alpha=0.05, sum_dev2=None) -> ClusteredResult:
-    """Difference in means (or rates) with a CR1 cluster-robust standard error.
+                              alternative="two-sided", alpha=0.05, sum_dev2=None,
+                              variance="cr1") -> ClusteredResult:
+    """Difference in means (or rates) with a cluster-robust standard error.
 
     Parameters
     ----------
@@ -348,11 +387,19 @@ def cluster_robust_difference(groups, keys, n, sum_dev, shift, *, null_differenc
     sum_dev2 : array_like of float, optional
         Per cell: ``Σ(x − c)²``; needed for the event-level standard error,
         the design effect and the effective sample sizes.
+    variance : {"cr1", "cr2", "auto"}, default "cr1"
+        ``"cr1"``: CR1 on ``G − 1`` df (clusters shared by both groups, such as
+        calendar days). ``"cr2"``: the Bell–McCaffrey CR2 variance with its
+        degrees of freedom, for clusters that each belong to one group (crews,
+        batches, routes); refused when a cluster holds events of both groups.
+        ``"auto"``: CR2 when no cluster is shared, CR1 otherwise.
 
     Returns
     -------
     ClusteredResult
-        With fewer than two clusters (or fewer than three events) the standard
+        When clusters are nested in groups and a group has a single cluster,
+        the result is degenerate (nan statistic, ``ONE_CLUSTER_NOTE``): that
+        group's between-cluster variance cannot be estimated. With fewer than two clusters (or fewer than three events) the standard
         error, statistic and p-value are nan and the notes say why; with zero
         cluster-level residuals the statistic is ±inf or nan as for the
         fixed-sample tests. ``reject`` is ``False`` in both cases.
@@ -377,22 +424,23 @@ def cluster_robust_difference(groups, keys, n, sum_dev, shift, *, null_differenc
     null_difference = _check_finite(null_difference, "null_difference")
     alternative = _check_alternative(alternative)
     alpha = _check_probability(alpha, "alpha")
+    if variance not in VARIANCES:
+        raise InvalidArgumentError(f"variance must be one of {', '.join(VARIANCES)}; got {variance!r}")
     core = _core(groups, keys, n, sum_dev, shift, sum_dev2)
-    notes = [f"CR1 cluster-robust standard error over {core.clusters} clusters; "
-             f"t on {core.clusters - 1} degrees of freedom"]
-    if core.shared:
-        notes.append(f"{core.shared} clusters hold events of both groups and count once")
-    df = float(core.clusters - 1)
+    nested = core.shared == 0
+    use_cr2 = variance == "cr2" or (variance == "auto" and nested)
+    if use_cr2 and not nested:
+        raise InvalidArgumentError(
+            f"variance 'cr2' needs clusters that each belong to one group; {core.shared} clusters "
+            f"hold events of both groups")
 
     naive_se = design = effective = None
     if core.naive_variance is not None:
         naive_se = math.sqrt(core.naive_variance) if math.isfinite(core.naive_variance) else math.nan
         if core.naive_variance > 0 and math.isfinite(core.cr1_variance):
             design = core.cr1_variance / core.naive_variance
-            if design > 0:
-                effective = (core.n1 / design, core.n2 / design)
-            else:
-                effective = (math.inf, math.inf)
+            # Effective n never exceeds n: a design effect below 1 is noise, not extra events.
+            effective = (core.n1 / max(design, 1.0), core.n2 / max(design, 1.0))
         else:
             design = math.nan
 
@@ -400,15 +448,38 @@ def cluster_robust_difference(groups, keys, n, sum_dev, shift, *, null_differenc
                   design_effect=design, effective_n=effective, alternative=alternative, alpha=alpha,
                   null_difference=null_difference, clusters_group1=core.clusters_group1,
                   clusters_group2=core.clusters_group2, shared_clusters=core.shared)
-    if not math.isfinite(core.cr1_variance):
-        notes.append(TOO_FEW_CLUSTERS_NOTE)
+    notes = []
+    if use_cr2:
+        var, df = _bell_mccaffrey(core)
+        common["variance_method"] = "cr2"
+        notes.append(f"CR2 (Bell–McCaffrey) cluster-robust standard error over clusters nested in "
+                     f"groups ({core.clusters_group1} and {core.clusters_group2}); t on "
+                     f"{_df_words(df)} Bell–McCaffrey degrees of freedom")
+    else:
+        var, df = core.cr1_variance, float(core.clusters - 1)
+        notes.append(f"CR1 cluster-robust standard error over {core.clusters} clusters; "
+                     f"t on {core.clusters - 1} degrees of freedom")
+    if core.shared:
+        notes.append(f"{core.shared} clusters hold events of both groups and count once")
+
+    def degenerate_result(why):
+        notes.append(why)
         nan_ci = {"two-sided": (math.nan, math.nan), "greater": (math.nan, None),
                   "less": (None, math.nan)}[alternative]
         crit = (math.nan, math.nan) if alternative == "two-sided" else (math.nan,)
         return ClusteredResult(core.estimate, math.nan, math.nan, df, math.nan, nan_ci,
                                critical_values=crit, reject=False, notes=tuple(notes), **common)
 
-    se = math.sqrt(core.cr1_variance)
+    if nested and min(core.clusters_group1, core.clusters_group2) < 2:
+        # With one cluster in a group its between-cluster spread drops out of the variance
+        # entirely (the cluster's residual about its own group mean is zero): no test.
+        return degenerate_result(ONE_CLUSTER_NOTE)
+    if not math.isfinite(var):
+        return degenerate_result(TOO_FEW_CLUSTERS_NOTE)
+
+    # A variance that is zero up to rounding is zero: t = 1e13 is not a finding.
+    scale = max(core.estimate * core.estimate, core.naive_variance or 0.0, 1e-300)
+    se = math.sqrt(var) if var > _ZERO_VARIANCE * scale else 0.0
     excess = core.estimate - null_difference
     if se == 0.0:
         notes.append(DEGENERATE_CLUSTER_NOTE)
@@ -431,7 +502,53 @@ def cluster_robust_difference(groups, keys, n, sum_dev, shift, *, null_differenc
         reject=bool(not degenerate and p <= alpha), notes=tuple(notes), _interval=spec, **common)
 
 
-def design_effect(cells, naive_variance=None) -> DesignEffect:
+def _df_words(df):
+    return f"{df:.1f}" if math.isfinite(df) else "undefined"
+
+
+def _bell_mccaffrey(core):
+    """CR2 variance of the difference and Bell–McCaffrey degrees of freedom, clusters nested in groups.
+
+    Bell & McCaffrey (2002), "Bias reduction in standard errors for linear
+    regression with multi-stage samples", Survey Methodology 28(2):169–181;
+    Imbens & Kolesár (2016), "Robust standard errors in small samples: some
+    practical advice", Review of Economics and Statistics 98(4):701–712.
+
+    For OLS of the value on an intercept and a group-1 indicator, the hat
+    matrix of a cluster ``c`` of group ``g`` is ``(n_c/n_g)·P`` (``P`` the
+    projection on the constant), so the CR2 adjustment ``(I − H_cc)^{-1/2}``
+    scales the cluster's residual sum ``r_c`` by ``(1 − n_c/n_g)^{-1/2}``:
+
+        V_CR2 = Σ_g Σ_{c in g} r_c² / (n_g² (1 − n_c/n_g)).
+
+    The Bell–McCaffrey df ``(tr M)² / tr(M²)`` use ``M = G'G`` under the
+    working model of independent equal-variance errors; ``M`` is block
+    diagonal by group with blocks ``diag(s_c² n_c) − (s n)(s n)'/n_g``,
+    ``s_c = (1/n_g)(1 − n_c/n_g)^{-1/2}``, so both traces need only the
+    cluster sizes. Returns (nan, nan) when a group has a single cluster.
+    """
+    var = 0.0
+    trace = 0.0
+    trace_sq = 0.0
+    for group, size in ((0, core.n1), (1, core.n2)):
+        sel = core.cluster_group == group
+        nc = core.cluster_n[sel]
+        rc = core.cluster_residual[sel]
+        leverage = nc / size
+        if nc.size < 2 or np.any(leverage >= 1.0):
+            return math.nan, math.nan
+        var += float(np.sum(rc * rc / (size * size * (1.0 - leverage))))
+        s2 = 1.0 / (size * size * (1.0 - leverage))
+        diag = s2 * nc
+        u = np.sqrt(s2) * nc
+        uu = float(u @ u)
+        trace += float(diag.sum()) - uu / size
+        trace_sq += float(diag @ diag) - 2.0 * float(np.sum(diag * u * u)) / size + uu * uu / (size * size)
+    df = trace * trace / trace_sq if trace_sq > 0 else math.nan
+    return var, float(df)
+
+
+def design_effect(cells, naive_variance=None, *, min_clusters=MIN_CLUSTERS_FOR_DESIGN_EFFECT) -> DesignEffect:
     """Design effect and effective sample size of per-(group, cluster) cells.
 
     Every look records the day-level design effect: with cells per (group,
@@ -446,12 +563,15 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
     naive_variance : float, optional
         The event-level variance of the difference to compare against; by
         default the Welch-type ``s1²/n1 + s2²/n2`` from ``sum_dev2``.
+    min_clusters : int
+        Clusters with events needed before the figure is ``measurable``.
 
     Returns
     -------
     DesignEffect
         nan design effect (and effective sizes) when there are fewer than two
-        clusters or the naive variance is zero.
+        clusters or the naive variance is zero; ``measurable`` False below
+        ``min_clusters``.
 
     Examples
     --------
@@ -459,8 +579,8 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
     ...          "n": [20, 20, 20, 20], "sum_dev": [10.0, 30.0, 12.0, 8.0],
     ...          "sum_dev2": [60.0, 100.0, 50.0, 40.0], "shift": 0.0}
     >>> de = design_effect(cells)
-    >>> de.clusters, round(de.design_effect, 3)
-    (2, 2.844)
+    >>> de.clusters, round(de.design_effect, 3), de.measurable
+    (2, 2.844, False)
     """
     if isinstance(cells, Mapping):
         cells = ClusterCells.from_mapping(cells)
@@ -476,12 +596,106 @@ def design_effect(cells, naive_variance=None) -> DesignEffect:
         deff = core.cr1_variance / naive
     else:
         deff = math.nan
-    if deff > 0:
-        eff = (core.n1 / deff, core.n2 / deff)
+    if math.isnan(deff):
+        eff = (math.nan, math.nan)
     else:
-        eff = (math.nan, math.nan) if math.isnan(deff) else (math.inf, math.inf)
+        # Never more effective events than events: a design effect below 1 is noise.
+        eff = (core.n1 / max(deff, 1.0), core.n2 / max(deff, 1.0))
+    measurable = bool(core.clusters >= int(min_clusters) and math.isfinite(deff))
     return DesignEffect(float(deff), eff, float(eff[0] + eff[1]), core.clusters,
-                        float(core.cr1_variance), float(naive))
+                        float(core.cr1_variance), float(naive), measurable)
+
+
+@dataclass(frozen=True)
+class ClusterCounts:
+    """How many clusters each group has, and whether a comparison may decide yet.
+
+    Attributes
+    ----------
+    group1, group2 : int
+        Clusters holding events of group 1 / group 2 (a shared cluster counts in both).
+    shared : int
+        Clusters holding events of both groups.
+    total : int
+        Distinct clusters.
+    nested : bool
+        No cluster is shared: every cluster belongs to one group (crews, batches).
+    minimum : int
+        The minimum that applies: per group when nested, in total otherwise.
+    enough : bool
+        Whether the minimum is met.
+    reason : str
+        Plain words for the state (what is missing when not enough).
+    """
+
+    group1: int
+    group2: int
+    shared: int
+    total: int
+    nested: bool
+    minimum: int
+    enough: bool
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def cluster_counts(groups, keys, n, *, min_clusters=10, min_per_group=MIN_CLUSTERS_PER_GROUP) -> ClusterCounts:
+    """Clusters per group and whether a clustered comparison has enough to decide.
+
+    Clusters shared by both groups (calendar days) need ``min_clusters`` in
+    total. Clusters that each belong to one group (crews of one site) need
+    ``max(min_per_group, ceil(min_clusters / 2))`` in *each* group: the
+    variance of each group's mean is estimated from its own clusters only.
+
+    Parameters
+    ----------
+    groups, keys, n : array_like
+        Per cell: group index (0/1), cluster key, events (cells with no events are ignored).
+    min_clusters : int
+        The comparison's configured minimum (total).
+    min_per_group : int
+        Floor per group for nested clusters.
+
+    Returns
+    -------
+    ClusterCounts
+
+    Examples
+    --------
+    >>> c = cluster_counts([0, 0, 1], ["crew a", "crew b", "crew c"], [5, 4, 6], min_clusters=4)
+    >>> c.group1, c.group2, c.nested, c.enough
+    (2, 1, True, False)
+    >>> c.reason
+    'clusters belong to one group: group 1 has 2 and group 2 has 1; each group needs 3'
+    """
+    g = np.asarray(groups).ravel()
+    counts = np.asarray(n, dtype=float).ravel()
+    keys = list(keys) if not isinstance(keys, np.ndarray) else keys.ravel().tolist()
+    if not (g.size == counts.size == len(keys)):
+        raise InvalidArgumentError(
+            f"groups, keys and n must have one entry per cell; got {g.size}, {len(keys)} and {counts.size}")
+    minimum_total = int(min_clusters)
+    by_key: dict = {}
+    for gi, key, size in zip(g.tolist(), keys, counts.tolist()):
+        if size > 0:
+            by_key.setdefault(key, set()).add(int(gi))
+    c1 = sum(1 for s in by_key.values() if 0 in s)
+    c2 = sum(1 for s in by_key.values() if 1 in s)
+    shared = sum(1 for s in by_key.values() if len(s) == 2)
+    total = len(by_key)
+    nested = shared == 0 and total > 0
+    if nested:
+        minimum = max(int(min_per_group), math.ceil(minimum_total / 2))
+        enough = c1 >= minimum and c2 >= minimum
+        reason = (f"clusters belong to one group: group 1 has {c1} and group 2 has {c2}; "
+                  f"each group needs {minimum}")
+    else:
+        minimum = minimum_total
+        enough = total >= minimum
+        reason = f"{total} clusters so far; decisions start at {minimum}"
+    return ClusterCounts(c1, c2, shared, total, nested, minimum, enough, reason)
 
 
 # ----------------------------------------------------------------------------

@@ -48,6 +48,8 @@ from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
 from ._checks import open_unit as _check_probability
 from ..errors import InvalidArgumentError
+from .proportions import score_interval as _score_interval
+from .proportions import score_statistic as _score_statistic
 from .summaries import MomentSummary
 
 __all__ = [
@@ -65,6 +67,9 @@ __all__ = [
 ]
 
 METHODS = ("z", "pooled", "welch", "paired", "proportions")
+# The intervals a caller of two_proportions may ask for: the configurable ones and the
+# inverted score test (used by the look's repeated intervals for rates).
+_ACCEPTED_INTERVALS = INTERVALS + ("score",)
 DEGENERATE_NOTE = "degenerate: both groups have zero variance"
 
 
@@ -259,6 +264,8 @@ def _interval(spec, estimate, alternative, alpha):
     z = float(special.ndtri(1.0 - (alpha / 2.0 if alternative == "two-sided" else alpha)))
     if kind == "wald":
         low, high = _wald_difference(x1, n1, x2, n2, z)
+    elif kind == "score":
+        return _score_interval(x1, n1, x2, n2, z, alternative)
     else:
         low, high = _newcombe_difference(x1, n1, x2, n2, z)
     if alternative == "greater":
@@ -596,10 +603,13 @@ def two_proportions(n1, successes1, n2, successes2, *, null_difference=0.0,
                     alternative="two-sided", alpha=0.05, interval="newcombe") -> FixedSampleResult:
     """Two-proportion z test for a difference in rates.
 
-    When ``null_difference`` is 0 the standard error pools both groups into one
-    rate, as the null hypothesis implies. For a non-zero ``null_difference`` a
-    pooled rate would contradict the null, so the unpooled (Wald) standard error
-    ``√(p1(1−p1)/n1 + p2(1−p2)/n2)`` is used; the result notes say which.
+    The statistic is the score statistic of Farrington & Manning (1990): the
+    standard error is evaluated at the maximum-likelihood rates restricted to
+    ``p1 − p2 = δ0`` (:mod:`monitor.stats.proportions`). When
+    ``null_difference`` is 0 that is the pooled rate, the classic pooled z; for a
+    margin it keeps the error rate where an unpooled Wald test does not (at
+    rates 0.02 vs 0.05, margin −0.03, 100 per group the Wald test's one-sided
+    size is about twice its level).
 
     Parameters
     ----------
@@ -613,10 +623,10 @@ def two_proportions(n1, successes1, n2, successes2, *, null_difference=0.0,
         ``"greater"`` tests rate 1 − rate 2 > δ0.
     alpha : float, default 0.05
         Significance level.
-    interval : {"newcombe", "wald"}
+    interval : {"newcombe", "wald", "score"}
         Confidence interval for the difference: Newcombe's hybrid score
-        interval (method 10 of Newcombe 1998, no continuity correction) or the
-        Wald interval.
+        interval (method 10 of Newcombe 1998, no continuity correction), the
+        Wald interval, or the inverted Farrington–Manning score test.
 
     Returns
     -------
@@ -635,8 +645,9 @@ def two_proportions(n1, successes1, n2, successes2, *, null_difference=0.0,
     if not (-1.0 < null_difference < 1.0):
         raise InvalidArgumentError(
             f"null_difference must be in (-1, 1) for rates; got {null_difference!r}")
-    if interval not in INTERVALS:
-        raise InvalidArgumentError(f"interval must be one of {', '.join(INTERVALS)}; got {interval!r}")
+    if interval not in _ACCEPTED_INTERVALS:
+        raise InvalidArgumentError(
+            f"interval must be one of {', '.join(_ACCEPTED_INTERVALS)}; got {interval!r}")
     n1 = _check_count(n1, "n1", 1)
     n2 = _check_count(n2, "n2", 1)
     x1 = _check_count(successes1, "successes1", 0)
@@ -652,8 +663,10 @@ def two_proportions(n1, successes1, n2, successes2, *, null_difference=0.0,
         se = math.sqrt(pooled * (1.0 - pooled) * (1.0 / n1 + 1.0 / n2))
         notes = ["pooled standard error (null difference 0: one shared rate under the null)"]
     else:
-        se = math.sqrt(p1 * (1.0 - p1) / n1 + p2 * (1.0 - p2) / n2)
-        notes = ["unpooled standard error (a non-zero null difference rules out one shared rate)"]
+        # Farrington–Manning score: the variance at the rates restricted to the margin.
+        _, se = _score_statistic(x1, n1, x2, n2, null_difference)
+        notes = ["score standard error at the rates restricted to the null difference "
+                 "(Farrington–Manning)"]
     notes.append(f"{interval} interval for the difference in rates")
     if p2 > 0:
         ratio = p1 / p2

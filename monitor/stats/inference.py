@@ -35,10 +35,11 @@ import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy import optimize
+from scipy import optimize, special
 
 from ._checks import check_alternative, finite, open_unit
 from .boundaries import crossing_probabilities
+from .sequential_t import _check_df, t_critical, t_crossing_probabilities
 from ..errors import InvalidArgumentError
 
 __all__ = [
@@ -46,6 +47,9 @@ __all__ = [
     "repeated_confidence_interval",
     "stagewise_p_value",
     "median_unbiased_estimate",
+    "AdjustedInference",
+    "StagewisePivot",
+    "adjusted_inference",
 ]
 
 # Below the observed z at the stop look the lower limit only has to sit under the
@@ -339,3 +343,254 @@ def median_unbiased_estimate(
         stop_look=int(stop_look),
     )
 
+
+
+# ----------------------------------------------------------------------------
+# Adjusted inference on the estimate's own scale
+
+#: Chi-square nodes of the sequential t law when the pivot is evaluated: each
+#: figure needs a few dozen evaluations, and the quantiles it solves for are
+#: read to far less than the boundaries' own accuracy.
+PIVOT_T_NODES = 16
+PIVOT_T_PER_SD = 2.0
+
+
+@dataclass(frozen=True)
+class AdjustedInference:
+    """Inference after a sequential stop, on the scale of the difference itself.
+
+    Attributes
+    ----------
+    estimate : float
+        Median-unbiased estimate of the difference (group 1 − group 2), in the
+        metric's units: never the difference minus ``null_difference``.
+    ci : tuple
+        Adjusted confidence interval at ``1 − alpha`` (one bound for one-sided
+        designs, the open end ``None``).
+    p_value : float
+        Stagewise-ordering p-value of ``null_difference`` for the design's alternative.
+    naive_estimate : float
+        The estimate the stop look reported.
+    null_difference : float
+    stop_look : int
+    alpha : float
+    df : float or None
+        Degrees of freedom at the stop look (None for z statistics).
+    """
+
+    estimate: float
+    ci: tuple
+    p_value: float
+    naive_estimate: float
+    null_difference: float
+    stop_look: int
+    alpha: float
+    df: float | None
+
+    def to_dict(self):
+        out = asdict(self)
+        out["ci"] = list(self.ci)
+        return out
+
+
+class StagewisePivot:
+    """``G(δ)``: chance, if the true difference were ``δ``, of an outcome at least as high as the one observed.
+
+    The stagewise ordering (Jennison & Turnbull 2000, ch. 8): crossing the
+    upper efficacy boundary at an earlier look beats any outcome at the stop
+    look; at the stop look a larger statistic is higher. Under a true
+    difference ``δ`` the statistics ``T_k(δ) = (estimate_k − δ)/SE_k`` follow
+    the null law of the design (z, or the sequential t law of
+    :mod:`monitor.stats.sequential_t` at the looks' df), and the recorded
+    boundaries on ``T_k(δ0)`` become ``c_k − (δ − δ0)/SE_k`` on them. The
+    standard error at earlier looks is taken as ``SE_K·√(t_K/t_k)`` (information
+    proportional to the fraction, the stop look's variance estimate). ``G``
+    rises with ``δ``; the median-unbiased estimate is ``G⁻¹(1/2)`` and the
+    adjusted interval ``[G⁻¹(α/2), G⁻¹(1 − α/2)]``. At a single look this is
+    the fixed-sample estimate and interval (t on the look's df for t tests).
+
+    Parameters are as for :func:`adjusted_inference`; ``alternative`` "less"
+    is handled by the caller in the mirrored frame.
+    """
+
+    def __init__(self, fractions, boundaries_z, stop_look, statistic_at, standard_error, null_difference,
+                 two_sided, dfs=None):
+        t, b = _check_looks(fractions, boundaries_z, stop_look)
+        self._t = t
+        self._root = np.sqrt(t / t[-1])
+        self._se = float(standard_error)
+        self._null = float(null_difference)
+        self._two_sided = two_sided
+        self._statistic_at = statistic_at
+        self._dfs = None
+        if dfs is None:
+            self._bounds = b
+        else:
+            dfs = list(dfs)[:stop_look]
+            if len(dfs) != stop_look:
+                raise InvalidArgumentError(f"dfs must give one value per look up to the stop look; got {dfs!r}")
+            model, previous = [], None
+            for df in dfs:
+                previous = _check_df(df, previous)
+                model.append(previous)
+            self._dfs = model
+            self._look_df = float(dfs[-1])
+            self._bounds = np.array([t_critical(float(special.ndtr(-z)), d) for z, d in zip(b, model)])
+
+    def _observed(self, delta):
+        """The stop look's statistic for hypothesis ``delta``, on the scale the law uses."""
+        value = float(self._statistic_at(delta))
+        if self._dfs is None or not math.isfinite(value):
+            return value
+        # A t on the look's own df, carried to the model's (whole-number) df by its tail.
+        tail = float(special.stdtr(self._look_df, -value))
+        if tail <= 0.0:
+            return math.inf
+        if tail >= 1.0:
+            return -math.inf
+        return t_critical(tail, self._dfs[-1]) if tail < 0.5 else -t_critical(1.0 - tail, self._dfs[-1])
+
+    def __call__(self, delta):
+        u = (float(delta) - self._null) / self._se
+        shift = u * self._root
+        upper = self._bounds - shift
+        lower = (-self._bounds - shift) if self._two_sided else np.full(self._t.size, -np.inf)
+        last = self._observed(delta)
+        upper[-1] = last
+        lower[-1] = -np.inf
+        upper = np.where(np.isnan(upper), np.inf, upper)
+        if self._t.size == 1:
+            # One look: the fixed-sample law exactly (Student t on the look's own df, or normal).
+            value = float(self._statistic_at(delta))
+            if self._dfs is None:
+                return float(special.ndtr(-value))
+            return float(special.stdtr(self._look_df, -value))
+        if self._dfs is None:
+            up, _ = crossing_probabilities(self._t, upper, lower)
+        else:
+            up, _ = t_crossing_probabilities(self._t, self._dfs, upper, lower, nodes=PIVOT_T_NODES,
+                                             per_sd=PIVOT_T_PER_SD)
+        return float(min(1.0, max(0.0, float(np.sum(up)))))
+
+
+def _solve_pivot(pivot, target, centre, scale, step=3.0):
+    """``δ`` with ``pivot(δ) = target`` (the pivot rises with ``δ``), searched from ``centre``."""
+    step = step * scale
+    low, high = centre - step, centre + step
+    g_low, g_high = pivot(low) - target, pivot(high) - target
+    for _ in range(60):
+        if g_low <= 0 <= g_high:
+            break
+        step *= 1.6
+        if g_low > 0:
+            high, g_high = low, g_low
+            low = centre - step
+            g_low = pivot(low) - target
+        else:
+            low, g_low = high, g_high
+            high = centre + step
+            g_high = pivot(high) - target
+    else:  # pragma: no cover - G runs from 0 to 1
+        raise InvalidArgumentError(f"could not bracket the difference at which G = {target!r}")
+    # A ten-thousandth of a standard error is far below what the figures are read to.
+    return float(optimize.brentq(lambda d: pivot(d) - target, low, high, xtol=1e-4 * scale, rtol=1e-10))
+
+
+def adjusted_inference(fractions, boundaries_z, stop_look, estimate, standard_error, *, null_difference=0.0,
+                       alternative="two-sided", alpha=0.05, dfs=None, statistic_at=None):
+    """Stagewise p-value, median-unbiased estimate and adjusted interval on the difference's own scale.
+
+    Everything is computed from the stop look's estimate, its standard error
+    and ``null_difference`` (δ0): the reported estimate is a difference in the
+    metric's units, never the difference minus δ0. t-based looks (``dfs``
+    given) use the sequential t law at the looks' degrees of freedom, as the
+    boundaries themselves do (:mod:`monitor.stats.sequential_t`); see
+    :class:`StagewisePivot` for the ordering and the pivot.
+
+    Parameters
+    ----------
+    fractions : sequence of float
+        Information fractions of the testing looks, at least up to the stop look.
+    boundaries_z : sequence of float
+        Their recorded efficacy boundaries on the z scale (``LookBoundary.z``;
+        for t designs the z with the calibrated nominal level).
+    stop_look : int
+        The testing look (from 1) at which the comparison stopped.
+    estimate, standard_error : float
+        The stop look's difference and its standard error.
+    null_difference : float
+        δ0 of the design.
+    alternative : {"two-sided", "greater", "less"}
+    alpha : float
+        One minus the level of the interval.
+    dfs : sequence of float, optional
+        Degrees of freedom of each look's t statistic; None for z statistics.
+    statistic_at : callable, optional
+        ``statistic_at(δ)``: the stop look's statistic for the hypothesis δ
+        (default ``(estimate − δ)/standard_error``). Rates pass the score
+        statistic, so that a single look gives the score interval.
+
+    Returns
+    -------
+    AdjustedInference
+
+    Examples
+    --------
+    One final look at five pairs: the ordinary t estimate and interval.
+
+    >>> r = adjusted_inference([1.0], [1.959964], 1, 1.0, 0.1873, dfs=[4])
+    >>> round(r.estimate, 3), round(r.ci[0], 2), round(r.ci[1], 2)
+    (1.0, 0.48, 1.52)
+
+    A margin δ0 = 5 leaves the estimate on the difference's scale:
+
+    >>> r = adjusted_inference([0.5, 1.0], [2.797, 1.977], 2, 7.6, 1.0, null_difference=5.0)
+    >>> 7.0 < r.estimate < 7.7
+    True
+    """
+    check_alternative(alternative)
+    estimate = finite(estimate, "estimate")
+    se = finite(standard_error, "standard_error")
+    if se <= 0:
+        raise InvalidArgumentError(f"standard_error must be positive; got {standard_error!r}")
+    null = finite(null_difference, "null_difference")
+    alpha = open_unit(alpha, "alpha")
+    if statistic_at is None:
+        def statistic_at(delta):
+            return (estimate - delta) / se
+    # "less" designs are solved in the mirrored frame, where the boundary is an upper one.
+    sign = -1.0 if alternative == "less" else 1.0
+
+    def mirrored(delta):
+        return sign * float(statistic_at(sign * delta))
+
+    pivot = StagewisePivot(fractions, boundaries_z, stop_look, mirrored, se, sign * null,
+                           alternative == "two-sided", dfs)
+    tail = alpha / 2 if alternative == "two-sided" else alpha
+    targets = (0.5, tail, 1.0 - tail)
+    if dfs is None:
+        guesses, step = (sign * estimate,) * 3, 3.0
+    else:
+        # The z law's answers are close: start the (slower) t law's search there.
+        z_pivot = StagewisePivot(fractions, boundaries_z, stop_look, mirrored, se, sign * null,
+                                 alternative == "two-sided", None)
+        guesses = tuple(_solve_pivot(z_pivot, g, sign * estimate, se) for g in targets)
+        step = 0.25
+    median = sign * _solve_pivot(pivot, 0.5, guesses[0], se, step)
+    low = _solve_pivot(pivot, tail, guesses[1], se, step)
+    if alternative == "two-sided":
+        high = _solve_pivot(pivot, 1.0 - tail, guesses[2], se, step)
+        ci = (low, high)
+    elif alternative == "greater":
+        ci = (low, None)
+    else:
+        ci = (None, -low)
+    at_null = pivot(sign * null)
+    if alternative == "two-sided":
+        p = min(1.0, 2.0 * min(at_null, 1.0 - at_null))
+    else:
+        p = at_null
+    df = None if dfs is None else float(list(dfs)[stop_look - 1])
+    return AdjustedInference(
+        estimate=float(median), ci=tuple(None if c is None else float(c) for c in ci), p_value=float(p),
+        naive_estimate=float(estimate), null_difference=null, stop_look=int(stop_look), alpha=alpha, df=df)

@@ -180,6 +180,10 @@ class MonitorOutcome:
     did_cr1_fixed: np.ndarray
     baseline_gap: np.ndarray
     did_known_variance_stop_day: np.ndarray | None = None
+    # Asked for with ``keep_looks``: every testing look's before/after figures, arrays of shape
+    # (streams, looks) under ``estimate``, ``standard_error``, ``df``, ``statistic``, and the
+    # looks' ``days`` after the start, so that a caller can decide them on other boundaries.
+    did_looks: dict | None = None
 
     def to_dict(self) -> dict:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -221,7 +225,7 @@ def _period_parts(n1, s1, n2, s2, sign):
 
 def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, alpha=0.05,
                        spending="obrien-fleming", baseline_days_for_plan=None, sd=None,
-                       day_sd=None) -> MonitorOutcome:
+                       day_sd=None, keep_looks=False) -> MonitorOutcome:
     """Run the after-only and the before/after monitors day by day, two-sided.
 
     The before/after monitor is the library's default: CR2 with Bell–McCaffrey
@@ -243,6 +247,9 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
         Baseline days the fraction formula uses (default: the drawn baseline).
     sd, day_sd : float, optional
         The spreads the values were drawn with: adds the known-variance monitor.
+    keep_looks : bool
+        Keep every testing look's before/after estimate, standard error, df and t
+        (``MonitorOutcome.did_looks``).
 
     Returns
     -------
@@ -300,6 +307,11 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     fixed = {key: np.zeros(streams, dtype=bool) for key in ("after_only", "did", "did_cr1")}
     rec = {key: np.full(streams, np.nan) for key in ("after_only_estimate", "did_estimate", "did_se",
                                                       "did_df", "did_z", "did_final")}
+    kept = None
+    if keep_looks:
+        kept = {key: np.full((streams, last - first + 1), np.nan)
+                for key in ("estimate", "standard_error", "df", "statistic")}
+        kept["days"] = np.arange(first, last + 1)
     for k in range(2, last + 1):
         cols = slice(b, b + k)
         after = _period_parts(n[:, 0, cols], s[:, 0, cols], n[:, 1, cols], s[:, 1, cols], 1.0)
@@ -331,6 +343,9 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
         t_did = did / se
         cr1_df = degrees_of_freedom("cr1", g, bm)
         t_cr1 = did / np.sqrt(g / (g - 1) * (total - 1) / (total - PARAMETERS) * (base["cr1"] + after["cr1"]))
+        if testing and kept is not None:
+            for key, value in (("estimate", did), ("standard_error", se), ("df", df), ("statistic", t_did)):
+                kept[key][:, k - first] = value
         if testing:
             crossed = (np.abs(t_did) >= _t_critical(did_nominal[k], df)) & (stop["did"] == 0)
             record = crossed | (final & (stop["did"] == 0))
@@ -356,4 +371,4 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
         did_standard_error=rec["did_se"], did_df=rec["did_df"], did_z=rec["did_z"],
         did_final_estimate=rec["did_final"], did_fixed=fixed["did"], did_cr1_stop_day=stop["did_cr1"],
         did_cr1_fixed=fixed["did_cr1"], baseline_gap=gap_b,
-        did_known_variance_stop_day=stop["known"] if known else None)
+        did_known_variance_stop_day=stop["known"] if known else None, did_looks=kept)

@@ -9,18 +9,21 @@ installed gapwatch finds them wherever it lives.
 from __future__ import annotations
 
 import functools
+import sqlite3
 from pathlib import Path
 
 import sqlalchemy as sa
 from alembic import command
 from alembic.config import Config as AlembicConfig
 from alembic.script import ScriptDirectory
+from alembic.util import CommandError
 from sqlalchemy import event
 from sqlalchemy.engine import Engine
 
 import migrations
 
-from ..errors import StoreBehindError, StoreUnavailableError
+from ..errors import InvalidArgumentError, StoreBehindError, StoreUnavailableError
+from .models import Base
 
 __all__ = [
     "make_engine",
@@ -32,6 +35,10 @@ __all__ = [
     "ensure_current",
     "migration_state",
     "open_store",
+    "check_revision",
+    "rows_at_risk",
+    "backup_sqlite",
+    "sqlite_path",
 ]
 
 # Seconds a SQLite writer waits for another writer before giving up.
@@ -60,17 +67,50 @@ def _sqlite_pragmas(dbapi_connection, connection_record):
         cursor.close()
 
 
-def make_engine(url, **kwargs) -> Engine:
-    """An engine for the history store (SQLite or PostgreSQL)."""
+def sqlite_path(url) -> Path | None:
+    """The file of a SQLite store URL; None for other databases and in-memory SQLite."""
+    parsed = url if isinstance(url, sa.engine.URL) else sa.engine.make_url(str(url))
+    if parsed.get_backend_name() != "sqlite" or not parsed.database or parsed.database == ":memory:" \
+            or parsed.database.startswith("file:"):
+        return None
+    return Path(parsed.database)
+
+
+def make_engine(url, *, create: bool = True, **kwargs) -> Engine:
+    """An engine for the history store (SQLite or PostgreSQL).
+
+    A SQLite store in a folder that does not exist is refused naming the folder; with
+    ``create=False`` (read-only commands) a SQLite store that does not exist yet is refused
+    instead of being created empty. A URL whose driver is not installed is one clear error.
+    """
     url_text = url.render_as_string(hide_password=False) if isinstance(url, sa.engine.URL) else str(url)
-    if _is_sqlite(url_text):
-        connect_args = dict(kwargs.pop("connect_args", {}))
-        connect_args.setdefault("timeout", _SQLITE_BUSY_SECONDS)
-        engine = sa.create_engine(url_text, connect_args=connect_args, **kwargs)
-        event.listen(engine, "connect", _sqlite_pragmas)
-        return engine
-    kwargs.setdefault("pool_pre_ping", True)
-    return sa.create_engine(url_text, **kwargs)
+    try:
+        parsed = sa.engine.make_url(url_text)
+    except sa.exc.ArgumentError:
+        raise StoreUnavailableError("the store URL is not a database URL (e.g. sqlite:///gapwatch.sqlite)") from None
+    path = sqlite_path(parsed)
+    if path is not None:
+        if not path.parent.is_dir():
+            raise StoreUnavailableError(f"the history store's folder {path.parent} does not exist")
+        if not create and not path.exists():
+            raise StoreBehindError(f"there is no history store at {path} yet; run `gapwatch db upgrade`")
+    try:
+        if parsed.get_backend_name() == "sqlite":
+            connect_args = dict(kwargs.pop("connect_args", {}))
+            connect_args.setdefault("timeout", _SQLITE_BUSY_SECONDS)
+            engine = sa.create_engine(url_text, connect_args=connect_args, **kwargs)
+            event.listen(engine, "connect", _sqlite_pragmas)
+            return engine
+        kwargs.setdefault("pool_pre_ping", True)
+        return sa.create_engine(url_text, **kwargs)
+    except ModuleNotFoundError as exc:
+        raise StoreUnavailableError(
+            f"the store URL ({parsed.drivername}) needs the Python module {exc.name!r}, which is not installed"
+        ) from None
+    except sa.exc.NoSuchModuleError:
+        raise StoreUnavailableError(
+            f"the store URL names a database driver this installation does not know: {parsed.drivername!r}"
+        ) from None
 
 
 def alembic_config(url):
@@ -84,7 +124,71 @@ def alembic_config(url):
     return cfg
 
 
+def _script():
+    return ScriptDirectory(str(_migrations_folder()))
+
+
+def check_revision(revision: str) -> str:
+    """``revision`` if this gapwatch knows it (``base``, ``head`` or a shipped revision); else one clear error."""
+    if revision in ("base", "head"):
+        return revision
+    try:
+        found = _script().get_revision(revision)
+    except CommandError:
+        found = None
+    if found is None:
+        known = ", ".join(["base", *sorted(r.revision for r in _script().walk_revisions()), "head"])
+        raise InvalidArgumentError(f"unknown revision {revision!r}; known: {known}")
+    return found.revision
+
+
+def rows_at_risk(engine, revision: str) -> dict:
+    """Rows in the tables a downgrade to ``revision`` would change: ``{table: rows}``, non-empty tables only.
+
+    Any step down drops a table or a column of gapwatch's own (alembic keeps no data aside),
+    so a downgrade with rows in the store loses some of them.
+    """
+    current = current_revision(engine)
+    if current is None or revision == current:
+        return {}
+    script = _script()
+    target = None if revision == "base" else script.get_revision(check_revision(revision)).revision
+    steps = [r.revision for r in script.iterate_revisions(current, target or "base") if r.revision != target]
+    if not steps:
+        return {}  # the target is ahead of the store: nothing goes down
+    counts = {}
+    with engine.connect() as conn:
+        for name, table in Base.metadata.tables.items():
+            if sa.inspect(conn).has_table(name):
+                n = conn.execute(sa.select(sa.func.count()).select_from(table)).scalar()
+                if n:
+                    counts[name] = n
+    return counts
+
+
+def backup_sqlite(url, suffix: str) -> Path | None:
+    """Copy a SQLite store beside itself (WAL-safe, through SQLite's backup API); None for other stores."""
+    path = sqlite_path(url)
+    if path is None:
+        return None
+    target = path.with_name(f"{path.name}.{suffix}")
+    n = 1
+    while target.exists():
+        n += 1
+        target = path.with_name(f"{path.name}.{suffix}-{n}")
+    source = sqlite3.connect(str(path))
+    copy = sqlite3.connect(str(target))
+    try:
+        source.backup(copy)
+    finally:
+        copy.close()
+        source.close()
+    return target
+
+
 def _run(url, action, revision):
+    if revision is not None:
+        check_revision(revision)
     cfg = alembic_config(url)
     engine = make_engine(url)
     try:
@@ -93,6 +197,8 @@ def _run(url, action, revision):
             getattr(command, action)(cfg, revision)
     except sa.exc.OperationalError as exc:
         raise StoreUnavailableError(f"cannot reach the history store: {_brief(exc)}") from None
+    except CommandError as exc:
+        raise InvalidArgumentError(f"cannot {action} the store to {revision!r}: {str(exc).splitlines()[0]}") from None
     finally:
         engine.dispose()
 
@@ -173,8 +279,11 @@ def ensure_current(engine) -> str:
 
 
 def open_store(url) -> Engine:
-    """An engine on the history store, checked to be at the schema this code expects."""
-    engine = make_engine(url)
+    """An engine on the history store, checked to be at the schema this code expects.
+
+    Reading never creates a store: a SQLite file that does not exist yet is refused.
+    """
+    engine = make_engine(url, create=False)
     try:
         ensure_current(engine)
     except BaseException:

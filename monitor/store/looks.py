@@ -21,6 +21,7 @@ from ..errors import LookAlreadyRecordedError, StoreUnavailableError, UnknownCom
 from . import outbox
 from .engine import ensure_current, head_revision
 from .models import Cell, Comparison, Look
+from .plan_changes import replans as replan_rows, restart_note
 
 __all__ = [
     "BoundaryLookRow",
@@ -40,7 +41,8 @@ _COMPARISON = Comparison.__table__
 _LOOK = Look.__table__
 _CELL = Cell.__table__
 _VERSION_TABLE = sa.table("alembic_version", sa.column("version_num"))
-_COMPARISON_FIELDS = ("id", "version", "design", "state", "looks_taken", "watermark", "stopped_at")
+_COMPARISON_FIELDS = ("id", "version", "design", "state", "looks_taken", "watermark", "stopped_at",
+                      "last_look_at", "replans")
 # The schema revision, the active comparison and its newest look in one round trip: the
 # version table has one row, so the outer joins always return exactly one row.
 _STATE_STATEMENT = (
@@ -63,13 +65,15 @@ _CELLS_STATEMENT = sa.select(
     _CELL.c.kind, _CELL.c.group_index, _CELL.c.key, _CELL.c.n, _CELL.c.sum_dev, _CELL.c.sum_dev2
 ).where(_CELL.c.comparison_id == sa.bindparam("cid"))
 _LAST_BOUNDARY_STATEMENT = (
-    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z, _LOOK.c.df,
+              _LOOK.c.detail["bounds"])
     .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None))
     .order_by(_LOOK.c.boundary_look.desc())
     .limit(1)
 )
 _BOUNDARY_LOOKS_STATEMENT = (
-    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z)
+    sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z, _LOOK.c.df,
+              _LOOK.c.detail["bounds"])
     .where(_LOOK.c.comparison_id == sa.bindparam("cid"), _LOOK.c.boundary_look.is_not(None),
            _LOOK.c.boundary_look <= sa.bindparam("count"))
     .order_by(_LOOK.c.boundary_look)
@@ -78,6 +82,7 @@ _INSERT_COMPARISON = sa.insert(_COMPARISON).returning(_COMPARISON.c.id)
 _GUARDED_UPDATE = sa.update(_COMPARISON).where(
     _COMPARISON.c.id == sa.bindparam("guard_id"),
     _COMPARISON.c.looks_taken == sa.bindparam("guard_looks"),
+    _COMPARISON.c.replans == sa.bindparam("guard_replans"),
     _COMPARISON.c.archived.is_(False))
 _INSERT_LOOK = sa.insert(_LOOK).returning(_LOOK.c.id)
 
@@ -92,8 +97,11 @@ def _cell_upsert(insert):
 
 _CELL_UPSERTS = {"sqlite": _cell_upsert(sqlite.insert), "postgresql": _cell_upsert(postgresql.insert)}
 
-# The last testing look as the boundary needs it (a stored row or the one just written).
-BoundaryLookRow = namedtuple("BoundaryLookRow", "boundary_look fraction boundary_z futility_z")
+# The last testing look as the boundary needs it (a stored row or the one just written); the
+# df of its statistic rebuilds a sequential t boundary. ``bounds``: the look's detail["bounds"]
+# (its segment's own bounds), present after a replan.
+BoundaryLookRow = namedtuple("BoundaryLookRow", "boundary_look fraction boundary_z futility_z df bounds",
+                             defaults=(None, None))
 
 
 @dataclass(frozen=True)
@@ -120,6 +128,8 @@ class LookState:
     cells: dict = field(default_factory=dict)
     last_boundary_look: BoundaryLookRow | None = None
     last_excluded: dict = field(default_factory=dict)
+    replans: tuple = ()             # the version's replans (plan_change rows), oldest first
+    restart: dict | None = None     # a new version's start, from the archived version's restart
 
     @property
     def looks_taken(self) -> int:
@@ -157,7 +167,8 @@ def read_state(engine, name: str, kept: Callable[[int], KeptState | None] | None
                 ensure_current(conn)  # raises StoreBehindError with the right message
             if top["id"] is None:
                 latest = conn.execute(_TOP_VERSION_STATEMENT, {"name": name}).scalar()
-                return LookState(None, (latest or 0) + 1)
+                restart = restart_note(conn, name, latest) if latest else None
+                return LookState(None, (latest or 0) + 1, restart=restart)
             comparison = {k: top[k] for k in _COMPARISON_FIELDS}
             offered = kept(comparison["id"]) if kept is not None else None
             if (offered is not None and top["state_token"] is not None and offered.token == top["state_token"]
@@ -168,9 +179,10 @@ def read_state(engine, name: str, kept: Callable[[int], KeptState | None] | None
                          in conn.execute(_CELLS_STATEMENT, {"cid": comparison["id"]})}
                 found = conn.execute(_LAST_BOUNDARY_STATEMENT, {"cid": comparison["id"]}).first()
                 last = None if found is None else BoundaryLookRow(*found)
+            changes = tuple(replan_rows(conn, comparison["id"])) if comparison["replans"] else ()
     except DBAPIError as exc:
         raise _store_error("read", exc) from None
-    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {})
+    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {}, changes)
 
 
 def boundary_looks(engine, comparison_id: int, count: int) -> list[BoundaryLookRow]:
@@ -258,11 +270,12 @@ def _write_comparison(conn, w: LookWrite) -> int:
     if w.design.shift is not None and row["design"].get("shift") is None:
         update["design"] = w.design.to_stored()  # the shift is fixed at the first look with data
     # The guard: only the look that follows the one we read may be written.
-    done = conn.execute(_GUARDED_UPDATE, {**update, "guard_id": row["id"], "guard_looks": row["looks_taken"]})
+    done = conn.execute(_GUARDED_UPDATE, {**update, "guard_id": row["id"], "guard_looks": row["looks_taken"],
+                                          "guard_replans": row.get("replans") or 0})
     if done.rowcount != 1:
         raise LookAlreadyRecordedError(
             f"comparison {w.name!r}: look {w.look['look_number']} was recorded by another "
-            f"process first (or the comparison was restarted); nothing was written")
+            f"process first (or the comparison was restarted or replanned); nothing was written")
     return row["id"]
 
 

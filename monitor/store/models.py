@@ -34,6 +34,9 @@ __all__ = [
     "Delivery",
     "Lease",
     "SourceHealth",
+    "LookCheck",
+    "Worker",
+    "PlanChange",
 ]
 
 NAMING_CONVENTION = {
@@ -90,6 +93,9 @@ class Comparison(Base):
     last_look_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     stopped_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     archived: Mapped[bool] = mapped_column(Boolean, default=False)
+    # Replans made so far: a look guards its write on it, so a look worked out before a replan
+    # is never recorded after it (see monitor.store.plan_changes).
+    replans: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
 
     looks: Mapped[list["Look"]] = relationship(back_populates="comparison", order_by="Look.look_number")
 
@@ -235,3 +241,65 @@ class SourceHealth(Base):
     last_error: Mapped[str | None] = mapped_column(Text, nullable=True)
     last_attempt_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
     alerted: Mapped[bool] = mapped_column(Boolean, default=False)
+
+
+class LookCheck(Base):
+    """When a comparison was last checked by any worker (wall time), and what that check read.
+
+    The scheduler's "is it due?" reads this row, so a worker that finds a comparison's claim
+    free does not look again before the schedule says so, whoever looked last.
+    """
+
+    __tablename__ = "look_check"
+
+    comparison_name: Mapped[str] = mapped_column(String(200), primary_key=True)
+    # Wall time of the check (claims and schedules run on wall time, whatever clock looks use).
+    checked_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # The look's own "now" (the demo's simulated clock, or --as-of).
+    as_of: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
+    holder: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    # recorded (a look row was written) | quiet (nothing new was found; no look row)
+    outcome: Mapped[str] = mapped_column(String(20), default="recorded")
+    # What the check read: look number it stands at, cutoff, new events.
+    detail: Mapped[dict] = mapped_column(JSON, default=dict)
+
+
+class Worker(Base):
+    """A running ``gapwatch run`` worker's heartbeat: the read side tells a dead monitor from a live one."""
+
+    __tablename__ = "worker"
+
+    holder: Mapped[str] = mapped_column(String(200), primary_key=True)
+    started_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # Wall time of the worker's latest beat (it beats on every tick, looked or not).
+    beat_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    # Wall time of the worker's latest look (recorded or quiet).
+    looked_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
+    stopped_at: Mapped[datetime | None] = mapped_column(UTCDateTime(), nullable=True)
+
+
+class PlanChange(Base):
+    """A change made to a running comparison by hand: a new plan, or a restart.
+
+    ``kind`` is ``replan`` (the comparison keeps its looks and spent alpha; ``record``
+    holds the conditional-error figures its later boundaries come from) or ``restart``
+    (the version was archived; ``record`` says whether the next version reads only data
+    after this version's watermark, which it carries, or everything from the start).
+    """
+
+    __tablename__ = "plan_change"
+    __table_args__ = (UniqueConstraint("comparison_id", "number"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    comparison_id: Mapped[int] = mapped_column(ForeignKey("comparison.id", ondelete="CASCADE"), index=True)
+    # 1, 2, ... per comparison version, in the order the changes were made.
+    number: Mapped[int] = mapped_column(Integer)
+    kind: Mapped[str] = mapped_column(String(20))
+    made_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    made_by: Mapped[str] = mapped_column(String(200))
+    reason: Mapped[str] = mapped_column(Text, default="")
+    # The comparison's looks_taken when the change was made (it applies from the next look).
+    after_look: Mapped[int] = mapped_column(Integer)
+    old_plan: Mapped[dict | None] = mapped_column(JSON, nullable=True)
+    new_plan: Mapped[dict | None] = mapped_column(JSON, nullable=True)
+    record: Mapped[dict] = mapped_column(JSON, default=dict)

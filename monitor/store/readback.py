@@ -22,11 +22,13 @@ from apscheduler.triggers.interval import IntervalTrigger
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, baseline_gap_words,
-                          json_safe, parse_duration, state_label)
+                          json_safe, outlook_words, parse_duration, state_label)
 from .engine import open_store
-from .models import Alert, Cell, Comparison, Delivery, Look
+from .models import Alert, Cell, Comparison, Delivery, Look, LookCheck, Worker
+from .plan_changes import plan_changes
 
 __all__ = [
+    "monitor_liveness",
     "STATES",
     "STOPPED_STATES",
     "ALERT_STATES",
@@ -38,6 +40,8 @@ __all__ = [
     "comparison_status",
     "list_comparisons",
     "look_history",
+    "plan_change_history",
+    "plan_share",
     "get_comparison",
     "list_versions",
     "latest_look_time",
@@ -195,7 +199,7 @@ def _comparison_select():
     return sa.select(
         Comparison.id, Comparison.name, Comparison.version, Comparison.design,
         Comparison.settings, Comparison.state, Comparison.looks_taken, Comparison.created_at,
-        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived,
+        Comparison.last_look_at, Comparison.stopped_at, Comparison.archived, Comparison.replans,
     )
 
 
@@ -322,6 +326,21 @@ def _progress(last, stopped, fraction_rate):
     return None, None
 
 
+def _last_interval(last, looks) -> dict:
+    """The newest valid interval among the recent looks, with its estimate and look number.
+
+    A look that tested nothing (no new information, a data problem) records no interval;
+    the last valid one keeps being shown rather than a blank.
+    """
+    shown = last
+    if last is not None and last["ci_low"] is None and last["ci_high"] is None:
+        shown = next((lk for lk in reversed(looks) if lk["ci_low"] is not None or lk["ci_high"] is not None), last)
+    if shown is None:
+        return {"estimate": None, "ci_low": None, "ci_high": None, "interval_look": None}
+    return {"estimate": _num(shown["estimate"]), "ci_low": _num(shown["ci_low"]), "ci_high": _num(shown["ci_high"]),
+            "interval_look": shown["look_number"]}
+
+
 def _warnings(last, design) -> list[str]:
     """The newest look's warnings, plus the clustering advice when the design effect calls for it."""
     warnings = [str(w) for w in (last["warnings"] or [])] if last is not None else []
@@ -334,8 +353,33 @@ def _warnings(last, design) -> list[str]:
     return warnings
 
 
+def plan_share(look):
+    """A look's share of the plan it was measured against: its fraction, or after a replan the
+    fraction over the new plan's end (``detail["plan"]["share"]``)."""
+    plan = (look["detail"] or {}).get("plan") or {}
+    return plan["share"] if plan.get("share") is not None else look["fraction"]
+
+
+def _outlook(looks):
+    """The newest look's projected completion with the newest conditional powers (a look that
+    tested nothing recorded no conditional power: the last testing look's stand)."""
+    if not looks:
+        return None
+    out = dict((looks[-1]["detail"] or {}).get("outlook") or {})
+    for look in reversed(looks):
+        earlier = (look["detail"] or {}).get("outlook") or {}
+        for key in ("current_estimate", "planned_difference"):
+            if key not in out and earlier.get(key) is not None:
+                out[key] = earlier[key]
+        if "current_estimate" in out:
+            break
+    return json_safe(out) or None
+
+
 def _status_row(comp, looks, now):
     design = _design(comp["design"])
+    # The share of the (current) plan is what people read as "fraction".
+    looks = [dict(look, fraction=plan_share(look)) for look in looks]
     settings = comp["settings"] or {}
     every = settings.get("every", settings.get("schedule"))
     last = looks[-1] if looks else None
@@ -363,6 +407,10 @@ def _status_row(comp, looks, now):
         "description": settings.get("description") or None,
         "every": every,
         **_latest(last),
+        **_last_interval(last, looks),
+        # After a replan, the current plan's events (the look records them).
+        **({"planned_per_group": last["detail"]["planned_per_group"]}
+           if last is not None and (last["detail"] or {}).get("planned_per_group") else {}),
         "warnings": _warnings(last, design),
         "created_at": _iso(comp["created_at"]),
         "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
@@ -375,6 +423,9 @@ def _status_row(comp, looks, now):
         "start": None if design is None or design.window is None else design.window.start,
         "baseline": before_after_words(design, last["detail"] if last is not None else None),
         "before_after": json_safe((last["detail"] or {}).get("before_after")) if last is not None else None,
+        "outlook": None if stopped else _outlook(looks),
+        "outlook_words": None if stopped else outlook_words(_outlook(looks)),
+        "replans": comp.get("replans") or 0,
     }
 
 
@@ -473,6 +524,61 @@ def reference_time(engine, now):
     return newest, note
 
 
+# A monitor that has not checked any comparison for this many of its shortest interval looks dead.
+QUIET_INTERVALS = 3
+
+
+def _interval_seconds(every):
+    """Seconds of an interval schedule; None for a cron expression or nothing readable."""
+    if isinstance(every, (int, float)):
+        return float(every)
+    try:
+        return parse_duration(every)
+    except (ValueError, TypeError, InvalidArgumentError):
+        return None
+
+
+def monitor_liveness(engine, *, now):
+    """Whether any ``gapwatch run`` worker is still looking, read from checks and heartbeats (wall time).
+
+    Returns ``{"quiet": bool, "message": str | None, "last_check_at", "last_beat_at",
+    "workers_alive", "interval_seconds"}``. ``quiet`` is true when workers have run on this
+    store but none has checked an open comparison for ``QUIET_INTERVALS`` of the shortest
+    interval; the message then says so plainly (a store filled only by ``gapwatch look`` from
+    outside the service has no workers and no message). Looks' own times play no part, so a
+    simulated clock (the demo's) changes nothing here.
+    """
+    now = _aware(now, "now")
+    with engine.connect() as conn:
+        settings = conn.execute(sa.select(Comparison.settings).where(
+            Comparison.archived.is_(False), Comparison.stopped_at.is_(None),
+            Comparison.state.not_in(list(STOPPED_STATES)))).scalars().all()
+        last_check = conn.execute(sa.select(sa.func.max(LookCheck.checked_at))).scalar()
+        beats = conn.execute(sa.select(Worker.holder, Worker.beat_at, Worker.stopped_at)).all()
+    intervals = [i for i in (_interval_seconds((st or {}).get("every")) for st in settings) if i]
+    interval = min(intervals) if intervals else None
+    last_beat = max((b.beat_at for b in beats), default=None)
+    alive = [b for b in beats if b.stopped_at is None and interval is not None
+             and (now - b.beat_at).total_seconds() <= QUIET_INTERVALS * max(interval, 10.0)]
+    out = {"quiet": False, "message": None, "last_check_at": _iso(last_check), "last_beat_at": _iso(last_beat),
+           "workers_alive": len(alive), "interval_seconds": interval}
+    if interval is None or not beats:
+        return out
+    since = last_check or min(b.beat_at for b in beats)
+    silent = (now - since).total_seconds()
+    if silent <= QUIET_INTERVALS * interval:
+        return out
+    out["quiet"] = True
+    checked = ("never checked a comparison" if last_check is None
+               else f"last checked a comparison {describe_seconds(silent)} ago")
+    workers = ("no worker is running" if not alive else
+               f"{len(alive)} worker{'s' if len(alive) != 1 else ''} alive but not looking")
+    out["message"] = (f"No worker has looked for {describe_seconds(silent)} (over {QUIET_INTERVALS} intervals "
+                      f"of {describe_seconds(interval)}): the monitor {checked}; {workers}. "
+                      f"Start `gapwatch run` or see its log.")
+    return out
+
+
 def list_versions(engine, name):
     """The stored versions of one comparison: version, state, archived, looks."""
     stmt = (
@@ -501,7 +607,28 @@ def get_comparison(engine, name, version=None, *, now=None):
     row["design"] = json_safe(comp["design"] or {})
     row["settings"] = json_safe(comp["settings"] or {})
     row["watermark"] = json_safe(watermark)
+    row["plan_changes"] = plan_change_history(engine, name, comp["version"])
     return row
+
+
+def plan_change_history(engine, name, version=None):
+    """The replans and restarts of one comparison version, oldest first, as plain dicts."""
+    with engine.connect() as conn:
+        comp = _find_comparison(conn, name, version)
+        rows = plan_changes(conn, comp["id"])
+    out = []
+    for r in rows:
+        record = r["record"] or {}
+        item = {"number": r["number"], "kind": r["kind"], "made_at": _iso(r["made_at"]), "made_by": r["made_by"],
+                "reason": r["reason"], "after_look": r["after_look"],
+                "old_plan": json_safe(r["old_plan"]), "new_plan": json_safe(r["new_plan"])}
+        if r["kind"] == "replan":
+            item["conditional_error"] = _num((record.get("error_upper") or 0.0) + (record.get("error_lower") or 0.0))
+            item["method"] = record.get("method")
+        else:
+            item["from_start"] = bool(record.get("from_start"))
+        out.append(item)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -554,6 +681,8 @@ def look_history(engine, name, version=None):
             "p_value": _num(r["p_value"]),
             "information": _num(r["information"]),
             "fraction": _num(r["fraction"]),
+            "plan_share": _num(plan_share(r)),
+            "plan_end": _num(((detail.get("plan") or {}).get("end")) or 1.0),
             "boundary_z": _num(r["boundary_z"]),
             "futility_z": _num(r["futility_z"]),
             "nominal_p": _num(r["nominal_p"]),

@@ -56,7 +56,7 @@ from scipy import special, stats
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from monitor.config import DEFAULT_MIN_CLUSTERS  # noqa: E402
-from monitor.stats.before_after import estimate_after_stop, information_fraction, plan_before_after  # noqa: E402
+from monitor.stats.before_after import information_fraction, plan_before_after  # noqa: E402
 from monitor.stats.site_pairs import daily_boundaries, draw_site_pairs, monitor_site_pairs  # noqa: E402
 
 # Pick seconds at two depots, and a first-contact resolution rate at two desks.

@@ -5,22 +5,29 @@ Prints, in seconds:
 * ``comparison_status`` alone (the read the board and ``gapwatch status`` make);
 * the board page under Streamlit's AppTest: first run (cold caches: engine,
   config, query) and later runs (the query cached for about 5 s);
-* the comparison page for one comparison (history of 25 looks, four charts).
+* the comparison page for one comparison (history of 25 looks, four charts);
+* with ``--browser`` (Chromium from ``$GAPWATCH_CHROMIUM``): a fresh ``gapwatch dashboard``
+  server, and how long the first page takes to be drawn in the browser after the server
+  answers (and after the command starts), then the first comparison page.
 
-The target is the board's data load + render in under 2 s. Run from the
-project root:
+The targets are the board's data load + render in under 2 s, and the first page drawn
+within 3 s of the server answering; each figure is printed with its ratio to the target.
+Run from the project root:
 
-    python tests/benchmarks/bench_dashboard.py [--comparisons 200] [--looks 5000] [--postgres URL]
+    python tests/benchmarks/bench_dashboard.py [--comparisons 200] [--looks 5000] [--url URL] [--browser]
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import socket
 import statistics
+import subprocess
 import sys
 import tempfile
 import time
+import urllib.request
 from datetime import datetime, timezone
 from pathlib import Path
 
@@ -52,6 +59,8 @@ def main(argv=None):
     parser.add_argument("--looks", type=int, default=5000)
     parser.add_argument("--repeat", type=int, default=6)
     parser.add_argument("--url", help="an empty store to fill instead of a temporary SQLite file")
+    parser.add_argument("--browser", action="store_true",
+                        help="also time a fresh server's first pages in Chromium ($GAPWATCH_CHROMIUM)")
     args = parser.parse_args(argv)
 
     with tempfile.TemporaryDirectory() as folder:
@@ -117,6 +126,57 @@ def main(argv=None):
 
         _report("comparison page, AppTest run, cold query", [comparison_page() for _ in range(args.repeat)])
         engine.dispose()
+        if args.browser:
+            for _ in range(min(args.repeat, 3)):
+                _first_render(config, Path(folder), name)
+
+
+# How soon the first page must be drawn after the server answers (issue target).
+FIRST_RENDER_TARGET = 3.0
+
+
+def _first_render(config, folder, name):
+    """A fresh server: seconds until Chromium shows the board, then a comparison page."""
+    from playwright.sync_api import sync_playwright
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    started = time.perf_counter()
+    proc = subprocess.Popen([sys.executable, "-m", "monitor", "dashboard", "--config", str(config),
+                             "--port", str(port)], cwd=folder, env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        while True:
+            try:
+                with urllib.request.urlopen(f"{base}/_stcore/health", timeout=2):
+                    break
+            except OSError:
+                time.sleep(0.05)
+        healthy = time.perf_counter()
+        with sync_playwright() as p:
+            browser = p.chromium.launch(executable_path=os.environ["GAPWATCH_CHROMIUM"],
+                                        args=["--no-sandbox", "--disable-gpu"])
+            page = browser.new_page(viewport={"width": 1440, "height": 1000})
+            opened = time.perf_counter()
+            page.goto(base + "/board")
+            page.wait_for_selector("table.gw-board", timeout=120_000)
+            board = time.perf_counter() - opened
+            opened = time.perf_counter()
+            page.goto(f"{base}/comparison?name={name}")
+            page.wait_for_selector(".gw-reading", timeout=120_000)
+            page.wait_for_selector("[data-testid=stVegaLiteChart] canvas, [data-testid=stVegaLiteChart] svg",
+                                   state="attached", timeout=120_000)
+            comparison = time.perf_counter() - opened
+            browser.close()
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+    print(f"fresh server: answering {healthy - started:5.2f} s after the command; board drawn "
+          f"{board:5.2f} s later ({board / FIRST_RENDER_TARGET:.2f} x the {FIRST_RENDER_TARGET:g} s target); "
+          f"first comparison page {comparison:5.2f} s")
 
 
 if __name__ == "__main__":

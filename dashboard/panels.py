@@ -1,0 +1,209 @@
+"""Every view of one comparison, section by section; shared by the Comparison and Review pages."""
+
+from __future__ import annotations
+
+import html
+
+import pandas as pd
+import streamlit as st
+
+from monitor.store.export import csv_text
+from monitor.store.readback import clustering_figures
+
+from . import charts, data, look_tables, tables
+from .formats import bounds_text, confidence_percent, fmt, fraction_text, groups_text, next_look_text
+from .formats import plan_eta_text, when, zone_name
+from .reading import reading, testing_look
+from .style import badge, pair, tiles
+
+__all__ = ["show_comparison"]
+
+# The data-quality caption names the day level: that is where the look measures clustering.
+_QUALITY_CLUSTER_TEXT = {"clusters": "{} clusters".format,
+                         "design_effect": lambda value: f"day-level design effect {fmt(value, 3)}",
+                         "effective_n": "effective n {:,.0f}".format}
+
+
+def show_comparison(url, name, version=None):
+    """Headline, the decision chart and its reading, after the stop, charts, plan, quality, history."""
+    row = data.comparison(url, name, version)
+    looks = data.history(url, name, row["version"])
+    frame = charts.history_frame(looks, zone_name(row))
+    _headline(row, looks)
+    _decision(row, looks, frame)
+    _after_stop(row)
+    _over_time(row, frame)
+    plan_col, quality_col = pair("plan")
+    with plan_col:
+        st.markdown("##### The plan")
+        st.table(pd.DataFrame(tables.plan_lines(row), columns=["setting", "value"]).set_index("setting"))
+        changes = _change_lines(row.get("plan_changes") or [])
+        if changes:
+            st.markdown("###### Changes of plan")
+            st.markdown("\n".join(f"- {html.escape(line, quote=False)}" for line in changes))
+    with quality_col:
+        _data_quality(url, row, looks)
+    _look_history(row, looks, frame)
+
+
+def _headline(row, looks):
+    title = f"{row['name']}" + (f" · version {row['version']}" if row["version"] != 1 else "")
+    st.subheader(title)
+    st.html(f'<div>{badge(row["state"])}'
+            + (' <span class="gw-sub">archived</span>' if row["archived"] else "")
+            + f' <span class="gw-sub">{html.escape(row.get("description") or "")}</span></div>')
+    interval = _newest_interval(row, looks)
+    tiles([
+        (f"Estimate ({groups_text(row)})", _figure(row["estimate"]),
+         f"{confidence_percent(row)} repeated confidence interval: {interval}"),
+        ("Events per group", f"{row['n1']:,} / {row['n2']:,}"),
+        ("Plan reached", fraction_text(row),
+         f"of {row['planned_per_group']:,.0f} planned per group" if row.get("planned_per_group") else None),
+        ("Looks", row["looks"]),
+    ])
+    ref = data.now()
+    timing = f"last look {when(row['last_look_at'], ref)}"
+    if row["stopped"]:
+        timing += f" · stopped {when(row['stopped_at'], ref)}"
+    elif not row["archived"]:
+        eta = plan_eta_text(row)
+        timing += f" · next look {next_look_text(row, ref)} · " + (
+            "plan completion not yet known" if eta == "unknown yet" else f"plan complete in {eta}")
+    st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval} · {timing}")
+    if row.get("baseline"):
+        # A before/after comparison: the estimate is the change; say what the gap was before it.
+        st.info(row["baseline"][:1].upper() + row["baseline"][1:] + ".")
+    if row.get("outlook_words"):
+        words = row["outlook_words"]
+        st.info(words[0].upper() + words[1:] + ".")
+    for warning in row["warnings"]:
+        st.warning(warning, icon="⚠️")
+
+
+def _change_lines(changes):
+    """Replans and restarts of this version, one line each: who, when, old and new plan, why."""
+    lines = []
+    for c in changes:
+        made = f"{c['made_at'][:16].replace('T', ' ')} UTC by {c['made_by']}"
+        why = f" — {c['reason']}" if c.get("reason") else ""
+        if c["kind"] == "replan":
+            old = (c.get("old_plan") or {}).get("planned_per_group")
+            new = (c.get("new_plan") or {}).get("planned_per_group")
+            lines.append(f"Replan {c['number']} after look {c['after_look']}, {made}: {old:,} → {new:,} "
+                         f"events per group{why}; alpha left for the rest {fmt(c['conditional_error'], 3)}, "
+                         f"spent on the data after the change")
+        else:
+            how = "all data again (from the start)" if c.get("from_start") else "new data only"
+            lines.append(f"Restarted after look {c['after_look']}, {made}: the next version reads {how}{why}")
+    return lines
+
+
+def _figure(value, digits=4):
+    return "—" if value is None else fmt(value, digits)
+
+
+def _newest_interval(row, looks):
+    """This look's interval; when it tested nothing new, the newest look's that did, named."""
+    if row["ci_low"] is not None or row["ci_high"] is not None:
+        return bounds_text(row["ci_low"], row["ci_high"])
+    tested = testing_look(looks)
+    if tested is None or (tested["ci_low"] is None and tested["ci_high"] is None):
+        return "none yet"
+    return (f"{bounds_text(tested['ci_low'], tested['ci_high'])} from look {tested['look']} "
+            "(the looks since found nothing new to test)")
+
+
+def _decision(row, looks, frame):
+    chart = charts.boundary_chart(row, frame)
+    st.markdown("##### The evidence against the boundary")
+    if chart is not None:
+        st.altair_chart(chart, width="stretch")
+        st.caption(_decision_caption(frame))
+        note = charts.off_scale_note(frame, row)
+        if note:
+            st.caption(note)
+    else:
+        st.info("No test statistic recorded yet.")
+    st.markdown("##### What this means")
+    st.html('<div class="gw-reading">' + "".join(f"<p>{html.escape(p, quote=False)}</p>" for p in reading(row, looks)) + "</div>")
+
+
+def _decision_caption(frame):
+    if charts.uses_t(frame):
+        return ("Each look is drawn on the scale its decision is taken on: a t statistic is shown as the "
+                "normal value with the same one-sided p-value (its z-equivalent), so a point beyond the "
+                "dashed boundary is a look that crossed it.")
+    return "Each look's z statistic against the boundary it had to cross at that look."
+
+
+def _after_stop(row):
+    adjusted = row.get("adjusted")
+    if not (row["stopped"] and adjusted):
+        return
+    st.markdown("##### After the stop")
+    tiles([
+        ("Adjusted estimate", _figure(adjusted["estimate"]),
+         "median-unbiased: corrects the overstatement of an estimate taken at a stop"),
+        ("Adjusted p-value", _figure(adjusted["p_value"], 3), "stagewise ordering of the outcomes"),
+        ("Adjusted interval", bounds_text(adjusted["ci_low"], adjusted["ci_high"])
+         if adjusted["ci_low"] is not None or adjusted["ci_high"] is not None else "—"),
+    ])
+    if adjusted.get("note"):
+        st.caption(adjusted["note"])
+
+
+def _over_time(row, frame):
+    left, right = pair("over-time")
+    with left:
+        st.markdown("##### Estimate over time")
+        chart = charts.estimate_chart(row, frame)
+        if chart is not None:
+            st.altair_chart(chart, width="stretch")
+        st.caption(f"Shaded: the {confidence_percent(row)} repeated confidence interval at each look that "
+                   "has one (a look that tested nothing new has none). Dashed grey: the null difference.")
+        note = charts.cut_intervals_note(row, frame)
+        if note:
+            st.caption(note)
+    with right:
+        st.markdown("##### Each group over time")
+        chart = charts.group_chart(row, frame)
+        if chart is not None:
+            st.altair_chart(chart, width="stretch")
+        else:
+            st.info("No group means recorded yet.")
+
+
+def _data_quality(url, row, looks):
+    st.markdown("##### Data quality")
+    excluded_total = looks[-1]["excluded_total"] if looks else 0  # running totals
+    late_total = sum(h["late_events"] for h in looks)
+    tiles([
+        ("Rows excluded", f"{excluded_total:,}"),
+        ("Late events", f"{late_total:,}"),
+        ("Effective n", f"{row['effective_n']:,.0f}" if row["effective_n"] is not None else "—",
+         "events divided by the design effect"),
+    ])
+    beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
+    beside += clustering_figures(row, _QUALITY_CLUSTER_TEXT)
+    st.caption(" · ".join(beside))
+    chart = charts.excluded_chart(looks)
+    if chart is not None:
+        st.altair_chart(chart, width="stretch")
+    else:
+        st.caption("No rows excluded so far.")
+    days = data.cells(url, row["name"], row["version"]).get("day", [])
+    if days:
+        count = len({c["key"] for c in days})
+        with st.expander(f"Events per day ({count} {'day' if count == 1 else 'days'})"):
+            st.dataframe(look_tables.per_day_table(days, row), width="stretch")
+
+
+def _look_history(row, looks, frame):
+    st.markdown("##### Look history")
+    if not looks:
+        st.info("No looks recorded yet.")
+        return
+    table, config = look_tables.look_table(frame)
+    st.dataframe(table, hide_index=True, width="stretch", column_config=config)
+    st.download_button("Download looks as CSV", csv_text(looks), file_name=f"{row['name']}-v{row['version']}-looks.csv",
+                       mime="text/csv", key=f"csv-{row['name']}-{row['version']}")

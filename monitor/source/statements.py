@@ -1,0 +1,272 @@
+"""The SQLAlchemy Core statements of a read: per-row parts, the cell aggregate, raw rows, first values.
+
+One aggregate statement per look: per (group, 15-minute slot[, key], reason)
+counts and shifted sums ``Σ(x − c)`` and ``Σ(x − c)²``, over the rows whose
+event time lies in ``(previous cutoff, cutoff]`` plus late rows (event time at
+or before the previous cutoff, arrival above the previous arrival watermark).
+Every predicate compares the raw time or arrival column with a bound value, so
+the database can use its index; slot and epoch expressions appear in the SELECT
+list only.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import sqlalchemy as sa
+
+from .binding import bind_like, bind_type, literal, literals
+from .columns import Columns
+from .times import TimeKind
+
+__all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "count_before_statement",
+           "first_values_statement"]
+
+
+@dataclass(frozen=True)
+class RowParts:
+    """The expressions one events row is read through."""
+
+    kind: TimeKind
+    time_raw: object
+    epoch: object
+    group_index: object
+    value: object
+    summand: object
+    reason: object  # NULL for a valid row, else the exclusion reason
+    other_reason: object  # the reason for a row whose time is readable
+    key: object
+    arrival: object
+    arrival_type: object
+    filters: tuple
+
+
+def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
+    time_raw = cols.raw(spec.time_column)
+    epoch = dialect.epoch(kind, time_raw)
+    group_index = _group_index(spec, cols)
+    raw_value = cols.raw(spec.value_column)
+    value_type = cols.declared_type(spec.value_column)
+    value, value_reason = dialect.value_parts(spec, raw_value, value_type)
+    other_reason = sa.case((group_index.is_(None), "unknown_group"), else_=value_reason)
+    reason = sa.case((time_raw.is_(None), "null_time"), (epoch.is_(None), "bad_time"), else_=other_reason)
+    key = sa.cast(cols.raw(spec.key_column), sa.String) if spec.key_column else sa.null()
+    if spec.arrival_column:
+        arrival, arrival_type = cols.raw(spec.arrival_column), cols.declared_type(spec.arrival_column)
+    elif cols.implicit_arrival is not None:
+        arrival, arrival_type = cols.implicit_arrival, sa.Integer()
+    else:
+        arrival, arrival_type = None, None
+    return RowParts(
+        kind=kind,
+        time_raw=time_raw,
+        epoch=epoch,
+        group_index=group_index,
+        value=value,
+        summand=dialect.summand(raw_value, value, value_type),
+        reason=reason,
+        other_reason=other_reason,
+        key=key,
+        arrival=arrival,
+        arrival_type=arrival_type,
+        filters=tuple(_filters(spec, cols)),
+    )
+
+
+def _group_index(spec, cols):
+    column = cols.raw(spec.group_column)
+    g0, g1 = (bind_like(cols.declared_type(spec.group_column), g) for g in spec.groups)
+    return sa.case((column == literal(g0), 0), (column == literal(g1), 1), else_=None)
+
+
+_COMPARISONS = {
+    "=": lambda c, v: c == v,
+    "!=": lambda c, v: c != v,
+    "<": lambda c, v: c < v,
+    "<=": lambda c, v: c <= v,
+    ">": lambda c, v: c > v,
+    ">=": lambda c, v: c >= v,
+}
+
+
+def _filters(spec, cols):
+    for column_name, op, value in spec.filters:
+        column = cols.raw(column_name)
+        column_type = cols.declared_type(column_name)
+        if op in ("in", "not in"):
+            values = literals([bind_like(column_type, v) for v in value])
+            yield column.in_(values) if op == "in" else column.not_in(values)
+            continue
+        bound = bind_like(column_type, value)
+        if bound is None and op in ("=", "!="):
+            yield column.is_(None) if op == "=" else column.is_not(None)
+            continue
+        yield _COMPARISONS[op](column, literal(bound))
+
+
+def time_params(name: str, values: tuple) -> dict:
+    """One cutoff's bound values as named parameters: ``upper``, then ``upper_1`` … for further storages."""
+    return {(name if i == 0 else f"{name}_{i}"): v for i, v in enumerate(values)}
+
+
+def _bounds(bound: dict, name: str) -> tuple | None:
+    if name not in bound:
+        return None
+    values, i = [bound[name]], 1
+    while f"{name}_{i}" in bound:
+        values.append(bound[f"{name}_{i}"])
+        i += 1
+    return tuple(values)
+
+
+def _window(dialect, kind, raw, start, end) -> list | None:
+    """``start <= time < end`` as one predicate per storage (aligned with ``time_ranges``); None for no window.
+
+    ``start`` and ``end`` are tuples of bound values (one per storage) or None.
+    """
+    if start is None and end is None:
+        return None
+    predicates = []
+    for i, storage in enumerate(dialect.storages(kind, raw)):
+        conditions = [storage]
+        if start is not None:
+            conditions.append(raw >= start[i])
+        if end is not None:
+            conditions.append(raw < end[i])
+        predicates.append(sa.and_(*conditions))
+    return predicates
+
+
+def _windowed(ranges: list, window: list | None) -> list:
+    """Each storage's time range narrowed to the window (unchanged without one)."""
+    if window is None:
+        return ranges
+    return [sa.and_(r, w) for r, w in zip(ranges, window, strict=True)]
+
+
+def cells_statement(dialect, spec, parts: RowParts, params: dict):
+    """The aggregate over new and late rows, with bound parameters named like ``params``.
+
+    ``params`` holds ``upper`` (this cutoff), and on later reads ``lower`` (the previous
+    cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column
+    (see ``time_params`` for cutoffs compared in more than one storage). A spec with an
+    event-time window adds ``start`` (inclusive) and/or ``end`` (exclusive).
+    """
+    bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
+    kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
+    dev = parts.summand - float(spec.shift)
+    # Grouped by output position: the CASE expressions are evaluated once per row
+    # (bound parameters make each repeated expression text distinct to the database).
+    by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
+
+    def part(where, late, why=None):
+        # Each row's time and deviation are computed once in an inner select (the dialect
+        # may fence it so the database does not inline the expressions again); the outer
+        # select buckets and sums them.
+        rows = dialect.fence(
+            sa.select(
+                parts.group_index.label("gi"),
+                parts.epoch.label("at"),
+                time_raw.is_(None).label("no_time"),
+                parts.key.label("key"),
+                parts.other_reason.label("other"),
+                dev.label("dev"),
+                (arrival if arrival is not None else sa.null()).label("arrival"),
+            ).where(*where, *parts.filters)
+        ).subquery("r")
+        reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
+        if why is not None:
+            reason = sa.literal(why, sa.Text)
+        return sa.select(
+            rows.c.gi,
+            dialect.slot(kind, rows.c.at).label("slot"),
+            rows.c.key,
+            reason.label("reason"),
+            sa.func.count().label("n"),
+            (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
+            # Sums of bad groups are ignored; only valid groups' sums are used.
+            sa.func.sum(rows.c.dev).label("sum_dev"),
+            sa.func.sum(rows.c.dev * rows.c.dev).label("sum_dev2"),
+            sa.func.max(rows.c.arrival).label("arrival"),
+        ).group_by(*by_position)
+
+    upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
+    start, end = _bounds(bound, "start"), _bounds(bound, "end")
+    # A start keeps earlier events out; an end (a baseline's) keeps the change's out.
+    window = _window(dialect, kind, time_raw, start, end)
+    if lower is None:
+        # The first read scans the most: one branch per disjoint time range, each a plain index
+        # range scan (cells that two branches share are added up by the reader).
+        branches = [part([r], 0) for r in _windowed(dialect.time_ranges(kind, time_raw, None, upper), window)]
+        if end is None:
+            # NULL times (and words) never fall in a time range: count them once, on the first
+            # read (of the comparison, not of its baseline).
+            branches.append(part([dialect.unplaced(kind, time_raw, above=upper)], 0))
+    else:
+        branches = [part([sa.or_(*_windowed(dialect.time_ranges(kind, time_raw, lower, upper), window))], 0)]
+        if arrival is not None:
+            # Late rows are only those at or before the previous cutoff, so rows read
+            # earlier through the time range can never come back through this branch.
+            newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
+            # One OR here: the arrival index finds these rows, the time test only filters them.
+            earlier = sa.or_(*_windowed(dialect.time_ranges(kind, time_raw, None, lower), window))
+            branches.append(part([earlier, newer], 1))
+            branches.append(part([dialect.unplaced(kind, time_raw), newer], 0))
+            if start is not None and "seen" in bound:
+                # Rows dated before the start that arrive late: the baseline was read once and
+                # frozen, so they are counted, never used. (Without an arrival watermark yet
+                # nothing has been read, the baseline included.)
+                before = sa.or_(*_window(dialect, kind, time_raw, None, start))
+                branches.append(part([before, newer], 0, "before_start"))
+    return sa.union_all(*branches)
+
+
+def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max, window=(None, None)):
+    """(valid rows, per-reason counts) of the rows with time <= ``upper`` and arrival <= ``arrival_max``.
+
+    ``window`` is (start, end) bound values (either None): start inclusive, end exclusive.
+    Rows without a readable time are counted only without an end (not in a baseline).
+    """
+    time_raw, arrival = parts.time_raw, parts.arrival
+    upper = tuple(literal(v) for v in upper)
+    start, end = (None if w is None else tuple(literal(v) for v in w) for w in window)
+    in_time = _windowed(dialect.time_ranges(parts.kind, time_raw, None, upper),
+                        _window(dialect, parts.kind, time_raw, start, end))
+    unplaced = [] if end is not None else [dialect.unplaced(parts.kind, time_raw)]
+    where = [sa.or_(*in_time, *unplaced)]
+    if arrival_max is not None:
+        where.append(sa.or_(arrival <= literal(arrival_max), arrival.is_(None)))
+    where.extend(parts.filters)
+    labelled = sa.select(
+        parts.group_index.label("group_index"), parts.value.label("value"), time_raw.label("time"),
+        parts.key.label("key"), parts.reason.label("reason"),
+    ).where(*where).subquery("checked")
+    rows = sa.select(labelled.c.group_index, labelled.c.value, labelled.c.time, labelled.c.key).where(
+        labelled.c.reason.is_(None)
+    )
+    counts = (
+        sa.select(labelled.c.reason, sa.func.count())
+        .where(labelled.c.reason.is_not(None))
+        .group_by(labelled.c.reason)
+    )
+    return rows, counts
+
+
+def count_before_statement(dialect, parts: RowParts, before: tuple, arrival_max):
+    """How many rows (valid or not) are dated before ``before`` and arrived by ``arrival_max``."""
+    earlier = _window(dialect, parts.kind, parts.time_raw, None, tuple(literal(v) for v in before))
+    return (
+        sa.select(sa.func.count())
+        .select_from(parts.time_raw.table)
+        .where(sa.or_(*earlier), parts.arrival <= literal(arrival_max), *parts.filters)
+    )
+
+
+def first_values_statement(parts: RowParts, limit: int = 25):
+    """Up to ``limit`` valid values at the earliest times (straight off the time index)."""
+    return (
+        sa.select(parts.value)
+        .where(parts.time_raw.is_not(None), parts.reason.is_(None), *parts.filters)
+        .order_by(parts.time_raw)
+        .limit(limit)
+    )
