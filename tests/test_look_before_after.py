@@ -12,6 +12,7 @@ import pytest
 from live_helpers import LiveWorld, at, insert_events
 from monitor.errors import ConfigError
 from monitor.stats.before_after import difference_in_differences
+from monitor.verify import verify_looks
 from monitor.store.readback import format_number
 
 START = at(15, 6)          # the change goes live: Sunday 15 March 2026, 06:00 UTC
@@ -258,3 +259,46 @@ def test_the_printed_review_says_the_baseline_gap_and_shows_its_figures(tmp_path
     assert "difference in differences" in text and "Bell–McCaffrey" in text
     assert "Adjusted estimate" in text
     assert not re.search(r"\b(None|nan|NaN|inf|-inf|Infinity)\b|<object|\{'", text)
+
+
+def test_replan_refuses_a_before_after_comparison_in_one_line(tmp_path, capsys):
+    from monitor.cli import main
+
+    rows = site_rows(np.random.default_rng(7), 0, 22)
+    world = LiveWorld(tmp_path, rows, **BEFORE_AFTER)
+    for day in (17, 20, 21):
+        world.look(at(day, 0))
+    looks_before = len(world.looks())
+    code = main(["replan", "handle-time", "--planned-per-group", "900", "--reason", "busier than planned",
+                 "--config", str(world.config.path)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert "before/after comparison cannot be replanned" in err[0] and "restart" in err[0]
+    assert len(world.looks()) == looks_before
+
+
+def test_an_information_fraction_is_refused_with_a_baseline(tmp_path):
+    with pytest.raises(ConfigError, match="'information' is not used with a baseline"):
+        LiveWorld(tmp_path, [], start="2026-03-15T06:00:00+00:00", baseline="14d", difference=-5.0, sd=20.0,
+                  power=0.8, events_per_day=80, fraction="information")
+
+
+def test_baseline_rows_arriving_before_it_is_read_are_used_not_counted_as_before_start(tmp_path):
+    """A first look before the start sets an arrival watermark (from a NULL time alone); rows
+    of the baseline arriving after it are the baseline's, read when it ends, never before_start."""
+    rng = np.random.default_rng(8)
+    rows = [r for r in site_rows(rng, 0, 22) if r["done_at"] < at(14, 22)]
+    world = LiveWorld(tmp_path, rows + [{"site": "east", "seconds": 90.0, "done_at": None}], **BEFORE_AFTER)
+    first = world.look(at(14, 23))   # before the start: the baseline is not read yet
+    assert first.n1 == 0 and first.excluded == {"null_time": 1}
+    # The last hours of the baseline and the first days after the start arrive afterwards.
+    later = [r for r in site_rows(np.random.default_rng(8), 0, 22) if r["done_at"] >= at(14, 22)]
+    insert_events(world.source_url, "events", later)
+    second = world.look(at(20, 0))
+    assert "before_start" not in second.excluded
+    everything = rows + later
+    want = did_from_rows([r for r in everything if r["done_at"] <= at(20, 0)], START, START - timedelta(days=14))
+    gap = second.detail["before_after"]["baseline_gap"]
+    assert gap["estimate"] == pytest.approx(want.baseline_gap.estimate, rel=1e-9)
+    assert sum(gap["n"]) == sum(START - timedelta(days=14) <= r["done_at"] < START for r in everything)
+    assert all(r["ok"] for r in verify_looks(world.config, "handle-time", world.engine))

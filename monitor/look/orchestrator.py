@@ -293,6 +293,10 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
             design = design.with_shift(0.0)
         baseline = None
         if design.before_after and BASELINE_READ not in stored_cells:
+            # Until the baseline is frozen, rows dated before the start are the baseline's to
+            # read (a first look before the start has passed sets an arrival watermark from
+            # NULL times alone): only rows arriving after the look that froze it are before_start.
+            batch = _without_before_start(batch)
             window = design.window.moments()
             if cutoff >= window["baseline_to"]:
                 baseline_spec = replace(SourceSpec.from_design(design, arrival_column=c.arrival_column),
@@ -304,6 +308,12 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
         if own_source:
             source.dispose()
     return batch, cutoff, design, baseline
+
+
+def _without_before_start(batch):
+    if "before_start" not in batch.excluded:
+        return batch
+    return replace(batch, excluded={k: v for k, v in batch.excluded.items() if k != "before_start"})
 
 
 def _with_baseline_arrivals(batch, baseline_batch):

@@ -181,7 +181,8 @@ class MonitorOutcome:
     baseline_gap: np.ndarray
     did_known_variance_stop_day: np.ndarray | None = None
     # Asked for with ``keep_looks``: every testing look's before/after figures, arrays of shape
-    # (streams, looks) under ``estimate``, ``standard_error``, ``df``, ``statistic``, and the
+    # (streams, looks) under ``estimate``, ``standard_error``, ``df``, ``statistic`` (CR2), the
+    # after-only ``after_statistic``/``after_df`` and the CR1 ``cr1_statistic``/``cr1_df``, and the
     # looks' ``days`` after the start, so that a caller can decide them on other boundaries.
     did_looks: dict | None = None
 
@@ -248,8 +249,7 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     sd, day_sd : float, optional
         The spreads the values were drawn with: adds the known-variance monitor.
     keep_looks : bool
-        Keep every testing look's before/after estimate, standard error, df and t
-        (``MonitorOutcome.did_looks``).
+        Keep every testing look's statistics and df (``MonitorOutcome.did_looks``).
 
     Returns
     -------
@@ -310,7 +310,8 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
     kept = None
     if keep_looks:
         kept = {key: np.full((streams, last - first + 1), np.nan)
-                for key in ("estimate", "standard_error", "df", "statistic")}
+                for key in ("estimate", "standard_error", "df", "statistic", "after_statistic", "after_df",
+                            "cr1_statistic", "cr1_df")}
         kept["days"] = np.arange(first, last + 1)
     for k in range(2, last + 1):
         cols = slice(b, b + k)
@@ -344,7 +345,9 @@ def monitor_site_pairs(data: SitePairs, *, planned_after_days, first_look_day, a
         cr1_df = degrees_of_freedom("cr1", g, bm)
         t_cr1 = did / np.sqrt(g / (g - 1) * (total - 1) / (total - PARAMETERS) * (base["cr1"] + after["cr1"]))
         if testing and kept is not None:
-            for key, value in (("estimate", did), ("standard_error", se), ("df", df), ("statistic", t_did)):
+            for key, value in (("estimate", did), ("standard_error", se), ("df", df), ("statistic", t_did),
+                               ("after_statistic", t_after), ("after_df", float(k) - 1.0),
+                               ("cr1_statistic", t_cr1), ("cr1_df", cr1_df)):
                 kept[key][:, k - first] = value
         if testing:
             crossed = (np.abs(t_did) >= _t_critical(did_nominal[k], df)) & (stop["did"] == 0)
