@@ -173,6 +173,25 @@ def _over_time(row, frame):
             st.info("No group means recorded yet.")
 
 
+def volume_text(row) -> str:
+    """The volume check of the newest look, in a line: state, and each group against its usual day."""
+    volume = row.get("volume")
+    if not volume:
+        return "Volume: not checked yet."
+    if volume["state"] == "not_yet_measurable":
+        return f"Volume: not yet measurable ({volume.get('why') or 'too little history'})."
+    parts = []
+    for g in volume.get("groups") or []:
+        if g.get("share_of_usual") is not None:
+            parts.append(f"{g['group']} {100 * g['share_of_usual']:.0f} % of a usual {volume['weekday']}"
+                         + (f" since {g['since']}" if g.get("warn") else ""))
+    share = volume.get("share") or {}
+    if share.get("share") is not None:
+        parts.append(f"share {100 * share['share']:.0f} % (expected {100 * share['expected']:.0f} %)")
+    word = "WARNING" if volume["state"] == "warning" else "ok"
+    return " · ".join([f"Volume: {word}"] + parts)
+
+
 def _data_quality(url, row, looks):
     st.markdown("##### Data quality")
     excluded_total = looks[-1]["excluded_total"] if looks else 0  # running totals
@@ -186,6 +205,7 @@ def _data_quality(url, row, looks):
     beside = [f"n = {row['n1']:,} / {row['n2']:,}"]
     beside += clustering_figures(row, _QUALITY_CLUSTER_TEXT)
     st.caption(" · ".join(beside))
+    st.caption(volume_text(row))
     chart = charts.excluded_chart(looks)
     if chart is not None:
         st.altair_chart(chart, width="stretch")

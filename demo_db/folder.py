@@ -94,6 +94,16 @@ _COMPARISONS = [
         "spending": "obrien-fleming", "planned_per_group": 1500,
         "valid_range": [0.1, 240], "every": "4s",
     },
+    {
+        "name": "qc-defect-rate",
+        "description": "Defects per unit packed (a ratio of sums over batches), Line 5 minus Line 2. "
+                       "Line 5's sealing jaws were refitted; does it pack cleaner?",
+        "source": "plant", "table": "packing_qc", "group_column": "line",
+        "groups": ["line-5", "line-2"], "metric": "ratio", "numerator_column": "defects",
+        "denominator_column": "units", "time_column": "packed_at", "alternative": "two-sided",
+        "alpha": 0.05, "spending": "obrien-fleming", "planned_per_group": 1200,
+        "valid_range": [0, 500], "every": "4s",
+    },
 ]
 
 # Shared by every comparison: the integer primary key grows with each insert,

@@ -134,6 +134,11 @@ TABLES: tuple[TableSpec, ...] = (
         ("reason",),
         description="minutes to grade one returned item; bench 2 opens on Thursday",
     ),
+    TableSpec(
+        "packing_qc", "plant", "line", ("line-5", "line-2"), "defects", "packed_at",
+        ("units", "batch"), integer_value=True,
+        description="one row per packed batch: units packed and defects found at the end-of-line check",
+    ),
 )
 
 DATABASES: tuple[str, ...] = tuple(dict.fromkeys(t.database for t in TABLES))
@@ -160,6 +165,8 @@ PICK_HISTORY_DAYS = 14        # pick tasks go back two weeks before day 0 (the b
 CONTACT_RECORDING_DAY = 1    # the desks' new ticket system records resolution from Tuesday
 BENCH_TWO_OPENS_DAY = 3       # the second grading bench starts on Thursday
 BENCH_TWO_OPENS_HOUR = 9
+# Defects per unit packed: line 5's resealed jaws run a little cleaner than line 2.
+QC_DEFECT_RATE = {"line-2": 0.0040, "line-5": 0.0036}
 
 
 def _uniform_times(rng, day_start, count, first_hour, last_hour):
@@ -346,6 +353,27 @@ def _returns_day(rng, day, day_start):
     return events
 
 
+def _qc_day(rng, day, day_start):
+    events = []
+    spoil = _Spoiler(rng, 0.006, [_null_value, _text_value, _unknown_group])
+    # The shift's material lot moves both lines' defect rates a little (shared day shock).
+    day_shock = float(np.exp(rng.normal(0.0, 0.08)))
+    for line in ("line-2", "line-5"):
+        count = int(rng.poisson(6 * 24))                  # a batch every ten minutes or so
+        times = _uniform_times(rng, day_start, count, 0, 24)
+        arrivals = _arrivals(rng, times, typical_delay=90.0, late_share=0.015)
+        units = rng.gamma(4.0, 900.0 / 4.0, size=count).round() + 1
+        defects = rng.poisson(QC_DEFECT_RATE[line] * day_shock * units)
+        # A batch aborted at start-up is logged with no units (or none at all): no rate to count.
+        aborted = rng.random(count) < 0.005
+        for i, (t, a, u, d) in enumerate(zip(times, arrivals, units, defects)):
+            group, value, time = spoil(line, int(d), t)
+            unit_text = None if aborted[i] and i % 2 else (0 if aborted[i] else int(u))
+            events.append(DemoEvent(a, time, group, value,
+                                    {"units": unit_text, "batch": f"{line[-1]}-{day:03d}-{i:03d}"}))
+    return events
+
+
 _DAY_BUILDERS = {
     "pick_tasks": _pick_day,
     "contacts": _contact_day,
@@ -353,6 +381,7 @@ _DAY_BUILDERS = {
     "fill_checks": _fill_day,
     "deliveries": _delivery_day,
     "returns_grading": _returns_day,
+    "packing_qc": _qc_day,
 }
 
 

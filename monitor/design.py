@@ -31,7 +31,7 @@ from .config.model import DEFAULT_MIN_PAIRS
 from .errors import InvalidArgumentError
 from .vocabulary import json_safe
 
-__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "Window", "design_hash"]
+__all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "RatioColumns", "Window", "design_hash"]
 
 
 def design_hash(stored: dict) -> str:
@@ -145,6 +145,14 @@ class Clustering:
 
 
 @dataclass(frozen=True)
+class RatioColumns:
+    """Metric ``ratio``: the numerator (also ``Measure.value_column``) and denominator columns."""
+
+    numerator_column: str
+    denominator_column: str
+
+
+@dataclass(frozen=True)
 class Measure:
     """What is measured: the table and columns, which rows count, and the local time zone."""
 
@@ -239,6 +247,8 @@ class Design:
     futility: bool = False
     shift: float | None = None
     window: Window | None = None
+    ratio: RatioColumns | None = None
+    shift_den: float | None = None   # metric "ratio": the denominator's shift, fixed like ``shift``
     # "events" or "information" (monitor.look.plan): stored only when not the default, so
     # designs frozen before the choice existed compare equal.
     fraction: str = "events"
@@ -282,6 +292,10 @@ class Design:
         """The same design with the shift fixed (None leaves it unset)."""
         return replace(self, shift=None if shift is None else float(shift))
 
+    def with_shift_den(self, shift_den) -> Design:
+        """The same design with the ratio's denominator shift fixed (None leaves it unset)."""
+        return replace(self, shift_den=None if shift_den is None else float(shift_den))
+
     # ------------------------------------------------------------ from the configuration
 
     @classmethod
@@ -309,6 +323,7 @@ class Design:
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
             window=_window_of(c),
+            ratio=RatioColumns(c.numerator_column, c.denominator_column) if c.metric == "ratio" else None,
             fraction=getattr(c, "fraction", "events"),
         )
 
@@ -343,6 +358,10 @@ class Design:
             "shift": self.shift,
             # Only a comparison with a start stores these: every other design keeps its shape.
             **({} if self.window is None else self.window.to_stored()),
+            # Only ratio designs carry these, so every other stored design keeps its shape.
+            **({"numerator_column": self.ratio.numerator_column,
+                "denominator_column": self.ratio.denominator_column,
+                "shift_den": self.shift_den} if self.ratio is not None else {}),
             **({"fraction": self.fraction} if self.fraction != "events" else {}),
         }
 
@@ -372,6 +391,9 @@ class Design:
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
             window=Window.from_stored(stored),
+            ratio=(RatioColumns(stored["numerator_column"], stored["denominator_column"])
+                   if stored.get("denominator_column") else None),
+            shift_den=None if stored.get("shift_den") is None else float(stored["shift_den"]),
             fraction=stored.get("fraction") or "events",
         )
 
@@ -381,6 +403,7 @@ class Design:
         """The stored form without what may change: the shift and the plan's derived figures."""
         out = self.to_stored()
         del out["shift"]
+        out.pop("shift_den", None)
         out["plan"] = {k: v for k, v in out["plan"].items() if k != "figures"}
         return out
 

@@ -28,6 +28,7 @@ from .stats import fixed
 from .look.statistic import cluster_variance
 from .stats.before_after import difference_in_differences
 from .stats.clustered import cluster_counts, cluster_robust_difference
+from .stats.ratio import RatioCells, ratio_difference
 from .store.models import Comparison, Look
 from .vocabulary import NULL_KEY
 
@@ -98,13 +99,37 @@ def _unclustered(design: Design, g1, g2, common):
                 float(g2.std(ddof=1)), **common)
 
 
+def _ratio(design: Design, frame, out, common):
+    """A ratio look's figures from raw rows: per-cluster (or one per-group) sums, no shift."""
+    if out["n1"] == 0 or out["n2"] == 0:
+        return None
+    clustering = design.clustering
+    if clustering is not None:
+        keys = (frame["key"].fillna("").astype(str) if clustering.cluster_column
+                else _local_bucket(frame["time"], clustering.cluster_by, design.measure.timezone, ()))
+    else:
+        keys = [""] * len(frame)
+    y, x = frame["value"].to_numpy(), frame["denominator"].to_numpy()
+    sums = (frame.assign(cluster=keys, y=y, x=x, yy=y * y, xx=x * x, xy=x * y)
+            .groupby(["group_index", "cluster"])[["y", "x", "yy", "xx", "xy"]].agg(["count", "sum"])
+            .reset_index())
+    cells = RatioCells(
+        group=tuple(sums["group_index"]),
+        key=tuple(sums["cluster"]) if clustering is not None else (None,) * len(sums),
+        n=tuple(sums[("y", "count")]), num=tuple(sums[("y", "sum")]), den=tuple(sums[("x", "sum")]),
+        num2=tuple(sums[("yy", "sum")]), den2=tuple(sums[("xx", "sum")]), cross=tuple(sums[("xy", "sum")]))
+    return ratio_difference(cells, clustered=clustering is not None, **common)
+
+
 def _recompute(design: Design, frame, cutoff):
     """Figures of one look from its raw rows: dict of n1, n2, pairs, estimate, statistic, p_value."""
     common = dict(null_difference=design.null_difference, alternative=design.alternative, alpha=design.alpha)
     g1 = frame.loc[frame.group_index == 0, "value"]
     g2 = frame.loc[frame.group_index == 1, "value"]
     out = {"n1": int(len(g1)), "n2": int(len(g2)), "pairs": None}
-    if design.paired:
+    if design.ratio is not None:
+        result = _ratio(design, frame, out, common)
+    elif design.paired:
         result = _paired(design, frame, cutoff, common, out)
     elif design.clustered:
         result = _clustered(design, frame, g1, g2, common)

@@ -33,3 +33,27 @@ KISH = [
     (0.1, 101, 11.0),
     (1.0, 30, 30.0),
 ]
+
+# Donner & Klar (2000), "Design and Analysis of Cluster Randomization Trials in Health
+# Research", ch. 5: the variance inflation ("design effect") of a two-group comparison of
+# equal clusters of m with intra-cluster correlation rho is 1 + (m - 1) * rho (from memory;
+# the same formula as Kish's above). Values worked by hand from the formula.
+DONNER_KLAR = [
+    # (rho, m, design effect)
+    (0.01, 10, 1.09),
+    (0.05, 20, 1.95),
+    (0.02, 100, 2.98),
+    (0.5, 2, 1.5),
+]
+
+# Cohen (1988), "Statistical Power Analysis for the Behavioral Sciences", 2nd ed.,
+# Table 2.4.1: events per group of a two-sample t test at two-sided alpha 0.05 and
+# power 0.80 for a standardised difference d (from memory). The clustered planner with
+# clusters of one event, no design effect and clusters nested in groups (df 2(k - 1),
+# the pooled t) must give the same numbers.
+COHEN_T_PER_GROUP = [
+    # (d, events per group)
+    (0.5, 64),
+    (0.8, 26),
+    (1.0, 17),
+]

@@ -167,8 +167,9 @@ def events_table(
     time_index=True,
     schema=None,
     id_sequence=False,
+    extra_columns=(),
 ):
-    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key].
+    """A ``sa.Table`` for events: id (integer primary key), site, value, done_at[, key][, extra columns].
 
     ``id_sequence`` numbers the ids from a sequence (DuckDB has no auto-increment column).
     """
@@ -191,6 +192,7 @@ def events_table(
     ]
     if key_column:
         columns.append(sa.Column(key_column, sa.String(40)))
+    columns += [sa.Column(name, column_type) for name, column_type in extra_columns]
     t = sa.Table(table, metadata, *columns, schema=schema)
     if time_index:
         sa.Index(f"ix_{table}_done_at", t.c.done_at)

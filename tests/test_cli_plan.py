@@ -158,3 +158,29 @@ def test_simulate_bad_schedule_exits_2(capsys):
     with pytest.raises(SystemExit) as exc:
         cli.main(["simulate", "--metric", "mean", "--difference", "0.5", "--sd", "1", "--schedule", "often"])
     assert exc.value.code == 2
+
+
+def test_plan_ratio_is_a_mean_plan_with_the_residual_sd_over_the_mean_denominator(capsys):
+    code, out, err = _run(capsys, "plan", "--metric", "ratio", "--difference", "0.001", "--residual-sd", "4",
+                          "--mean-denominator", "800", "--looks", "4", "--json")
+    assert code == 0 and err == ""
+    data = json.loads(out)
+    # Cochran (1977) §6.3: Var(R) = σ_e² / (n μ_x²), a mean of n values with sd σ_e / μ_x = 0.005.
+    expected = plan_mean(0.001, 0.005, looks=4)
+    assert data["max_per_group"] == expected.max_per_group
+    assert data["fixed_per_group"] == math.ceil(fixed_sample_mean(0.001, 0.005))
+    assert (data["metric"], data["residual_sd"], data["mean_denominator"]) == ("ratio", 4.0, 800.0)
+    code, out, _ = _run(capsys, "plan", "--metric", "ratio", "--difference", "0.001", "--residual-sd", "4",
+                        "--mean-denominator", "800")
+    assert code == 0 and "sd 0.005 per row" in out
+
+
+@pytest.mark.parametrize("argv, message", [
+    (("--difference", "0.001", "--residual-sd", "4"), "--mean-denominator is required with --metric ratio"),
+    (("--difference", "0.001", "--residual-sd", "4", "--mean-denominator", "800", "--sd", "2"),
+     "--sd is for --metric mean"),
+    (("--difference", "0.001", "--residual-sd", "4", "--mean-denominator", "0"), "mean_denominator must be positive"),
+], ids=["missing", "foreign", "zero"])
+def test_plan_ratio_bad_input_is_one_line(capsys, argv, message):
+    code, out, err = _run(capsys, "plan", "--metric", "ratio", *argv)
+    assert code == 2 and message in err and len(err.strip().splitlines()) == 1

@@ -56,3 +56,11 @@ def test_plan_before_after_rates(capsys):
 def test_plan_before_after_refusals(capsys, argv, message):
     code, out, err = _run(capsys, "plan", "--metric", "mean", *argv)
     assert code == 2 and message in err and out == ""
+
+
+def test_plan_refuses_a_before_after_ratio_in_one_line(capsys):
+    code, out, err = _run(capsys, "plan", "--metric", "ratio", "--difference", "0.001", "--residual-sd", "4",
+                          "--mean-denominator", "800", "--baseline-days", "28", "--events-per-day", "400")
+    lines = err.strip().splitlines()
+    assert code == 2 and out == "" and len(lines) == 1, err
+    assert "--baseline-days" in lines[0] and "ratio" in lines[0]

@@ -258,6 +258,7 @@ def test_demo_config_covers_every_kind_of_comparison(tmp_path):
     assert by_name["line-daily-output"].pair_by == "day"
     assert by_name["fill-giveaway"].method == "z" and by_name["fill-giveaway"].alternative != "two-sided"
     assert tuple(by_name["fill-giveaway"].sigmas) == (2.4, 2.4)
+    assert by_name["qc-defect-rate"].metric == "ratio" and by_name["qc-defect-rate"].denominator_column == "units"
     assert by_name["delivery-lateness"].cluster_by == "day" and by_name["delivery-lateness"].min_clusters >= 2
     # Paths are relative in the file and resolved against its folder.
     assert "sqlite:///gapwatch-store.sqlite" in config_text()
@@ -299,6 +300,11 @@ def test_rehearsal_tells_the_story_with_the_default_seed(tmp_path):
     assert delivery[0][1] == "awaiting_clusters"
     assert {d for _, d, r in delivery if (r.clusters or 0) >= 4} <= {"collecting", "difference_found"}
     assert any(d == "collecting" for _, d, _ in delivery)
+    # Defects per unit packed: a ratio of sums over batches, aborted batches excluded and counted.
+    qc = result.looks["qc-defect-rate"]
+    last = qc[-1][2]
+    assert last.detail["ratio"]["ratio1"] < last.detail["ratio"]["ratio2"] and last.excluded["bad_denominator"] > 0
+    assert last.estimate == pytest.approx(last.detail["ratio"]["ratio1"] - last.detail["ratio"]["ratio2"])
     # Bench 2 opens on Thursday 09:00: a data problem before, a comparison after.
     opens = EPOCH + timedelta(days=scenario.BENCH_TWO_OPENS_DAY, hours=scenario.BENCH_TWO_OPENS_HOUR)
     returns = result.looks["returns-grading"]

@@ -302,3 +302,9 @@ def test_baseline_rows_arriving_before_it_is_read_are_used_not_counted_as_before
     assert gap["estimate"] == pytest.approx(want.baseline_gap.estimate, rel=1e-9)
     assert sum(gap["n"]) == sum(START - timedelta(days=14) <= r["done_at"] < START for r in everything)
     assert all(r["ok"] for r in verify_looks(world.config, "handle-time", world.engine))
+
+
+def test_a_ratio_with_a_baseline_is_refused(tmp_path):
+    with pytest.raises(ConfigError, match="metric 'ratio' cannot be a before/after comparison"):
+        LiveWorld(tmp_path, [], start="2026-03-15T06:00:00+00:00", baseline="14d", planned_per_group=600,
+                  metric="ratio", method="welch", numerator_column="seconds", denominator_column="seconds")

@@ -78,6 +78,55 @@ def test_huge_finite_values_are_counted_as_too_large(backend_url):
     source.dispose()
 
 
+@pytest.mark.parametrize("backend_url", EVERY_DATABASE, indirect=True)
+def test_ratio_cells_and_bad_denominators(backend_url):
+    """The denominator's shifted sums and the cross-product equal pandas; every unusable
+    denominator (missing, zero, negative, beyond VALUE_LIMIT) is one bad_denominator, and a row
+    whose numerator is already bad keeps the numerator's reason (the order of EXCLUSION_REASONS)."""
+    storage = TIMESTAMP_STORAGE[_backend(backend_url)]
+    rng = np.random.default_rng(47)
+    frame = make_events(240, seed=47, span=timedelta(hours=6))
+    frame["units"] = rng.uniform(50.0, 900.0, size=len(frame)).round(1)
+    frame["value"] = rng.poisson(frame["units"] * 0.004).astype(float)
+    at_noon = START + timedelta(hours=3)
+    bad = pd.DataFrame(
+        [
+            {"site": "east", "value": 1.0, "units": None, "done_at": at_noon},
+            {"site": "east", "value": 0.0, "units": 0.0, "done_at": at_noon},
+            {"site": "west", "value": 2.0, "units": -40.0, "done_at": at_noon},
+            {"site": "west", "value": 1.0, "units": 3e50, "done_at": at_noon},
+            {"site": "west", "value": 1.0, "units": -3e200, "done_at": at_noon},
+            {"site": "west", "value": 2e50, "units": 10.0, "done_at": at_noon},  # too_large comes first
+        ]
+    )
+    create_events_table(
+        backend_url, pd.concat([frame, bad], ignore_index=True), time_storage=storage,
+        extra_columns=[("units", DOUBLE)],
+    )
+    source = Source(backend_url, name="ops")
+    shift, shift_den = 1.0, 400.0
+    spec = spec_for(metric="ratio", denominator_column="units", shift=shift, shift_den=shift_den, arrival_column="id")
+    cutoff = START + timedelta(hours=7)
+    batch = source.read_cells(spec, None, cutoff)
+    assert batch.excluded == {"too_large": 1, "bad_denominator": 5}
+    assert_cells_equal(as_dict(batch.cells), reference_cells(frame, storage, shift, high=cutoff))
+    reference = frame.assign(
+        group_index=frame["site"].map({"east": 0, "west": 1}),
+        den=frame["units"] - shift_den,
+        cross=(frame["value"] - shift) * (frame["units"] - shift_den),
+    )
+    reference["den2"] = reference["den"] ** 2
+    for gi, part in reference.groupby("group_index"):
+        cells = [c for c in batch.cells if c.group_index == gi]
+        for name, column in (("sum_den", "den"), ("sum_den2", "den2"), ("sum_cross", "cross")):
+            got = sum(getattr(c, name) for c in cells)
+            assert got == pytest.approx(part[column].sum(), rel=1e-9, abs=1e-6), (gi, name)
+    rows = source.read_rows(spec, cutoff)
+    assert rows.attrs["excluded"] == {"too_large": 1, "bad_denominator": 5}
+    assert len(rows) == 240 and sorted(rows["denominator"]) == pytest.approx(sorted(frame["units"]))
+    source.dispose()
+
+
 def _scipy_welch(rows, cutoff):
     """Welch's t from scipy on the raw rows up to ``cutoff`` that a look should use."""
     east = [r["seconds"] for r in rows if r["site"] == "east" and r["done_at"] <= cutoff]

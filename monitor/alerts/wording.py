@@ -15,6 +15,8 @@ __all__ = [
     "figure",
     "decision_message",
     "decision_payload",
+    "volume_warnings",
+    "volume_payload",
     "source_unreachable_message",
     "source_recovered_message",
     "source_payload",
@@ -72,6 +74,12 @@ _KIND_WORDS = {
         "source reachable again",
         "The source database for this comparison answers again and looks have resumed. This is not a "
         "signal about the groups.",
+    ),
+    "volume": (
+        "events below their usual volume",
+        "At look {look} a group's events fell short of what its weekday usually brings (or the share "
+        "between the groups moved beyond its usual swing). The comparison keeps looking and its "
+        "decision is unchanged; check that every event still reaches the table.",
     ),
 }
 
@@ -134,6 +142,35 @@ def decision_payload(name: str, version: int, kind: str, values: dict, design, a
     if outlook:
         payload["outlook"] = outlook
     return payload
+
+
+def volume_warnings(verdict: dict) -> list:
+    """The verdict's warnings in words, one per group or share that warned."""
+    if verdict.get("state") != "warning":
+        return []
+    out = []
+    for g in verdict["groups"]:
+        if g["warn"] and g["share_of_usual"] is not None:
+            out.append(f"events from {g['group']} fell to {100 * g['share_of_usual']:.0f} % of their usual "
+                       f"{verdict['weekday']} volume since {g['since']}")
+    share = verdict["share"]
+    if share["warn"] and share["share"] is not None:
+        first = verdict["groups"][0]["group"]
+        out.append(f"{first} brought {100 * share['share']:.0f} % of today's events; "
+                   f"{100 * share['expected']:.0f} % expected (normal days {100 * share['low']:.0f}–"
+                   f"{100 * share['high']:.0f} %)")
+    return out if out else ["events arrive unlike their usual volume"]
+
+
+def volume_payload(name: str, version: int, look_number: int, warnings, verdict: dict, as_of: datetime) -> dict:
+    """The stored payload of a volume alert: what fell short, in words, with the figures."""
+    return {
+        "comparison": name, "version": version, "kind": "volume", "decision": None, "look": look_number,
+        "as_of": as_of.isoformat(), "estimate": None, "ci_low": None, "ci_high": None,
+        "volume": verdict,
+        "message": (f"Comparison {name}: " + "; ".join(warnings) + ". The comparison keeps looking; "
+                    "check that every event still reaches the table."),
+    }
 
 
 def source_unreachable_message(name: str, since: datetime) -> str:

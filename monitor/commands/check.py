@@ -9,7 +9,7 @@ from datetime import datetime, timedelta, timezone
 
 from ..errors import InvalidArgumentError, SourceUnavailableError, StoreBehindError, StoreUnavailableError
 from . import SUMMARIES
-from ._common import add_config_option, counted, program
+from ._common import add_config_option, as_typed, counted, program
 
 
 def register(subparsers) -> None:
@@ -57,7 +57,7 @@ def run(args) -> int:
                 if not [p for p in problems if not p.startswith("warning:")]:
                     problems += group_problems(sources[c.source], spec)
             except (SourceUnavailableError, InvalidArgumentError) as exc:  # unreachable, or no plan possible
-                print(f"comparison {c.name!r}: {exc}")
+                print(f"comparison {c.name!r}: {as_typed(exc)}")
                 failed = True
                 continue
             errors = [p for p in problems if not p.startswith("warning:")]
@@ -79,12 +79,12 @@ def run(args) -> int:
     try:
         engine = make_engine(config.store_url, create=False)
     except (StoreBehindError, StoreUnavailableError) as exc:
-        print(f"store: {exc}")
+        print(f"store: {as_typed(exc)}")
         return 1
     try:
         state = migration_state(engine)
     except Exception as exc:  # noqa: BLE001 - any store failure is reported, not raised
-        print(f"store: cannot be read ({exc})")
+        print(f"store: cannot be read ({as_typed(exc)})")
         return 1
     finally:
         engine.dispose()
@@ -99,7 +99,7 @@ def run(args) -> int:
         finally:
             engine.dispose()
         if liveness["quiet"]:
-            print(f"service: warning: {liveness['message']}")
+            print(f"service: warning: {as_typed(liveness['message'])}")
         elif liveness["last_beat_at"] is not None:
             print(f"service: {liveness['workers_alive']} worker(s) alive; last check {liveness['last_check_at'] or 'none yet'}")
     else:

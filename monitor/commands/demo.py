@@ -193,7 +193,8 @@ def _describe(row, excluded=None) -> str:
         low, high = row.get("ci_low"), row.get("ci_high")
         interval = ""
         if low is not None or high is not None:
-            interval = f" [{'-inf' if low is None else f'{low:.3g}'}, {'inf' if high is None else f'{high:.3g}'}]"
+            # An open end (a one-sided interval) reads "open", as in status and the printed review.
+            interval = f" [{'open' if low is None else f'{low:.3g}'}, {'open' if high is None else f'{high:.3g}'}]"
         parts.append(f"difference {row['estimate']:.3g}{interval}")
     if row.get("fraction") is not None:
         parts.append(f"fraction {row['fraction']:.2f}")

@@ -97,7 +97,7 @@ def _print_record(c, record, as_json: bool) -> None:
     else:
         print(record.line())
         for warning in record.warnings:
-            print(f"  warning: {warning}")
+            print(f"  warning: {as_typed(warning)}")
 
 
 def run(args) -> int:
@@ -124,11 +124,11 @@ def run(args) -> int:
                 try:
                     record = take_look(config, c, as_of=moment, engine=engine)
                 except (SourceUnavailableError, SourceSchemaError) as exc:
-                    print(f"gapwatch look: {c.name}: {exc} (nothing recorded)", file=sys.stderr)
+                    print(f"gapwatch look: {c.name}: {as_typed(exc)} (nothing recorded)", file=sys.stderr)
                     status = max(status, 1)
                     break
                 except AsOfBeforeLastLookError as exc:
-                    print(f"gapwatch look: {exc} (nothing recorded)", file=sys.stderr)
+                    print(f"gapwatch look: {as_typed(exc)} (nothing recorded)", file=sys.stderr)
                     status = 2
                     break
                 except (DesignChangedError, LookAlreadyRecordedError) as exc:

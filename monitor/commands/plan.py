@@ -12,7 +12,8 @@ from ..vocabulary import json_safe
 from . import SUMMARIES
 
 # The two numbers each metric is planned from, as option destinations.
-_METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2")}
+_METRIC_OPTIONS = {"mean": ("difference", "sd"), "proportion": ("p1", "p2"),
+                   "ratio": ("difference", "residual_sd", "mean_denominator")}
 
 
 def _finite_number(text):
@@ -36,13 +37,19 @@ def _whole_number(text):
 
 def add_plan_arguments(parser) -> None:
     """The design options shared by ``plan`` and ``simulate``."""
-    parser.add_argument("--metric", required=True, choices=("mean", "proportion"),
-                        help="compare two means (give --difference and --sd) "
-                             "or two rates (give --p1 and --p2)")
+    parser.add_argument("--metric", required=True, choices=("mean", "proportion", "ratio"),
+                        help="compare two means (give --difference and --sd), two rates (give --p1 "
+                             "and --p2) or two ratios of sums (give --difference, --residual-sd and "
+                             "--mean-denominator)")
     parser.add_argument("--difference", type=_finite_number, metavar="D",
                         help="mean only: difference worth detecting, group 1 − group 2")
     parser.add_argument("--sd", type=_finite_number, metavar="S",
                         help="mean only: standard deviation of one event's value")
+    parser.add_argument("--residual-sd", type=_finite_number, metavar="S",
+                        help="ratio only: spread of one row's numerator about its group's ratio "
+                             "times its denominator (y − R·x), e.g. defects per batch")
+    parser.add_argument("--mean-denominator", type=_finite_number, metavar="M",
+                        help="ratio only: the mean denominator per row (units per batch, hours per shift)")
     parser.add_argument("--p1", type=_finite_number, metavar="P",
                         help="proportion only: planned rate in group 1")
     parser.add_argument("--p2", type=_finite_number, metavar="P",
@@ -74,17 +81,34 @@ def plan_from_args(args):
                                    "got two-sided")
     common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative,
                   spending=args.spending, looks=args.looks, futility=args.futility)
+    chosen = _METRIC_OPTIONS[args.metric]
     for metric, names in _METRIC_OPTIONS.items():
         for name in names:
             value = getattr(args, name)
-            if metric != args.metric and value is not None:
-                raise InvalidArgumentError(f"--{name} is for --metric {metric}; got {value!r}")
-    chosen = _METRIC_OPTIONS[args.metric]
+            if name not in chosen and value is not None:
+                raise InvalidArgumentError(f"--{name.replace('_', '-')} is for --metric {metric}; got {value!r}")
     for name in chosen:
         if getattr(args, name) is None:
-            raise InvalidArgumentError(f"--{name} is required with --metric {args.metric}")
+            raise InvalidArgumentError(f"--{name.replace('_', '-')} is required with --metric {args.metric}")
+    if args.metric == "ratio":
+        # lazy: start-up time of the command line (as the planning import above).
+        from ..stats.ratio import ratio_planning_sd
+
+        # A ratio over n rows varies as a mean of n values with sd residual_sd / mean_denominator.
+        return planning.plan_mean(args.difference, ratio_planning_sd(args.residual_sd, args.mean_denominator),
+                                  **common)
     build = planning.plan_mean if args.metric == "mean" else planning.plan_proportion
     return build(*(getattr(args, name) for name in chosen), **common)
+
+
+def ratio_note(args) -> str:
+    """For --metric ratio: how the ratio's planning sd came about (empty otherwise)."""
+    if getattr(args, "metric", None) != "ratio":
+        return ""
+    sd = args.residual_sd / args.mean_denominator
+    return (f"Ratio of sums planned as a mean per row: residual sd {args.residual_sd:g} over a mean "
+            f"denominator of {args.mean_denominator:g} gives sd {sd:g} per row (events below are rows; "
+            f"give the comparison difference = {args.difference:g} and sd = {sd:g}).")
 
 
 def describe_design(plan) -> str:
@@ -159,10 +183,12 @@ def register(subparsers) -> None:
         epilog="examples:\n"
                "  %(prog)s --metric mean --difference 2.5 --sd 12 --looks 8\n"
                "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json\n"
+               "  %(prog)s --metric ratio --difference 0.001 --residual-sd 4 --mean-denominator 800\n"
                "  %(prog)s --metric mean --difference -6 --sd 50 --baseline-days 28 --day-sd 4 "
                "--events-per-day 400",
     )
     add_plan_arguments(p)
+    add_cluster_arguments(p)
     add_before_after_arguments(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     p.set_defaults(func=run)
@@ -177,10 +203,20 @@ def run(args) -> int:
                                        f"give --baseline-days too; got --{name.replace('_', '-')} "
                                        f"{getattr(args, name)!r}")
     plan = plan_from_args(args)
+    clusters = clusters_from_args(args, plan)
     if args.json:
-        print(json.dumps(json_safe(plan.to_dict()), indent=2))
+        out = plan.to_dict()
+        if args.metric == "ratio":
+            out.update(metric="ratio", residual_sd=args.residual_sd, mean_denominator=args.mean_denominator)
+        if clusters is not None:
+            out["clustering"] = clusters.to_dict()
+        print(json.dumps(json_safe(out), indent=2))
     else:
-        print(human_text(plan))
+        note = ratio_note(args)
+        print((note + "\n" if note else "") + human_text(plan))
+        if clusters is not None:
+            print()
+            print(cluster_text(plan, clusters))
     return 0
 
 
@@ -208,6 +244,9 @@ def _before_after_plan(args):
     # lazy: start-up time of the command line (planning loads scipy.stats and scipy.optimize).
     from ..stats.before_after import plan_before_after
 
+    if args.metric == "ratio":
+        raise InvalidArgumentError("--baseline-days plans a before/after comparison of a mean or a rate, "
+                                   "not --metric ratio")
     if args.events_per_day is None:
         raise InvalidArgumentError("--events-per-day is required with --baseline-days")
     if args.futility:
@@ -276,3 +315,92 @@ def _run_before_after(args) -> int:
     else:
         print(before_after_text(plan))
     return 0
+# ------------------------------------------------------------------ clustered comparisons
+
+
+def add_cluster_arguments(parser) -> None:
+    """Options that plan a clustered comparison (events sharing days, crews or batches)."""
+    group = parser.add_argument_group(
+        "clustered comparison",
+        "events that share a day, a shift or a crew are not independent; give --cluster-size with "
+        "--icc or --design-effect to plan in clusters")
+    group.add_argument("--cluster-size", type=_finite_number, metavar="M",
+                       help="events of one group in one cluster (one day's events per group, "
+                            "or one crew's events)")
+    group.add_argument("--icc", type=_finite_number, metavar="RHO",
+                       help="intra-cluster correlation in [0, 1); the design effect is then "
+                            "1 + (M − 1)·RHO")
+    group.add_argument("--design-effect", type=_finite_number, metavar="D",
+                       help="variance inflation from clustering, at least 1 (e.g. the design "
+                            "effect a comparison's looks measured); instead of --icc")
+    group.add_argument("--nested-clusters", action="store_true",
+                       help="each cluster belongs to one group (crews, batches: cluster_column); "
+                            "by default clusters are calendar buckets both groups share (cluster_by)")
+    group.add_argument("--min-clusters", type=_whole_number, metavar="N", default=None,
+                       help="the comparison's min_clusters (default 10, as in the configuration)")
+
+
+def clusters_from_args(args, plan):
+    """The :class:`monitor.stats.clustered.ClusterPlan` the cluster options describe, or None."""
+    given = {name: getattr(args, name.replace("-", "_"))
+             for name in ("cluster-size", "icc", "design-effect", "min-clusters")}
+    if all(value is None for value in given.values()) and not args.nested_clusters:
+        return None
+    # lazy: start-up time of the command line (the clustered module loads scipy.stats).
+    from ..config.model import DEFAULT_MIN_CLUSTERS, MIN_CLUSTERS_FLOOR
+    from ..stats.clustered import MIN_CLUSTERS_PER_GROUP, plan_clusters
+
+    size, icc, deff, minimum = (given[k] for k in ("cluster-size", "icc", "design-effect", "min-clusters"))
+    if icc is not None and deff is not None:
+        raise InvalidArgumentError(f"give --icc or --design-effect, not both; got --icc {icc:g} "
+                                   f"and --design-effect {deff:g}")
+    if size is None:
+        raise InvalidArgumentError("--cluster-size is required to plan a clustered comparison "
+                                   "(events of one group in one cluster)")
+    if size < 1:
+        raise InvalidArgumentError(f"--cluster-size must be at least 1 event; got {size:g}")
+    if icc is None and deff is None:
+        raise InvalidArgumentError("a clustered plan needs --icc or --design-effect; got neither")
+    if icc is not None and not 0 <= icc < 1:
+        raise InvalidArgumentError(f"--icc must be in [0, 1); got {icc:g}")
+    if deff is not None and deff < 1:
+        raise InvalidArgumentError(f"--design-effect must be at least 1; got {deff:g}")
+    minimum = DEFAULT_MIN_CLUSTERS if minimum is None else minimum
+    if minimum < MIN_CLUSTERS_FLOOR:
+        raise InvalidArgumentError(f"--min-clusters must be at least {MIN_CLUSTERS_FLOOR}; got {minimum}")
+    # As the look: calendar buckets need min_clusters in total (each holds both groups), clusters
+    # of one group need max(3, ceil(min_clusters / 2)) in each group.
+    per_group = (max(MIN_CLUSTERS_PER_GROUP, math.ceil(minimum / 2)) if args.nested_clusters
+                 else minimum)
+    return plan_clusters(plan.max_per_group, size, design_effect=deff, icc=icc,
+                         shared=not args.nested_clusters, alpha=plan.alpha, power=plan.power,
+                         alternative=plan.alternative, minimum_clusters=per_group)
+
+
+def cluster_text(plan, c) -> str:
+    """The clustered answer, in clusters per group as well as events."""
+    kind = ("clusters of one group each (crews, batches)" if not c.shared
+            else "calendar clusters both groups share (days)")
+    lines = [f"Clustered: {c.events_per_cluster:g} events of each group per cluster, {kind}; "
+             f"design effect {c.design_effect:.3g}."]
+    lines.append(f"Clustering multiplies the {plan.max_per_group} events per group by "
+                 f"{c.design_effect:.3g}: {c.clustered_per_group} events per group.")
+    df_words = f"{c.df:.0f} degrees of freedom"
+    if c.raised_to_minimum:
+        lines.append(f"The look waits for {c.minimum_clusters} clusters "
+                     f"{'per group' if not c.shared else 'in all'} before it decides (min_clusters), "
+                     f"which sets the plan: {c.clusters_per_group} clusters per group, "
+                     f"{c.events_per_group} events per group (t on {df_words}).")
+    else:
+        lines.append(f"Deciding on a t with {df_words} instead of z needs "
+                     f"{100 * (c.t_inflation - 1):.1f}% more: plan for {c.clusters_per_group} "
+                     f"clusters per group, {c.events_per_group} events per group.")
+    where = "days" if c.shared else "clusters in each group"
+    lines.append(f"Set planned_per_group = {c.events_per_group} in the comparison and expect about "
+                 f"{c.clusters_per_group} {where} before the plan completes.")
+    lines.append("Caution: the design effect is an assumption; every look measures the real one "
+                 "(status shows it), and if it is larger the plan is short: replan with the measured "
+                 "value. The t allowance is that of a single analysis at the plan's final degrees of "
+                 "freedom; with few clusters the early looks' exact sequential t bounds are wider "
+                 "still.")
+    return "\n".join(lines)

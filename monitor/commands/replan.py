@@ -6,7 +6,7 @@ import sys
 from datetime import datetime, timezone
 
 from . import SUMMARIES
-from ._common import add_config_option, operator, print_json, whole_number_type
+from ._common import add_config_option, as_typed, operator, print_json, whole_number_type
 
 
 def register(subparsers) -> None:
@@ -83,7 +83,7 @@ def run(args) -> int:
             made_by=who, reason=args.reason.strip(), old_plan=worked.old_plan, new_plan=worked.new_plan,
             record=worked.change.to_dict())
     except InvalidArgumentError as exc:
-        print(f"gapwatch replan: {args.name}: {exc}", file=sys.stderr)
+        print(f"gapwatch replan: {args.name}: {as_typed(exc)}", file=sys.stderr)
         return 2
     finally:
         engine.dispose()

@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import datetime, timezone
 
 from . import SUMMARIES
-from ._common import add_config_option, aligned_lines, open_store, print_json, readback
+from ._common import add_config_option, aligned_lines, as_typed, open_store, print_json, readback
 
 __all__ = ["register", "run", "fmt"]
 
@@ -66,9 +66,25 @@ def _when(row, now):
     return readback().describe_wait((datetime.fromisoformat(row["next_look_at"]) - now).total_seconds())
 
 
+def volume_lines(row) -> list:
+    """The volume check's warnings in words, under the comparison's row."""
+    volume = row.get("volume")
+    if not volume:
+        return []
+    if volume["state"] == "warning":
+        # lazy: start-up time of `gapwatch status`; the wording is needed only when a volume warns.
+        from ..alerts.wording import volume_warnings
+
+        return [f"    volume: {line}" for line in volume_warnings(volume)]
+    return []
+
+
+_VOLUME_WORDS = {"ok": "ok", "warning": "warning", "not_yet_measurable": "not yet measurable"}
+
+
 def table_lines(rows, now):
     headers = ["comparison", "state", "looks", "n per group", "estimate [repeated CI]", "plan",
-               "to plan", "clustering", "next look"]
+               "to plan", "clustering", "volume", "next look"]
     body = []
     for r in rows:
         name = r["name"] if r["version"] == 1 and not r["archived"] else f"{r['name']} v{r['version']}"
@@ -76,7 +92,8 @@ def table_lines(rows, now):
             name += " (archived)"
         to_plan = "-" if r["seconds_to_plan"] is None else readback().describe_seconds(r["seconds_to_plan"])
         body.append([name, r["state_label"], str(r["looks"]), f"{r['n1']} / {r['n2']}", _interval(r),
-                     _fraction(r), to_plan, _clusters(r), _when(r, now)])
+                     _fraction(r), to_plan, _clusters(r), _VOLUME_WORDS.get(r.get("volume_state"), "-"),
+                     _when(r, now)])
     header, *row_lines = aligned_lines(headers, body)
     lines = [header]
     for r, line in zip(rows, row_lines):
@@ -85,7 +102,8 @@ def table_lines(rows, now):
             lines.append(f"    {r['baseline']}")
         if r.get("outlook_words"):
             lines.append(f"    {r['outlook_words']}")
-        lines.extend(f"    warning: {warning}" for warning in r["warnings"])
+        lines.extend(f"    warning: {as_typed(warning)}" for warning in r["warnings"])
+        lines.extend(volume_lines(r))
     return lines
 
 
@@ -105,7 +123,7 @@ def run(args) -> int:
         return 0
     if liveness["quiet"]:
         # First, so a dead monitor is never read as "next look in 3 s".
-        print(f"warning: {liveness['message']}")
+        print(f"warning: {as_typed(liveness['message'])}")
     print("\n".join(table_lines(rows, now)))
     if note:
         print(f"note: {note}")

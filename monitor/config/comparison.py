@@ -38,7 +38,9 @@ class Reading(Part):
     source: str
     table: str
     group_column: str
-    value_column: str
+    value_column: str | None = checked(None)
+    numerator_column: str | None = checked(None)
+    denominator_column: str | None = checked(None)
     time_column: str
     groups: tuple
     schema_: str | None = Field(default=None, alias="schema")
@@ -57,10 +59,32 @@ class Reading(Part):
             raise keyed(f"names no [sources] entry: {value!r} (known: {', '.join(known) or 'none'})")
         return value
 
-    @field_validator("table", "group_column", "value_column", "time_column", "schema_",
-                     "arrival_column", mode="before")
+    @field_validator("table", "group_column", "time_column", "schema_", "arrival_column", mode="before")
     @classmethod
     def _column(cls, value):
+        return identifier(value)
+
+    @field_validator("value_column", mode="before")
+    @classmethod
+    def _value_column(cls, value, info):
+        if ctx(info).metric == "ratio":
+            if value is not None:
+                raise keyed("is not used by metric 'ratio' (give numerator_column and denominator_column)")
+            return None
+        if value is None:
+            raise keyed("is required")
+        return identifier(value)
+
+    @field_validator("numerator_column", "denominator_column", mode="before")
+    @classmethod
+    def _ratio_column(cls, value, info):
+        metric = ctx(info).metric
+        if metric != "ratio":
+            if value is not None:
+                raise keyed(f"is only used by metric 'ratio', not {metric!r}")
+            return None
+        if value is None:
+            raise keyed("is required for metric 'ratio'")
         return identifier(value)
 
     @field_validator("groups", mode="before")
@@ -161,6 +185,9 @@ class Inference(Part):
         method = c.method
         if method not in METHODS:
             raise whole(f"method {method!r} is not one of {', '.join(METHODS)}")
+        if c.metric == "ratio" and method != "welch":
+            raise keyed(f"{method!r} does not fit metric 'ratio': a ratio of sums is tested with its "
+                        "delta-method standard error (leave method out, or give 'welch')")
         if c.metric in METRICS and (method == "proportions") != (c.metric == "proportion"):
             raise keyed(f"{method!r} does not fit metric {c.metric!r}: proportions goes with "
                          "metric 'proportion' and the other methods with 'mean'")
@@ -533,6 +560,9 @@ class BeforeAfter(Part):
 
     @staticmethod
     def _fits(c: Context):
+        if c.metric == "ratio":
+            raise keyed("metric 'ratio' cannot be a before/after comparison yet: the difference in "
+                        "differences is of means (welch, pooled) or rates (proportions)")
         if c.method not in ("welch", "pooled", "proportions"):
             raise keyed(f"method {c.method!r} cannot be a before/after comparison: it compares means "
                         f"(welch, pooled) or rates (proportions) day by day")
@@ -573,6 +603,7 @@ class Settings(Part):
     lateness: str = checked("0s")
     notify: tuple[str, ...] = checked(None)
     description: str = checked("")
+    expected_share: float | None = None
 
     @field_validator("every", mode="before")
     @classmethod
@@ -616,6 +647,13 @@ class Settings(Part):
             known = ", ".join(channels) or "none"
             raise keyed("\n".join(f"names no [channels] entry: {n!r} (known: {known})" for n in unknown))
         return tuple(value)
+
+    @field_validator("expected_share", mode="before")
+    @classmethod
+    def _expected_share(cls, value):
+        if not is_number(value) or not 0 < value < 1:
+            raise keyed(f"must be a number in (0, 1) (group 1's share of the events); got {value!r}")
+        return float(value)
 
     @field_validator("description", mode="before")
     @classmethod
@@ -662,7 +700,8 @@ class ComparisonTable(BaseModel):
                                   self.settings, self.before_after)
         return ComparisonConfig(**plain(dict(
             name=name, source=r.source, table=r.table, group_column=r.group_column, groups=r.groups,
-            value_column=r.value_column, time_column=r.time_column, metric=t.metric, method=t.method,
+            value_column=r.value_column if t.metric != "ratio" else r.numerator_column,
+            time_column=r.time_column, metric=t.metric, method=t.method,
             alternative=t.alternative, alpha=t.alpha, spending=t.spending,
             planned_per_group=p.planned_per_group, difference=p.difference, sd=p.sd, p1=p.p1, p2=p.p2,
             power=p.power, looks=p.looks, every=s.every, sigmas=t.sigmas, pair_by=pr.pair_by,
@@ -674,6 +713,8 @@ class ComparisonTable(BaseModel):
             notify=s.notify, description=s.description, schema=r.schema_, start=ba.start, baseline=ba.baseline,
             baseline_from=ba.baseline_from, baseline_to=ba.baseline_to, day_sd=ba.day_sd,
             events_per_day=ba.events_per_day,
+            numerator_column=r.numerator_column, denominator_column=r.denominator_column,
+            expected_share=s.expected_share,
         )))
 
 

@@ -39,7 +39,7 @@ __all__ = [
 ]
 
 METHODS = ("welch", "pooled", "z", "paired", "proportions")
-METRICS = ("mean", "proportion")
+METRICS = ("mean", "proportion", "ratio")
 ALTERNATIVES = ("two-sided", "greater", "less")
 TIME_FORMATS = ("auto", "timestamp", "iso", "epoch")
 PAIR_BUCKETS = ("hour", "day", "week", "shift")
@@ -151,6 +151,10 @@ class ComparisonConfig:
     baseline_to: str | None = None
     day_sd: float | None = None
     events_per_day: float | None = None
+    # metric "ratio": value_column holds the numerator column; the denominator is read beside it.
+    numerator_column: str | None = None
+    denominator_column: str | None = None
+    expected_share: float | None = None     # the volume check's share of group 1 (None: learned)
 
     @property
     def schedule(self):
@@ -215,6 +219,7 @@ class ComparisonConfig:
             "notify": list(self.notify),
             "description": self.description,
             "arrival_column": self.arrival_column,
+            "expected_share": self.expected_share,
         }
 
 

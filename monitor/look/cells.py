@@ -1,8 +1,10 @@
 """Running cells: a source batch's slot cells rolled into the stored cells, and the look's counts.
 
 A cell is ``(n, Σ(x−shift), Σ(x−shift)²)`` keyed ``(kind, group_index, key)``: the total
-(key ``""``), each local calendar day, and each cluster or pair where the comparison has
-them. Merging cells is addition, so many small looks add up to one big look.
+(key ``""``), each local calendar day and hour, and each cluster or pair where the
+comparison has them. A ratio comparison's cells carry three more sums, ``(…, Σ(d−c_d), Σ(d−c_d)²,
+Σ(x−shift)(d−c_d))`` for its denominator ``d`` (``x`` is then the numerator). Merging cells
+is addition, so many small looks add up to one big look.
 """
 
 from __future__ import annotations
@@ -53,11 +55,17 @@ def roll_up(design, batch) -> RolledUp:
             memo[k] = bucket_key(slot, kind, zone, shift_starts)
         return memo[k]
 
+    ratio = design.metric == "ratio"
+
     def add(kind, gi, key, cell):
-        entry = changes.setdefault((kind, gi, key), [0, 0.0, 0.0])
+        entry = changes.setdefault((kind, gi, key), [0, 0.0, 0.0, 0.0, 0.0, 0.0] if ratio else [0, 0.0, 0.0])
         entry[0] += cell.n
         entry[1] += cell.sum_dev
         entry[2] += cell.sum_dev2
+        if ratio:
+            entry[3] += cell.sum_den
+            entry[4] += cell.sum_den2
+            entry[5] += cell.sum_cross
 
     clustered, paired = clustering is not None, pairing is not None
     cluster_column, cluster_by = (clustering.cluster_column, clustering.cluster_by) if clustered else (None, None)
@@ -69,6 +77,8 @@ def roll_up(design, batch) -> RolledUp:
             continue
         add("total", cell.group_index, "", cell)
         add("day", cell.group_index, bucket(cell.slot, "day"), cell)
+        # Each group's events per local hour: the volume check's counts.
+        add("hour", cell.group_index, bucket(cell.slot, "hour"), cell)
         column_key = "" if cell.key is None else str(cell.key)
         if clustered:
             add("cluster", cell.group_index, column_key if cluster_column else bucket(cell.slot, cluster_by), cell)
@@ -103,19 +113,19 @@ def roll_up_baseline(design, batch) -> dict:
 def merge(stored: dict, changes: dict) -> dict:
     """The stored cells with this look's changes added (a new dict; ``stored`` is left as it is)."""
     merged = dict(stored)
-    for k, (n, s1, s2) in changes.items():
-        old = merged.get(k, (0, 0.0, 0.0))
-        merged[k] = (old[0] + n, old[1] + s1, old[2] + s2)
+    for k, change in changes.items():
+        old = merged.get(k)
+        merged[k] = tuple(change) if old is None else tuple(a + b for a, b in zip(old, change))
     return merged
 
 
 def summary(cells, kind, gi, key, shift) -> MomentSummary:
-    n, s1, s2 = cells.get((kind, gi, key), (0, 0.0, 0.0))
+    n, s1, s2 = cells.get((kind, gi, key), (0, 0.0, 0.0))[:3]
     return MomentSummary(int(n), float(shift), float(s1), float(s2))
 
 
 def of_kind(cells, kind):
-    """``(group_index, key, (n, sum_dev, sum_dev2))`` of every cell of one kind."""
+    """``(group_index, key, (n, sum_dev, sum_dev2[, sum_den, sum_den2, sum_cross]))`` of every cell of one kind."""
     return [(gi, key, v) for (k, gi, key), v in cells.items() if k == kind]
 
 

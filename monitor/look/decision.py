@@ -165,8 +165,13 @@ def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
 
 
 def t_based(design: Design) -> bool:
-    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one, a before/after DiD)."""
-    return design.method not in _Z_METHODS or design.clustered or design.before_after
+    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one, a ratio, a
+    before/after DiD on its Bell–McCaffrey df).
+
+    A ratio of sums is always tested with Welch's degrees of freedom (cluster-based when clustered).
+    """
+    return (design.ratio is not None or design.method not in _Z_METHODS or design.clustered
+            or design.before_after)
 
 
 def new_boundary(design: Design, futility=None):

@@ -34,7 +34,7 @@ from ..store.claims import claim
 from ..store.workers import record_check
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, archive_active, boundary_looks,
                            read_state, write_look)
-from ..alerts.wording import decision_payload
+from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
 from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
@@ -43,6 +43,7 @@ from .memory import LookMemory
 from .plan import plan_state, resume_boundary
 from .record import LookRecord, QuietCheck
 from .row import LookMoment, look_detail, look_row
+from .volume import assess_volume
 
 __all__ = ["take_look"]
 
@@ -194,6 +195,14 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     values["duration_ms"] = stopwatch.total()
     stopwatch.lap("compute")
     detail = look_detail(evidence, decision, look_counts)
+    # The volume check warns and alerts (once per warning episode) but never stops the comparison.
+    volume = assess_volume(design, cells, cutoff, c.expected_share)
+    detail["volume"], detail["volume_state"] = volume, volume["state"]
+    volume_alert = None
+    if volume["state"] == "warning" and state.last_volume_state != "warning":
+        volume_alert = AlertDraft("volume", volume_payload(c.name, state.version, moment.look_number,
+                                                           volume_warnings(volume), volume, as_of),
+                                  tuple(c.notify))
     if row is None and restart is not None:
         detail["restart"] = _restart_detail(restart)
         if restart["from_start"]:
@@ -210,7 +219,8 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         new_state=decision.decision, stopped=decision.stopped, look=values, cells=cells,
         changes=rolled.changes, watermark=batch.watermark.to_dict(), as_of=as_of,
         alert=None if alert is None else AlertDraft(
-            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify))))
+            alert, decision_payload(c.name, state.version, alert, values, design, as_of), tuple(c.notify)),
+        volume_alert=volume_alert))
     if boundary is not None:
         # Recorded values as stored (a float column may round): the kept boundary must match them.
         memory.keep_boundary(engine, written.comparison_id, _boundary_key(key, state), boundary)
@@ -277,6 +287,12 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
             shift = 0.0 if design.metric == "proportion" else source.first_value(
                 SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column))
             design = design.with_shift(shift)
+        if design.ratio is not None and design.shift_den is None:
+            spec = SourceSpec.from_design(design, shift=0.0, arrival_column=c.arrival_column)
+            # The denominator read as the values: a shift near the units, hours or runs.
+            design = design.with_shift_den(source.first_value(replace(
+                spec, value_column=spec.denominator_column, metric="mean", denominator_column=None,
+                valid_range=None)))
         spec = SourceSpec.from_design(design, arrival_column=c.arrival_column)
         if row is not None:
             watermark = Watermark.from_dict(row["watermark"]) if row["watermark"] else None
@@ -291,6 +307,8 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
         if design.shift is None and batch.cells:
             # Rows arrived between the two reads: the cells are about 0, so 0 is the shift.
             design = design.with_shift(0.0)
+        if design.ratio is not None and design.shift_den is None and batch.cells:
+            design = design.with_shift_den(0.0)
         baseline = None
         if design.before_after and BASELINE_READ not in stored_cells:
             # Until the baseline is frozen, rows dated before the start are the baseline's to

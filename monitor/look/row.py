@@ -41,6 +41,9 @@ def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
               "excluded_new": counts.excluded_new}
     if st.fixed is not None:
         detail["fixed"] = st.fixed
+    if st.ratio is not None:
+        detail["ratio"] = st.ratio
+        detail["shift_den"] = evidence.inputs.design.shift_den or 0.0
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
     if st.before_after is not None:
@@ -101,11 +104,14 @@ def look_row(moment: LookMoment, evidence: Evidence, decision: Decision, counts:
     alternative = evidence.inputs.design.alternative
     information = (1.0 / st.standard_error ** 2) if st.standard_error else None
     low, high = decision.interval
+    # A ratio comparison's group figure is its ratio of sums (the numerator's mean says little).
+    mean1, mean2 = (s1.mean, s2.mean) if st.ratio is None else (st.ratio["ratio1"], st.ratio["ratio2"])
+    sd1, sd2 = (s1.sd, s2.sd) if st.ratio is None else (None, None)
     return dict(
         look_number=moment.look_number, as_of=moment.as_of, cutoff=moment.cutoff, recorded_at=moment.as_of,
         arrival_watermark=None if moment.arrival is None else json.dumps(moment.arrival),
-        n1=s1.n, n2=s2.n, mean1=finite_or_none(s1.mean), mean2=finite_or_none(s2.mean),
-        sd1=finite_or_none(s1.sd), sd2=finite_or_none(s2.sd), pairs=st.pairs,
+        n1=s1.n, n2=s2.n, mean1=finite_or_none(mean1), mean2=finite_or_none(mean2),
+        sd1=finite_or_none(sd1), sd2=finite_or_none(sd2), pairs=st.pairs,
         new_events=counts.new_events, late_events=counts.late_events, excluded=counts.excluded,
         estimate=_float_column(st.estimate), standard_error=_float_column(st.standard_error),
         statistic=_float_column(st.statistic), df=_float_column(st.df), p_value=_float_column(st.p_value),

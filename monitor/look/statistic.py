@@ -1,7 +1,9 @@
 """The fixed-sample statistic of a look's running cells (pure: no SQL, no clock).
 
 Paired comparisons test the per-pair mean differences of closed buckets, clustered ones
-use the cluster-robust difference, the others the design's method on the two totals. The
+use the cluster-robust difference, ratio comparisons the difference of the two ratios of
+sums (delta-method standard error, cluster-robust when clustered), the others the design's
+method on the two totals. The
 one-sided p-values feed the boundary; the day-level design effect feeds the warning that
 an unclustered comparison needs clustering.
 """
@@ -20,6 +22,7 @@ from ..stats import fixed
 from ..stats.boundaries import FutilitySpec
 from ..stats.before_after import difference_in_differences
 from ..stats.clustered import cluster_counts, cluster_robust_difference, design_effect
+from ..stats.ratio import RatioCells, ratio_difference
 from ..stats.summaries import MomentSummary
 from ..vocabulary import json_safe
 from .cells import BASELINE_READ, of_kind
@@ -58,6 +61,7 @@ class Stat:
     clusters: int | None = None
     pairs: int | None = None
     cluster_design_effect: float | None = None
+    ratio: dict | None = None        # ratio comparisons: both ratios and the relative change
     problem: str | None = None       # a data problem (the decision is data_problem)
     waiting: str | None = None       # not enough data yet (collecting / awaiting_clusters)
     awaiting_clusters: bool = False
@@ -102,6 +106,8 @@ def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
         st.problem = f"group {empty!r} has no valid events"
         return st
 
+    if design.ratio is not None:
+        return _ratio_statistic(design, cells, st, common)
     if design.paired:
         pairing, zone = design.pairing, design.measure.zone
         by = pairing.pair_by
@@ -233,6 +239,44 @@ def _before_after(design, cells, s1, s2, common) -> Stat:
     return st
 
 
+def _ratio_statistic(design: Design, cells, st: Stat, common) -> Stat:
+    """Difference of the two groups' ratios of sums (cluster cells when clustered, else totals)."""
+    clustered = design.clustered
+    kind = "cluster" if clustered else "total"
+    # Sorted by (group, key) so the sums run in one order whatever order the cells came in.
+    rows = sorted((gi, key, v) for gi, key, v in of_kind(cells, kind) if v[0] > 0)
+    sums = list(zip(*(v for _gi, _key, v in rows)))
+    result = ratio_difference(
+        RatioCells(group=tuple(r[0] for r in rows), key=tuple(r[1] if clustered else None for r in rows),
+                   n=sums[0], num=sums[1], num2=sums[2], den=sums[3], den2=sums[4], cross=sums[5],
+                   shift_num=design.shift or 0.0, shift_den=design.shift_den or 0.0),
+        clustered=clustered, **common)
+    st.ratio = {"ratio1": finite_or_none(result.ratio1), "ratio2": finite_or_none(result.ratio2),
+                "relative_change": finite_or_none(result.relative_change),
+                "relative_standard_error": finite_or_none(result.relative_standard_error),
+                "denominator1": result.denominator1, "denominator2": result.denominator2}
+    st.fixed = json_safe(result.to_dict())
+    st.estimate = finite_or_none(result.estimate)
+    st.clusters = result.clusters
+    if not result.degenerate:
+        st.standard_error = float(result.standard_error)
+        st.statistic, st.df, st.p_value = float(result.statistic), float(result.df), float(result.p_value)
+    if clustered and result.clusters is not None and result.clusters < design.min_clusters:
+        st.waiting = (f"{result.clusters} clusters so far; decisions start at "
+                      f"{design.min_clusters} (min_clusters)")
+        st.awaiting_clusters = True
+        return st
+    if not clustered and (result.n1 < 2 or result.n2 < 2):
+        st.waiting = "each group needs at least 2 rows for a spread"
+        return st
+    if result.degenerate:
+        st.problem = "the spread about the groups' ratios is zero or undefined: " + "; ".join(
+            n for n in result.notes if n.startswith("degenerate:"))
+        return st
+    st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
+    return st
+
+
 def futility_spec(design: Design):
     """The futility rule of the design (None without one, or without the plan's drift and power)."""
     if not design.futility:
@@ -246,7 +290,8 @@ def futility_spec(design: Design):
 
 def day_design_effect(design: Design, cells, s1, s2):
     """Day-level design effect and effective n (None when it cannot be measured)."""
-    if s1.n < 2 or s2.n < 2:
+    if s1.n < 2 or s2.n < 2 or design.ratio is not None:
+        # A ratio's day-level spread is not its numerator's: no event-level design effect here.
         return None
     # Sorted by (group, day) so the sums run in one order whatever order the cells came in.
     rows = sorted((gi, key, v[0], v[1], v[2]) for (kind, gi, key), v in cells.items()

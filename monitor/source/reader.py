@@ -2,8 +2,9 @@
 
 The monitor never pulls raw rows to decide. For every look it asks the
 database, with one SQLAlchemy Core statement (``statements.py``), for per
-(group, 15-minute UTC slot[, key]) counts and shifted sums of the valid rows,
-and for per-reason counts of the bad ones. Only rows that are new since the
+(group, 15-minute UTC slot[, key]) counts and shifted sums of the valid rows
+(for a ratio metric also the denominator's ``Σ(d − c_d)``, ``Σ(d − c_d)²`` and the
+cross-product ``Σ(x − c)(d − c_d)``), and for per-reason counts of the bad ones. Only rows that are new since the
 previous look are read. What differs between databases (read-only sessions,
 time bucketing, text-time parsing, value checks) lives in ``dialects/``.
 
@@ -42,9 +43,11 @@ read), ``unknown_group`` (group value not one of the two configured),
 ``not_finite`` (NaN, ±infinity, also as text, or beyond the largest double),
 ``too_large`` (|value| above ``VALUE_LIMIT`` = 1e50, so no sum of squares can
 overflow), ``not_binary`` (proportion metric, value not 0 or 1),
-``out_of_range`` (outside the inclusive ``valid_range``), ``before_start`` (a
-before/after comparison: dated before its start, arrived after its baseline was
-read and frozen). In SQLite, numeric
+``out_of_range`` (outside the inclusive ``valid_range``), ``bad_denominator``
+(ratio metric: a denominator that is NULL, not a number, not finite, above
+``VALUE_LIMIT``, zero or negative — a row that did no work cannot carry a rate),
+``before_start`` (a before/after comparison: dated before its start, arrived
+after its baseline was read and frozen). In SQLite, numeric
 text counts as a number when, once trimmed, it is a JSON number (``12``,
 ``-3.5``, ``1e3``); other text is ``non_numeric``.
 """
@@ -185,9 +188,10 @@ class Source:
         if missing:
             names = ", ".join(f"{role} {c!r}" for role, c in missing)
             raise SourceSchemaError(f"source {self.name!r}: table {spec.table!r} has no column {names}")
-        problem = self._dialect.value_type_problem(cols.declared_type(spec.value_column))
-        if problem:
-            raise SourceSchemaError(f"{self._describe(spec, 'value_column')} {problem}")
+        for role, column in _numeric_roles(spec):
+            problem = self._dialect.value_type_problem(cols.declared_type(column))
+            if problem:
+                raise SourceSchemaError(f"{self._describe(spec, role)} {problem}")
         return cols
 
     def _time_kind(self, conn, spec, cols: Columns) -> TimeKind:
@@ -308,7 +312,7 @@ class Source:
         excluded = {}
         arrival_max = None
         merged = {}
-        for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival in rows:
+        for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival, *ratio_sums in rows:
             if row_arrival is not None and (arrival_max is None or row_arrival > arrival_max):
                 arrival_max = row_arrival
             if reason is not None:
@@ -316,11 +320,15 @@ class Source:
                 continue
             # The same cell can come from the new-range and the late branch: add them up.
             cell = (int(gi), int(slot), key)
-            n0, l0, s0, q0 = merged.get(cell, (0, 0, 0.0, 0.0))
-            merged[cell] = (n0 + int(count), l0 + int(late or 0), s0 + float(sum_dev), q0 + float(sum_dev2))
+            old = merged.get(cell, (0, 0, 0.0, 0.0, 0.0, 0.0, 0.0))
+            new = (int(count), int(late or 0), float(sum_dev), float(sum_dev2), *(float(x) for x in ratio_sums))
+            merged[cell] = tuple(a + b for a, b in zip(old, new + (0.0,) * (7 - len(new))))
         cells = [
-            SlotCell(group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late)
-            for (gi, slot, key), (n, late, s1, s2) in merged.items()
+            SlotCell(
+                group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late,
+                sum_den=d1, sum_den2=d2, sum_cross=cross,
+            )
+            for (gi, slot, key), (n, late, s1, s2, d1, d2, cross) in merged.items()
         ]
         cells.sort(key=lambda c: (c.group_index, c.slot, "" if c.key is None else c.key))
         arrival = since.arrival if since is not None else None
@@ -357,7 +365,8 @@ class Source:
         """Valid rows with time <= ``cutoff`` (and arrival <= ``arrival_max``), for verification.
 
         Returns a pandas DataFrame with columns ``group_index``, ``value``,
-        ``time`` (aware UTC) and ``key``; ``.attrs["excluded"]`` counts the bad
+        ``time`` (aware UTC) and ``key`` (and ``denominator`` for a ratio metric);
+        ``.attrs["excluded"]`` counts the bad
         rows by reason. Raw rows are pulled here only to re-check a look.
         """
         # lazy: only verification pulls raw rows; a look never loads pandas.
@@ -378,9 +387,12 @@ class Source:
             return parts.kind, conn.execute(rows).all(), conn.execute(counts).all()
 
         kind, rows, counts = self._connect(spec, work)
-        frame = pd.DataFrame(rows, columns=["group_index", "value", "time", "key"])
+        columns = ["group_index", "value", "time", "key"] + (["denominator"] if spec.denominator_column else [])
+        frame = pd.DataFrame(rows, columns=columns)
         frame["group_index"] = frame["group_index"].astype("int64")
         frame["value"] = frame["value"].astype("float64")
+        if spec.denominator_column:
+            frame["denominator"] = frame["denominator"].astype("float64")
         frame["time"] = to_utc_timestamps(frame["time"], kind)
         frame["key"] = frame["key"].astype(object).where(frame["key"].notna(), None)
         frame = frame.sort_values(["time", "group_index"], kind="stable").reset_index(drop=True)
@@ -405,9 +417,10 @@ class Source:
         problems = [f"table {spec.table!r} has no column {column!r} ({role})" for role, column in cols.missing(spec)]
         if problems:
             return problems
-        value_problem = self._dialect.value_type_problem(cols.declared_type(spec.value_column))
-        if value_problem:
-            problems.append(f"value_column {spec.value_column!r} {value_problem}")
+        for role, column in _numeric_roles(spec):
+            value_problem = self._dialect.value_type_problem(cols.declared_type(column))
+            if value_problem:
+                problems.append(f"{role} {column!r} {value_problem}")
         try:
             kind, _settled = self._detect_time_kind(conn, spec, cols)
         except SourceSchemaError as error:
@@ -417,6 +430,14 @@ class Source:
             problems.extend(time_problems(conn, self._dialect, spec, row_parts(self._dialect, spec, cols, kind)))
         problems.extend(reading_warnings(conn, self._dialect, spec, cols))
         return problems
+
+
+def _numeric_roles(spec) -> list[tuple[str, str]]:
+    """(role, column) of the columns that must hold numbers."""
+    roles = [("value_column", spec.value_column)]
+    if spec.denominator_column:
+        roles.append(("denominator_column", spec.denominator_column))
+    return roles
 
 
 def _arrival_greater(a, b) -> bool:

@@ -43,6 +43,7 @@ EXCLUSION_REASONS = (
     "not_binary",
     "out_of_range",
     "before_start",  # dated before a before/after comparison's start, arrived after its baseline was frozen
+    "bad_denominator",  # ratio metric: a denominator that is NULL, not a number, not finite, |d| > VALUE_LIMIT, or <= 0
 )
 
 # Values whose magnitude exceeds this are excluded as ``too_large``. The bound keeps every
@@ -56,7 +57,7 @@ VALUE_LIMIT = 1e50
 FILTER_OPERATORS = ("=", "!=", "<", "<=", ">", ">=", "in", "not in")
 
 TIME_FORMATS = ("auto", "timestamp", "iso", "epoch")
-METRICS = ("mean", "proportion")
+METRICS = ("mean", "proportion", "ratio")
 
 
 def utc(moment, name: str) -> datetime:
@@ -118,6 +119,8 @@ class SourceSpec:
     # ``end`` exclusive (a baseline ends where the change begins).
     start: datetime | None = None
     end: datetime | None = None
+    denominator_column: str | None = None  # ratio metric: value_column holds the numerator
+    shift_den: float = 0.0
 
     def __post_init__(self):
         for name in ("table", "group_column", "value_column", "time_column"):
@@ -134,8 +137,15 @@ class SourceSpec:
             raise InvalidArgumentError(f"metric must be one of {METRICS}, got {self.metric!r}")
         if self.time_format not in TIME_FORMATS:
             raise InvalidArgumentError(f"time_format must be one of {TIME_FORMATS}, got {self.time_format!r}")
-        if not isinstance(self.shift, (int, float)) or not math.isfinite(self.shift):
-            raise InvalidArgumentError(f"shift must be a finite number, got {self.shift!r}")
+        for name in ("shift", "shift_den"):
+            value = getattr(self, name)
+            if not isinstance(value, (int, float)) or not math.isfinite(value):
+                raise InvalidArgumentError(f"{name} must be a finite number, got {value!r}")
+        if (self.metric == "ratio") != bool(self.denominator_column):
+            raise InvalidArgumentError(
+                f"denominator_column goes with metric 'ratio' (and only with it); got metric "
+                f"{self.metric!r} and denominator_column {self.denominator_column!r}"
+            )
         object.__setattr__(self, "filters", _check_filters(self.filters))
         if self.valid_range is not None:
             object.__setattr__(self, "valid_range", _check_valid_range(self.valid_range))
@@ -163,6 +173,8 @@ class SourceSpec:
             key_column=design.key_column, arrival_column=arrival_column, filters=measure.filters,
             valid_range=measure.valid_range,
             start=None if design.window is None else design.window.moments()["start"],
+            denominator_column=design.ratio.denominator_column if design.ratio is not None else None,
+            shift_den=float(design.shift_den or 0.0),
         )
 
     def used_columns(self) -> list[tuple[str, str]]:
@@ -174,6 +186,8 @@ class SourceSpec:
         ]
         if self.key_column:
             used.append(("key_column", self.key_column))
+        if self.denominator_column:
+            used.append(("denominator_column", self.denominator_column))
         if self.arrival_column:
             used.append(("arrival_column", self.arrival_column))
         used.extend(("filters", column) for column, _op, _value in self.filters)
@@ -209,6 +223,11 @@ class SlotCell:
     sum_dev: float
     sum_dev2: float
     late: int = 0
+    # Ratio metric only: the denominator's shifted sums Σ(d − c_d), Σ(d − c_d)² and the
+    # cross-product Σ(x − c)(d − c_d) with the numerator.
+    sum_den: float = 0.0
+    sum_den2: float = 0.0
+    sum_cross: float = 0.0
 
 
 @dataclass(frozen=True)

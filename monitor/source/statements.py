@@ -1,7 +1,9 @@
 """The SQLAlchemy Core statements of a read: per-row parts, the cell aggregate, raw rows, first values.
 
 One aggregate statement per look: per (group, 15-minute slot[, key], reason)
-counts and shifted sums ``Σ(x − c)`` and ``Σ(x − c)²``, over the rows whose
+counts and shifted sums ``Σ(x − c)`` and ``Σ(x − c)²`` (for a ratio metric also the
+denominator's ``Σ(d − c_d)``, ``Σ(d − c_d)²`` and the cross-product ``Σ(x − c)(d − c_d)``),
+over the rows whose
 event time lies in ``(previous cutoff, cutoff]`` plus late rows (event time at
 or before the previous cutoff, arrival above the previous arrival watermark).
 Every predicate compares the raw time or arrival column with a bound value, so
@@ -12,12 +14,14 @@ list only.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime
 
 import sqlalchemy as sa
 
 from .binding import bind_like, bind_type, literal, literals
 from .columns import Columns
-from .times import TimeKind
+from .times import TimeKind, bind_time
+from ..vocabulary import as_utc
 
 __all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "count_before_statement",
            "first_values_statement"]
@@ -39,6 +43,7 @@ class RowParts:
     arrival: object
     arrival_type: object
     filters: tuple
+    denominator: object = None  # ratio metric: the denominator as summed; None otherwise
 
 
 def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
@@ -48,6 +53,13 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
     raw_value = cols.raw(spec.value_column)
     value_type = cols.declared_type(spec.value_column)
     value, value_reason = dialect.value_parts(spec, raw_value, value_type)
+    denominator = None
+    if spec.denominator_column:
+        denominator, den_reason = dialect.denominator_parts(
+            cols.raw(spec.denominator_column), cols.declared_type(spec.denominator_column)
+        )
+        # The value's own reasons come first; a row with a usable value may still have a bad denominator.
+        value_reason = sa.func.coalesce(value_reason, den_reason)
     other_reason = sa.case((group_index.is_(None), "unknown_group"), else_=value_reason)
     reason = sa.case((time_raw.is_(None), "null_time"), (epoch.is_(None), "bad_time"), else_=other_reason)
     key = sa.cast(cols.raw(spec.key_column), sa.String) if spec.key_column else sa.null()
@@ -69,7 +81,8 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         key=key,
         arrival=arrival,
         arrival_type=arrival_type,
-        filters=tuple(_filters(spec, cols)),
+        filters=tuple(_filters(spec, cols, kind)),
+        denominator=denominator,
     )
 
 
@@ -89,10 +102,32 @@ _COMPARISONS = {
 }
 
 
-def _filters(spec, cols):
+def _time_filter_value(kind: TimeKind, value):
+    """A filter value on the time column, written the way the column stores times.
+
+    ``[time_column, ">=", "2026-03-05T00:00:00Z"]`` starts a comparison at a date: the text is
+    read by the one time rule (no zone: UTC) and bound as a timestamp, a date, epoch seconds or
+    text in the column's own ISO layout, as a cutoff is (SQLite text times: in the layout of
+    the stored text). A number, or text that is not an ISO date-time, is left as written.
+    """
+    if not isinstance(value, str):
+        return value
+    try:
+        moment = as_utc(datetime.fromisoformat(value.strip()))
+    except ValueError:
+        return value
+    if kind.kind == "stored":
+        return kind.iso.format(moment) if kind.iso is not None else value
+    return bind_time(kind, moment)
+
+
+def _filters(spec, cols, kind: TimeKind):
     for column_name, op, value in spec.filters:
         column = cols.raw(column_name)
         column_type = cols.declared_type(column_name)
+        if column_name == spec.time_column:
+            value = ([_time_filter_value(kind, v) for v in value] if op in ("in", "not in")
+                     else _time_filter_value(kind, value))
         if op in ("in", "not in"):
             values = literals([bind_like(column_type, v) for v in value])
             yield column.in_(values) if op == "in" else column.not_in(values)
@@ -155,6 +190,8 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
     bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
     kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
     dev = parts.summand - float(spec.shift)
+    ratio = parts.denominator is not None
+    den_dev = parts.denominator - float(spec.shift_den) if ratio else None
     # Grouped by output position: the CASE expressions are evaluated once per row
     # (bound parameters make each repeated expression text distinct to the database).
     by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
@@ -171,12 +208,20 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
                 parts.key.label("key"),
                 parts.other_reason.label("other"),
                 dev.label("dev"),
+                *([den_dev.label("den")] if ratio else []),
                 (arrival if arrival is not None else sa.null()).label("arrival"),
             ).where(*where, *parts.filters)
         ).subquery("r")
         reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
         if why is not None:
             reason = sa.literal(why, sa.Text)
+        ratio_sums = []
+        if ratio:
+            ratio_sums = [
+                sa.func.sum(rows.c.den).label("sum_den"),
+                sa.func.sum(rows.c.den * rows.c.den).label("sum_den2"),
+                sa.func.sum(rows.c.dev * rows.c.den).label("sum_cross"),
+            ]
         return sa.select(
             rows.c.gi,
             dialect.slot(kind, rows.c.at).label("slot"),
@@ -188,6 +233,7 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
             sa.func.sum(rows.c.dev).label("sum_dev"),
             sa.func.sum(rows.c.dev * rows.c.dev).label("sum_dev2"),
             sa.func.max(rows.c.arrival).label("arrival"),
+            *ratio_sums,
         ).group_by(*by_position)
 
     upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
@@ -224,6 +270,7 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
 def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max, window=(None, None)):
     """(valid rows, per-reason counts) of the rows with time <= ``upper`` and arrival <= ``arrival_max``.
 
+    The valid rows' columns are group_index, value, time, key, and for a ratio metric denominator.
     ``window`` is (start, end) bound values (either None): start inclusive, end exclusive.
     Rows without a readable time are counted only without an end (not in a baseline).
     """
@@ -240,10 +287,12 @@ def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max, window=
     labelled = sa.select(
         parts.group_index.label("group_index"), parts.value.label("value"), time_raw.label("time"),
         parts.key.label("key"), parts.reason.label("reason"),
+        *([parts.denominator.label("denominator")] if parts.denominator is not None else []),
     ).where(*where).subquery("checked")
-    rows = sa.select(labelled.c.group_index, labelled.c.value, labelled.c.time, labelled.c.key).where(
-        labelled.c.reason.is_(None)
-    )
+    columns = [labelled.c.group_index, labelled.c.value, labelled.c.time, labelled.c.key]
+    if parts.denominator is not None:
+        columns.append(labelled.c.denominator)
+    rows = sa.select(*columns).where(labelled.c.reason.is_(None))
     counts = (
         sa.select(labelled.c.reason, sa.func.count())
         .where(labelled.c.reason.is_not(None))

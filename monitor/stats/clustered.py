@@ -38,6 +38,7 @@ from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
 from ._checks import open_unit as _check_probability
 from .fixed import _critical_values, _interval, _p_value
+from scipy import optimize, stats
 
 __all__ = [
     "ClusteredResult",
@@ -49,6 +50,11 @@ __all__ = [
     "design_effect_from_icc",
     "inflate_for_clustering",
     "clusters_needed",
+    "t_noncentrality",
+    "t_inflation",
+    "planning_df",
+    "ClusterPlan",
+    "plan_clusters",
     "DEGENERATE_CLUSTER_NOTE",
     "TOO_FEW_CLUSTERS_NOTE",
     "ONE_CLUSTER_NOTE",
@@ -846,3 +852,211 @@ def clusters_needed(events_per_group, events_per_cluster, *, design_effect=None,
         raise InvalidArgumentError("events_per_cluster is required; got None")
     return inflate_for_clustering(events_per_group, design_effect=design_effect, icc=icc,
                                   events_per_cluster=events_per_cluster).clusters_per_group
+
+
+# ----------------------------------------------------------------------------
+# few clusters: the t allowance
+
+
+def t_noncentrality(df, *, alpha=0.05, power=0.8, alternative="two-sided") -> float:
+    """Noncentrality a t test on ``df`` degrees of freedom needs for the given power.
+
+    The expected z of the difference (its size over its true standard error)
+    at which a t test at level ``alpha`` rejects with probability ``power``
+    (both tails counted for two-sided). With many degrees of freedom it tends
+    to ``z_{1−α(/2)} + z_{1−β}``; with few it is larger, because the standard
+    error is itself estimated from few clusters.
+
+    Parameters
+    ----------
+    df : float
+        Degrees of freedom of the t the decision uses (at least 1).
+    alpha, power : float
+        Level and power, ``0 < alpha < power < 1``.
+    alternative : str
+        ``"two-sided"``, ``"greater"`` or ``"less"``.
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> round(t_noncentrality(1e9), 4)   # the normal value 1.96 + 0.8416
+    2.8016
+    >>> round(t_noncentrality(4), 3)
+    3.761
+    """
+    nu = _check_finite(df, "df")
+    if nu < 1:
+        raise InvalidArgumentError(f"df must be at least 1; got {df!r}")
+    level = _check_probability(alpha, "alpha")
+    target = _check_probability(power, "power")
+    if target <= level:
+        raise InvalidArgumentError(f"power must be above alpha; got power={power!r}, alpha={alpha!r}")
+    _check_alternative(alternative)
+    two_sided = alternative == "two-sided"
+    crit = stats.t.isf(level / 2 if two_sided else level, nu)
+
+    def shortfall(lam):
+        reject = float(stats.nct.sf(crit, nu, lam))
+        if two_sided:
+            # The far tail; scipy returns nan where it is below rounding (df 1, large λ).
+            wrong_side = float(stats.nct.cdf(-crit, nu, lam))
+            reject += wrong_side if math.isfinite(wrong_side) else 0.0
+        return reject - target
+
+    # Power rises with the noncentrality; the normal value is a lower end (t is wider).
+    low = max(stats.norm.isf(level / 2 if two_sided else level) + stats.norm.isf(1 - target) - 1.0, 0.0)
+    high = crit + stats.t.isf(1 - target, nu) + 1.0
+    while shortfall(high) < 0:
+        high *= 2
+    return float(optimize.brentq(shortfall, low, high, xtol=1e-10, rtol=1e-12))
+
+
+def t_inflation(df, *, alpha=0.05, power=0.8, alternative="two-sided") -> float:
+    """Events (or clusters) a t decision on ``df`` needs over what a z decision needs.
+
+    ``(λ_t / λ_z)²`` with ``λ_t`` from :func:`t_noncentrality` and
+    ``λ_z = z_{1−α(/2)} + z_{1−β}``: the variance of the difference must be that
+    much smaller for the same power.
+
+    Examples
+    --------
+    >>> round(t_inflation(9), 3)
+    1.264
+    """
+    _check_alternative(alternative)
+    z = (stats.norm.isf(alpha / 2 if alternative == "two-sided" else alpha)
+         + stats.norm.isf(1 - power))
+    return float((t_noncentrality(df, alpha=alpha, power=power, alternative=alternative) / z) ** 2)
+
+
+def planning_df(clusters_per_group, *, shared=True) -> float:
+    """Degrees of freedom the look's clustered t has with equal clusters.
+
+    Clusters shared by both groups (calendar days): CR1 on ``G − 1`` df, with
+    ``G`` the clusters. Clusters that each belong to one group (crews): CR2
+    with Bell–McCaffrey df, which for ``k`` equal clusters per group are
+    ``2(k − 1)`` (as for a pooled t on the cluster means).
+
+    Examples
+    --------
+    >>> planning_df(12), planning_df(12, shared=False)
+    (11.0, 22.0)
+    """
+    k = _check_finite(clusters_per_group, "clusters_per_group")
+    return float(k - 1) if shared else float(2 * (k - 1))
+
+
+@dataclass(frozen=True)
+class ClusterPlan:
+    """Clusters and events per group for a clustered comparison, few-cluster t included.
+
+    Attributes
+    ----------
+    design_effect : float
+        Variance inflation assumed for clustering.
+    events_per_cluster : float
+        Events of one group in one cluster.
+    shared : bool
+        Clusters hold both groups (days) rather than one group each (crews).
+    unclustered_per_group : float
+        Events per group of the independent-events plan.
+    clustered_per_group : int
+        ``ceil(unclustered × design effect)``: before the t allowance.
+    df : float
+        Degrees of freedom of the look's t at the planned clusters.
+    t_inflation : float
+        Allowance for deciding on t with ``df`` (1 with many clusters).
+    events_per_group : int
+        ``ceil(unclustered × design effect × t_inflation)``; when the minimum
+        raised the clusters, the events of that many full clusters.
+    clusters_per_group : int
+        The fewest equal clusters per group holding ``events_per_group``
+        (shared clusters: the number of days), at least ``minimum_clusters``.
+    minimum_clusters : int
+        Clusters per group the look needs before it decides.
+    raised_to_minimum : bool
+        Whether the minimum, not power, set ``clusters_per_group``.
+    """
+
+    design_effect: float
+    events_per_cluster: float
+    shared: bool
+    unclustered_per_group: float
+    clustered_per_group: int
+    df: float
+    t_inflation: float
+    events_per_group: int
+    clusters_per_group: int
+    minimum_clusters: int
+    raised_to_minimum: bool
+
+    def to_dict(self) -> dict:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def plan_clusters(events_per_group, events_per_cluster, *, design_effect=None, icc=None, shared=True,
+                  alpha=0.05, power=0.8, alternative="two-sided", minimum_clusters=2) -> ClusterPlan:
+    """Clusters per group a clustered comparison needs, allowing for its t on few clusters.
+
+    Starts from the events an independent-events plan needs, inflates them by
+    the design effect (given, or ``1 + (m − 1)·icc``), then finds the fewest
+    clusters ``k`` per group for which ``k·m`` events are enough once the
+    decision's t on ``planning_df(k)`` degrees of freedom is allowed for
+    (:func:`t_inflation`). A minimum number of clusters (what the look needs
+    before deciding) is applied last.
+
+    Parameters
+    ----------
+    events_per_group : float
+        Events per group of the independent-events plan (a ``Plan``'s
+        ``max_per_group`` for a sequential design).
+    events_per_cluster : float
+        Events of one group in one cluster ``m`` (at least 1).
+    design_effect, icc : float, optional
+        One of the two (see :func:`inflate_for_clustering`).
+    shared : bool
+        True for clusters that hold both groups (calendar days), False for
+        clusters that each belong to one group.
+    alpha, power, alternative
+        Of the design; they set the t allowance.
+    minimum_clusters : int
+        Clusters per group before the look decides (at least 2).
+
+    Returns
+    -------
+    ClusterPlan
+
+    Examples
+    --------
+    >>> c = plan_clusters(400, 40, icc=0.05)
+    >>> c.design_effect, c.clustered_per_group, c.clusters_per_group, round(c.df)
+    (2.95, 1180, 32, 31)
+    """
+    size = inflate_for_clustering(events_per_group, design_effect=design_effect, icc=icc,
+                                  events_per_cluster=events_per_cluster)
+    floor = int(minimum_clusters)
+    if floor != minimum_clusters or floor < 2:
+        raise InvalidArgumentError(f"minimum_clusters must be a whole number of at least 2; got {minimum_clusters!r}")
+    m = size.events_per_cluster
+    needed = size.unclustered_per_group * size.design_effect
+
+    def events_at(k):
+        factor = t_inflation(planning_df(k, shared=shared), alpha=alpha, power=power, alternative=alternative)
+        return factor, needed * factor
+
+    # The need falls as clusters (and df) rise: step up from the z answer to the first k that holds it.
+    k = max(size.clusters_per_group, 2)
+    factor, events = events_at(k)
+    while k * m < events - 1e-9:
+        k += 1
+        factor, events = events_at(k)
+    raised = k < floor
+    if raised:
+        k = floor
+        factor, events = events_at(k)
+    return ClusterPlan(size.design_effect, m, bool(shared), size.unclustered_per_group,
+                       size.events_per_group, planning_df(k, shared=shared), float(factor),
+                       int(math.ceil((k * m if raised else events) - 1e-9)), int(k), floor, bool(raised))

@@ -589,7 +589,8 @@ def _newcombe_difference(x1, n1, x2, n2, z):
     d = p1 - p2
     low = d - math.sqrt((p1 - l1) ** 2 + (u2 - p2) ** 2)
     high = d + math.sqrt((u1 - p1) ** 2 + (p2 - l2) ** 2)
-    return low, high
+    # The bounds lie in [-1, 1] exactly; rounding can put an end a hair outside (0 vs 1 successes).
+    return max(-1.0, low), min(1.0, high)
 
 
 def _wald_difference(x1, n1, x2, n2, z):

@@ -49,7 +49,8 @@ _STATE_STATEMENT = (
     sa.select(_VERSION_TABLE.c.version_num.label("revision"),
               *(_COMPARISON.c[f] for f in _COMPARISON_FIELDS),
               _LOOK.c.excluded.label("last_excluded"),
-              _LOOK.c.detail["state_token"].as_string().label("state_token"))
+              _LOOK.c.detail["state_token"].as_string().label("state_token"),
+              _LOOK.c.detail["volume_state"].as_string().label("last_volume_state"))
     .select_from(
         _VERSION_TABLE
         .outerjoin(_COMPARISON, sa.and_(_COMPARISON.c.name == sa.bindparam("name"),
@@ -62,7 +63,8 @@ _STATE_STATEMENT = (
 _TOP_VERSION_STATEMENT = sa.select(sa.func.max(_COMPARISON.c.version)).where(
     _COMPARISON.c.name == sa.bindparam("name"))
 _CELLS_STATEMENT = sa.select(
-    _CELL.c.kind, _CELL.c.group_index, _CELL.c.key, _CELL.c.n, _CELL.c.sum_dev, _CELL.c.sum_dev2
+    _CELL.c.kind, _CELL.c.group_index, _CELL.c.key, _CELL.c.n, _CELL.c.sum_dev, _CELL.c.sum_dev2,
+    _CELL.c.sum_den, _CELL.c.sum_den2, _CELL.c.sum_cross,
 ).where(_CELL.c.comparison_id == sa.bindparam("cid"))
 _LAST_BOUNDARY_STATEMENT = (
     sa.select(_LOOK.c.boundary_look, _LOOK.c.fraction, _LOOK.c.boundary_z, _LOOK.c.futility_z, _LOOK.c.df,
@@ -87,12 +89,20 @@ _GUARDED_UPDATE = sa.update(_COMPARISON).where(
 _INSERT_LOOK = sa.insert(_LOOK).returning(_LOOK.c.id)
 
 
+_CELL_SUMS = ("n", "sum_dev", "sum_dev2", "sum_den", "sum_den2", "sum_cross")
+
+
+def _cell_values(cell) -> tuple:
+    """A stored cell row's sums as the look keeps them: three, or six for a ratio comparison."""
+    return tuple(cell[:3]) if cell[3] is None else tuple(cell)
+
+
 def _cell_upsert(insert):
     """INSERT … ON CONFLICT DO UPDATE on the cell key (the dialects that have it)."""
     stmt = insert(_CELL)
     return stmt.on_conflict_do_update(
         index_elements=["comparison_id", "kind", "group_index", "key"],
-        set_={"n": stmt.excluded.n, "sum_dev": stmt.excluded.sum_dev, "sum_dev2": stmt.excluded.sum_dev2})
+        set_={name: stmt.excluded[name] for name in _CELL_SUMS})
 
 
 _CELL_UPSERTS = {"sqlite": _cell_upsert(sqlite.insert), "postgresql": _cell_upsert(postgresql.insert)}
@@ -128,6 +138,7 @@ class LookState:
     cells: dict = field(default_factory=dict)
     last_boundary_look: BoundaryLookRow | None = None
     last_excluded: dict = field(default_factory=dict)
+    last_volume_state: str | None = None   # the volume check's state at the newest look
     replans: tuple = ()             # the version's replans (plan_change rows), oldest first
     restart: dict | None = None     # a new version's start, from the archived version's restart
 
@@ -175,14 +186,15 @@ def read_state(engine, name: str, kept: Callable[[int], KeptState | None] | None
                     and offered.looks_taken == comparison["looks_taken"]):
                 cells, last = offered.cells, offered.last_boundary_look
             else:
-                cells = {(kind, gi, key): (n, s1, s2) for kind, gi, key, n, s1, s2
-                         in conn.execute(_CELLS_STATEMENT, {"cid": comparison["id"]})}
+                cells = {(r[0], r[1], r[2]): _cell_values(r[3:])
+                         for r in conn.execute(_CELLS_STATEMENT, {"cid": comparison["id"]})}
                 found = conn.execute(_LAST_BOUNDARY_STATEMENT, {"cid": comparison["id"]}).first()
                 last = None if found is None else BoundaryLookRow(*found)
             changes = tuple(replan_rows(conn, comparison["id"])) if comparison["replans"] else ()
     except DBAPIError as exc:
         raise _store_error("read", exc) from None
-    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {}, changes)
+    return LookState(comparison, comparison["version"] + 1, cells, last, top["last_excluded"] or {},
+                     top["last_volume_state"], changes)
 
 
 def boundary_looks(engine, comparison_id: int, count: int) -> list[BoundaryLookRow]:
@@ -222,6 +234,7 @@ class LookWrite:
     watermark: dict
     as_of: datetime
     alert: AlertDraft | None = None
+    volume_alert: AlertDraft | None = None  # a volume warning's first look raises one of its own
 
 
 @dataclass(frozen=True)
@@ -245,6 +258,11 @@ def write_look(engine, w: LookWrite) -> Written:
                 alert_id = outbox.write_alert(
                     conn, comparison_id=comparison_id, comparison_name=w.name, look_id=look_id,
                     kind=w.alert.kind, created_at=w.as_of, payload=w.alert.payload, notify=w.alert.notify)
+            if w.volume_alert is not None:
+                outbox.write_alert(
+                    conn, comparison_id=comparison_id, comparison_name=w.name, look_id=look_id,
+                    kind=w.volume_alert.kind, created_at=w.as_of, payload=w.volume_alert.payload,
+                    notify=w.volume_alert.notify)
     except IntegrityError:
         raise LookAlreadyRecordedError(
             f"comparison {w.name!r}: look {look_number} was recorded by another process "
@@ -283,9 +301,14 @@ def upsert_cells(conn, comparison_id, cells, changes):
     """Write the cells this look changed (absolute values; the look's guard makes them safe)."""
     if not changes:
         return
-    rows = [{"comparison_id": comparison_id, "kind": k[0], "group_index": k[1], "key": k[2],
-             "n": int(cells[k][0]), "sum_dev": float(cells[k][1]), "sum_dev2": float(cells[k][2])}
-            for k in changes]
+    rows = []
+    for k in changes:
+        cell = cells[k]
+        ratio = cell[3:] if len(cell) == 6 else (None, None, None)
+        rows.append({"comparison_id": comparison_id, "kind": k[0], "group_index": k[1], "key": k[2],
+                     "n": int(cell[0]), "sum_dev": float(cell[1]), "sum_dev2": float(cell[2]),
+                     **{name: None if v is None else float(v)
+                        for name, v in zip(("sum_den", "sum_den2", "sum_cross"), ratio)}})
     upsert = _CELL_UPSERTS.get(conn.dialect.name)
     if upsert is not None:
         conn.execute(upsert, rows)
@@ -294,7 +317,7 @@ def upsert_cells(conn, comparison_id, cells, changes):
         done = conn.execute(
             sa.update(_CELL).where(_CELL.c.comparison_id == r["comparison_id"], _CELL.c.kind == r["kind"],
                                    _CELL.c.group_index == r["group_index"], _CELL.c.key == r["key"])
-            .values(n=r["n"], sum_dev=r["sum_dev"], sum_dev2=r["sum_dev2"]))
+            .values(**{name: r[name] for name in _CELL_SUMS}))
         if done.rowcount == 0:
             conn.execute(sa.insert(_CELL).values(**r))
 

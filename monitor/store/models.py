@@ -162,6 +162,7 @@ class Cell(Base):
 
     ``kind`` is ``total`` (key ''), ``day`` (local calendar day, for the design
     effect), ``cluster`` (the clustering key) or ``pair`` (the pairing key).
+    For a ratio comparison ``sum_dev``/``sum_dev2`` are the numerator's.
     """
 
     __tablename__ = "cell"
@@ -175,6 +176,11 @@ class Cell(Base):
     n: Mapped[int] = mapped_column(Integer)
     sum_dev: Mapped[float] = mapped_column(Float)
     sum_dev2: Mapped[float] = mapped_column(Float)
+    # Ratio comparisons only (NULL otherwise): the denominator's shifted sums and the
+    # cross-product with the numerator (whose sums are sum_dev and sum_dev2).
+    sum_den: Mapped[float | None] = mapped_column(Float, nullable=True)
+    sum_den2: Mapped[float | None] = mapped_column(Float, nullable=True)
+    sum_cross: Mapped[float | None] = mapped_column(Float, nullable=True)
 
 
 class Alert(Base):

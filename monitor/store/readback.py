@@ -393,6 +393,7 @@ def _status_row(comp, looks, now):
             timezone_name=design.measure.timezone if design is not None else None,
         )
     groups = design.groups if design is not None else settings.get("groups") or []
+    volume = (last["detail"] or {}).get("volume") if last is not None else None
     return {
         "id": comp["id"],
         "name": comp["name"],
@@ -412,6 +413,9 @@ def _status_row(comp, looks, now):
         **({"planned_per_group": last["detail"]["planned_per_group"]}
            if last is not None and (last["detail"] or {}).get("planned_per_group") else {}),
         "warnings": _warnings(last, design),
+        # The volume check of the newest look: ok, warning or not_yet_measurable, with its figures.
+        "volume_state": (volume or {}).get("state"),
+        "volume": json_safe(volume) if volume else None,
         "created_at": _iso(comp["created_at"]),
         "last_look_at": _iso(comp["last_look_at"] or (last["as_of"] if last is not None else None)),
         "stopped_at": _iso(comp["stopped_at"]),

@@ -1,14 +1,15 @@
 """Rates per unit of work and the volume check, simulated: false alarms, false warnings, delays.
 
-Part 1 — ratio comparisons under daily looks. Two packing lines (the groups) pack batches; a
-row per batch holds ``defects`` and ``units``. Units per batch are gamma-distributed (mean 800,
-coefficient of variation 0.6, so a big batch weighs many small ones), defects Poisson at the
-line's rate per unit, 20 to 60 batches per line per day, and each day's rate is shaken by a
-day shock shared by the line's batches (log-normal, sd 0.10) — so the monitor clusters by day.
-No true difference. One look a day for the planned days, the comparison's own boundary
-(monitor.stats.boundaries.SequentialBoundary, two-sided α = 0.05) with the nominal-level
-approach on the cluster-robust ratio t (monitor.stats.ratio.ratio_difference, clustered by day,
-t on days − 1), deciding from day ``min_days``.
+Part 1 — ratio comparisons under daily looks, through the look's own decision step
+(``monitor.look.decision.weigh`` and ``decide`` on the running cells a ratio look keeps; see
+tests/ratio_simulation.py). Two packing lines (the groups) pack 30 batches a day each; a row per
+batch holds ``defects`` and ``units`` (gamma, mean 800, coefficient of variation 0.6, so a big
+batch weighs many small ones), defects Poisson at 4 per 1,000 units. No true difference, one
+look a day, two-sided α = 0.05. Two cases: independent batches over 20 days (unclustered,
+Welch–Satterthwaite df), and a day shock shared by a line's batches (log-normal, sd 0.10) over
+30 days, clustered by day (``cluster_by = "day"``, ``min_clusters`` = 10).
+Part 1b keeps the earlier vectorised run of the pure statistic (20 to 60 batches a day,
+clustered by day from day 5) for comparison.
 
 Part 2 — the volume check (monitor.stats.volume) over comparison-months of normal variation:
 each group's quarter-hour counts follow a weekday pattern (quiet weekends), a day shock
@@ -18,7 +19,13 @@ own volume for each group and the share between them. Reported: days with a fals
 comparison-month (30 days), then the delay to the first warning after one group loses half its
 events from 10:00 on a random weekday.
 
-Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --months 500 --seed 1
+Part 2b — the same months, checked by the look's own volume step (monitor.look.volume,
+``assess_volume``) on the hour cells a look keeps, with a look after every complete hour from
+07:00 to 22:00: days with a false warning per comparison-month, and the delay (minutes after
+10:00) to the first warning after one group loses half its events.
+
+Run:  python tests/benchmarks/ratio_and_volume.py --streams 20000 --look-streams 10000 --months 500 --look-months 100 --seed 1
+      (--parts 1,1b,2,2b picks the parts)
 """
 
 from __future__ import annotations
@@ -32,7 +39,9 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from ratio_simulation import ratio_false_alarms  # noqa: E402
 from monitor.stats.boundaries import SequentialBoundary  # noqa: E402
 from monitor.stats.ratio import RatioCells, ratio_difference  # noqa: E402
 from monitor.stats.volume import check_own_volume, check_share, usual_volume  # noqa: E402
@@ -131,20 +140,95 @@ def volume_month(rng, drop_day=None, level=0.001):
     return warned_days, first_warning
 
 
+def _look_design():
+    from monitor.config import ComparisonConfig
+    from monitor.design import Design
+
+    return Design.from_config(ComparisonConfig(
+        name="volume", source="ops", table="events", group_column="site", groups=("north", "south"),
+        value_column="seconds", time_column="done_at", planned_per_group=10 ** 6))
+
+
+def volume_month_through_look(rng, design, drop_day=None, weeks=4, drop_to=0.5):
+    """As :func:`volume_month`, but hourly looks run the look's own check (monitor.look.volume)
+    on the hour cells a look keeps (each group's events per local hour, UTC here)."""
+    from datetime import date, datetime, timedelta, timezone
+
+    from monitor.look.volume import assess_volume
+
+    counts, weeks = _month(rng, weeks_history=weeks, drop_day=drop_day, drop_to=drop_to)
+    hourly = counts.reshape(counts.shape[0], 2, 24, 4).sum(axis=3)
+    first = date(2026, 1, 5)                      # a Monday: day 0 of the weekday pattern
+    cells = {}
+    for d in range(7 * weeks):                    # the history, already read
+        for g in (0, 1):
+            for h in range(24):
+                if hourly[d, g, h]:
+                    cells[("hour", g, f"{first + timedelta(days=d)}T{h:02d}:00+00:00")] = (int(hourly[d, g, h]), 0.0, 0.0)
+    warned_days, first_warning = set(), None
+    for day in range(counts.shape[0] - 7 * weeks):
+        d = 7 * weeks + day
+        today = first + timedelta(days=d)
+        for h in range(24):
+            for g in (0, 1):
+                if hourly[d, g, h]:
+                    cells[("hour", g, f"{today}T{h:02d}:00+00:00")] = (int(hourly[d, g, h]), 0.0, 0.0)
+            look_hour = h + 1                     # the look after this hour closed
+            if look_hour < OPEN // 4 + 1 or look_hour > CLOSE // 4 or day in warned_days:
+                continue
+            cutoff = datetime(today.year, today.month, today.day, tzinfo=timezone.utc) + timedelta(hours=look_hour)
+            if assess_volume(design, cells, cutoff)["state"] == "warning":
+                warned_days.add(day)
+                if first_warning is None and drop_day is not None and (day, look_hour * 60) >= (drop_day, 600):
+                    first_warning = (day - drop_day) * 1440 + look_hour * 60 - 600
+    return warned_days, first_warning
+
+
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--streams", type=int, default=20000)
     ap.add_argument("--months", type=int, default=200)
     ap.add_argument("--seed", type=int, default=1)
+    ap.add_argument("--look-streams", type=int, default=4000,
+                    help="streams per case of Part 1 (through the look's decision step)")
+    ap.add_argument("--parts", default="1,1b,2,2b", help="which parts to run (default all: 1,1b,2,2b)")
+    ap.add_argument("--look-months", type=int, default=60,
+                    help="comparison-months of Part 2b (the look's own hourly check)")
     args = ap.parse_args(argv)
+    parts = set(args.parts.split(","))
+    if "1" in parts:
+        _part_one(args)
+    if "1b" in parts:
+        _part_one_b(args)
+    if "2" in parts:
+        _part_two(args)
+    if "2b" in parts:
+        _part_two_b(args)
+
+
+def _part_one(args):
     t0 = time.perf_counter()
-    print("Part 1: ratio comparisons (defects per unit), daily looks, no true difference, alpha 0.05")
+    print("Part 1: ratio comparisons through weigh/decide, daily looks, no true difference, alpha 0.05")
+    print(f"{'case':34} {'streams':>8} {'looks':>6} {'false alarms':>13} {'MC s.e.':>8}")
+    for label, day_sd, days in (("independent batches, 20 days", 0.0, 20),
+                                ("day shocks, clustered by day, 30", 0.10, 30)):
+        rate, se, looks = ratio_false_alarms(args.look_streams, args.seed, day_sd=day_sd, days=days)
+        print(f"{label:34} {args.look_streams:8d} {looks:6d} {rate:13.4f} {se:8.4f}", flush=True)
+    print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _part_one_b(args):
+    t0 = time.perf_counter()
+    print("Part 1b: the pure statistic vectorised, clustered by day from day 5")
     print(f"{'spending':18} {'streams':>8} {'false alarms':>13} {'MC s.e.':>8}")
     for spending in ("obrien-fleming", "pocock"):
         rate = ratio_false_alarm(args.streams, args.seed, spending=spending)
         se = math.sqrt(0.05 * 0.95 / args.streams)
         print(f"{spending:18} {args.streams:8d} {rate:13.4f} {se:8.4f}")
     print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _part_two(args):
     t0 = time.perf_counter()
     rng = np.random.default_rng(args.seed)
     false_days = [len(volume_month(rng)[0]) for _ in range(args.months)]
@@ -161,6 +245,37 @@ def main(argv=None):
           f" delay median {np.median(found) * 15 if found else float('nan'):.0f} min, "
           f"90th percentile {np.percentile(found, 90) * 15 if found else float('nan'):.0f} min")
     print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _part_two_b(args):
+    t0 = time.perf_counter()
+    design = _look_design()
+    rng = np.random.default_rng(args.seed + 1)
+    false_days = [len(volume_month_through_look(rng, design)[0]) for _ in range(args.look_months)]
+    per_month = float(np.mean(false_days))
+    se = float(np.std(false_days, ddof=1) / math.sqrt(args.look_months))
+    print("Part 2b: the look's own volume check (hour cells, hourly looks 07:00-22:00, up to 8 weeks of history)")
+    print(f"  days with a false warning per comparison-month: {per_month:.3f} (MC s.e. {se:.3f}; "
+          f"{args.look_months} months)")
+    delays = []
+    for _ in range(args.look_months):
+        _, first = volume_month_through_look(rng, design, drop_day=int(rng.integers(7, 21)))
+        delays.append(first if first is not None else math.inf)
+    _print_delays("one group loses half its events from 10:00", delays, rng)
+    delays = [volume_month_through_look(rng, design, drop_day=int(rng.integers(7, 21)), drop_to=0.0)[1]
+              for _ in range(max(args.look_months // 3, 10))]
+    _print_delays("one group's events stop at 10:00", [math.inf if d is None else d for d in delays], rng)
+    print(f"  ({time.perf_counter() - t0:.1f} s)")
+
+
+def _print_delays(what, delays, rng):
+    found = np.array([d for d in delays if math.isfinite(d)], dtype=float)
+    if found.size:
+        boot = [np.median(rng.choice(found, found.size)) for _ in range(2000)]
+        print(f"  {what}: found in {found.size}/{len(delays)} months; "
+              f"delay median {np.median(found):.0f} min (bootstrap s.e. {np.std(boot):.0f}), "
+              f"mean {found.mean():.0f} min (s.e. {found.std(ddof=1) / math.sqrt(found.size):.0f}), "
+              f"90th percentile {np.percentile(found, 90):.0f} min")
 
 
 if __name__ == "__main__":

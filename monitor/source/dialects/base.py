@@ -255,6 +255,26 @@ class SourceDialect:
         limit = _typed(value_type, VALUE_LIMIT)
         return sa.case((sa.and_(raw <= sa.literal(limit), raw >= sa.literal(-limit)), value), else_=None)
 
+    def denominator_parts(self, raw, value_type) -> tuple:
+        """(denominator as summed, reason expression: NULL for a usable denominator).
+
+        A usable denominator is a number above zero and at most VALUE_LIMIT; anything else
+        (NULL, NaN, ±infinity, zero, negative, too large) is ``bad_denominator``. The summed
+        expression is NULL beyond ±VALUE_LIMIT, so no square or cross-product can overflow.
+        """
+        bad = "bad_denominator"
+        if isinstance(value_type, sa.Boolean):
+            value = sa.case((raw.is_(True), 1.0), else_=0.0)
+            return value, sa.case((sa.or_(raw.is_(None), raw.is_(False)), bad), else_=None)
+        value = self.to_double(raw)
+        checks = [raw.is_(None), raw <= sa.literal(0)]
+        if not isinstance(value_type, sa.Integer):  # a 64-bit integer never exceeds the limit
+            limit = _typed(value_type, VALUE_LIMIT)
+            # NaN sorts above every number in these databases, so this catches NaN as well.
+            checks.append(raw > sa.literal(limit))
+            value = sa.case((sa.and_(raw <= sa.literal(limit), raw >= sa.literal(-limit)), value), else_=None)
+        return value, sa.case((sa.or_(*checks), bad), else_=None)
+
     # ------------------------------------------------------------------ arrivals
 
     def bind_arrival(self, arrival_type, value):

@@ -38,9 +38,14 @@ class SQLiteDialect(SourceDialect):
         database = self.url.database
         if not database or database == ":memory:" or database.startswith("file:"):
             raise InvalidArgumentError(f"source {source_name!r}: url must name a SQLite file, got {safe_url!r}")
-        uri = f"file:{quote(str(Path(database).expanduser().absolute()))}?mode=ro"
+        path = Path(database).expanduser().absolute()
+        uri = f"file:{quote(str(path))}?mode=ro"
 
         def creator():
+            if not path.is_file():
+                # SQLite's own words ("unable to open database file") leave the cause to guess.
+                raise sqlite3.OperationalError(f"no such file: {path}" if path.parent.is_dir()
+                                               else f"no such folder: {path.parent}")
             conn = sqlite3.connect(uri, uri=True, check_same_thread=False)
             # mode=ro already refuses writes (and never creates the file); query_only is a second lock.
             conn.execute("PRAGMA query_only = ON")
@@ -155,6 +160,24 @@ class SQLiteDialect(SourceDialect):
         )
         value = sa.case((stored == "text", from_text), else_=raw)
         return value, reason
+
+    def denominator_parts(self, raw, value_type):
+        # Numbers are read as in value_parts: a stored number, or text that is a JSON number.
+        stored = sa.func.typeof(raw)
+        trimmed = sa.func.trim(raw)
+        is_json_number = sa.and_(
+            sa.func.json_valid(trimmed) == 1,
+            sa.func.json_type(trimmed).in_(literals(("integer", "real"))),
+        )
+        value = sa.case((stored == "text", sa.cast(trimmed, sa.Float)), else_=raw)
+        bad = sa.case(
+            (stored.in_(literals(("null", "blob"))), "bad_denominator"),
+            (sa.and_(stored == "text", sa.not_(is_json_number)), "bad_denominator"),
+            # +infinity is above the limit; SQLite stores a NaN as NULL.
+            (sa.or_(value <= 0, value > VALUE_LIMIT), "bad_denominator"),
+            else_=None,
+        )
+        return value, bad
 
     def summand(self, raw, value, value_type):
         # SQLite turns an overflow into ±inf instead of failing the statement, and rows beyond
