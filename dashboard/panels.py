@@ -72,6 +72,9 @@ def _headline(row, looks):
     relative = relative_text(row)
     st.caption(f"{confidence_percent(row)} repeated confidence interval: {interval}"
                + (f" · {relative}" if relative and not row["stopped"] else "") + f" · {timing}")
+    if row.get("baseline"):
+        # A before/after comparison: the estimate is the change; say what the gap was before it.
+        st.info(row["baseline"][:1].upper() + row["baseline"][1:] + ".")
     if row.get("outlook_words"):
         words = row["outlook_words"]
         st.info(words[0].upper() + words[1:] + ".")

@@ -42,6 +42,9 @@ def board_table(rows, ref):
     body = []
     for r in rows:
         body.append(_board_row(r, ref))
+        if r.get("baseline"):
+            body.append(f'<tr class="gw-warnrow"><td></td><td colspan="{len(BOARD_COLUMNS) - 1}">'
+                        f'<span class="gw-sub">{html.escape(r["baseline"])}</span></td></tr>')
         for warning in r["warnings"]:
             body.append(f'<tr class="gw-warnrow"><td></td><td colspan="{len(BOARD_COLUMNS) - 1}">'
                         f'<span class="gw-warn">⚠ {html.escape(warning)}</span></td></tr>')

@@ -18,7 +18,8 @@ from pathlib import Path
 import sqlalchemy as sa
 from sqlalchemy.types import UserDefinedType
 
-from .scenario import DATABASES, DEFAULT_SEED, EPOCH, LIVE_START, TABLES, TableSpec, events_between, format_time, parse_time
+from .scenario import (DATABASES, DEFAULT_SEED, EPOCH, LIVE_START, TABLES, TableSpec, events_between, first_day,
+                       format_time, parse_time)
 
 __all__ = ["SimulatedClock", "LiveFeed", "database_path", "database_url", "create_databases", "fed_until"]
 
@@ -114,8 +115,8 @@ def create_databases(folder, *, start: datetime = LIVE_START, seed: int = DEFAUL
             with engine.begin() as conn:
                 for name, table in tables.items():
                     spec = next(t for t in TABLES if t.name == name)
-                    rows = [e.row(spec) for e in events_between(name, EPOCH - timedelta(days=1),
-                                                                start, seed=seed)]
+                    history = EPOCH + timedelta(days=first_day(name) - 1)
+                    rows = [e.row(spec) for e in events_between(name, history, start, seed=seed)]
                     if rows:
                         conn.execute(table.insert(), rows)
                     counts[name] = len(rows)

@@ -33,14 +33,16 @@ MARKER_NAME = ".gapwatch-demo"
 _COMPARISONS = [
     {
         "name": "pick-seconds",
-        "description": "Seconds per order line picked, Hollin Cross minus Saltmarsh Lane. "
-                       "Hollin Cross switches to a new pick path on Wednesday 06:00.",
+        "description": "Seconds per order line picked, Hollin Cross minus Saltmarsh Lane, before and after "
+                       "Hollin Cross's new pick path went live on Wednesday 06:00. Hollin Cross, an older "
+                       "building, was slower long before; the two weeks before the change are the baseline.",
         "source": "warehouse", "table": "pick_tasks", "group_column": "site",
         "labels": ["Hollin Cross", "Saltmarsh Lane"], "unit": "s",
         "groups": ["hollin", "saltmarsh"], "value_column": "seconds", "time_column": "finished_at",
         "metric": "mean", "method": "welch", "alternative": "two-sided", "alpha": 0.05,
-        "spending": "obrien-fleming", "planned_per_group": 9000,
-        "valid_range": [1, 3600], "every": "2s",
+        "spending": "obrien-fleming", "start": "2026-03-04T06:00:00+00:00", "baseline": "14d",
+        "difference": -8.0, "sd": 52.0, "power": 0.8, "day_sd": 3.0, "events_per_day": 1400,
+        "min_clusters": 4, "valid_range": [1, 3600], "every": "2s",
     },
     {
         "name": "desk-first-contact",

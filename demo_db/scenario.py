@@ -39,6 +39,7 @@ __all__ = [
     "table_spec",
     "day_events",
     "events_between",
+    "first_day",
     "format_time",
     "parse_time",
 ]
@@ -46,8 +47,10 @@ __all__ = [
 COMPANY = "Corvane Provisions"
 
 # The scenario's calendar: day 0 is Monday 2 March 2026 (UTC). The backlog
-# covers days 0 and 1 and the early hours of day 2; the live feed starts on
-# day 2 at 06:00, when the new pick path goes live at Hollin Cross.
+# covers days 0 and 1 and the early hours of day 2 (and, for the pick tasks,
+# two weeks before that: the baseline of the before/after comparison); the
+# live feed starts on day 2 at 06:00, when the new pick path goes live at
+# Hollin Cross.
 EPOCH = datetime(2026, 3, 2, tzinfo=timezone.utc)
 LIVE_START = EPOCH + timedelta(days=2, hours=6)
 DEFAULT_SEED = 20260302
@@ -155,6 +158,10 @@ PICK_PATH_HOUR = 6            # ... at 06:00
 PICK_PATH_SPEEDUP = 0.86      # picks take 14 % less time on the new path
 PICK_MEDIAN_SECONDS = 82.0
 PICK_LOG_SD = 0.5             # right-skewed: mean about 93 s, sd about 50 s
+PICK_HOLLIN_SLOWER = 1.09     # Hollin Cross is an older building: 9 % slower, long before the change
+PICK_SITE_DAY_SD = 0.03       # each site's own day-to-day spread (staffing, stock), log scale
+PICK_SHARED_DAY_SD = 0.04     # days both sites share (order mix, season), log scale
+PICK_HISTORY_DAYS = 14        # pick tasks go back two weeks before day 0 (the baseline)
 CONTACT_RECORDING_DAY = 1    # the desks' new ticket system records resolution from Tuesday
 BENCH_TWO_OPENS_DAY = 3       # the second grading bench starts on Thursday
 BENCH_TWO_OPENS_HOUR = 9
@@ -221,12 +228,17 @@ def _pick_day(rng, day, day_start):
     spoil = _Spoiler(rng, 0.006, [_null_value, _text_value, _unknown_group, _null_time,
                                   _out_of_range([-4.0, 0.0, 86400.0, 7200.5])])
     switch = EPOCH + timedelta(days=PICK_PATH_DAY, hours=PICK_PATH_HOUR)
+    # Drawn from their own generator so the day's rows keep their stream.
+    shocks = np.random.default_rng([int(rng.integers(2**31)), 7])
+    shared = math.exp(shocks.normal(0.0, PICK_SHARED_DAY_SD))
+    level = {"hollin": PICK_HOLLIN_SLOWER * shared * math.exp(shocks.normal(0.0, PICK_SITE_DAY_SD)),
+             "saltmarsh": shared * math.exp(shocks.normal(0.0, PICK_SITE_DAY_SD))}
     for site in ("hollin", "saltmarsh"):
         # Two shifts, 06:00-22:00, about 90 order lines an hour per site.
         count = int(rng.poisson(90 * 16))
         times = _uniform_times(rng, day_start, count, 6, 22)
         arrivals = _arrivals(rng, times, typical_delay=20.0, late_share=0.015)
-        seconds = rng.lognormal(math.log(PICK_MEDIAN_SECONDS), PICK_LOG_SD, size=count)
+        seconds = level[site] * rng.lognormal(math.log(PICK_MEDIAN_SECONDS), PICK_LOG_SD, size=count)
         pickers = rng.integers(1, 19, size=count)
         aisles = rng.integers(1, 41, size=count)
         for t, a, s, p, aisle in zip(times, arrivals, seconds, pickers, aisles):
@@ -373,16 +385,22 @@ _DAY_BUILDERS = {
 }
 
 
+def first_day(table: str) -> int:
+    """The scenario's first day of ``table`` (negative: history before day 0)."""
+    return -PICK_HISTORY_DAYS if table == "pick_tasks" else 0
+
+
 def day_events(table: str, day: int, *, seed: int = DEFAULT_SEED) -> list[DemoEvent]:
     """Every row of ``table`` whose event falls on scenario day ``day``, in arrival order.
 
     The generator of a (seed, table, day) triple is independent of every other
     day's, so a day can be rebuilt alone and always comes out the same.
     """
-    if day < 0:
-        raise ValueError(f"day must be >= 0, got {day!r}")
+    if day < first_day(table):
+        raise ValueError(f"day must be >= {first_day(table)} for {table}, got {day!r}")
     index = [t.name for t in TABLES].index(table)
-    rng = np.random.default_rng([int(seed), index, int(day)])
+    # Days before day 0 get their own range of seed words (seed words are never negative).
+    rng = np.random.default_rng([int(seed), index, int(day) if day >= 0 else 1_000_000 - int(day)])
     day_start = EPOCH + timedelta(days=day)
     events = _DAY_BUILDERS[table](rng, day, day_start)
     events.sort(key=lambda e: e.arrival)
@@ -400,10 +418,10 @@ def events_between(table: str, after: datetime, until: datetime, *, seed: int = 
     ``cache`` (optional, a dict the caller keeps) saves rebuilding a day on
     every call of the live feed.
     """
-    first_day = max(0, (after - MAX_ARRIVAL_DELAY - EPOCH).days)
+    start_day = max(first_day(table), (after - MAX_ARRIVAL_DELAY - EPOCH).days)
     last_day = (until - EPOCH).days
     selected = []
-    for day in range(first_day, last_day + 1):
+    for day in range(start_day, last_day + 1):
         key = (table, day)
         if cache is not None and key in cache:
             events = cache[key]
@@ -413,7 +431,7 @@ def events_between(table: str, after: datetime, until: datetime, *, seed: int = 
                 cache[key] = events
         selected.extend(e for e in events if after < e.arrival <= until)
     if cache is not None:
-        for key in [k for k in cache if k[0] == table and k[1] < first_day]:
+        for key in [k for k in cache if k[0] == table and k[1] < start_day]:
             del cache[key]
     selected.sort(key=lambda e: e.arrival)
     return selected

@@ -23,6 +23,7 @@ import hashlib
 import json
 import math
 from dataclasses import dataclass, field, replace
+from datetime import datetime
 from types import MappingProxyType
 from zoneinfo import ZoneInfo
 
@@ -31,7 +32,7 @@ from .errors import InvalidArgumentError
 from .vocabulary import json_safe
 
 __all__ = ["Design", "Plan", "PlanInputs", "Pairing", "Clustering", "Measure", "RatioColumns", "Display",
-           "design_hash"]
+           "Window", "design_hash"]
 
 
 def design_hash(stored: dict) -> str:
@@ -50,6 +51,8 @@ class PlanInputs:
     sd: float | None = None
     p1: float | None = None
     p2: float | None = None
+    day_sd: float | None = None
+    events_per_day: float | None = None
     # The order the stored dict had, so a design read back is written back text for text.
     order: tuple = field(default=(), compare=False, repr=False)
 
@@ -63,7 +66,7 @@ class PlanInputs:
         return cls(**known, order=tuple(known))
 
 
-_INPUT_NAMES = ("power", "looks", "difference", "sd", "p1", "p2")
+_INPUT_NAMES = ("power", "looks", "difference", "sd", "p1", "p2", "day_sd", "events_per_day")
 
 
 @dataclass(frozen=True)
@@ -214,6 +217,46 @@ class Display:
 
 
 @dataclass(frozen=True)
+class Window:
+    """A comparison's start and, for a before/after comparison, the baseline before it.
+
+    Times are ISO-8601 UTC text as stored. With a baseline the comparison estimates the
+    difference in differences; ``min_clusters`` then counts days since the start.
+    """
+
+    start: str
+    baseline_from: str | None = None
+    baseline_to: str | None = None
+    baseline_days: float | None = None
+    events_per_day: float | None = None
+    min_clusters: int | None = None
+
+    @property
+    def before_after(self) -> bool:
+        return self.baseline_from is not None
+
+    def moments(self) -> dict:
+        """``start``, ``baseline_from``, ``baseline_to`` as aware datetimes (None where unset)."""
+        return {k: None if getattr(self, k) is None else datetime.fromisoformat(getattr(self, k))
+                for k in ("start", "baseline_from", "baseline_to")}
+
+    def to_stored(self) -> dict:
+        out = {"start": self.start}
+        if self.before_after:
+            out["before_after"] = {"baseline_from": self.baseline_from, "baseline_to": self.baseline_to,
+                                   "baseline_days": self.baseline_days, "events_per_day": self.events_per_day}
+        return out
+
+    @classmethod
+    def from_stored(cls, stored: dict) -> Window | None:
+        if not stored.get("start"):
+            return None
+        ba = stored.get("before_after") or {}
+        return cls(stored["start"], ba.get("baseline_from"), ba.get("baseline_to"), ba.get("baseline_days"),
+                   ba.get("events_per_day"), stored.get("min_clusters") if ba else None)
+
+
+@dataclass(frozen=True)
 class Design:
     """A comparison's statistical design, frozen at its first look.
 
@@ -235,6 +278,7 @@ class Design:
     clustering: Clustering | None = None
     futility: bool = False
     shift: float | None = None
+    window: Window | None = None
     ratio: RatioColumns | None = None
     shift_den: float | None = None   # metric "ratio": the denominator's shift, fixed like ``shift``
     # "events" or "information" (monitor.look.plan): stored only when not the default, so
@@ -244,6 +288,11 @@ class Design:
     display: Display = Display()
 
     # ------------------------------------------------------------ derived
+
+    @property
+    def before_after(self) -> bool:
+        """A start and a baseline: the comparison estimates the difference in differences."""
+        return self.window is not None and self.window.before_after
 
     @property
     def planned_per_group(self) -> int:
@@ -269,7 +318,9 @@ class Design:
 
     @property
     def min_clusters(self) -> int | None:
-        return None if self.clustering is None else self.clustering.min_clusters
+        if self.clustering is not None:
+            return self.clustering.min_clusters
+        return self.window.min_clusters if self.before_after else None
 
     def with_shift(self, shift) -> Design:
         """The same design with the shift fixed (None leaves it unset)."""
@@ -305,6 +356,7 @@ class Design:
             pairing=Pairing(c.pair_by, c.pair_column, tuple(c.shift_starts), c.min_pairs) if paired else None,
             clustering=Clustering(c.cluster_by, c.cluster_column, c.min_clusters) if clustered else None,
             futility=c.futility,
+            window=_window_of(c),
             ratio=RatioColumns(c.numerator_column, c.denominator_column) if c.metric == "ratio" else None,
             fraction=getattr(c, "fraction", "events"),
             display=Display(tuple(c.labels) if getattr(c, "labels", None) else None, getattr(c, "unit", "") or ""),
@@ -343,6 +395,8 @@ class Design:
             "timezone": m.timezone,
             "min_clusters": self.min_clusters,
             "shift": self.shift,
+            # Only a comparison with a start stores these: every other design keeps its shape.
+            **({} if self.window is None else self.window.to_stored()),
             # Only ratio designs carry these, so every other stored design keeps its shape.
             **({"numerator_column": self.ratio.numerator_column,
                 "denominator_column": self.ratio.denominator_column,
@@ -376,6 +430,7 @@ class Design:
             clustering=Clustering.from_stored(clustering, stored.get("min_clusters")) if clustering else None,
             futility=bool(stored.get("futility", False)),
             shift=None if shift is None else float(shift),
+            window=Window.from_stored(stored),
             ratio=(RatioColumns(stored["numerator_column"], stored["denominator_column"])
                    if stored.get("denominator_column") else None),
             shift_den=None if stored.get("shift_den") is None else float(stored["shift_den"]),
@@ -425,6 +480,17 @@ def _plan_of(c) -> Plan:
     """
     if c.planned_per_group is not None:
         return Plan(int(c.planned_per_group))
+    window = _window_of(c)
+    if window is not None and window.before_after:
+        if c.metric == "proportion":
+            inputs = PlanInputs(power=c.power, looks=c.looks, p1=c.p1, p2=c.p2, day_sd=c.day_sd or 0.0,
+                                events_per_day=c.events_per_day)
+        else:
+            inputs = PlanInputs(power=c.power, looks=c.looks, difference=c.difference, sd=c.sd,
+                                day_sd=c.day_sd or 0.0, events_per_day=c.events_per_day)
+        planned, figures = _planned_before_after(c.metric, c.alpha, c.alternative, c.spending, inputs,
+                                                 window.baseline_days)
+        return Plan(planned, inputs, figures)
     if c.metric == "proportion":
         inputs = PlanInputs(power=c.power, looks=c.looks, p1=c.p1, p2=c.p2)
     else:
@@ -450,3 +516,31 @@ def _planned(metric, alpha, alternative, spending, futility, inputs: PlanInputs)
     else:
         plan = plan_mean(inputs.difference, inputs.sd, **common)
     return plan.max_per_group, MappingProxyType(json_safe(plan.to_dict()))
+
+
+def _window_of(c) -> Window | None:
+    """The start and baseline a configuration asks for, as stored (ISO-8601 UTC text)."""
+    window = c.window
+    if window is None:
+        return None
+    if window["baseline_from"] is None:
+        return Window(window["start"].isoformat())
+    return Window(window["start"].isoformat(), window["baseline_from"].isoformat(),
+                  window["baseline_to"].isoformat(), window["baseline_days"], c.events_per_day, c.min_clusters)
+
+
+@functools.lru_cache(maxsize=256)
+def _planned_before_after(metric, alpha, alternative, spending, inputs: PlanInputs, baseline_days):
+    """Planned events per group after the start, from the days the change needs."""
+    # lazy: planning is needed only here (the read side never plans).
+    from .stats.before_after import plan_before_after
+
+    common = dict(day_sd=inputs.day_sd or 0.0, events_per_day=inputs.events_per_day, baseline_days=baseline_days,
+                  alpha=alpha, power=inputs.power, alternative=alternative, spending=spending, looks=inputs.looks)
+    if metric == "proportion":
+        # The change is p1 − p2; the event spread is taken at the rate nearer one half.
+        rate = min((inputs.p1, inputs.p2), key=lambda q: abs(q - 0.5))
+        plan = plan_before_after(inputs.p1 - inputs.p2, rate=rate, **common)
+    else:
+        plan = plan_before_after(inputs.difference, inputs.sd, **common)
+    return int(plan.planned_per_group), MappingProxyType(json_safe(plan.to_dict()))

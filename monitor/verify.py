@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import replace
 from zoneinfo import ZoneInfo
 
 import pandas as pd
@@ -25,6 +26,7 @@ from .errors import UnknownComparisonError
 from .source.reader import Source, SourceSpec
 from .stats import fixed
 from .look.statistic import cluster_variance
+from .stats.before_after import difference_in_differences
 from .stats.clustered import cluster_counts, cluster_robust_difference
 from .stats.ratio import RatioCells, ratio_difference
 from .store.models import Comparison, Look
@@ -168,17 +170,70 @@ def _stored(engine, name, version):
     return comp, looks
 
 
-def _replay(look, source, spec, design):
+class _Baseline:
+    """A before/after comparison's baseline as the look that read it saw it (then frozen)."""
+
+    def __init__(self):
+        self.frame = self.excluded = self.arrival = None
+
+    def replay(self, look, source, spec, design, arrival, excluded):
+        """Fold the baseline's bad rows and the late rows dated before the start into ``excluded``."""
+        window = design.window.moments()
+        if self.frame is None and look.cutoff >= window["baseline_to"]:
+            baseline_spec = replace(spec, start=window["baseline_from"], end=window["baseline_to"])
+            self.frame = source.read_rows(baseline_spec, look.cutoff, arrival_max=arrival)
+            self.excluded = dict(self.frame.attrs.get("excluded", {}))
+            self.arrival = arrival
+        if self.frame is None:
+            return
+        for reason, count in self.excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
+        if arrival is not None and self.arrival is not None and arrival != self.arrival:
+            late = (source.count_before(spec, window["start"], arrival)
+                    - source.count_before(spec, window["start"], self.arrival))
+            if late:
+                excluded["before_start"] = late
+
+
+def _before_after(design: Design, baseline, frame) -> dict:
+    """The DiD of one look from the frozen baseline rows and the rows since the start (CR2)."""
+
+    out = {"n1": int((frame.group_index == 0).sum()), "n2": int((frame.group_index == 1).sum())}
+    if baseline is None:
+        return out
+    parts = []
+    for period, rows in ((0, baseline), (1, frame)):
+        days = _local_bucket(rows["time"], "day", design.measure.timezone, ())
+        cells = rows.assign(day=days).groupby(["group_index", "day"])["value"].agg(["count", "sum"]).reset_index()
+        parts.append(cells.assign(period=period))
+    groups = [int(g) for p in parts for g in p["group_index"]]
+    periods = [int(x) for p in parts for x in p["period"]]
+    if len(set(zip(groups, periods))) < 4:
+        return out
+    result = difference_in_differences(
+        groups, periods, [str(d) for p in parts for d in p["day"]], [int(c) for p in parts for c in p["count"]],
+        [float(v) for p in parts for v in p["sum"]], 0.0, null_difference=design.null_difference,
+        alternative=design.alternative, alpha=design.alpha)
+    out.update(estimate=float(result.estimate), statistic=float(result.statistic), p_value=float(result.p_value))
+    return out
+
+
+def _replay(look, source, spec, design, baseline=None):
     arrival = json.loads(look.arrival_watermark) if look.arrival_watermark else None
     frame = source.read_rows(spec, look.cutoff, arrival_max=arrival)
     excluded = dict(frame.attrs.get("excluded", {}))
+    if baseline is not None:
+        baseline.replay(look, source, spec, design, arrival, excluded)
     if spec.key_column:
         # As the look does: an event without a pair or cluster key cannot join the statistic.
         no_key = frame["key"].isna()
         if no_key.any():
             excluded[NULL_KEY] = int(no_key.sum())
             frame = frame[~no_key]
-    figures = _recompute(design, frame, look.cutoff)
+    if baseline is not None:
+        figures = _before_after(design, baseline.frame, frame)
+    else:
+        figures = _recompute(design, frame, look.cutoff)
     mismatches = []
     for field in _FIELDS:
         if field not in figures:
@@ -210,7 +265,8 @@ def verify_looks(config, name, engine, *, version=None, source=None) -> list[dic
                                          f"which the configuration no longer names")
         source = Source(config.sources[source_name].url, name=source_name)
     try:
-        return [_replay(look, source, spec, design) for look in looks]
+        baseline = _Baseline() if design.before_after else None
+        return [_replay(look, source, spec, design, baseline) for look in looks]
     finally:
         if own:
             source.dispose()

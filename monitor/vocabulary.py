@@ -40,6 +40,8 @@ __all__ = [
     "method_words",
     "spending_words",
     "design_words",
+    "parse_moment",
+    "baseline_gap_words",
 ]
 
 UTC = timezone.utc
@@ -137,6 +139,60 @@ def as_utc(moment, name: str = "time", *, naive_zone=UTC) -> datetime:
     if moment.tzinfo is None or moment.utcoffset() is None:
         moment = moment.replace(tzinfo=naive_zone)
     return moment.astimezone(UTC)
+
+
+def parse_moment(text, name: str = "time", zone=UTC) -> datetime:
+    """An ISO-8601 date-time as aware UTC; one without a zone is read in ``zone``.
+
+    ``"2026-03-04T06:00:00+01:00"`` carries its own zone; ``"2026-03-04 06:00"`` is local
+    time in ``zone`` (the comparison's ``timezone``). A TOML date-time value (a datetime)
+    is taken the same way. Raises ValueError naming ``name`` and the value.
+    """
+    if isinstance(text, datetime):
+        return as_utc(text, name, naive_zone=zone)
+    if not isinstance(text, str):
+        raise ValueError(f"{name} must be an ISO-8601 date-time like \"2026-03-04T06:00:00+01:00\"; "
+                         f"got {text!r}")
+    try:
+        moment = datetime.fromisoformat(text.strip().replace("Z", "+00:00"))
+    except ValueError:
+        raise ValueError(f"{name} must be an ISO-8601 date-time like \"2026-03-04T06:00:00+01:00\"; "
+                         f"got {text!r}") from None
+    return as_utc(moment, name, naive_zone=zone)
+
+
+# Value columns whose name says they hold a duration: a higher value is slower.
+_DURATION_WORDS = ("second", "minute", "hour", "duration", "time", "_ms", "millis")
+
+
+def baseline_gap_words(groups, gap, low, high, *, value_column: str = "", metric: str = "mean") -> str:
+    """The baseline gap of a before/after comparison in one sentence.
+
+    ``"before the change, hollin was 7.1 seconds slower than saltmarsh (95% interval 5.3 to
+    8.9)"``. Durations (the value column names seconds, minutes, hours …) read slower /
+    faster, rates read percentage points higher / lower, anything else higher / lower in
+    the column's unit. ``low``/``high`` may be None (no interval yet).
+    """
+    first, second = groups[0], groups[1]
+    if gap is None or not math.isfinite(gap):
+        return f"before the change, {first} against {second}: not measured yet"
+    column = (value_column or "").lower()
+    words = column.replace("_", " ")
+    scale, more, less, unit, after = 1.0, "higher", "lower", "", f" in {words}" if words else ""
+    if metric == "proportion":
+        scale, unit, after = 100.0, " percentage points", f" in {words}" if words else ""
+    elif any(w in column for w in _DURATION_WORDS) and "late" not in column:
+        more, less, unit, after = "slower", "faster", f" {words}", ""
+    bounded = low is not None and high is not None and math.isfinite(low) and math.isfinite(high)
+    width = (high - low) * scale if bounded else None
+    if gap == 0:
+        sentence = f"before the change, {first} and {second} did not differ"
+    else:
+        sentence = (f"before the change, {first} was {figure(abs(gap) * scale, width)}{unit} "
+                    f"{more if gap > 0 else less} than {second}{after}")
+    if bounded:
+        sentence += f" (interval {figure(low * scale, width)} to {figure(high * scale, width)})"
+    return sentence
 
 
 def outlook_words(outlook) -> str | None:

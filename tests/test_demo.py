@@ -7,6 +7,7 @@ import math
 import os
 import subprocess
 import sys
+from dataclasses import replace
 from datetime import timedelta
 from pathlib import Path
 
@@ -61,8 +62,9 @@ def test_windows_partition_the_arrivals():
 
 
 def test_pick_durations_are_right_skewed_lognormal():
-    seconds = np.array([e.value for e in _values("pick_tasks", [0, 1], "saltmarsh") if _good_number(e.value)
-                        and 1 <= e.value <= 3600])
+    # Over the two weeks of history, so the day-to-day spread averages out.
+    seconds = np.array([e.value for e in _values("pick_tasks", range(-14, 2), "saltmarsh")
+                        if _good_number(e.value) and 1 <= e.value <= 3600])
     assert len(seconds) > 2000
     sigma = scenario.PICK_LOG_SD
     # Lognormal skewness (e^σ² + 2)·sqrt(e^σ² − 1): about 1.75 for σ = 0.5.
@@ -71,10 +73,20 @@ def test_pick_durations_are_right_skewed_lognormal():
     assert abs(stats.skew(seconds) - expected_skew) < 0.6
     assert np.median(seconds) < seconds.mean()
     logs = np.log(seconds)
-    assert abs(logs.std(ddof=1) - sigma) < 0.03
+    spread = math.sqrt(sigma**2 + scenario.PICK_SITE_DAY_SD**2 + scenario.PICK_SHARED_DAY_SD**2)
+    assert abs(logs.std(ddof=1) - spread) < 0.02
     assert abs(np.exp(np.median(logs)) - scenario.PICK_MEDIAN_SECONDS) < 3
     # Log durations look normal: the KS distance to the fitted normal is small.
     assert stats.kstest(logs, "norm", args=(logs.mean(), logs.std(ddof=1))).statistic < 0.03
+
+
+def test_pick_history_goes_back_two_weeks():
+    assert scenario.first_day("pick_tasks") == -scenario.PICK_HISTORY_DAYS
+    assert scenario.first_day("contacts") == 0
+    first = day_events("pick_tasks", -scenario.PICK_HISTORY_DAYS)
+    assert first and min(e.time for e in first if e.time is not None) >= EPOCH - timedelta(days=14)
+    with pytest.raises(ValueError, match="day must be >= -14"):
+        day_events("pick_tasks", -15)
 
 
 def test_pick_path_difference_starts_on_day_two():
@@ -86,10 +98,11 @@ def test_pick_path_difference_starts_on_day_two():
                 and (after is None or (e.time >= switch) == after)]
         return float(np.mean(vals))
 
-    before = mean("hollin", [0, 1]) / mean("saltmarsh", [0, 1])
-    after = mean("hollin", [2, 3, 4], after=True) / mean("saltmarsh", [2, 3, 4], after=True)
-    assert abs(before - 1) < 0.05
-    assert abs(after - scenario.PICK_PATH_SPEEDUP) < 0.04
+    # Hollin Cross was slower long before the change (the gap the baseline measures).
+    before = mean("hollin", range(-14, 2)) / mean("saltmarsh", range(-14, 2))
+    after = mean("hollin", range(2, 9), after=True) / mean("saltmarsh", range(2, 9), after=True)
+    assert abs(before - scenario.PICK_HOLLIN_SLOWER) < 0.03
+    assert abs(after - scenario.PICK_HOLLIN_SLOWER * scenario.PICK_PATH_SPEEDUP) < 0.04
 
 
 def test_bad_rows_of_every_kind_are_present():
@@ -179,6 +192,12 @@ def test_every_comparison_meets_bad_rows_in_the_backlog(tmp_path):
                                            arrival_column=comparison.arrival_column)
             assert source.check(spec) == [], comparison.name
             batch = source.read_cells(spec, None, LIVE_START)
+            if comparison.before_after:
+                # Its backlog is its baseline, read once at the first look after it ends.
+                window = comparison.window
+                baseline = source.read_cells(replace(spec, start=window["baseline_from"], end=window["baseline_to"]),
+                                             None, window["baseline_to"])
+                batch = replace(baseline, excluded={**baseline.excluded, **batch.excluded})
         finally:
             source.dispose()
         assert batch.new_events > 0, comparison.name
@@ -204,8 +223,9 @@ def test_feed_appends_in_simulated_time_and_late_rows_reach_the_source(tmp_path)
     source = Source(config.sources[comparison.source].url)
     feed = LiveFeed(tmp_path, clock)
     try:
-        spec = SourceSpec.from_design(Design.from_config(comparison), shift=90.0,
-                                       arrival_column=comparison.arrival_column)
+        # The whole history, not only the events from the comparison's start.
+        spec = replace(SourceSpec.from_design(Design.from_config(comparison), shift=90.0,
+                                              arrival_column=comparison.arrival_column), start=None)
         first = source.read_cells(spec, None, LIVE_START)
         assert sum(first.excluded.values()) > 0
         assert {"null_value", "non_numeric", "unknown_group", "out_of_range"} <= set(first.excluded)
@@ -258,10 +278,17 @@ def test_rehearsal_tells_the_story_with_the_default_seed(tmp_path):
     """The real look code on the demo data, in simulated time only (no waiting on real time)."""
     from demo_db.rehearsal import rehearse
 
-    result = rehearse(tmp_path / "demo", hours=40, step_hours=2)
+    result = rehearse(tmp_path / "demo", hours=84, step_hours=2)
+    # Before/after: the baseline gap (Hollin Cross slower) is not the change; the change is found
+    # once four days since the start are in (min_clusters), from Saturday 00:00 (+66 h).
     pick = result.stop("pick-seconds")
-    assert pick is not None and pick[1] == "difference_found" and pick[0] <= 24, pick
-    assert result.looks["pick-seconds"][-1][2].estimate < 0
+    assert pick is not None and pick[1] == "difference_found" and 66 <= pick[0] <= 84, pick
+    last = result.looks["pick-seconds"][-1][2]
+    figures = last.detail["before_after"]
+    assert figures["baseline_gap"]["estimate"] > 4 and figures["baseline_gap"]["ci"][0] > 0
+    assert last.estimate < figures["after_gap"]["estimate"] < 0
+    assert -20 < last.detail["after_stop"]["median_unbiased_estimate"] < -8
+    assert "awaiting_clusters" in result.decisions("pick-seconds")
     assert "difference_found" not in result.decisions("desk-first-contact")
     fill = result.stop("fill-giveaway")
     assert fill is not None and fill[1] == "plan_complete", fill
@@ -307,7 +334,7 @@ def test_gapwatch_demo_runs_end_to_end(tmp_path):
     folder = tmp_path / "demo"
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
-    done = _gapwatch(["demo", "--dir", str(folder), "--no-dashboard", "--duration", "45", "--speed", "3600"],
+    done = _gapwatch(["demo", "--dir", str(folder), "--no-dashboard", "--duration", "80", "--speed", "3600"],
                      cwd=elsewhere)
     assert done.returncode == 0, done.stdout[-3000:] + done.stderr[-3000:]
     assert "pick-seconds" in done.stdout
@@ -323,6 +350,7 @@ def test_gapwatch_demo_runs_end_to_end(tmp_path):
             assert row["looks"] >= 2, (name, row)
         assert status["pick-seconds"]["state"] == "difference_found", status["pick-seconds"]
         assert status["pick-seconds"]["estimate"] < 0  # Hollin Cross got faster
+        assert status["pick-seconds"]["baseline"].startswith("before the change, hollin was")
         assert status["desk-first-contact"]["state"] != "difference_found"
         history = {name: look_history(engine, name) for name in status}
     finally:

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+import argparse
+import math
+from dataclasses import replace
+from datetime import datetime, timedelta, timezone
 
 from ..errors import InvalidArgumentError, SourceUnavailableError, StoreBehindError, StoreUnavailableError
 from . import SUMMARIES
@@ -15,7 +18,20 @@ def register(subparsers) -> None:
         description="Validate the configuration file, connect to each source and confirm the tables and "
                     "columns exist with usable types, and report the history store's migration state.")
     add_config_option(p)
+    p.add_argument("--before-start", type=_days, nargs="?", const=14.0, default=None, metavar="DAYS",
+                   help="for comparisons with a start and no baseline: measure whether the groups "
+                        "already differed in the DAYS days before the start (default 14)")
     p.set_defaults(func=run)
+
+
+def _days(text):
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number of days: {text!r}") from None
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"must be a positive number of days: {text!r}")
+    return value
 
 
 def run(args) -> int:
@@ -51,6 +67,9 @@ def run(args) -> int:
                 failed = True
             else:
                 print(f"comparison {c.name!r}: source {c.source!r} table {c.table!r} ok")
+                if args.before_start is not None and c.start is not None and not c.before_after:
+                    line, differed = gap_before_start(sources[c.source], c, spec, args.before_start)
+                    print(f"comparison {c.name!r}: {line}")
             if not c.notify:
                 print(f"comparison {c.name!r}: warning: no alert channel configured (notify is empty); "
                       f"its alerts are recorded and nobody is told")
@@ -88,3 +107,45 @@ def run(args) -> int:
               f"run `{program()} db upgrade`")
         failed = True
     return 1 if failed else 0
+
+
+def gap_before_start(source, c, spec, days):
+    """Whether a comparison's groups already differed in the ``days`` before its start.
+
+    Reads per-(group, local day) aggregates of that period (nothing from the start on) and
+    compares the groups with a day-clustered (CR1) difference at the comparison's alpha.
+    Returns ``(line, differed)``: a warning naming the remedy, or what was found.
+    """
+    # lazy: start-up time of the command line (the clustered statistics load numpy and scipy).
+    from ..calendar import bucket_key
+    from ..stats.clustered import cluster_robust_difference
+    from ..vocabulary import baseline_gap_words
+
+    start = c.window["start"]
+    shift = 0.0 if c.metric == "proportion" else (source.first_value(spec) or 0.0)
+    spec = replace(spec, shift=float(shift), start=start - timedelta(days=days), end=start)
+    batch = source.read_cells(spec, None, start)
+    cells: dict = {}
+    for cell in batch.cells:
+        key = (cell.group_index, bucket_key(cell.slot, "day", c.zone))
+        n, s1 = cells.get(key, (0, 0.0))
+        cells[key] = (n + cell.n, s1 + cell.sum_dev)
+    keys = sorted(cells)
+    counts = [sum(cells[k][0] for k in keys if k[0] == gi) for gi in (0, 1)]
+    if min(counts) == 0:
+        return (f"no events of both groups in the {days:g} days before the start, so no gap before it "
+                f"can be measured"), False
+    result = cluster_robust_difference([k[0] for k in keys], [k[1] for k in keys], [cells[k][0] for k in keys],
+                                       [cells[k][1] for k in keys], shift, alpha=c.alpha)
+    low, high = result.ci
+    words = baseline_gap_words([str(g) for g in c.groups], result.estimate, low, high,
+                               value_column=c.value_column, metric=c.metric)
+    if result.reject:
+        return (f"warning: {words}, over the {days:g} days before the start (p = {result.p_value:.3g}, "
+                f"{result.clusters} days); a comparison from the start on reports that old gap as the "
+                f"change and can alarm on it alone. Add baseline = \"{days:g}d\" so the comparison "
+                f"estimates the change itself (the difference in differences)"), True
+    if result.degenerate:
+        return f"{words} over the {days:g} days before the start ({result.clusters} day(s): too few to test)", False
+    return (f"{words} over the {days:g} days before the start (p = {result.p_value:.3g}): no gap found "
+            f"before the start"), False

@@ -43,8 +43,9 @@ on a simulated clock ({speed:g} simulated seconds per real second, starting {sta
 few real seconds each comparison takes a look at what has arrived. The dashboard shows,
 per comparison, the difference so far with its confidence interval, how much of the
 planned data has been seen (the information fraction) and the boundary the evidence must
-cross at this look before the monitor speaks. Expect: pick-seconds to find the new pick
-path at Hollin Cross within a simulated day; desk-first-contact to stay quiet (the desks
+cross at this look before the monitor speaks. Expect: pick-seconds to measure the new pick
+path at Hollin Cross against the two weeks before it (Hollin Cross was already slower: the
+baseline gap is not the change) and find it within about three simulated days; desk-first-contact to stay quiet (the desks
 do not differ) and to stop with "no material difference"; fill-giveaway to use up its plan
 without alarm; delivery-lateness to wait for enough days (clusters) before it judges;
 returns-grading to report a data problem until bench 2 opens on Thursday; and the paired

@@ -79,6 +79,8 @@ def table_lines(history, row=None):
     figures = readback().clustering_figures(last, _cluster_text(_fmt))
     if figures:
         lines.append("latest look: " + ", ".join(figures))
+    if last.get("baseline"):
+        lines.append(last["baseline"])
     for warning in last["warnings"]:
         lines.append(f"warning: {warning}")
     return lines

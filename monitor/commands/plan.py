@@ -183,15 +183,25 @@ def register(subparsers) -> None:
         epilog="examples:\n"
                "  %(prog)s --metric mean --difference 2.5 --sd 12 --looks 8\n"
                "  %(prog)s --metric proportion --p1 0.18 --p2 0.15 --alternative greater --futility --json\n"
-               "  %(prog)s --metric ratio --difference 0.001 --residual-sd 4 --mean-denominator 800",
+               "  %(prog)s --metric ratio --difference 0.001 --residual-sd 4 --mean-denominator 800\n"
+               "  %(prog)s --metric mean --difference -6 --sd 50 --baseline-days 28 --day-sd 4 "
+               "--events-per-day 400",
     )
     add_plan_arguments(p)
     add_cluster_arguments(p)
+    add_before_after_arguments(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of text")
     p.set_defaults(func=run)
 
 
 def run(args) -> int:
+    if args.baseline_days is not None:
+        return _run_before_after(args)
+    for name in ("day_sd", "events_per_day", "daily_from"):
+        if getattr(args, name) is not None:
+            raise InvalidArgumentError(f"--{name.replace('_', '-')} plans a before/after comparison: "
+                                       f"give --baseline-days too; got --{name.replace('_', '-')} "
+                                       f"{getattr(args, name)!r}")
     plan = plan_from_args(args)
     clusters = clusters_from_args(args, plan)
     if args.json:
@@ -210,6 +220,101 @@ def run(args) -> int:
     return 0
 
 
+# ----------------------------------------------------------------------------- before and after
+
+
+def add_before_after_arguments(parser) -> None:
+    """Options of a before/after comparison (a start, a baseline before it)."""
+    group = parser.add_argument_group(
+        "before and after", "plan a comparison that starts at a change and subtracts the gap the groups "
+                            "already had in a baseline before it (difference in differences)")
+    group.add_argument("--baseline-days", type=_finite_number, metavar="B",
+                       help="length of the baseline before the start, in days")
+    group.add_argument("--day-sd", type=_finite_number, metavar="S",
+                       help="each group's own day-to-day spread of its daily mean, in the value's unit "
+                            "(default 0)")
+    group.add_argument("--events-per-day", type=_finite_number, metavar="M",
+                       help="events per group per day, before and after the start")
+    group.add_argument("--daily-from", type=_whole_number, metavar="K",
+                       help="plan one look a day from day K after the start (instead of --looks equally "
+                            "spaced looks)")
+
+
+def _before_after_plan(args):
+    # lazy: start-up time of the command line (planning loads scipy.stats and scipy.optimize).
+    from ..stats.before_after import plan_before_after
+
+    if args.metric == "ratio":
+        raise InvalidArgumentError("--baseline-days plans a before/after comparison of a mean or a rate, "
+                                   "not --metric ratio")
+    if args.events_per_day is None:
+        raise InvalidArgumentError("--events-per-day is required with --baseline-days")
+    if args.futility:
+        raise InvalidArgumentError("--futility is not planned for before/after comparisons; drop it")
+    common = dict(day_sd=0.0 if args.day_sd is None else args.day_sd, events_per_day=args.events_per_day,
+                  baseline_days=args.baseline_days, alpha=args.alpha, power=args.power,
+                  alternative=args.alternative, spending=args.spending, looks=args.looks,
+                  first_look_day=args.daily_from)
+    if args.metric == "mean":
+        for name in ("p1", "p2"):
+            if getattr(args, name) is not None:
+                raise InvalidArgumentError(f"--{name} is for --metric proportion; got {getattr(args, name)!r}")
+        for name in ("difference", "sd"):
+            if getattr(args, name) is None:
+                raise InvalidArgumentError(f"--{name} is required with --metric mean")
+        return plan_before_after(args.difference, args.sd, **common)
+    for name in ("difference", "sd"):
+        if getattr(args, name) is not None:
+            raise InvalidArgumentError(f"--{name} is for --metric mean; got {getattr(args, name)!r}")
+    for name in ("p1", "p2"):
+        if getattr(args, name) is None:
+            raise InvalidArgumentError(f"--{name} is required with --metric proportion")
+    # The change is p1 − p2 (group 1's rate with the change against without it); the
+    # event spread is taken at the rate nearer one half, the larger variance.
+    rate = min((args.p1, args.p2), key=lambda p: abs(p - 0.5))
+    return plan_before_after(args.p1 - args.p2, rate=rate, **common)
+
+
+def before_after_text(plan) -> str:
+    """What a before/after plan says, in words and a table of its looks."""
+    if plan.metric == "mean":
+        what = f"a change of {plan.difference:g} (event standard deviation {plan.sd:g})"
+    else:
+        what = f"a change in rate of {plan.difference:+g} (event spread at rate {plan.rate:g})"
+    looks = (f"one look a day from day {plan.first_look_day}" if plan.looks is None
+             else f"{plan.looks} equally spaced look(s)")
+    lines = [
+        f"Design: before/after, {what}; baseline {plan.baseline_days:g} days, {plan.events_per_day:g} "
+        f"events per group per day, day-to-day spread {plan.day_sd:g}; false-alarm rate {plan.alpha:g}, "
+        f"power {plan.power:g}, {looks}, {plan.spending} spending.",
+        "",
+        f"The change is estimated as (group 1 − group 2 after the start) − (group 1 − group 2 in the "
+        f"baseline); one day's gap between the groups varies with standard deviation "
+        f"{math.sqrt(plan.day_variance):.4g}.",
+        f"A single analysis at the end would need {plan.fixed_after_days:.1f} days after the start.",
+        f"With repeated looks and a t reference ({plan.planned_df:.1f} degrees of freedom) it needs "
+        f"{100 * (plan.inflation - 1):.1f}% more information: plan for {plan.after_days_exact:.1f} days "
+        f"after the start (looks until day {plan.after_days}), about {plan.planned_per_group} events "
+        f"per group.",
+        f"If nothing changed, expect to decide after about {plan.expected_days_null:.1f} days; if the "
+        f"change is as planned, after about {plan.expected_days_alternative:.1f}.",
+        f"The baseline must be longer than {plan.minimum_baseline_days:.1f} days for this change to be "
+        f"detectable at all (the old gap is only known as well as the baseline measures it).",
+        "",
+        f"{'look':>4}  {'fraction':>8}  {'efficacy bound':>15}",
+    ]
+    for k, (t, z) in enumerate(zip(plan.fractions, plan.efficacy_z), start=1):
+        lines.append(f"{k:>4}  {t:>8.3f}  {_z_text(z):>15}")
+    return "\n".join(lines)
+
+
+def _run_before_after(args) -> int:
+    plan = _before_after_plan(args)
+    if args.json:
+        print(json.dumps(json_safe(plan.to_dict()), indent=2))
+    else:
+        print(before_after_text(plan))
+    return 0
 # ------------------------------------------------------------------ clustered comparisons
 
 

@@ -112,6 +112,8 @@ def table_lines(rows, now):
         names = r.get("labels") or r.get("groups") or []
         if len(names) == 2 and r.get("design_words"):
             lines.append(f"    {names[0]} minus {names[1]}: {r['design_words']}")
+        if r.get("baseline"):
+            lines.append(f"    {r['baseline']}")
         if r.get("outlook_words"):
             lines.append(f"    {r['outlook_words']}")
         lines.extend(f"    warning: {as_typed(warning)}" for warning in r["warnings"])

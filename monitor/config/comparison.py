@@ -18,7 +18,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator
 from zoneinfo import ZoneInfo
 
 from ..stats.spending import parse_spending
-from ..vocabulary import parse_duration
+from ..vocabulary import parse_duration, parse_moment
 from .model import (ALTERNATIVES, CLUSTER_BUCKETS, DEFAULT_MIN_CLUSTERS, DEFAULT_MIN_PAIRS, MIN_CLUSTERS_FLOOR,
                     MIN_PAIRS_FLOOR, FILTER_OPS, METHODS, METRICS,
                     PAIR_BUCKETS, TIME_FORMATS, ComparisonConfig)
@@ -245,6 +245,9 @@ class Inference(Part):
         if value == "information" and (c.metric != "mean" or c.raw("difference") is None or c.raw("sd") is None):
             raise keyed("'information' needs a mean comparison planned from difference + sd (the maximum "
                          "information comes from the planned difference and the design)")
+        if value == "information" and _has_baseline(c):
+            raise keyed("'information' is not used with a baseline: a before/after comparison's fraction "
+                         "comes from its days after the start and in the baseline")
         return value
 
     @field_validator("sigmas", mode="before")
@@ -471,9 +474,126 @@ class Clustering(Part):
             return DEFAULT_MIN_CLUSTERS
         if not is_whole(value) or value < MIN_CLUSTERS_FLOOR:
             raise keyed(f"must be an integer of at least {MIN_CLUSTERS_FLOOR}; got {value!r}")
-        if not c.clustered:
-            raise keyed("is only used with cluster_by or cluster_column")
+        if not c.clustered and not _has_baseline(c):
+            raise keyed("is only used with cluster_by or cluster_column (or a baseline)")
         return value
+
+
+def _has_baseline(c: Context) -> bool:
+    return any(c.raw(k) is not None for k in ("baseline", "baseline_from", "baseline_to"))
+
+
+def _moment(value, key, c: Context):
+    """``value`` as aware UTC (ISO-8601 with a zone, or naive in the comparison's timezone)."""
+    zone = zone_or_none(c.raw("timezone", "UTC")) or ZoneInfo("UTC")
+    try:
+        return parse_moment(value, key, zone)
+    except ValueError as exc:
+        raise keyed(str(exc).removeprefix(f"{key} ")) from None
+
+
+class BeforeAfter(Part):
+    """A start (only events at or after it count) and a baseline before it (the DiD)."""
+
+    start: str | None = checked(None)
+    baseline: str | None = checked(None)
+    baseline_from: str | None = checked(None)
+    baseline_to: str | None = checked(None)
+    day_sd: float | None = checked(None)
+    events_per_day: float | None = checked(None)
+
+    @field_validator("start", mode="before")
+    @classmethod
+    def _start(cls, value, info):
+        if value is None:
+            return None
+        _moment(value, "start", ctx(info))
+        return value if isinstance(value, str) else value.isoformat()
+
+    @field_validator("baseline", mode="before")
+    @classmethod
+    def _baseline(cls, value, info):
+        c = ctx(info)
+        if value is None:
+            return None
+        if c.raw("start") is None:
+            raise keyed("needs a start (the moment the change went live); the baseline is the period before it")
+        if c.raw("baseline_from") is not None or c.raw("baseline_to") is not None:
+            raise keyed("give baseline (a length before the start) or baseline_from + baseline_to, not both")
+        try:
+            if not isinstance(value, str) or parse_duration(value) <= 0:
+                raise ValueError
+        except ValueError:
+            raise keyed(f"must be a positive length like \"28d\"; got {value!r}") from None
+        cls._fits(c)
+        return value
+
+    @field_validator("baseline_from", "baseline_to", mode="before")
+    @classmethod
+    def _baseline_end(cls, value, info):
+        c, key = ctx(info), info.field_name
+        other = "baseline_to" if key == "baseline_from" else "baseline_from"
+        if value is None:
+            if c.raw(other) is not None and c.raw("baseline") is None:
+                raise keyed("is required with the other end of the baseline")
+            return None
+        if c.raw("start") is None:
+            raise keyed("needs a start (the moment the change went live); the baseline is the period before it")
+        moment = _moment(value, key, c)
+        if key == "baseline_to":
+            start = c.raw("start")
+            try:
+                start_moment = _moment(start, "start", c)
+            except Exception:  # noqa: BLE001 - the start's own problem is reported under its key
+                start_moment = None
+            if start_moment is not None and moment > start_moment:
+                raise keyed(f"must not be after the start {start!r}; got {value!r}")
+            begin = c.raw("baseline_from")
+            try:
+                begin_moment = None if begin is None else _moment(begin, "baseline_from", c)
+            except Exception:  # noqa: BLE001 - reported under baseline_from
+                begin_moment = None
+            if begin_moment is not None and not begin_moment < moment:
+                raise keyed(f"must be after baseline_from; got {begin!r} to {value!r}")
+            cls._fits(c)
+        return value if isinstance(value, str) else value.isoformat()
+
+    @staticmethod
+    def _fits(c: Context):
+        if c.metric == "ratio":
+            raise keyed("metric 'ratio' cannot be a before/after comparison yet: the difference in "
+                        "differences is of means (welch, pooled) or rates (proportions)")
+        if c.method not in ("welch", "pooled", "proportions"):
+            raise keyed(f"method {c.method!r} cannot be a before/after comparison: it compares means "
+                        f"(welch, pooled) or rates (proportions) day by day")
+        if c.raw("cluster_column") is not None:
+            raise keyed("a before/after comparison is clustered by calendar day; drop cluster_column")
+        if c.raw("cluster_by") not in (None, "day"):
+            raise keyed(f"a before/after comparison is clustered by calendar day; got cluster_by "
+                        f"{c.raw('cluster_by')!r}")
+        if c.raw("futility") is True:
+            raise keyed("futility is not available for before/after comparisons")
+
+    @field_validator("day_sd", "events_per_day", mode="before")
+    @classmethod
+    def _planning(cls, value, info):
+        c, key = ctx(info), info.field_name
+        planning = c.raw("planned_per_group") is None
+        if not _has_baseline(c):
+            if value is not None:
+                raise keyed("plans a before/after comparison: give start and baseline too")
+            return None
+        if value is None:
+            if key == "events_per_day" and planning:
+                raise keyed("is required to plan a before/after comparison (events per group per day)")
+            return None
+        if not planning:
+            raise keyed("is a planning input; give it with difference + sd (p1 + p2) and power, "
+                        "not with planned_per_group")
+        if not is_number(value) or value < 0 or (key == "events_per_day" and value == 0):
+            raise keyed(f"must be a {'positive number' if key == 'events_per_day' else 'number of at least 0'}; "
+                        f"got {value!r}")
+        return float(value)
 
 
 class Settings(Part):
@@ -598,10 +718,11 @@ class ComparisonTable(BaseModel):
     clustering: Clustering
     settings: Settings
     display: Display
+    before_after: BeforeAfter
 
     PARTS: ClassVar[dict] = {"reading": Reading, "inference": Inference, "planning": Planning,
                              "pairing": Pairing, "clustering": Clustering, "settings": Settings,
-                             "display": Display}
+                             "display": Display, "before_after": BeforeAfter}
 
     @classmethod
     def keys(cls) -> set[str]:
@@ -619,8 +740,8 @@ class ComparisonTable(BaseModel):
                 for name, part in cls.PARTS.items()}
 
     def build(self, name: str) -> ComparisonConfig:
-        r, t, p, pr, cl, s = (self.reading, self.inference, self.planning, self.pairing, self.clustering,
-                              self.settings)
+        r, t, p, pr, cl, s, ba = (self.reading, self.inference, self.planning, self.pairing, self.clustering,
+                                  self.settings, self.before_after)
         return ComparisonConfig(**plain(dict(
             name=name, source=r.source, table=r.table, group_column=r.group_column, groups=r.groups,
             value_column=r.value_column if t.metric != "ratio" else r.numerator_column,
@@ -633,7 +754,9 @@ class ComparisonTable(BaseModel):
             lateness=s.lateness,
             arrival_column=r.arrival_column, time_format=r.time_format, timezone=r.timezone,
             cluster_by=cl.cluster_by, cluster_column=cl.cluster_column, min_clusters=cl.min_clusters,
-            notify=s.notify, description=s.description, schema=r.schema_,
+            notify=s.notify, description=s.description, schema=r.schema_, start=ba.start, baseline=ba.baseline,
+            baseline_from=ba.baseline_from, baseline_to=ba.baseline_to, day_sd=ba.day_sd,
+            events_per_day=ba.events_per_day,
             numerator_column=r.numerator_column, denominator_column=r.denominator_column,
             expected_share=s.expected_share,
             labels=self.display.labels, unit=self.display.unit,

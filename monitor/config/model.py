@@ -7,12 +7,15 @@ is derived from its :class:`ComparisonConfig` by :meth:`monitor.design.Design.fr
 
 from __future__ import annotations
 
+import functools
+
 from dataclasses import dataclass, field
+from datetime import timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
 from ..errors import UnknownComparisonError
-from ..vocabulary import parse_duration
+from ..vocabulary import parse_duration, parse_moment
 
 __all__ = [
     "Config",
@@ -142,6 +145,12 @@ class ComparisonConfig:
     notify: tuple = ()
     description: str = ""
     schema: str | None = None
+    start: str | None = None
+    baseline: str | None = None
+    baseline_from: str | None = None
+    baseline_to: str | None = None
+    day_sd: float | None = None
+    events_per_day: float | None = None
     # metric "ratio": value_column holds the numerator column; the denominator is read beside it.
     numerator_column: str | None = None
     denominator_column: str | None = None
@@ -169,6 +178,31 @@ class ComparisonConfig:
     @property
     def clustered(self) -> bool:
         return bool(self.cluster_by or self.cluster_column)
+
+    @property
+    def before_after(self) -> bool:
+        """A start and a baseline before it: the comparison estimates the difference in differences."""
+        return self.start is not None and (self.baseline is not None or self.baseline_from is not None)
+
+    @functools.cached_property
+    def window(self) -> dict | None:
+        """The start and the baseline as aware UTC datetimes (None without a start).
+
+        ``{"start", "baseline_from", "baseline_to", "baseline_days"}``; the baseline entries
+        are None for a comparison with a start and no baseline.
+        """
+        if self.start is None:
+            return None
+        start = parse_moment(self.start, "start", self.zone)
+        begin = end = None
+        if self.baseline is not None:
+            end = start
+            begin = start - timedelta(seconds=parse_duration(self.baseline))
+        elif self.baseline_from is not None:
+            begin = parse_moment(self.baseline_from, "baseline_from", self.zone)
+            end = parse_moment(self.baseline_to, "baseline_to", self.zone)
+        days = None if begin is None else (end - begin).total_seconds() / 86400.0
+        return {"start": start, "baseline_from": begin, "baseline_to": end, "baseline_days": days}
 
     @property
     def key_column(self) -> str | None:

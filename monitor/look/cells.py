@@ -15,7 +15,12 @@ from ..calendar import bucket_key
 from ..stats.summaries import MomentSummary
 from ..vocabulary import NULL_KEY
 
-__all__ = ["RolledUp", "Counts", "roll_up", "merge", "summary", "of_kind", "counts"]
+__all__ = ["RolledUp", "Counts", "roll_up", "roll_up_baseline", "merge", "summary", "of_kind", "counts",
+           "BASELINE_READ"]
+
+# Written once, with the baseline's cells, at the look that reads the baseline: tells later
+# looks the baseline is frozen (even when it held no events).
+BASELINE_READ = ("baseline_read", 0, "")
 
 
 @dataclass(frozen=True)
@@ -80,6 +85,29 @@ def roll_up(design, batch) -> RolledUp:
         if paired:
             add("pair", cell.group_index, column_key if pair_column else bucket(cell.slot, pair_by), cell)
     return RolledUp(changes, null_key, null_key_late)
+
+
+def roll_up_baseline(design, batch) -> dict:
+    """The baseline's slot cells → ``baseline`` cells per local day and ``baseline_total``.
+
+    Read once, at the first look after the baseline ends, and stored with that look; the
+    marker cell says it was read. Events whose key column is NULL are left out as for
+    the comparison's own cells.
+    """
+    zone = design.measure.zone
+    changes: dict = {BASELINE_READ: [1, 0.0, 0.0]}
+    memo: dict = {}
+    for cell in batch.cells:
+        if design.key_column is not None and cell.key is None:
+            continue
+        if cell.slot not in memo:
+            memo[cell.slot] = bucket_key(cell.slot, "day", zone)
+        for kind, key in (("baseline", memo[cell.slot]), ("baseline_total", "")):
+            entry = changes.setdefault((kind, cell.group_index, key), [0, 0.0, 0.0])
+            entry[0] += cell.n
+            entry[1] += cell.sum_dev
+            entry[2] += cell.sum_dev2
+    return changes
 
 
 def merge(stored: dict, changes: dict) -> dict:

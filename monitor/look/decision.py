@@ -41,6 +41,7 @@ from ..errors import InvalidArgumentError
 from ..stats.adaptive import AdaptiveBoundary, AdaptiveLook
 from ..stats.boundaries import (MIN_INCREMENT, FutilitySpec, LookBoundary, SequentialBoundary,
                                 futility_decision, nominal_decision)
+from ..stats.before_after import information_fraction as before_after_information
 from ..stats.inference import adjusted_inference, repeated_confidence_interval
 from ..stats.proportions import score_interval, score_statistic
 from ..stats.sequential_t import SequentialTBoundary
@@ -117,7 +118,11 @@ def weigh(inputs: LookInputs) -> Evidence:
     plan = inputs.plan
     planned = plan.planned_now
     events = (st.pairs or 0) if design.paired else min(s1.n, s2.n)
-    fraction = original_fraction(plan, events=events, standard_error=st.standard_error)
+    if design.before_after:
+        # Never replanned (replan refuses a before/after comparison), so the plan is the design's.
+        fraction = before_after_fraction(design, cells, events)
+    else:
+        fraction = original_fraction(plan, events=events, standard_error=st.standard_error)
     # Fractions of the current segment move by (step / segment length): ask for a step that
     # is still at least MIN_INCREMENT there.
     step = MIN_INCREMENT * max(1.0, plan.end)
@@ -137,7 +142,8 @@ def weigh(inputs: LookInputs) -> Evidence:
         warnings.append("no new information since the last testing look; nothing spent at this look")
 
     de = day_design_effect(design, cells, s1, s2)
-    if de is not None and de.measurable and not design.clustered and de.design_effect > DESIGN_EFFECT_WARNING:
+    if (de is not None and de.measurable and not design.clustered and not design.before_after
+            and de.design_effect > DESIGN_EFFECT_WARNING):
         warnings.append(design_effect_warning(de.design_effect))
     return Evidence(inputs, s1, s2, st, planned, fraction, state, tests, futility_spec(design), de,
                     tuple(warnings), _projection(inputs, s1, s2, st, fraction))
@@ -158,11 +164,13 @@ def _projection(inputs: LookInputs, s1, s2, st: Stat, fraction):
 
 
 def t_based(design: Design) -> bool:
-    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one, a ratio).
+    """Whether a design's statistic is a t (paired, pooled, Welch, any clustered one, a ratio, a
+    before/after DiD on its Bell–McCaffrey df).
 
     A ratio of sums is always tested with Welch's degrees of freedom (cluster-based when clustered).
     """
-    return design.ratio is not None or design.method not in _Z_METHODS or design.clustered
+    return (design.ratio is not None or design.method not in _Z_METHODS or design.clustered
+            or design.before_after)
 
 
 def new_boundary(design: Design, futility=None):
@@ -288,6 +296,24 @@ def _decide_replanned(evidence: Evidence, boundary: AdaptiveBoundary) -> Decisio
     else:
         outlook = conditional_powers(evidence.inputs.plan, boundary, z_of(st.statistic, st.df), fraction)
     return Decision(decision, look, len(boundary.looks), interval, after, outlook)
+
+
+def before_after_fraction(design, cells, after_events) -> float:
+    """Information fraction of a before/after comparison (counts only, never a variance).
+
+    ``(1/A_max + 1/B) / (1/A + 1/B)`` with ``A`` = events since the start (the smaller
+    group) over events per day, ``A_max`` the planned events over events per day and
+    ``B`` the baseline's days. Events per day are the plan's, else the baseline's own
+    (its smaller group's events over its days).
+    """
+    window = design.window
+    planned = design.planned_per_group
+    days = float(window.baseline_days)
+    per_day = window.events_per_day
+    if not per_day:
+        totals = [cells.get(("baseline_total", gi, ""), (0, 0.0, 0.0))[0] for gi in (0, 1)]
+        per_day = min(totals) / days if min(totals) > 0 else planned
+    return float(before_after_information(after_events / per_day, planned / per_day, days))
 
 
 def after_stop(boundary, st: Stat, design: Design) -> dict:

@@ -36,7 +36,7 @@ from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, ar
                            read_state, write_look)
 from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
-from .cells import counts, merge, roll_up
+from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
 from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
 from .design_check import frozen_design
 from .memory import LookMemory
@@ -163,13 +163,15 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
         restart = None   # not a restart: the new version reads the table from its start
     else:
         restart = state.restart
-    batch, cutoff, design = _read_source(config, c, design, row, as_of, source, restart)
+    batch, cutoff, design, baseline = _read_source(config, c, design, row, as_of, source, restart, state.cells)
     stopwatch.lap("source")
 
     rolled = roll_up(design, batch)
+    if baseline:
+        rolled.changes.update(baseline)
     cells = merge(state.cells, rolled.changes)
     look_counts = counts(batch, rolled, state.last_excluded)
-    if row is not None and not (look_counts.new_events or look_counts.late_events
+    if row is not None and not (look_counts.new_events or look_counts.late_events or baseline
                                 or any(look_counts.excluded_new.values())):
         return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
@@ -263,11 +265,15 @@ def _groups_without_rows(state, design=None, cells=None) -> list[str]:
     return [g for i, g in enumerate(groups) if cells.get(("total", i, ""), (0, 0.0, 0.0))[0] == 0]
 
 
-def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, restart=None):
-    """The batch of new slot cells up to the cutoff, and the design with its shift fixed at the first data.
+def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source, restart=None, stored_cells=()):
+    """The batch of new slot cells up to the cutoff, the design with its shift fixed at the first data,
+    and a before/after comparison's baseline cells when this look reads them (else None).
 
     The first look of a restarted comparison's new version starts after the archived
-    version's watermark, unless the restart was made ``--from-start``.
+    version's watermark, unless the restart was made ``--from-start``. A before/after
+    comparison also reads its baseline, once: at the first look whose cutoff has passed
+    the baseline's end (its cells are returned as changes, frozen from then on; rows dated
+    in it that arrive later are counted as ``before_start``).
     """
     own_source = source is None
     if own_source:
@@ -304,10 +310,53 @@ def _read_source(config, c: ComparisonConfig, design: Design, row, as_of, source
             design = design.with_shift(0.0)
         if design.ratio is not None and design.shift_den is None and batch.cells:
             design = design.with_shift_den(0.0)
+        baseline = None
+        if design.before_after and BASELINE_READ not in stored_cells:
+            # Until the baseline is frozen, rows dated before the start are the baseline's to
+            # read (a first look before the start has passed sets an arrival watermark from
+            # NULL times alone): only rows arriving after the look that froze it are before_start.
+            batch = _without_before_start(batch)
+            window = design.window.moments()
+            if cutoff >= window["baseline_to"]:
+                baseline_spec = replace(SourceSpec.from_design(design, arrival_column=c.arrival_column),
+                                        start=window["baseline_from"], end=window["baseline_to"])
+                baseline_batch = source.read_cells(baseline_spec, None, window["baseline_to"])
+                baseline = roll_up_baseline(design, baseline_batch)
+                batch = _with_baseline_arrivals(batch, baseline_batch)
     finally:
         if own_source:
             source.dispose()
-    return batch, cutoff, design
+    return batch, cutoff, design, baseline
+
+
+def _without_before_start(batch):
+    if "before_start" not in batch.excluded:
+        return batch
+    return replace(batch, excluded={k: v for k, v in batch.excluded.items() if k != "before_start"})
+
+
+def _with_baseline_arrivals(batch, baseline_batch):
+    """The batch with its arrival watermark raised past the baseline's rows, and their bad rows counted.
+
+    Baseline rows read now must never come back as late rows dated before the start.
+    """
+    arrival = batch.watermark.arrival
+    seen = baseline_batch.watermark.arrival
+    if seen is not None and (arrival is None or _later(seen, arrival)):
+        batch = replace(batch, watermark=Watermark(batch.watermark.cutoff, seen))
+    if baseline_batch.excluded:
+        excluded = dict(batch.excluded)
+        for reason, count in baseline_batch.excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
+        batch = replace(batch, excluded=excluded)
+    return batch
+
+
+def _later(a, b) -> bool:
+    try:
+        return a > b
+    except TypeError:
+        return str(a) > str(b)
 
 
 def _boundary_key(key, state) -> str:

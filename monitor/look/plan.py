@@ -259,6 +259,11 @@ def work_out_replan(design: dict, testing_looks, replan_rows, futility, *, plann
     current values. Raises ``ReplanRefusedError`` (see ``AdaptiveBoundary.replan``) or
     ``InvalidArgumentError`` for inputs that make no plan.
     """
+    if design.get("before_after"):
+        raise ReplanRefusedError(
+            "a before/after comparison cannot be replanned: its information fraction comes from the "
+            "baseline's days as well as the events since the start, so a plan changed in events would not "
+            "keep its error rate; restart it with the new plan instead")
     state = plan_state(design, replan_rows)
     boundary = resume_boundary(design, state, futility, testing_looks)
     paired = bool(design.get("pairing"))

@@ -46,6 +46,8 @@ def look_detail(evidence: Evidence, decision: Decision, counts: Counts) -> dict:
         detail["shift_den"] = evidence.inputs.design.shift_den or 0.0
     if st.cluster_design_effect is not None:
         detail["cluster_design_effect"] = st.cluster_design_effect
+    if st.before_after is not None:
+        detail["before_after"] = st.before_after
     if st.cluster_counts is not None:
         detail["cluster_counts"] = st.cluster_counts
     de = evidence.design_effect

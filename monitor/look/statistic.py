@@ -20,11 +20,12 @@ from ..design import Design
 from ..errors import InvalidArgumentError
 from ..stats import fixed
 from ..stats.boundaries import FutilitySpec
+from ..stats.before_after import difference_in_differences
 from ..stats.clustered import cluster_counts, cluster_robust_difference, design_effect
 from ..stats.ratio import RatioCells, ratio_difference
 from ..stats.summaries import MomentSummary
 from ..vocabulary import json_safe
-from .cells import of_kind
+from .cells import BASELINE_READ, of_kind
 
 
 def cluster_variance(design: Design) -> str:
@@ -66,6 +67,7 @@ class Stat:
     awaiting_clusters: bool = False
     cluster_counts: dict | None = None   # clusters per group and the minimum that applies
     counts: tuple | None = None          # (successes1, n1, successes2, n2) for rates
+    before_after: dict | None = None     # baseline gap, after-only gap, relative effect (before/after)
 
     @property
     def testable(self) -> bool:
@@ -90,6 +92,8 @@ def t_critical(nominal_p, df):
 def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
     """The fixed-sample statistic of the merged cells, or why there is none yet."""
     common = dict(null_difference=design.null_difference, alternative=design.alternative, alpha=design.alpha)
+    if design.before_after:
+        return _before_after(design, cells, s1, s2, common)
     st = Stat()
     if s1.n == 0 and s2.n == 0:
         if excluded_total:
@@ -170,6 +174,66 @@ def statistic(design: Design, cells, s1, s2, cutoff, excluded_total) -> Stat:
     if (result.degenerate or result.standard_error is None or not math.isfinite(result.standard_error)
             or result.standard_error == 0 or math.isnan(result.statistic)):
         st.problem = "zero variance: every value is the same, no test is possible"
+        return st
+    st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
+    return st
+
+
+def _gap_figures(result) -> dict:
+    return {"estimate": finite_or_none(result.estimate), "standard_error": finite_or_none(result.standard_error),
+            "df": finite_or_none(result.df), "ci": [finite_or_none(x) for x in result.ci],
+            "clusters": int(result.clusters), "n": [int(result.n1), int(result.n2)]}
+
+
+def _before_after(design, cells, s1, s2, common) -> Stat:
+    """The difference in differences against the frozen baseline (CR2 over calendar days).
+
+    The baseline gap is recorded at every look once the baseline is read, whether or not
+    the comparison can test yet; decisions wait for ``min_clusters`` days since the start.
+    """
+    st = Stat()
+    window = design.window
+    groups = design.groups
+    if BASELINE_READ not in cells:
+        st.waiting = (f"the baseline ends at {window.baseline_to}; it is read at the first look after "
+                      f"that, and the comparison counts events from the start on")
+        return st
+    shift = design.shift or 0.0
+    base = sorted((gi, key, v) for gi, key, v in of_kind(cells, "baseline") if v[0] > 0)
+    for gi in (0, 1):
+        if not any(r[0] == gi for r in base):
+            st.problem = (f"group {groups[gi]!r} has no valid events in the baseline "
+                          f"({window.baseline_from} to {window.baseline_to})")
+            return st
+    gap = cluster_robust_difference([r[0] for r in base], [r[1] for r in base], [r[2][0] for r in base],
+                                    [r[2][1] for r in base], shift, alpha=common["alpha"])
+    st.before_after = {"baseline_gap": _gap_figures(gap)}
+    if s1.n == 0 or s2.n == 0:
+        waiting = [groups[gi] for gi, s in ((0, s1), (1, s2)) if s.n == 0]
+        st.waiting = f"no events since the start yet for {' and '.join(map(str, waiting))}"
+        return st
+    after = sorted((gi, key, v) for gi, key, v in of_kind(cells, "day") if v[0] > 0)
+    rows = [(gi, 0, key, v) for gi, key, v in base] + [(gi, 1, key, v) for gi, key, v in after]
+    result = difference_in_differences(
+        [r[0] for r in rows], [r[1] for r in rows], [r[2] for r in rows], [r[3][0] for r in rows],
+        [r[3][1] for r in rows], shift, sum_dev2=[r[3][2] for r in rows], variance="cr2", relative=True,
+        **common)
+    st.before_after.update({
+        "after_gap": _gap_figures(result.after_gap), "relative": json_safe(result.relative),
+        "means": json_safe(result.means), "clusters_baseline": result.clusters_baseline,
+        "clusters_after": result.clusters_after, "cr1_standard_error": finite_or_none(result.cr1_standard_error),
+    })
+    st.clusters = int(result.clusters)
+    st.estimate, st.standard_error = float(result.estimate), finite_or_none(result.standard_error)
+    st.statistic, st.df, st.p_value = float(result.statistic), finite_or_none(result.df), float(result.p_value)
+    st.fixed = json_safe(result.to_dict())
+    if result.clusters_after < design.min_clusters:
+        st.waiting = (f"{result.clusters_after} day(s) since the start so far; decisions start at "
+                      f"{design.min_clusters} (min_clusters)")
+        st.awaiting_clusters = True
+        return st
+    if result.degenerate or st.standard_error is None or st.standard_error == 0 or st.df is None:
+        st.problem = "the day-to-day spread is zero or undefined: " + "; ".join(result.notes)
         return st
     st.p_upper, st.p_lower = one_sided_ps(result.statistic, result.df)
     return st

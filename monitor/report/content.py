@@ -91,6 +91,10 @@ class Review:
     warnings: tuple
     generated_at: str
     caution: str = CAUTION
+    # A before/after comparison: the baseline gap in words and the latest look's figures
+    # (``baseline_gap``, ``after_gap``, ``relative``, ``means`` …); None for other comparisons.
+    baseline: str | None = None
+    before_after: dict | None = None
     extra: dict = field(default_factory=dict)
 
 
@@ -128,4 +132,5 @@ def build_review(engine, name, version=None, *, now: datetime) -> Review:
         looks=tuple(lines), excluded=excluded, adjusted=row["adjusted"], alerts=alerts,
         versions=versions, warnings=tuple(row["warnings"]), generated_at=now.isoformat(timespec="seconds"),
         extra={"mean2": row.get("mean2"), "evidence": row.get("evidence")},
+        baseline=row.get("baseline"), before_after=row.get("before_after") if design.before_after else None,
     )

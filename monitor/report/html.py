@@ -90,9 +90,14 @@ def _question(r: Review) -> str:
     what = "rate" if r.design.metric == "proportion" else "mean"
     alt = r.design.alternative
     delta = float(r.design.null_difference or 0.0)
-    unit = f" {r.unit}" if r.unit else ""
     base = _amount(r, delta) if delta else "zero"
-    del unit
+    if r.design.before_after:
+        start = _when(r.design.window.start)
+        change = {"two-sided": f"change the gap in {what} between {a} and {b} (by other than {base})",
+                  "greater": f"raise the {what} of {a} against {b} by more than {base}",
+                  "less": f"lower the {what} of {a} against {b} by more than {base}"}[alt]
+        return (f"Did the change that went live at {start} {_e(change)}, allowing for the gap there "
+                f"was before it?")
     if alt == "two-sided":
         claim = f"Does the {what} of {a} differ from that of {b} (difference other than {base})?"
     elif alt == "greater":
@@ -114,6 +119,21 @@ def _filter_text(f) -> str:
     return f"{column} {op} {list(value) if isinstance(value, tuple) else value}"
 
 
+def _window_rows(r: Review) -> list:
+    window = r.design.window
+    if window is None:
+        return []
+    rows = [("start", window.start.replace("T", " ")[:16] + " UTC")]
+    if window.before_after:
+        rows.append(("baseline", f"{window.baseline_from.replace('T', ' ')[:16]} to "
+                                 f"{window.baseline_to.replace('T', ' ')[:16]} UTC "
+                                 f"({_n(window.baseline_days)} days, frozen when first read)"))
+        rows.append(("estimate", "difference in differences: (group 1 − group 2 since the start) − "
+                                 "(group 1 − group 2 in the baseline), CR2 standard error over calendar "
+                                 "days, t on Bell–McCaffrey degrees of freedom"))
+    return rows
+
+
 def _design_rows(r: Review) -> str:
     d, m = r.design, r.design.measure
     rows = [
@@ -130,6 +150,7 @@ def _design_rows(r: Review) -> str:
         ("clustering", _settings_text(d.clustering)),
         ("pairing", _settings_text(d.pairing)),
         ("time zone", m.timezone),
+        *_window_rows(r),
     ]
     if m.filters:
         rows.append(("filters", "; ".join(_filter_text(f) for f in m.filters)))
@@ -167,12 +188,50 @@ def _result(r: Review) -> str:
     if evidence and evidence.get("count") is not None:
         parts.append(f"<p>The evidence rests on {_e(evidence['count'])} {_e(evidence['noun'])} "
                      f"({_e(last.n1)} and {_e(last.n2)} events).</p>")
+    parts.append(_before_after(r))
     parts.append(
         f"<p>{_e(len(r.looks))} looks; information {_e(_pct(last.fraction))} of the plan; "
         f"alpha spent {_e(_n(last.cumulative_alpha))} of {_e(_n(r.design.alpha))}.</p>")
     for w in r.warnings:
         parts.append(f"<p class='warn'>Warning: {_e(w)}</p>")
     return "".join(parts)
+
+
+def _gap_row(label, gap, r: Review) -> str:
+    gap = gap or {}
+    low, high = (list(gap.get("ci") or []) + [None, None])[:2]
+    n = list(gap.get("n") or []) + [None, None]
+    width = None if low is None or high is None else high - low
+    return (f"<tr><td class='text'>{_e(label)}</td><td>{_e(_amount(r, gap.get('estimate'), width))}</td>"
+            f"<td class='text'>{_e(_interval(low, high, r) if gap else '—')}</td>"
+            f"<td>{_e(_n(gap.get('clusters')))}</td><td>{_e(_n(n[0]))} / {_e(_n(n[1]))}</td></tr>")
+
+
+def _before_after(r: Review) -> str:
+    """The baseline sentence and the baseline figures of a before/after comparison ("" otherwise)."""
+    if not r.design.before_after:
+        return ""
+    if not r.baseline or not r.before_after:
+        return ("<p>The baseline has not been read yet: it is read once, at the first look after it "
+                "ends, and frozen.</p>")
+    figures = r.before_after
+    sentence = r.baseline[:1].upper() + r.baseline[1:]
+    rows = [_gap_row("before the change (baseline)", figures.get("baseline_gap"), r)]
+    if figures.get("after_gap"):
+        rows.append(_gap_row("since the start", figures["after_gap"], r))
+    relative = figures.get("relative") or {}
+    tail = ""
+    if relative.get("percent") is not None:
+        low, high = (list(relative.get("ci") or []) + [None, None])[:2]
+        tail = (f"<p>The change is {_e(_n(relative['percent']))} % of group 1's expected value without "
+                f"it (interval {_e(_interval(low, high, with_unit=False))} %, delta method).</p>")
+    return (f"<p class='lead'>{_e(sentence)}.</p>"
+            "<p>The estimate above is the change itself: the gap since the start less the gap "
+            f"there was before it ({_e(_n(100 * (1 - r.design.alpha)))} % intervals of each gap alone, "
+            "not allowing for the looks).</p>"
+            "<table><tr><th class='text' style='width:34%'>group 1 − group 2</th><th>gap</th>"
+            "<th class='text'>interval</th><th>days</th><th>events per group</th></tr>"
+            + "".join(rows) + "</table>" + tail)
 
 
 def _look_tables(r: Review) -> str:

@@ -45,7 +45,9 @@ read), ``unknown_group`` (group value not one of the two configured),
 overflow), ``not_binary`` (proportion metric, value not 0 or 1),
 ``out_of_range`` (outside the inclusive ``valid_range``), ``bad_denominator``
 (ratio metric: a denominator that is NULL, not a number, not finite, above
-``VALUE_LIMIT``, zero or negative — a row that did no work cannot carry a rate). In SQLite, numeric
+``VALUE_LIMIT``, zero or negative — a row that did no work cannot carry a rate),
+``before_start`` (a before/after comparison: dated before its start, arrived
+after its baseline was read and frozen). In SQLite, numeric
 text counts as a number when, once trimmed, it is a JSON number (``12``,
 ``-3.5``, ``1e3``); other text is ``non_numeric``.
 """
@@ -74,7 +76,8 @@ from .spec import (
     Watermark,
     utc,
 )
-from .statements import cells_statement, first_values_statement, row_parts, rows_statements, time_params
+from .statements import (cells_statement, count_before_statement, first_values_statement, row_parts, rows_statements,
+                         time_params)
 from .times import IsoLayout, TimeKind, to_utc_timestamps
 
 __all__ = [
@@ -233,6 +236,11 @@ class Source:
         cols = self._resolve(conn, spec)
         return cols, row_parts(self._dialect, spec, cols, self._time_kind(conn, spec, cols))
 
+    def _window_bounds(self, kind, spec) -> tuple:
+        """The spec's event-time window (start inclusive, end exclusive) as bound values, or Nones."""
+        return tuple(None if moment is None else self._dialect.time_bounds(kind, moment)
+                     for moment in (spec.start, spec.end))
+
     # ------------------------------------------------------------------ reads
 
     def first_value(self, spec: SourceSpec) -> float | None:
@@ -273,6 +281,11 @@ class Source:
         cols = self._resolve(conn, spec)
         kind = self._time_kind(conn, spec, cols)
         params = time_params("upper", self._dialect.time_bounds(kind, cutoff))
+        start, end = self._window_bounds(kind, spec)
+        if start is not None:
+            params.update(time_params("start", start))
+        if end is not None:
+            params.update(time_params("end", end))
         if since is not None:
             params.update(time_params("lower", self._dialect.time_bounds(kind, utc(since.cutoff, "since.cutoff"))))
         shape_key = (spec, kind, since is None)
@@ -330,6 +343,24 @@ class Source:
             watermark=Watermark(cutoff=cutoff, arrival=arrival),
         )
 
+    def count_before(self, spec: SourceSpec, moment: datetime, arrival_max) -> int:
+        """Rows (valid or not) dated before ``moment`` that had arrived by ``arrival_max``.
+
+        For verification: a before/after look counts rows dated before its start that
+        arrive after the baseline was read (``before_start``); the difference of two
+        counts replays that without pulling the rows.
+        """
+
+        def work(conn):
+            _cols, parts = self._row_parts(conn, spec)
+            if parts.arrival is None:
+                raise InvalidArgumentError(f"table {spec.table!r} has no arrival column to count by")
+            before = self._dialect.time_bounds(parts.kind, utc(moment, "moment"))
+            bound_arrival = self._dialect.bind_arrival(parts.arrival_type, arrival_max)
+            return int(conn.execute(count_before_statement(self._dialect, parts, before, bound_arrival)).scalar())
+
+        return self._connect(spec, work)
+
     def read_rows(self, spec: SourceSpec, cutoff: datetime, arrival_max=None):
         """Valid rows with time <= ``cutoff`` (and arrival <= ``arrival_max``), for verification.
 
@@ -351,7 +382,8 @@ class Source:
                     raise InvalidArgumentError(f"arrival_max given but table {spec.table!r} has no arrival column")
                 bound_arrival = self._dialect.bind_arrival(parts.arrival_type, arrival_max)
             upper = self._dialect.time_bounds(parts.kind, cutoff)
-            rows, counts = rows_statements(self._dialect, parts, upper, bound_arrival)
+            rows, counts = rows_statements(self._dialect, parts, upper, bound_arrival,
+                                           window=self._window_bounds(parts.kind, spec))
             return parts.kind, conn.execute(rows).all(), conn.execute(counts).all()
 
         kind, rows, counts = self._connect(spec, work)

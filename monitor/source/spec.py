@@ -42,6 +42,7 @@ EXCLUSION_REASONS = (
     "too_large",  # finite, but |value| > VALUE_LIMIT
     "not_binary",
     "out_of_range",
+    "before_start",  # dated before a before/after comparison's start, arrived after its baseline was frozen
     "bad_denominator",  # ratio metric: a denominator that is NULL, not a number, not finite, |d| > VALUE_LIMIT, or <= 0
 )
 
@@ -114,6 +115,10 @@ class SourceSpec:
     arrival_column: str | None = None
     filters: tuple = ()
     valid_range: tuple | None = None
+    # Event-time window: ``start`` inclusive (a comparison counts events at or after its start),
+    # ``end`` exclusive (a baseline ends where the change begins).
+    start: datetime | None = None
+    end: datetime | None = None
     denominator_column: str | None = None  # ratio metric: value_column holds the numerator
     shift_den: float = 0.0
 
@@ -144,6 +149,12 @@ class SourceSpec:
         object.__setattr__(self, "filters", _check_filters(self.filters))
         if self.valid_range is not None:
             object.__setattr__(self, "valid_range", _check_valid_range(self.valid_range))
+        for name in ("start", "end"):
+            moment = getattr(self, name)
+            if moment is not None:
+                object.__setattr__(self, name, utc(moment, name))
+        if self.start is not None and self.end is not None and not self.start < self.end:
+            raise InvalidArgumentError(f"start must be before end, got {self.start} and {self.end}")
 
     @classmethod
     def from_design(cls, design, *, shift=None, arrival_column=None):
@@ -161,6 +172,7 @@ class SourceSpec:
             shift=float(shift), schema=measure.schema, time_format=measure.time_format,
             key_column=design.key_column, arrival_column=arrival_column, filters=measure.filters,
             valid_range=measure.valid_range,
+            start=None if design.window is None else design.window.moments()["start"],
             denominator_column=design.ratio.denominator_column if design.ratio is not None else None,
             shift_den=float(design.shift_den or 0.0),
         )

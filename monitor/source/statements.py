@@ -23,7 +23,8 @@ from .columns import Columns
 from .times import TimeKind, bind_time
 from ..vocabulary import as_utc
 
-__all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "first_values_statement"]
+__all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "count_before_statement",
+           "first_values_statement"]
 
 
 @dataclass(frozen=True)
@@ -153,12 +154,38 @@ def _bounds(bound: dict, name: str) -> tuple | None:
     return tuple(values)
 
 
+def _window(dialect, kind, raw, start, end) -> list | None:
+    """``start <= time < end`` as one predicate per storage (aligned with ``time_ranges``); None for no window.
+
+    ``start`` and ``end`` are tuples of bound values (one per storage) or None.
+    """
+    if start is None and end is None:
+        return None
+    predicates = []
+    for i, storage in enumerate(dialect.storages(kind, raw)):
+        conditions = [storage]
+        if start is not None:
+            conditions.append(raw >= start[i])
+        if end is not None:
+            conditions.append(raw < end[i])
+        predicates.append(sa.and_(*conditions))
+    return predicates
+
+
+def _windowed(ranges: list, window: list | None) -> list:
+    """Each storage's time range narrowed to the window (unchanged without one)."""
+    if window is None:
+        return ranges
+    return [sa.and_(r, w) for r, w in zip(ranges, window, strict=True)]
+
+
 def cells_statement(dialect, spec, parts: RowParts, params: dict):
     """The aggregate over new and late rows, with bound parameters named like ``params``.
 
     ``params`` holds ``upper`` (this cutoff), and on later reads ``lower`` (the previous
     cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column
-    (see ``time_params`` for cutoffs compared in more than one storage).
+    (see ``time_params`` for cutoffs compared in more than one storage). A spec with an
+    event-time window adds ``start`` (inclusive) and/or ``end`` (exclusive).
     """
     bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
     kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
@@ -169,7 +196,7 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
     # (bound parameters make each repeated expression text distinct to the database).
     by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
 
-    def part(where, late):
+    def part(where, late, why=None):
         # Each row's time and deviation are computed once in an inner select (the dialect
         # may fence it so the database does not inline the expressions again); the outer
         # select buckets and sums them.
@@ -186,6 +213,8 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
             ).where(*where, *parts.filters)
         ).subquery("r")
         reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
+        if why is not None:
+            reason = sa.literal(why, sa.Text)
         ratio_sums = []
         if ratio:
             ratio_sums = [
@@ -208,34 +237,51 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
         ).group_by(*by_position)
 
     upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
+    start, end = _bounds(bound, "start"), _bounds(bound, "end")
+    # A start keeps earlier events out; an end (a baseline's) keeps the change's out.
+    window = _window(dialect, kind, time_raw, start, end)
     if lower is None:
         # The first read scans the most: one branch per disjoint time range, each a plain index
         # range scan (cells that two branches share are added up by the reader).
-        branches = [part([r], 0) for r in dialect.time_ranges(kind, time_raw, None, upper)]
-        # NULL times (and words) never fall in a time range: count them once, on the first read,
-        # one branch each (an OR of the two would scan the whole table on SQLite).
-        branches.extend(part([where], 0) for where in dialect.unplaced_parts(kind, time_raw, above=upper))
+        branches = [part([r], 0) for r in _windowed(dialect.time_ranges(kind, time_raw, None, upper), window)]
+        if end is None:
+            # NULL times (and words) never fall in a time range: count them once, on the first
+            # read (of the comparison, not of its baseline), one branch each (an OR of the two
+            # would scan the whole table on SQLite).
+            branches.extend(part([where], 0) for where in dialect.unplaced_parts(kind, time_raw, above=upper))
     else:
-        branches = [part([sa.or_(*dialect.time_ranges(kind, time_raw, lower, upper))], 0)]
+        branches = [part([sa.or_(*_windowed(dialect.time_ranges(kind, time_raw, lower, upper), window))], 0)]
         if arrival is not None:
             # Late rows are only those at or before the previous cutoff, so rows read
             # earlier through the time range can never come back through this branch.
             newer = arrival > bound["seen"] if "seen" in bound else arrival.is_not(None)
             # One OR here: the arrival index finds these rows, the time test only filters them.
-            earlier = sa.or_(*dialect.time_ranges(kind, time_raw, None, lower))
+            earlier = sa.or_(*_windowed(dialect.time_ranges(kind, time_raw, None, lower), window))
             branches.append(part([earlier, newer], 1))
             branches.append(part([dialect.unplaced(kind, time_raw), newer], 0))
+            if start is not None and "seen" in bound:
+                # Rows dated before the start that arrive late: the baseline was read once and
+                # frozen, so they are counted, never used. (Without an arrival watermark yet
+                # nothing has been read, the baseline included.)
+                before = sa.or_(*_window(dialect, kind, time_raw, None, start))
+                branches.append(part([before, newer], 0, "before_start"))
     return sa.union_all(*branches)
 
 
-def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max):
+def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max, window=(None, None)):
     """(valid rows, per-reason counts) of the rows with time <= ``upper`` and arrival <= ``arrival_max``.
 
     The valid rows' columns are group_index, value, time, key, and for a ratio metric denominator.
+    ``window`` is (start, end) bound values (either None): start inclusive, end exclusive.
+    Rows without a readable time are counted only without an end (not in a baseline).
     """
     time_raw, arrival = parts.time_raw, parts.arrival
     upper = tuple(literal(v) for v in upper)
-    where = [sa.or_(*dialect.time_ranges(parts.kind, time_raw, None, upper), dialect.unplaced(parts.kind, time_raw))]
+    start, end = (None if w is None else tuple(literal(v) for v in w) for w in window)
+    in_time = _windowed(dialect.time_ranges(parts.kind, time_raw, None, upper),
+                        _window(dialect, parts.kind, time_raw, start, end))
+    unplaced = [] if end is not None else [dialect.unplaced(parts.kind, time_raw)]
+    where = [sa.or_(*in_time, *unplaced)]
     if arrival_max is not None:
         where.append(sa.or_(arrival <= literal(arrival_max), arrival.is_(None)))
     where.extend(parts.filters)
@@ -254,6 +300,16 @@ def rows_statements(dialect, parts: RowParts, upper: tuple, arrival_max):
         .group_by(labelled.c.reason)
     )
     return rows, counts
+
+
+def count_before_statement(dialect, parts: RowParts, before: tuple, arrival_max):
+    """How many rows (valid or not) are dated before ``before`` and arrived by ``arrival_max``."""
+    earlier = _window(dialect, parts.kind, parts.time_raw, None, tuple(literal(v) for v in before))
+    return (
+        sa.select(sa.func.count())
+        .select_from(parts.time_raw.table)
+        .where(sa.or_(*earlier), parts.arrival <= literal(arrival_max), *parts.filters)
+    )
 
 
 def first_values_statement(parts: RowParts, limit: int = 25):

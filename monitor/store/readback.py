@@ -21,8 +21,9 @@ from apscheduler.triggers.interval import IntervalTrigger
 
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
-from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, design_effect_warning,
-                          design_words, evidence_count, json_safe, method_words, parse_duration, state_label, outlook_words)
+from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, baseline_gap_words,
+                          design_effect_warning, design_words, evidence_count, json_safe, method_words,
+                          outlook_words, parse_duration, state_label)
 from .engine import open_store
 from .models import Alert, Cell, Comparison, Delivery, Look, LookCheck, Worker
 from .plan_changes import plan_changes
@@ -268,6 +269,21 @@ def adjusted_inference(detail):
     return out
 
 
+def before_after_words(design, detail) -> str | None:
+    """The baseline gap of a before/after comparison in words (None for other comparisons).
+
+    "before the change, hollin was 7.1 seconds slower than saltmarsh (interval 5.2 to 9.0)",
+    and, once there are events after the start, what the change itself is.
+    """
+    if design is None or not design.before_after:
+        return None
+    figures = (detail or {}).get("before_after") or {}
+    gap = figures.get("baseline_gap") or {}
+    low, high = (list(gap.get("ci") or []) + [None, None])[:2]
+    return baseline_gap_words([str(g) for g in design.groups], gap.get("estimate"), low, high,
+                              value_column=design.measure.value_column, metric=design.metric)
+
+
 _LATEST_FIGURES = ("mean1", "mean2", "estimate", "ci_low", "ci_high", "p_value", "statistic", "boundary_z",
                    "fraction")
 
@@ -321,6 +337,14 @@ def _warnings(last, design, name=None) -> list[str]:
     return warnings
 
 
+def _days_since_start(design, last):
+    """Days since the start a before/after comparison's evidence rests on (None for other designs)."""
+    if design is None or not design.before_after:
+        return None
+    detail = (last["detail"] or {}) if last is not None else {}
+    return detail.get("days", (detail.get("before_after") or {}).get("clusters_after"))
+
+
 def _display_fields(design, groups, settings, last):
     """Names and unit as shown, and the count the evidence is made of (pairs, clusters) beside events.
 
@@ -336,7 +360,7 @@ def _display_fields(design, groups, settings, last):
         clustered=design is not None and design.clustered,
         pairs=last["pairs"] if last is not None else None,
         clusters=last["clusters"] if last is not None else None,
-        days=((last["detail"] or {}).get("days") if last is not None else None))
+        days=_days_since_start(design, last))
     evidence = None if counted is None else {"noun": counted[0], "count": counted[1]}
     stored = design.to_stored() if design is not None else {}
     clustering = stored.get("clustering") or {}
@@ -418,6 +442,9 @@ def _status_row(comp, looks, now):
         "seconds_to_plan": _num(remaining),
         "plan_completes_at": _iso(completes_at),
         "adjusted": adjusted_inference(last["detail"]) if last is not None else None,
+        "start": None if design is None or design.window is None else design.window.start,
+        "baseline": before_after_words(design, last["detail"] if last is not None else None),
+        "before_after": json_safe((last["detail"] or {}).get("before_after")) if last is not None else None,
         "outlook": None if stopped else _outlook(looks),
         "outlook_words": None if stopped else outlook_words(_outlook(looks)),
         "replans": comp.get("replans") or 0,
@@ -691,6 +718,7 @@ def look_history(engine, name, version=None):
             "warnings": [str(w) for w in (r["warnings"] or [])],
             "detail": json_safe(detail),
             "adjusted": adjusted_inference(detail),
+            "baseline": before_after_words(_design(comp["design"]), detail),
             "duration_ms": _num(r["duration_ms"]),
         })
     return history

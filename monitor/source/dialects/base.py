@@ -151,6 +151,13 @@ class SourceDialect:
             return [raw <= upper[0]]
         return [sa.and_(raw > lower[0], raw <= upper[0])]
 
+    def storages(self, kind: TimeKind, raw) -> list:
+        """One predicate per storage the column holds, in the order of ``time_bounds`` (a typed column has one).
+
+        With them a bound of each storage applies only to the times stored that way.
+        """
+        return [sa.true()]
+
     def unplaced(self, kind: TimeKind, raw, above=None):
         """Rows that no time range ever holds: counted once, on the first read or by arrival.
 

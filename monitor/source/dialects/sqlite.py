@@ -95,6 +95,11 @@ class SQLiteDialect(SourceDialect):
             sa.and_(raw < empty, raw > lower[1], raw <= upper[1]),
         ]
 
+    def storages(self, kind, raw):
+        # Numbers sort before all text: text is what sorts at or after the empty text.
+        empty = sa.literal("")
+        return [raw >= empty, raw < empty]
+
     def is_text(self, raw):
         return sa.func.typeof(raw) == "text"
 
