@@ -66,3 +66,12 @@ def test_the_no_worker_hint_of_status_and_check_runs_as_printed(tmp_path, monkey
         cli.main([command, "--config", str(world.config.path)])
         out = capsys.readouterr().out
         assert "Start `.venv/bin/gapwatch run`" in out, (command, out)
+
+
+def test_demo_lines_write_small_rates_per_unit_without_an_exponent_and_rates_in_points():
+    row = {"name": "qc-defect-rate", "state": "collecting", "looks": 3, "estimate": -0.00093,
+           "ci_low": -0.0021, "ci_high": -0.0000206, "fraction": 0.4, "metric": "ratio", "unit": "defects/unit"}
+    line = _describe(row)
+    assert "e-0" not in line and "difference -0.0009 [-0.0021, 0.0000] defects/unit" in line
+    row.update(metric="proportion", unit="", estimate=-0.0123, ci_low=-0.031, ci_high=0.0064)
+    assert "difference -1.2 [-3.1, 0.6] pp" in _describe(row)

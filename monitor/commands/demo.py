@@ -20,7 +20,7 @@ import time
 from datetime import datetime, timezone
 from pathlib import Path
 
-from ..vocabulary import parse_duration, state_label
+from ..vocabulary import estimate_words, parse_duration, state_label
 from . import SUMMARIES
 from ._common import path_as_typed, program
 from .dashboard import free_port, port_is_free
@@ -190,12 +190,11 @@ def _bad_rows(excluded) -> str:
 def _describe(row, excluded=None) -> str:
     parts = [f"{row['name']}: {state_label(row['state'])}", f"look {row.get('looks')}"]
     if row.get("estimate") is not None:
-        low, high = row.get("ci_low"), row.get("ci_high")
-        interval = ""
-        if low is not None or high is not None:
-            # An open end (a one-sided interval) reads "open", as in status and the printed review.
-            interval = f" [{'open' if low is None else f'{low:.3g}'}, {'open' if high is None else f'{high:.3g}'}]"
-        parts.append(f"difference {row['estimate']:.3g}{interval}")
+        # The one number format (never an exponent), an open end "open", rates in percentage
+        # points and the comparison's unit, as in status and the printed review.
+        parts.append("difference " + estimate_words(row["estimate"], row.get("ci_low"), row.get("ci_high"),
+                                                     metric=row.get("metric") or "mean",
+                                                     unit=row.get("unit") or ""))
     if row.get("fraction") is not None:
         parts.append(f"fraction {row['fraction']:.2f}")
     bad = _bad_rows(excluded)
@@ -313,8 +312,19 @@ def run(args) -> int:
 
     dashboard = None
     previous_term = signal.getsignal(signal.SIGTERM)
+    previous_int = signal.getsignal(signal.SIGINT)
+    interrupted = threading.Event()
     if threading.current_thread() is threading.main_thread():
         signal.signal(signal.SIGTERM, lambda *_: stop.set())
+
+        # Ctrl-C only asks the loop below to stop: a KeyboardInterrupt raised wherever the main
+        # thread happens to be (inside a store read of the watcher, say) could leave that read
+        # half done while the service and the final summary still need the store.
+        def _interrupt(*_):
+            interrupted.set()
+            stop.set()
+
+        signal.signal(signal.SIGINT, _interrupt)
     watcher = _Watcher(make_engine(demo.store_url), comparison_status, look_history, clock)
     port = args.port
     if not args.no_dashboard and not port_is_free(DASHBOARD_ADDRESS, port):
@@ -348,6 +358,8 @@ def run(args) -> int:
                     print(f"  the dashboard exited (code {dashboard.returncode}); see dashboard.log", flush=True)
                     dashboard = None
         except KeyboardInterrupt:
+            interrupted.set()
+        if interrupted.is_set():
             print("\nstopping ...", flush=True)
     finally:
         stop.set()
@@ -357,6 +369,7 @@ def run(args) -> int:
         feed.close()
         if threading.current_thread() is threading.main_thread():
             signal.signal(signal.SIGTERM, previous_term)
+            signal.signal(signal.SIGINT, previous_int)
 
     print(f"\nwhere things stand (simulated time {_simulated(clock())}):", flush=True)
     watcher.poll(final=True)
