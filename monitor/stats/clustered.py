@@ -533,13 +533,33 @@ def _bell_mccaffrey(core):
     ``s_c = (1/n_g)(1 − n_c/n_g)^{-1/2}``, so both traces need only the
     cluster sizes. Returns (nan, nan) when a group has a single cluster.
     """
+    groups = []
+    for group, size in ((0, core.n1), (1, core.n2)):
+        sel = core.cluster_group == group
+        groups.append((core.cluster_n[sel], core.cluster_residual[sel], size))
+    return nested_cr2(groups)
+
+
+def nested_cr2(groups):
+    """CR2 variance of a two-group contrast and its Bell–McCaffrey df, clusters nested in groups.
+
+    ``groups`` holds, per group, ``(weights, residuals, total)``: each cluster's weight (its
+    events for a mean; its denominator sum for a ratio of sums, the weighted fit's weight),
+    its residual sum (``Σ(x − mean)``; ``Σ(y − R·x)`` for a ratio) and the group's total weight.
+    A cluster's leverage is its share of the group's weight, ``h_c = w_c/W_g``, and
+
+        V_CR2 = Σ_g Σ_{c in g} r_c² / (W_g² (1 − h_c)),
+
+    with the df ``(tr M)² / tr(M²)`` of the working model of independent equal-variance errors
+    in the weighted fit, which again need only the weights (see :func:`_bell_mccaffrey`).
+    Returns (nan, nan) when a group has fewer than two clusters or one holds all its weight.
+    """
     var = 0.0
     trace = 0.0
     trace_sq = 0.0
-    for group, size in ((0, core.n1), (1, core.n2)):
-        sel = core.cluster_group == group
-        nc = core.cluster_n[sel]
-        rc = core.cluster_residual[sel]
+    for nc, rc, size in groups:
+        nc = np.asarray(nc, dtype=float)
+        rc = np.asarray(rc, dtype=float)
         leverage = nc / size
         if nc.size < 2 or np.any(leverage >= 1.0):
             return math.nan, math.nan

@@ -15,6 +15,8 @@ over cluster totals ``E_c = Y_c − R·X_c``. The cluster-robust difference is e
 CR1 standard error of ``b1 − b2`` in a weighted least-squares fit of ``y/x`` on two group
 indicators with weights ``x`` and errors clustered on the key (small-sample factor
 ``G/(G−1)·(N−1)/(N−2)``), the same convention as :mod:`monitor.stats.clustered`.
+Where every cluster holds one group's rows, the CR2 form with Bell–McCaffrey degrees of freedom
+(:func:`monitor.stats.clustered.nested_cr2`) is used instead, as for means.
 
 Everything comes from per-cell sums pushed into the database: the row count, ``Σ(y − c_y)``,
 ``Σ(x − c_x)``, their squares and cross-product, for shifts ``c`` near the data (the shifts keep
@@ -32,6 +34,7 @@ import numpy as np
 
 from ..errors import InvalidArgumentError
 from ._checks import check_alternative, finite, open_unit
+from .clustered import nested_cr2
 from .fixed import _critical_values, _interval, _p_value
 
 __all__ = ["RatioCells", "RatioResult", "ratio_difference", "ratio_planning_sd"]
@@ -179,8 +182,11 @@ def ratio_difference(cells: RatioCells, *, clustered: bool = False, null_differe
         Per-cell sums (rows need not be split into cells at all: one cell per group works
         for independent rows).
     clustered : bool, default False
-        Cluster-robust standard error over the cells' keys (each key a cluster; a key in
-        both groups counts once) with t on clusters − 1 degrees of freedom. Without it rows
+        Cluster-robust standard error over the cells' keys. Where every cluster holds one
+        group's rows (crews, lines: ``cluster_column``), CR2 with Bell–McCaffrey degrees of
+        freedom (Bell & McCaffrey 2002), the weighted fit's leverage of a cluster being its
+        share of the group's denominator; where clusters hold both groups (calendar days: a
+        key in both groups counts once), CR1 with t on clusters − 1 degrees of freedom. Without it rows
         are independent and the standard error is the ratio estimator's, with
         Welch–Satterthwaite degrees of freedom.
     null_difference : float, default 0
@@ -248,12 +254,35 @@ def ratio_difference(cells: RatioCells, *, clustered: bool = False, null_differe
         score_rel = np.bincount(codes, weights=w_rel * resid_sum)
         if clusters < 2 or total <= 2:
             return _degenerate(ratios, clusters, TOO_FEW_ROWS_NOTE, notes, common)
-        factor = clusters / (clusters - 1.0) * (total - 1.0) / (total - 2.0)
-        variance = factor * float(np.sum(score ** 2))
-        rel_variance = factor * float(np.sum(score_rel ** 2))
-        df = float(clusters - 1)
-        notes.append(f"cluster-robust (CR1) delta-method standard error over {clusters} clusters; "
-                     f"t on {clusters - 1} degrees of freedom")
+        # Clusters that each hold one group's rows (crews, lines, batches by cluster_column):
+        # CR2 with Bell–McCaffrey df, as for means; calendar clusters both groups share: CR1.
+        cluster_den = np.bincount(codes, weights=a["den"] + n * cx)
+        cluster_resid = np.bincount(codes, weights=resid_sum)
+        in_group = [np.bincount(codes, weights=(occupied & (group == j)).astype(float)) > 0 for j in (0, 1)]
+        nested = not np.any(in_group[0] & in_group[1])
+        if nested:
+            per_group = [(cluster_den[in_group[j]], cluster_resid[in_group[j]], den_totals[j]) for j in (0, 1)]
+            counts = [int(in_group[j].sum()) for j in (0, 1)]
+            if min(counts) < 2:
+                return _degenerate(ratios, clusters, "one group has a single cluster: its spread between "
+                                   "clusters cannot be measured", notes, common)
+            variance, df = nested_cr2(per_group)
+            if not math.isfinite(variance):
+                return _degenerate(ratios, clusters, TOO_FEW_ROWS_NOTE, notes, common)
+            rel_weights = (1.0 / (den_totals[0] * ratios[1]), ratios[0] / (ratios[1] ** 2 * den_totals[1]))
+            rel_variance = sum(
+                float(np.sum((rel_weights[j] * r) ** 2 / (1.0 - w / total_w)))
+                for j, (w, r, total_w) in enumerate(per_group))
+            notes.append(f"CR2 (Bell–McCaffrey) cluster-robust delta-method standard error over clusters "
+                         f"nested in groups ({counts[0]} and {counts[1]}); t on {df:.1f} Bell–McCaffrey "
+                         f"degrees of freedom")
+        else:
+            factor = clusters / (clusters - 1.0) * (total - 1.0) / (total - 2.0)
+            variance = factor * float(np.sum(score ** 2))
+            rel_variance = factor * float(np.sum(score_rel ** 2))
+            df = float(clusters - 1)
+            notes.append(f"cluster-robust (CR1) delta-method standard error over {clusters} clusters; "
+                         f"t on {clusters - 1} degrees of freedom")
     else:
         clusters = None
         # Σ e² per cell = Σ(y'−R x')² + 2k Σ(y'−R x') + n k², y' = y − c_y, x' = x − c_x.
