@@ -248,3 +248,17 @@ def test_the_dashboard_reads_only_the_store_table(tmp_path, monkeypatch):
     with pytest.raises(ConfigError) as caught:
         store_url_from_config(path, store_only=True)
     assert "environment variable 'STORE_FILE' is not set" in str(caught.value)
+
+
+def test_status_writes_the_relative_change_beside_the_absolute_one():
+    from monitor.commands.status import _interval
+
+    row = {"stopped": False, "estimate": 12.0, "ci_low": 4.0, "ci_high": 20.0, "mean2": 300.0,
+           "metric": "mean", "unit": "s"}
+    assert _interval(row) == "12 [4, 20] s (+4 %)"
+    rate = {"stopped": False, "estimate": -0.012, "ci_low": -0.03, "ci_high": 0.006, "mean2": 0.08,
+            "metric": "proportion", "unit": ""}
+    assert _interval(rate) == "-1.2 [-3.0, 0.6] pp (-15 %)"
+    # A before/after comparison's relative change is against group 1 without the change: not here.
+    assert "%" not in _interval(dict(row, baseline="before the change, a was 3 s slower than b"))
+    assert "%" not in _interval(dict(row, mean2=0.0)) and "%" not in _interval(dict(row, mean2=None))

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from datetime import datetime, timezone
 
-from ..vocabulary import estimate_words, figure
+from ..vocabulary import estimate_words, figure, relative_change
 from . import SUMMARIES
 from ._common import add_config_option, aligned_lines, as_typed, open_store, print_json, readback
 
@@ -42,8 +42,12 @@ def _interval(row):
                               metric=row.get("metric"), unit=row.get("unit"), no_interval="no interval") + " adjusted"
     if row["estimate"] is None:
         return "-"
-    return estimate_words(row["estimate"], row["ci_low"], row["ci_high"], metric=row.get("metric"),
+    text = estimate_words(row["estimate"], row["ci_low"], row["ci_high"], metric=row.get("metric"),
                           unit=row.get("unit"))
+    # Beside the absolute figure, the change relative to group 2's level (not for a before/after
+    # comparison, whose relative change is against group 1 without the change: see history).
+    relative = None if row.get("baseline") else relative_change(row["estimate"], row.get("mean2"))
+    return f"{text} ({relative})" if relative else text
 
 
 def _counts(row):
