@@ -105,7 +105,8 @@ _COMPARISONS = [
         "description": "Defects per unit packed (a ratio of sums over batches), Line 5 minus Line 2. "
                        "Line 5's sealing jaws were refitted; does it pack cleaner?",
         "source": "plant", "table": "packing_qc", "group_column": "line",
-        "groups": ["line-5", "line-2"], "metric": "ratio", "numerator_column": "defects",
+        "groups": ["line-5", "line-2"], "labels": ["Line 5", "Line 2"], "unit": "defects per unit",
+        "metric": "ratio", "numerator_column": "defects",
         "denominator_column": "units", "time_column": "packed_at", "alternative": "two-sided",
         "alpha": 0.05, "spending": "obrien-fleming", "planned_per_group": 1200,
         "valid_range": [0, 500], "every": "4s",
