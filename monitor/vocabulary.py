@@ -449,8 +449,15 @@ def design_words(design: dict, names=None) -> str:
     clustering = design.get("clustering") or {}
     clustered_by = clustering.get("cluster_by") or clustering.get("cluster_column")
     names = list(names or design.get("groups") or ["group 1", "group 2"])
-    parts = [method_words(design.get("method"), clustered_by=clustered_by),
-             _alternative_words(design.get("alternative"), names)]
+    if design.get("before_after"):
+        # A before/after comparison tests the change in the gap, day-clustered (CR2).
+        tested = "difference in differences against a baseline (t, day-clustered CR2)"
+    elif design.get("metric") == "ratio":
+        kind = f"cluster-robust, clusters: {clustered_by}" if clustered_by else "delta method"
+        tested = f"difference of ratios of sums (t, {kind})"
+    else:
+        tested = method_words(design.get("method"), clustered_by=clustered_by)
+    parts = [tested, _alternative_words(design.get("alternative"), names)]
     if _finite(design.get("alpha")) is not None:
         parts.append(f"alpha {figure(design['alpha'])}")
     parts.append(spending_words(design.get("spending")))

@@ -262,3 +262,15 @@ def test_status_writes_the_relative_change_beside_the_absolute_one():
     # A before/after comparison's relative change is against group 1 without the change: not here.
     assert "%" not in _interval(dict(row, baseline="before the change, a was 3 s slower than b"))
     assert "%" not in _interval(dict(row, mean2=0.0)) and "%" not in _interval(dict(row, mean2=None))
+
+
+def test_design_words_say_what_a_ratio_and_a_before_after_comparison_test():
+    ratio = {"method": "welch", "metric": "ratio", "alternative": "two-sided", "alpha": 0.05,
+             "spending": "obrien-fleming", "clustering": {"cluster_by": None, "cluster_column": "crew"}}
+    assert design_words(ratio, ["Line 5", "Line 2"]).startswith(
+        "difference of ratios of sums (t, cluster-robust, clusters: crew), two-sided")
+    before_after = {"method": "welch", "metric": "mean", "alternative": "two-sided", "alpha": 0.05,
+                    "spending": "pocock", "start": "2026-03-04T05:00:00+00:00",
+                    "before_after": {"baseline_from": "2026-02-18T05:00:00+00:00"}}
+    words = design_words(before_after, LABELS)
+    assert words.startswith("difference in differences against a baseline") and "Welch" not in words

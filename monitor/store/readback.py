@@ -280,7 +280,7 @@ def before_after_words(design, detail) -> str | None:
     figures = (detail or {}).get("before_after") or {}
     gap = figures.get("baseline_gap") or {}
     low, high = (list(gap.get("ci") or []) + [None, None])[:2]
-    return baseline_gap_words([str(g) for g in design.groups], gap.get("estimate"), low, high,
+    return baseline_gap_words(list(design.display.names(design.groups)), gap.get("estimate"), low, high,
                               value_column=design.measure.value_column, metric=design.metric)
 
 
