@@ -350,7 +350,7 @@ def test_gapwatch_demo_runs_end_to_end(tmp_path):
             assert row["looks"] >= 2, (name, row)
         assert status["pick-seconds"]["state"] == "difference_found", status["pick-seconds"]
         assert status["pick-seconds"]["estimate"] < 0  # Hollin Cross got faster
-        assert status["pick-seconds"]["baseline"].startswith("before the change, hollin was")
+        assert status["pick-seconds"]["baseline"].startswith("before the change, Hollin Cross was")
         assert status["desk-first-contact"]["state"] != "difference_found"
         history = {name: look_history(engine, name) for name in status}
     finally:
