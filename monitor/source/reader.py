@@ -80,17 +80,8 @@ from .statements import (cells_statement, count_before_statement, first_values_s
                          time_params)
 from .times import IsoLayout, TimeKind, to_utc_timestamps
 
-__all__ = [
-    "SLOT_SECONDS",
-    "EXCLUSION_REASONS",
-    "FILTER_OPERATORS",
-    "VALUE_LIMIT",
-    "SourceSpec",
-    "Watermark",
-    "SlotCell",
-    "Batch",
-    "Source",
-]
+# The spec's names stay importable from here (older callers); the package lists them once.
+__all__ = ["Source"]
 
 
 class Source:
