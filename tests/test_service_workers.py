@@ -117,6 +117,30 @@ def test_due_by_the_last_check_whoever_took_it(tmp_path):
     assert is_due(c, now - timedelta(seconds=30), now)
 
 
+def test_a_late_look_does_not_make_the_next_tick_skip(tmp_path):
+    """Ticks fall on a grid shared by every worker: a look that began 20 s late leaves the next tick due."""
+    from monitor.service.scheduler import grid_tick
+
+    c = _comparison(tmp_path, "1m")
+    tick = datetime(2026, 3, 2, 8, 0, tzinfo=UTC)
+    assert grid_tick(60.0, 0.0, tick + timedelta(seconds=59)) == tick
+    late = tick + timedelta(seconds=20)
+    following = tick + timedelta(minutes=1, seconds=2)  # the next tick, 42 s after the late look
+    assert is_due(c, late, following)
+    # The same tick seen by a second worker after the first has looked: not due again.
+    assert not is_due(c, following + timedelta(seconds=1), following + timedelta(seconds=3))
+    # A look off the grid (a first look at start) is not followed by another seconds later...
+    start = tick + timedelta(seconds=57)
+    assert not is_due(c, start, tick + timedelta(minutes=1))
+    # ...but by the tick after that.
+    assert is_due(c, start, tick + timedelta(minutes=2))
+    # A place in a spread-out schedule shifts the grid: ticks at 45 s past each minute.
+    assert grid_tick(60.0, 45.0, tick + timedelta(seconds=110)) == tick + timedelta(seconds=105)
+    looked = tick + timedelta(seconds=62)
+    assert not is_due(c, looked, tick + timedelta(seconds=100))
+    assert is_due(c, looked, tick + timedelta(seconds=100), offset=45.0)  # its tick at 105 s, 5 s early
+
+
 def test_due_on_a_cron_schedule(tmp_path):
     c = _comparison(tmp_path, "0 * * * *")
     assert not is_due(c, datetime(2026, 3, 2, 8, 1, tzinfo=UTC), datetime(2026, 3, 2, 8, 50, tzinfo=UTC))

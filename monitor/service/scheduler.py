@@ -17,6 +17,7 @@ a new file that does not validate is refused and the running one kept.
 from __future__ import annotations
 
 import logging
+import math
 import os
 import signal
 import threading
@@ -79,12 +80,15 @@ HOUSEKEEPING = "housekeeping"
 MEMORY_MIN_SIZE = 256
 # A tick may fire this much before the schedule's time and still count as due (a share of
 # the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
-# From this many interval comparisons on one schedule, their first looks are spread evenly over
-# the first interval (each keeps its place after that), so a large configuration does not fall
-# due in one second and leave the end of the queue past its misfire grace every time.
+# From this many interval comparisons on one schedule, their ticks are spread evenly over the
+# interval, so a large configuration does not fall due in one second and leave the end of the
+# queue past its misfire grace every time.
 STAGGER_FROM = 20
 DUE_SLACK_SHARE = 0.1
 DUE_SLACK_CAP_SECONDS = 5.0
+# Interval ticks fall on a grid counted from this moment (plus the comparison's place in a
+# spread-out schedule), so every worker ticks at the same times whenever it started.
+GRID_EPOCH = datetime(2000, 1, 1, tzinfo=timezone.utc)
 
 _FAILED_OUTCOMES = ("source_failed", "store_unavailable", "design_changed", "error")
 
@@ -134,10 +138,11 @@ class _RedactingFilter(logging.Filter):
         return True
 
 
-def _trigger_for(comparison):
+def _trigger_for(comparison, offset: float = 0.0):
     schedule = comparison.schedule
     if isinstance(schedule, (int, float)):
-        return IntervalTrigger(seconds=float(schedule), timezone=timezone.utc)
+        return IntervalTrigger(seconds=float(schedule), start_date=GRID_EPOCH + timedelta(seconds=offset),
+                               timezone=timezone.utc)
     return CronTrigger.from_crontab(schedule, timezone=ZoneInfo(comparison.timezone or "UTC"))
 
 
@@ -159,27 +164,43 @@ def due_slack(comparison) -> float:
     return min(DUE_SLACK_SHARE * _first_backoff(comparison), DUE_SLACK_CAP_SECONDS)
 
 
-def is_due(comparison, last_checked, now) -> bool:
+def grid_tick(every: float, offset: float, moment: datetime) -> datetime:
+    """The latest tick of an interval grid (``every`` seconds, shifted by ``offset``) at or before ``moment``."""
+    origin = GRID_EPOCH + timedelta(seconds=offset)
+    count = math.floor((moment - origin).total_seconds() / every)
+    return origin + timedelta(seconds=count * every)
+
+
+def is_due(comparison, last_checked, now, offset: float = 0.0) -> bool:
     """Whether ``comparison`` is due at wall time ``now``, given when any worker last checked it.
 
-    An interval schedule is due ``every`` after the last check; a cron schedule is due once
-    one of its times has passed since the last check. Never checked: due.
+    An interval schedule is due ``every`` after the last check, and also once a tick of its
+    grid (``offset``: its place in a spread-out schedule) has passed since the last check, at
+    least half an interval ago: a look that started late does not make the next tick skip.
+    A cron schedule is due once one of its times has passed since the last check. Never
+    checked: due.
     """
     if last_checked is None:
         return True
     slack = due_slack(comparison)
     schedule = comparison.schedule
     if isinstance(schedule, (int, float)):
-        return (now - last_checked).total_seconds() >= float(schedule) - slack
+        every = float(schedule)
+        gap = (now - last_checked).total_seconds()
+        if gap >= every - slack:
+            return True
+        tick = grid_tick(every, offset, now + timedelta(seconds=slack))
+        return gap >= every / 2 and (tick - last_checked).total_seconds() > slack
     following = _trigger_for(comparison).get_next_fire_time(None, last_checked)
     return following is not None and (following - now).total_seconds() <= slack
 
 
 def first_look_delays(comparisons) -> dict:
-    """Seconds each interval comparison waits before its first look: 0 unless many share a schedule.
+    """Each interval comparison's place in its schedule, seconds: 0 unless many share a schedule.
 
     Comparisons on the same interval are ranked by name; with at least :data:`STAGGER_FROM` of
-    them the k-th of n waits ``k · interval / n``. Cron comparisons wait for their own times.
+    them the k-th of n ticks ``k · interval / n`` after the grid's tick (so its first look waits
+    up to an interval). Cron comparisons wait for their own times.
     """
     by_interval = {}
     for c in comparisons:
@@ -236,6 +257,8 @@ class Service:
         self._memory_size = None
         self.started_at = wall_clock()
         self._looked_at = None
+        # Each interval comparison's place on its schedule's grid (first_look_delays), seconds.
+        self._offsets: dict = {}
 
     # ------------------------------------------------------------------ set-up
 
@@ -356,7 +379,8 @@ class Service:
                 checked_at = wall_clock()
                 if honour_backoff:
                     previous = last_check(self.engine, name)
-                    if not is_due(comparison, previous and previous["checked_at"], checked_at):
+                    if not is_due(comparison, previous and previous["checked_at"], checked_at,
+                                  self._offsets.get(name, 0.0)):
                         log.debug("look skipped comparison=%s reason=not_due", name)
                         return "not_due"
                 as_of = self.clock()
@@ -459,18 +483,18 @@ class Service:
 
     # ------------------------------------------------------------------ scheduling
 
-    def _add_look_job(self, comparison, delay: float = 0.0):
-        extra = {}
-        if isinstance(comparison.schedule, (int, float)):
-            # An interval comparison looks at once (or at its place in a spread-out start, see
-            # first_look_delays); a cron one waits for its next time.
-            extra["next_run_time"] = datetime.now(timezone.utc) + timedelta(seconds=delay)
-        self.scheduler.add_job(
-            self.look_once, _trigger_for(comparison), args=[comparison.name],
-            id=f"look:{comparison.name}", name=f"look at {comparison.name}",
-            coalesce=True, max_instances=1, misfire_grace_time=_misfire_grace(comparison),
-            replace_existing=True, **extra,
-        )
+    def _add_look_job(self, comparison, *, at_once: bool):
+        """Schedule ``comparison``'s ticks; ``at_once``: also one look now (an interval comparison
+        not placed in a spread-out start), after which the ticks keep to the grid."""
+        offset = self._offsets.get(comparison.name, 0.0)
+        options = dict(args=[comparison.name], coalesce=True, max_instances=1,
+                       misfire_grace_time=_misfire_grace(comparison), replace_existing=True)
+        self.scheduler.add_job(self.look_once, _trigger_for(comparison, offset), id=f"look:{comparison.name}",
+                               name=f"look at {comparison.name}", **options)
+        if at_once and isinstance(comparison.schedule, (int, float)) and offset == 0.0:
+            self.scheduler.add_job(self.look_once, "date", run_date=datetime.now(timezone.utc),
+                                   id=f"first-look:{comparison.name}", name=f"first look at {comparison.name}",
+                                   **options)
 
     def start_scheduler(self):
         workers = max(4, min(10, len(self.config.comparisons) + 2))
@@ -481,9 +505,9 @@ class Service:
             executors={"default": ThreadPoolExecutor(workers), HOUSEKEEPING: ThreadPoolExecutor(2)},
             timezone=timezone.utc, job_defaults={"coalesce": True, "max_instances": 1},
         )
-        delays = first_look_delays(self.config.comparisons)
+        self._offsets = first_look_delays(self.config.comparisons)
         for comparison in self.config.comparisons:
-            self._add_look_job(comparison, delays.get(comparison.name, 0.0))
+            self._add_look_job(comparison, at_once=True)
         self.scheduler.add_job(
             self.deliver, "interval", seconds=DELIVERY_EVERY_SECONDS, id="deliver-alerts", executor=HOUSEKEEPING,
             name="deliver pending alerts", coalesce=True, max_instances=1, misfire_grace_time=5,
@@ -528,14 +552,21 @@ class Service:
         added = [n for n in after if n not in before]
         removed = [n for n in before if n not in after]
         rescheduled = [n for n in after if n in before and _schedule_key(after[n]) != _schedule_key(before[n])]
+        offsets, self._offsets = self._offsets, first_look_delays(new.comparisons)
+        # Comparisons whose place on the grid moved (more or fewer on their schedule) keep ticking, there.
+        moved = [n for n in after if n in before and n not in rescheduled
+                 and offsets.get(n, 0.0) != self._offsets.get(n, 0.0)]
         if self.scheduler is not None:
             for name in removed:
-                try:
-                    self.scheduler.remove_job(f"look:{name}")
-                except Exception:  # noqa: BLE001 - already gone
-                    pass
+                for job in (f"look:{name}", f"first-look:{name}"):
+                    try:
+                        self.scheduler.remove_job(job)
+                    except Exception:  # noqa: BLE001 - already gone (a first look runs once)
+                        pass
             for name in added + rescheduled:
-                self._add_look_job(after[name])
+                self._add_look_job(after[name], at_once=True)
+            for name in moved:
+                self._add_look_job(after[name], at_once=False)
         self._reported.clear()
         log.info("configuration reloaded (%s) added=%s removed=%s rescheduled=%s", reason,
                  ",".join(added) or "-", ",".join(removed) or "-", ",".join(rescheduled) or "-")
