@@ -1,17 +1,21 @@
-"""Local calendar buckets: which hour, day, week or shift a moment belongs to, and when it closes.
+"""Local calendar buckets: which hour, day, week or shift a moment belongs to, and when it closes;
+and the grid interval schedules tick on.
 
 Shared meaning for the source reader, the look and verify: a slot (epoch seconds) is filed
-under the local bucket holding it, so every layer groups events by the same calendar.
+under the local bucket holding it, so every layer groups events by the same calendar. The
+scheduler ticks on the grid and the status readers predict the next tick by the same rule.
 """
 
 from __future__ import annotations
 
+import math
 from datetime import date, datetime, time as clock_time, timedelta
 
 from .errors import InvalidArgumentError
 from .vocabulary import UTC
 
-__all__ = ["BUCKET_KINDS", "bucket_key", "bucket_end"]
+__all__ = ["BUCKET_KINDS", "bucket_key", "bucket_end", "GRID_EPOCH", "SPREAD_FROM", "grid_tick",
+           "next_grid_tick", "schedule_places"]
 
 BUCKET_KINDS = ("hour", "day", "week", "shift")
 
@@ -77,3 +81,46 @@ def bucket_end(key: str, kind: str, zone, shift_starts=()) -> datetime:
     else:
         raise _unknown_kind(kind)
     return end.astimezone(UTC)
+
+
+# --------------------------------------------------------------------------- the schedule grid
+
+# Interval ticks fall on a grid counted from this moment, plus the comparison's place (below), so
+# every worker ticks at the same times whenever it started.
+GRID_EPOCH = datetime(2000, 1, 1, tzinfo=UTC)
+# From this many interval comparisons on one schedule, their places are spread evenly over the
+# interval, so a large configuration does not fall due in one second.
+SPREAD_FROM = 20
+
+
+def grid_tick(every: float, offset: float, moment: datetime) -> datetime:
+    """The latest tick of an interval grid (``every`` seconds, shifted by ``offset``) at or before ``moment``."""
+    origin = GRID_EPOCH + timedelta(seconds=offset)
+    count = math.floor((moment - origin).total_seconds() / every)
+    return origin + timedelta(seconds=count * every)
+
+
+def next_grid_tick(every: float, offset: float, moment: datetime) -> datetime:
+    """The first tick of the grid at or after ``moment``."""
+    tick = grid_tick(every, offset, moment)
+    return tick if tick >= moment else tick + timedelta(seconds=every)
+
+
+def schedule_places(schedules) -> dict:
+    """Each interval comparison's place on its schedule's grid, seconds: 0 unless many share it.
+
+    ``schedules`` maps comparison names to interval seconds (a cron expression, a string, has
+    no place). Comparisons on the same interval are ranked by name; with at least
+    :data:`SPREAD_FROM` of them the k-th of n ticks ``k · interval / n`` after the grid's tick.
+    """
+    by_interval = {}
+    for name, schedule in schedules.items():
+        if isinstance(schedule, (int, float)):
+            by_interval.setdefault(float(schedule), []).append(name)
+    places = {}
+    for interval, names in by_interval.items():
+        names.sort()
+        spread = len(names) >= SPREAD_FROM
+        for rank, name in enumerate(names):
+            places[name] = rank * interval / len(names) if spread else 0.0
+    return places

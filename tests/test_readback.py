@@ -127,6 +127,28 @@ def test_next_look_time(every, last, now, expected):
     assert got == datetime.fromisoformat(expected).replace(tzinfo=utc)
 
 
+def test_next_look_time_on_the_schedule_grid():
+    """With its place on the grid recorded, an interval comparison's next look is the grid tick the
+    scheduler's due rule takes: the first at least half an interval after the last look."""
+    utc = timezone.utc
+    now = datetime(2026, 3, 2, 10, 20, tzinfo=utc)
+
+    def nxt(every, last, offset):
+        return readback.next_look_time(every, last_look_at=datetime.fromisoformat(last).replace(tzinfo=utc),
+                                       now=now, tick_offset=offset)
+
+    # A first look at start (10:17) is followed by the hour's grid tick at 11:00, not at 11:17.
+    assert nxt("1h", "2026-03-02T10:17:00", 0.0) == datetime(2026, 3, 2, 11, 0, tzinfo=utc)
+    # A look started 20 s late still has the next minute's tick.
+    assert nxt("1m", "2026-03-02T10:19:20", 0.0) == datetime(2026, 3, 2, 10, 20, tzinfo=utc)
+    # A look 40 s after its tick (more than half a minute) leaves that next tick out.
+    assert nxt("1m", "2026-03-02T10:19:40", 0.0) == datetime(2026, 3, 2, 10, 21, tzinfo=utc)
+    # A place 15 s into the minute.
+    assert nxt(60, "2026-03-02T10:19:15", 15.0) == datetime(2026, 3, 2, 10, 20, 15, tzinfo=utc)
+    # A cron schedule has no place: as before.
+    assert nxt("*/30 * * * *", "2026-03-02T10:00:00", None) == datetime(2026, 3, 2, 10, 30, tzinfo=utc)
+
+
 def test_next_look_time_cron_in_local_time():
     # 06:00 in Lisbon in summer (UTC+1) is 05:00 UTC.
     got = readback.next_look_time("0 6 * * *", now=datetime(2026, 7, 1, 12, tzinfo=timezone.utc),

@@ -141,6 +141,30 @@ def test_a_late_look_does_not_make_the_next_tick_skip(tmp_path):
     assert is_due(c, looked, tick + timedelta(seconds=100), offset=45.0)  # its tick at 105 s, 5 s early
 
 
+def test_a_look_records_its_place_and_status_predicts_the_grid_tick(tmp_path):
+    """The look stores the comparison's place on the grid; status shows the tick the workers will take."""
+    from monitor.calendar import next_grid_tick
+    from monitor.service.scheduler import run_once
+    from monitor.store import readback
+    from live_helpers import migrated_store
+
+    source_url = make_source(tmp_path / "ops.sqlite", tables=("calls",))
+    store_url = f"sqlite:///{tmp_path / 'store.sqlite'}"
+    engine = migrated_store(store_url)
+    config = write_service_config(tmp_path, source_url, store_url, [calls(name="desk", every="1h")])
+    assert run_once(config) == 0
+    try:
+        with engine.connect() as conn:
+            settings, looked = conn.execute(sa.select(Comparison.settings, Comparison.last_look_at)).one()
+        assert settings["tick_offset"] == 0.0
+        row = next(r for r in readback.comparison_status(engine) if r["name"] == "desk")
+        expected = next_grid_tick(3600.0, 0.0, looked.replace(tzinfo=UTC) + timedelta(minutes=30))
+        assert row["next_look_at"] == expected.isoformat()
+        assert expected.minute == 0 and expected.second == 0
+    finally:
+        engine.dispose()
+
+
 def test_due_on_a_cron_schedule(tmp_path):
     c = _comparison(tmp_path, "0 * * * *")
     assert not is_due(c, datetime(2026, 3, 2, 8, 1, tzinfo=UTC), datetime(2026, 3, 2, 8, 50, tzinfo=UTC))

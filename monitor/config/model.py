@@ -14,6 +14,7 @@ from datetime import timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
+from ..calendar import schedule_places
 from ..errors import UnknownComparisonError
 from ..vocabulary import parse_duration, parse_moment
 
@@ -238,6 +239,11 @@ class Config:
     service: ServiceConfig
     # The dashboard's address ([alerts] dashboard_url): alerts link to the comparison's page.
     dashboard_url: str | None = None
+
+    @functools.cached_property
+    def places(self) -> dict:
+        """Each interval comparison's place on its schedule's grid, seconds (``calendar.schedule_places``)."""
+        return schedule_places({c.name: c.schedule for c in self.comparisons})
 
     def comparison(self, name: str) -> ComparisonConfig:
         """The comparison of that name; UnknownComparisonError lists the known ones."""

@@ -215,7 +215,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     values["detail"] = json_safe(detail)
 
     written = write_look(engine, LookWrite(
-        name=c.name, state=state, design=design, design_hash=key, settings=json_safe(c.settings()),
+        name=c.name, state=state, design=design, design_hash=key, settings=json_safe(_settings(config, c)),
         new_state=decision.decision, stopped=decision.stopped, look=values, cells=cells,
         changes=rolled.changes, watermark=batch.watermark.to_dict(), as_of=as_of,
         alert=None if alert is None else AlertDraft(
@@ -232,6 +232,15 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
                                    (values.get("detail") or {}).get("bounds"))
         memory.keep_state(engine, written.comparison_id, KeptState(token, moment.look_number, cells, last))
     return _record(c, written, moment, evidence, decision, values, stopwatch)
+
+
+def _settings(config, c) -> dict:
+    """The comparison's settings as stored with a look, with its place on the schedule's grid."""
+    settings = c.settings()
+    place = (getattr(config, "places", None) or {}).get(c.name)
+    if place is not None:
+        settings["tick_offset"] = place
+    return settings
 
 
 def _quiet(engine, c, state, as_of, cutoff, checked_at, holder) -> QuietCheck:

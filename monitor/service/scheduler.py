@@ -17,7 +17,6 @@ a new file that does not validate is refused and the running one kept.
 from __future__ import annotations
 
 import logging
-import math
 import os
 import signal
 import threading
@@ -42,6 +41,7 @@ from ..alerts import (
     redact,
     source_backoff_until,
 )
+from ..calendar import GRID_EPOCH, SPREAD_FROM, grid_tick, schedule_places
 from ..config import load_config
 from ..look import LookMemory, take_look
 from ..source.reader import Source
@@ -81,14 +81,11 @@ MEMORY_MIN_SIZE = 256
 # A tick may fire this much before the schedule's time and still count as due (a share of
 # the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
 # From this many interval comparisons on one schedule, their ticks are spread evenly over the
-# interval, so a large configuration does not fall due in one second and leave the end of the
-# queue past its misfire grace every time.
-STAGGER_FROM = 20
+# interval (calendar.SPREAD_FROM), so a large configuration does not fall due in one second and
+# leave the end of the queue past its misfire grace every time.
+STAGGER_FROM = SPREAD_FROM
 DUE_SLACK_SHARE = 0.1
 DUE_SLACK_CAP_SECONDS = 5.0
-# Interval ticks fall on a grid counted from this moment (plus the comparison's place in a
-# spread-out schedule), so every worker ticks at the same times whenever it started.
-GRID_EPOCH = datetime(2000, 1, 1, tzinfo=timezone.utc)
 
 _FAILED_OUTCOMES = ("source_failed", "store_unavailable", "design_changed", "error")
 
@@ -164,13 +161,6 @@ def due_slack(comparison) -> float:
     return min(DUE_SLACK_SHARE * _first_backoff(comparison), DUE_SLACK_CAP_SECONDS)
 
 
-def grid_tick(every: float, offset: float, moment: datetime) -> datetime:
-    """The latest tick of an interval grid (``every`` seconds, shifted by ``offset``) at or before ``moment``."""
-    origin = GRID_EPOCH + timedelta(seconds=offset)
-    count = math.floor((moment - origin).total_seconds() / every)
-    return origin + timedelta(seconds=count * every)
-
-
 def is_due(comparison, last_checked, now, offset: float = 0.0) -> bool:
     """Whether ``comparison`` is due at wall time ``now``, given when any worker last checked it.
 
@@ -196,23 +186,8 @@ def is_due(comparison, last_checked, now, offset: float = 0.0) -> bool:
 
 
 def first_look_delays(comparisons) -> dict:
-    """Each interval comparison's place in its schedule, seconds: 0 unless many share a schedule.
-
-    Comparisons on the same interval are ranked by name; with at least :data:`STAGGER_FROM` of
-    them the k-th of n ticks ``k · interval / n`` after the grid's tick (so its first look waits
-    up to an interval). Cron comparisons wait for their own times.
-    """
-    by_interval = {}
-    for c in comparisons:
-        if isinstance(c.schedule, (int, float)):
-            by_interval.setdefault(float(c.schedule), []).append(c.name)
-    delays = {}
-    for interval, names in by_interval.items():
-        names.sort()
-        spread = len(names) >= STAGGER_FROM
-        for rank, name in enumerate(names):
-            delays[name] = rank * interval / len(names) if spread else 0.0
-    return delays
+    """Each interval comparison's place on its schedule's grid (``calendar.schedule_places``)."""
+    return schedule_places({c.name: c.schedule for c in comparisons})
 
 
 def _schedule_key(comparison):

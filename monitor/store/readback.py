@@ -19,6 +19,7 @@ import sqlalchemy as sa
 from apscheduler.triggers.cron import CronTrigger
 from apscheduler.triggers.interval import IntervalTrigger
 
+from ..calendar import next_grid_tick
 from ..design import Design
 from ..errors import InvalidArgumentError, UnknownComparisonError
 from ..vocabulary import (ALERT_STATES, DESIGN_EFFECT_WARNING, STATES, STOPPED_STATES, baseline_gap_words,
@@ -147,14 +148,25 @@ def _schedule_trigger(every, start, tz_name):
     return IntervalTrigger(seconds=seconds, start_date=start, timezone=timezone.utc)
 
 
-def next_look_time(every, *, last_look_at=None, created_at=None, now, timezone_name=None):
+def next_look_time(every, *, last_look_at=None, created_at=None, now, timezone_name=None, tick_offset=None):
     """When the scheduler will next look, by APScheduler's own trigger arithmetic.
 
     ``every`` is interval seconds, a duration such as ``"10m"`` (by the configuration's
-    own rule, so ``"600"`` or ``"2w"`` is no schedule), or a cron expression. Returns an
-    aware UTC datetime, or ``None`` when there is no usable schedule.
+    own rule, so ``"600"`` or ``"2w"`` is no schedule), or a cron expression. With
+    ``tick_offset`` (the comparison's place on its schedule's grid, recorded with each look)
+    an interval comparison's next look is the first grid tick at least half an interval after
+    the last look, as the scheduler's due rule has it. Returns an aware UTC datetime, or
+    ``None`` when there is no usable schedule.
     """
     now = _aware(now, "now")
+    if tick_offset is not None and last_look_at is not None:
+        try:
+            seconds = parse_duration(every)
+        except ValueError:
+            seconds = None
+        if seconds is not None and seconds > 0:
+            after = _aware(last_look_at, "last_look_at") + timedelta(seconds=seconds / 2)
+            return next_grid_tick(seconds, float(tick_offset), after).astimezone(timezone.utc)
     start = last_look_at or created_at or now
     try:
         trigger = _schedule_trigger(every, start, timezone_name)
@@ -408,6 +420,7 @@ def _status_row(comp, looks, now):
         next_look = next_look_time(
             every, last_look_at=comp["last_look_at"], created_at=comp["created_at"], now=now,
             timezone_name=design.measure.timezone if design is not None else None,
+            tick_offset=settings.get("tick_offset"),
         )
     groups = design.groups if design is not None else settings.get("groups") or []
     volume = (last["detail"] or {}).get("volume") if last is not None else None
