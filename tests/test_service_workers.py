@@ -165,6 +165,46 @@ def test_a_look_records_its_place_and_status_predicts_the_grid_tick(tmp_path):
         engine.dispose()
 
 
+def test_the_trigger_keeps_to_the_grid_after_a_first_look_at_once():
+    from monitor.service.scheduler import _GridTrigger
+
+    trigger = _GridTrigger(60.0, 15.0)
+    first = datetime(2026, 3, 2, 8, 0, 41, 500000, tzinfo=UTC)  # a first look at start, off the grid
+    following = trigger.get_next_fire_time(first, first)
+    assert following == datetime(2026, 3, 2, 8, 1, 15, tzinfo=UTC)
+    assert trigger.get_next_fire_time(following, following) == following + timedelta(minutes=1)
+    assert trigger.get_next_fire_time(None, first) == datetime(2026, 3, 2, 8, 1, 15, tzinfo=UTC)
+
+
+def test_one_worker_never_looks_at_one_comparison_twice_at_once():
+    """Its claim is the worker's own to renew, so the worker keeps its own threads apart."""
+    import threading
+
+    from monitor.service.scheduler import Service
+
+    service = Service.__new__(Service)
+    service._lock, service._looking = threading.RLock(), set()
+    inside, release = threading.Event(), threading.Event()
+    calls_made = []
+
+    def slow(name, *, honour_backoff=True):
+        calls_made.append(name)
+        inside.set()
+        release.wait(5)
+        return "recorded"
+
+    service._look_once = slow
+    first = {}
+    thread = threading.Thread(target=lambda: first.setdefault("outcome", service.look_once("desk")))
+    thread.start()
+    assert inside.wait(5)
+    assert service.look_once("desk") == "held"
+    release.set()
+    thread.join(5)
+    assert first["outcome"] == "recorded" and calls_made == ["desk"]
+    assert service.look_once("desk") == "recorded"  # free again once the first has finished
+
+
 def test_due_on_a_cron_schedule(tmp_path):
     c = _comparison(tmp_path, "0 * * * *")
     assert not is_due(c, datetime(2026, 3, 2, 8, 1, tzinfo=UTC), datetime(2026, 3, 2, 8, 50, tzinfo=UTC))

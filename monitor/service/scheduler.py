@@ -41,7 +41,7 @@ from ..alerts import (
     redact,
     source_backoff_until,
 )
-from ..calendar import GRID_EPOCH, SPREAD_FROM, grid_tick, schedule_places
+from ..calendar import GRID_EPOCH, SPREAD_FROM, grid_tick, next_grid_tick, schedule_places
 from ..config import load_config
 from ..look import LookMemory, take_look
 from ..source.reader import Source
@@ -135,11 +135,24 @@ class _RedactingFilter(logging.Filter):
         return True
 
 
+class _GridTrigger(IntervalTrigger):
+    """An interval trigger whose every fire time is a tick of the shared grid, even after a first
+    look that ran at once (off the grid)."""
+
+    def __init__(self, seconds: float, offset: float):
+        super().__init__(seconds=seconds, start_date=GRID_EPOCH + timedelta(seconds=offset), timezone=timezone.utc)
+        self.every, self.offset = seconds, offset
+
+    def get_next_fire_time(self, previous_fire_time, now):
+        if previous_fire_time is None:
+            return super().get_next_fire_time(None, now)
+        return next_grid_tick(self.every, self.offset, previous_fire_time + timedelta(microseconds=1))
+
+
 def _trigger_for(comparison, offset: float = 0.0):
     schedule = comparison.schedule
     if isinstance(schedule, (int, float)):
-        return IntervalTrigger(seconds=float(schedule), start_date=GRID_EPOCH + timedelta(seconds=offset),
-                               timezone=timezone.utc)
+        return _GridTrigger(float(schedule), offset)
     return CronTrigger.from_crontab(schedule, timezone=ZoneInfo(comparison.timezone or "UTC"))
 
 
@@ -234,6 +247,8 @@ class Service:
         self._looked_at = None
         # Each interval comparison's place on its schedule's grid (first_look_delays), seconds.
         self._offsets: dict = {}
+        # Comparisons this worker is looking at now (one thread each).
+        self._looking: set = set()
 
     # ------------------------------------------------------------------ set-up
 
@@ -325,6 +340,22 @@ class Service:
 
     def look_once(self, name: str, *, honour_backoff: bool = True) -> str:
         """One tick for comparison ``name``: claim, look, log, release. Returns the outcome.
+
+        A worker's claim is its own to renew, so the worker itself keeps two of its threads from
+        looking at one comparison at once (the second returns ``held``).
+        """
+        with self._lock:
+            if name in self._looking:
+                return "held"
+            self._looking.add(name)
+        try:
+            return self._look_once(name, honour_backoff=honour_backoff)
+        finally:
+            with self._lock:
+                self._looking.discard(name)
+
+    def _look_once(self, name: str, *, honour_backoff: bool = True) -> str:
+        """The tick itself (:meth:`look_once`).
 
         With ``honour_backoff`` (every scheduled tick) a comparison is looked at only when it
         is due by the store's record of its last check, whichever worker took it; ``--once``
@@ -459,17 +490,18 @@ class Service:
     # ------------------------------------------------------------------ scheduling
 
     def _add_look_job(self, comparison, *, at_once: bool):
-        """Schedule ``comparison``'s ticks; ``at_once``: also one look now (an interval comparison
-        not placed in a spread-out start), after which the ticks keep to the grid."""
-        offset = self._offsets.get(comparison.name, 0.0)
-        options = dict(args=[comparison.name], coalesce=True, max_instances=1,
-                       misfire_grace_time=_misfire_grace(comparison), replace_existing=True)
-        self.scheduler.add_job(self.look_once, _trigger_for(comparison, offset), id=f"look:{comparison.name}",
-                               name=f"look at {comparison.name}", **options)
-        if at_once and isinstance(comparison.schedule, (int, float)) and offset == 0.0:
-            self.scheduler.add_job(self.look_once, "date", run_date=datetime.now(timezone.utc),
-                                   id=f"first-look:{comparison.name}", name=f"first look at {comparison.name}",
-                                   **options)
+        """Schedule ``comparison``'s ticks on its grid; ``at_once``: the first of them now (an
+        interval comparison not placed in a spread-out start). One job per comparison, so one
+        worker never looks at a comparison twice at once."""
+        extra = {}
+        if at_once and isinstance(comparison.schedule, (int, float)) and self._offsets.get(comparison.name, 0.0) == 0.0:
+            extra["next_run_time"] = datetime.now(timezone.utc)
+        self.scheduler.add_job(
+            self.look_once, _trigger_for(comparison, self._offsets.get(comparison.name, 0.0)),
+            args=[comparison.name], id=f"look:{comparison.name}", name=f"look at {comparison.name}",
+            coalesce=True, max_instances=1, misfire_grace_time=_misfire_grace(comparison),
+            replace_existing=True, **extra,
+        )
 
     def start_scheduler(self):
         workers = max(4, min(10, len(self.config.comparisons) + 2))
@@ -533,11 +565,10 @@ class Service:
                  and offsets.get(n, 0.0) != self._offsets.get(n, 0.0)]
         if self.scheduler is not None:
             for name in removed:
-                for job in (f"look:{name}", f"first-look:{name}"):
-                    try:
-                        self.scheduler.remove_job(job)
-                    except Exception:  # noqa: BLE001 - already gone (a first look runs once)
-                        pass
+                try:
+                    self.scheduler.remove_job(f"look:{name}")
+                except Exception:  # noqa: BLE001 - already gone
+                    pass
             for name in added + rescheduled:
                 self._add_look_job(after[name], at_once=True)
             for name in moved:
