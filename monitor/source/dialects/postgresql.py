@@ -35,6 +35,13 @@ class PostgreSQLDialect(SourceDialect):
             return ()
         return tuple(f"SET {name} = '{value}'" for name, value in _SETTINGS)
 
+    def fence(self, select):
+        # Without it the planner sees through the inner select to the time column, whose values
+        # are nearly all distinct, expects one group per row, and sorts every row (spilling to
+        # disk) to group them. Behind OFFSET 0 it expects far fewer and hashes the rows into
+        # their slots instead: about a third less time on a first read of 2 million rows.
+        return select.offset(0)
+
     def timestamp_epoch(self, raw):
         # date_part gives double precision directly; EXTRACT gives numeric (PostgreSQL 14 and
         # later), whose conversion back to a double cost more than the rest of a row's work.
