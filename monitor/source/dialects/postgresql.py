@@ -8,11 +8,15 @@ from .base import SourceDialect
 
 __all__ = ["PostgreSQLDialect"]
 
-# Set on every session: times without an offset are read as UTC, and no aggregate is compiled
-# to machine code. A first read groups every row by slot, so the planner expects as many groups
+# Set on every session (each changes only how this session's own reads run, never what they
+# return or anything stored): times without an offset are read as UTC; no aggregate is compiled
+# to machine code (a first read groups every row by slot, so the planner expects as many groups
 # as rows and its cost passes the JIT thresholds; compiling the statement's expressions then
-# took longer (seconds, in every worker) than running them. Both settings change nothing stored.
-_SETTINGS = (("timezone", "UTC"), ("jit", "off"))
+# took longer, seconds, than running them); and a read may hash its slot cells in 32 MB (twice
+# that with the default hash_mem_multiplier) rather than 4 MB: a year of 15-minute slots of two
+# groups needs about 10 MB, and beyond the limit the rows spill to temporary files (150 MB of
+# them for a first read of 10 million rows).
+_SETTINGS = (("timezone", "UTC"), ("jit", "off"), ("work_mem", "32MB"))
 
 
 class PostgreSQLDialect(SourceDialect):
