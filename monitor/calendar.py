@@ -14,7 +14,7 @@ from datetime import date, datetime, time as clock_time, timedelta
 from .errors import InvalidArgumentError
 from .vocabulary import UTC
 
-__all__ = ["BUCKET_KINDS", "bucket_key", "bucket_end", "GRID_EPOCH", "SPREAD_FROM", "grid_tick",
+__all__ = ["BUCKET_KINDS", "bucket_key", "bucket_keys", "bucket_end", "GRID_EPOCH", "SPREAD_FROM", "grid_tick",
            "next_grid_tick", "schedule_places"]
 
 BUCKET_KINDS = ("hour", "day", "week", "shift")
@@ -43,7 +43,16 @@ def bucket_key(slot: int, kind: str, zone, shift_starts=()) -> str:
     and shifts by their local start with its UTC offset (unambiguous across a
     daylight-saving change).
     """
+    return _bucket(_local(slot, zone), kind, zone, shift_starts)
+
+
+def bucket_keys(slot: int, kinds, zone, shift_starts=()) -> tuple:
+    """``bucket_key`` of one slot for several kinds, converting the slot to local time once."""
     local = _local(slot, zone)
+    return tuple(_bucket(local, kind, zone, shift_starts) for kind in kinds)
+
+
+def _bucket(local: datetime, kind: str, zone, shift_starts) -> str:
     if kind == "day":
         return local.date().isoformat()
     if kind == "week":

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from ..calendar import bucket_key
+from ..calendar import bucket_key, bucket_keys
 from ..stats.summaries import MomentSummary
 from ..vocabulary import NULL_KEY
 
@@ -45,45 +45,52 @@ def roll_up(design, batch) -> RolledUp:
     pairing, clustering = design.pairing, design.clustering
     shift_starts = pairing.shift_starts if pairing is not None else ()
     changes: dict = {}
-    memo: dict = {}
     needs_key = design.key_column is not None
     null_key = null_key_late = 0
-
-    def bucket(slot, kind):
-        k = (slot, kind)
-        if k not in memo:
-            memo[k] = bucket_key(slot, kind, zone, shift_starts)
-        return memo[k]
-
-    ratio = design.metric == "ratio"
+    clustered, paired = clustering is not None, pairing is not None
+    cluster_column, cluster_by = (clustering.cluster_column, clustering.cluster_by) if clustered else (None, None)
+    pair_column, pair_by = (pairing.pair_column, pairing.pair_by) if paired else (None, None)
+    # Each group's events per local day, and per local hour (the volume check's counts), and
+    # the calendar buckets the design clusters or pairs by: every kind of one slot from one
+    # conversion to local time (a first read of a big table brings tens of thousands of slots).
+    kinds = ["day", "hour"]
+    if clustered and not cluster_column:
+        kinds.append(cluster_by)
+    if paired and not pair_column:
+        kinds.append(pair_by)
+    memo: dict = {}
+    width = 6 if design.metric == "ratio" else 3
 
     def add(kind, gi, key, cell):
-        entry = changes.setdefault((kind, gi, key), [0, 0.0, 0.0, 0.0, 0.0, 0.0] if ratio else [0, 0.0, 0.0])
+        k = (kind, gi, key)
+        entry = changes.get(k)
+        if entry is None:
+            entry = changes[k] = [0, 0.0, 0.0, 0.0, 0.0, 0.0][:width]
         entry[0] += cell.n
         entry[1] += cell.sum_dev
         entry[2] += cell.sum_dev2
-        if ratio:
+        if width == 6:
             entry[3] += cell.sum_den
             entry[4] += cell.sum_den2
             entry[5] += cell.sum_cross
 
-    clustered, paired = clustering is not None, pairing is not None
-    cluster_column, cluster_by = (clustering.cluster_column, clustering.cluster_by) if clustered else (None, None)
-    pair_column, pair_by = (pairing.pair_column, pairing.pair_by) if paired else (None, None)
     for cell in batch.cells:
         if needs_key and cell.key is None:
             null_key += cell.n
             null_key_late += cell.late
             continue
-        add("total", cell.group_index, "", cell)
-        add("day", cell.group_index, bucket(cell.slot, "day"), cell)
-        # Each group's events per local hour: the volume check's counts.
-        add("hour", cell.group_index, bucket(cell.slot, "hour"), cell)
+        buckets = memo.get(cell.slot)
+        if buckets is None:
+            buckets = memo[cell.slot] = dict(zip(kinds, bucket_keys(cell.slot, kinds, zone, shift_starts)))
+        gi = cell.group_index
+        add("total", gi, "", cell)
+        add("day", gi, buckets["day"], cell)
+        add("hour", gi, buckets["hour"], cell)
         column_key = "" if cell.key is None else str(cell.key)
         if clustered:
-            add("cluster", cell.group_index, column_key if cluster_column else bucket(cell.slot, cluster_by), cell)
+            add("cluster", gi, column_key if cluster_column else buckets[cluster_by], cell)
         if paired:
-            add("pair", cell.group_index, column_key if pair_column else bucket(cell.slot, pair_by), cell)
+            add("pair", gi, column_key if pair_column else buckets[pair_by], cell)
     return RolledUp(changes, null_key, null_key_late)
 
 

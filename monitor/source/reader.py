@@ -303,25 +303,23 @@ class Source:
         excluded = {}
         arrival_max = None
         merged = {}
+        # A first read of a big table returns tens of thousands of cells: one plain pass.
         for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival, *ratio_sums in rows:
             if row_arrival is not None and (arrival_max is None or row_arrival > arrival_max):
                 arrival_max = row_arrival
             if reason is not None:
                 excluded[reason] = excluded.get(reason, 0) + int(count)
                 continue
-            # The same cell can come from the new-range and the late branch: add them up.
+            # Each sum as if added to a zero, as the cell's running sums start.
+            sums = (int(count), int(late or 0), float(sum_dev) + 0.0, float(sum_dev2) + 0.0,
+                    *[float(x) + 0.0 for x in ratio_sums])
             cell = (int(gi), int(slot), key)
-            old = merged.get(cell, (0, 0, 0.0, 0.0, 0.0, 0.0, 0.0))
-            new = (int(count), int(late or 0), float(sum_dev), float(sum_dev2), *(float(x) for x in ratio_sums))
-            merged[cell] = tuple(a + b for a, b in zip(old, new + (0.0,) * (7 - len(new))))
-        cells = [
-            SlotCell(
-                group_index=gi, slot=slot, key=key, n=n, sum_dev=s1, sum_dev2=s2, late=late,
-                sum_den=d1, sum_den2=d2, sum_cross=cross,
-            )
-            for (gi, slot, key), (n, late, s1, s2, d1, d2, cross) in merged.items()
-        ]
-        cells.sort(key=lambda c: (c.group_index, c.slot, "" if c.key is None else c.key))
+            old = merged.get(cell)
+            # The same cell can come from the new-range and the late branch: add them up.
+            merged[cell] = sums if old is None else tuple(a + b for a, b in zip(old, sums))
+        order = sorted(merged, key=lambda cell: (cell[0], cell[1], "" if cell[2] is None else cell[2]))
+        cells = [SlotCell(gi, slot, key, sums[0], sums[2], sums[3], sums[1], *sums[4:])
+                 for gi, slot, key in order for sums in (merged[(gi, slot, key)],)]
         arrival = since.arrival if since is not None else None
         arrival_max = _arrival_out(arrival_max)
         if arrival_max is not None and (arrival is None or _arrival_greater(arrival_max, arrival)):

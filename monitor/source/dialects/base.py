@@ -216,7 +216,7 @@ class SourceDialect:
 
     def valid_text_epoch(self, raw):
         """Well-formed ISO-8601 text as epoch seconds (text without an offset is UTC)."""
-        return self.to_double(sa.extract("epoch", sa.cast(raw, sa.DateTime(timezone=True))))
+        return self.timestamp_epoch(sa.cast(raw, sa.DateTime(timezone=True)))
 
     def fence(self, select):
         """An inner select whose columns the database computes once per row (planners inline it here)."""
