@@ -19,7 +19,10 @@ if _ROOT not in sys.path:
 
 import streamlit as st  # noqa: E402
 
-st.set_page_config(page_title="gapwatch", page_icon="◷", layout="wide")
+# A Material icon, like the pages': a character Streamlit does not know as an emoji is taken
+# for an image file: Pillow and numpy loaded on the first run, for a favicon address that answers
+# with the page, not an image.
+st.set_page_config(page_title="gapwatch", page_icon=":material/schedule:", layout="wide")
 
 board = st.Page("views/board.py", title="Board", icon=":material/dashboard:", url_path="board")
 
