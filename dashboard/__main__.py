@@ -32,6 +32,8 @@ _BOARD_MODULES = ("dashboard.data", "dashboard.style", "dashboard.tables", "dash
 # emoji and icon name lists. Its own modules, free to move in a later Streamlit: a missing one
 # is skipped.
 _STREAMLIT_FIRST_RUN = ("streamlit.emojis", "streamlit.material_icon_names")
+# Seconds between hand-overs of the interpreter lock while the thread loads (Python's usual: 0.005).
+_SWITCH_WHILE_LOADING = 0.001
 
 
 def _option(arguments, name, default):
@@ -72,6 +74,17 @@ def check_store_and_warm(config_path, announce, listening=None) -> None:
     """
     if listening is not None:
         listening()
+    # While this thread loads modules, the server answers the browser's many requests for the
+    # page's code: hand the interpreter lock over more often, so none waits long behind an import.
+    usual = sys.getswitchinterval()
+    sys.setswitchinterval(_SWITCH_WHILE_LOADING)
+    try:
+        _check_and_load(config_path, announce)
+    finally:
+        sys.setswitchinterval(usual)
+
+
+def _check_and_load(config_path, announce) -> None:
     # lazy: loaded in the background thread, beside the server's start (this module's purpose).
     from monitor.config import store_url_from_config
     from monitor.errors import GapwatchError

@@ -30,9 +30,11 @@ def test_the_check_announces_a_good_store_and_loads_the_board_modules(tmp_path):
     config = tmp_path / "gapwatch.toml"
     config.write_text(f'[store]\nurl = "{store}"\n')
     said, waited = [], []
+    usual = sys.getswitchinterval()
     server_entry.check_store_and_warm(str(config), lambda: said.append("announced"),
                                       listening=lambda: waited.append("listening"))
     assert waited == ["listening"] and said == ["announced"]
+    assert sys.getswitchinterval() == usual  # the quicker hand-over lasts only while loading
     assert all(name in sys.modules for name in BOARD_MODULES)
 
 
