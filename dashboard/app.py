@@ -19,7 +19,11 @@ if _ROOT not in sys.path:
 
 import streamlit as st  # noqa: E402
 
-st.set_page_config(page_title="gapwatch", page_icon="◷", layout="wide")
+# An emoji Streamlit knows: the browser draws it as the favicon itself. A character it does not
+# know as an emoji (the clock "◷" used before) is taken for an image file, loading Pillow and
+# numpy on the first run for a favicon address that answers with the page; a Material icon
+# would be fetched from a font service on the internet.
+st.set_page_config(page_title="gapwatch", page_icon="⏱", layout="wide")
 
 board = st.Page("views/board.py", title="Board", icon=":material/dashboard:", url_path="board")
 

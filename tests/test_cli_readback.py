@@ -167,14 +167,17 @@ def test_status_in_a_real_process(config):
 
 def test_dashboard_command_line(tmp_path):
     command = dashboard_command.streamlit_command(port=8765, address="127.0.0.1")
-    assert command[1:4] == ["-m", "streamlit", "run"]
+    # Streamlit's `run`, through the dashboard's server entry (which checks the store beside it).
+    assert command[1:4] == ["-m", "dashboard", "run"]
     assert Path(command[4]) == ROOT / "dashboard" / "app.py" and Path(command[4]).is_file()
     pairs = dict(zip(command[5::2], command[6::2]))
     assert pairs["--server.address"] == "127.0.0.1" and pairs["--server.port"] == "8765"
     assert pairs["--browser.gatherUsageStats"] == "false" and pairs["--server.headless"] == "true"
+    assert pairs["--server.fileWatcherType"] == "none"
     env = dashboard_command.dashboard_environment(tmp_path / "x.toml", environ={})
     assert env["GAPWATCH_CONFIG"] == str((tmp_path / "x.toml").resolve())
     assert str(ROOT) in env["PYTHONPATH"].split(os.pathsep)
+    assert env["GAPWATCH_PROGRAM"]  # how the server quotes a gapwatch command in a store problem
 
 
 def test_dashboard_parser_defaults_and_bad_port(capsys):

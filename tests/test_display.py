@@ -274,3 +274,86 @@ def test_design_words_say_what_a_ratio_and_a_before_after_comparison_test():
                     "before_after": {"baseline_from": "2026-02-18T05:00:00+00:00"}}
     words = design_words(before_after, LABELS)
     assert words.startswith("difference in differences against a baseline") and "Welch" not in words
+
+
+# ---------------------------------------------------------------- names changed after a stop
+
+
+def _version_rows(engine):
+    """Every comparison row as stored, and the counts of looks, checks' looks and alerts."""
+    from monitor.store.models import Comparison, Look
+
+    with engine.connect() as conn:
+        rows = [dict(r) for r in conn.execute(sa.select(Comparison.__table__).order_by(Comparison.id)).mappings()]
+        looks = conn.execute(sa.select(sa.func.count()).select_from(Look)).scalar()
+        alerts = conn.execute(sa.select(sa.func.count()).select_from(Alert)).scalar()
+    return rows, looks, alerts
+
+
+def _without_display(row):
+    return {**row, "design": {k: v for k, v in row["design"].items() if k != "display"}}
+
+
+def test_names_changed_after_a_stop_are_shown_without_a_look_or_a_new_version(tmp_path, capsys, monkeypatch):
+    from pathlib import Path
+
+    from streamlit.testing.v1 import AppTest
+
+    w = LiveWorld(tmp_path, _difference_rows(), planned_per_group=600)
+    record = w.look(at(12, 12))
+    assert record.decision == "difference_found"  # stopped: it takes no more looks
+    before, looks, alerts = _version_rows(w.engine)
+    assert readback.get_comparison(w.engine, "handle-time")["labels"] == ["east", "west"]
+
+    w.write(planned_per_group=600, labels=LABELS, unit="s")
+    assert w.look(at(12, 14)) is None  # still no look: the pass records the names only
+
+    after, looks_after, alerts_after = _version_rows(w.engine)
+    assert (looks_after, alerts_after) == (looks, alerts) and len(after) == len(before) == 1
+    assert after[0]["design"]["display"] == {"labels": LABELS, "unit": "s"}
+    assert _without_display(after[0]) == _without_display(before[0])  # nothing else of the version changed
+    row = readback.get_comparison(w.engine, "handle-time")
+    assert row["labels"] == LABELS and row["unit"] == "s" and row["version"] == 1 and row["stopped"]
+
+    config = tmp_path / "gapwatch.toml"
+    assert main(["status", "--config", str(config)]) == 0
+    out = capsys.readouterr().out
+    assert "    Hollin Cross minus Saltmarsh Lane: Welch t" in out and "east minus west" not in out
+    assert " s adjusted" in out  # the unit beside the adjusted estimate
+    assert main(["history", "handle-time", "--config", str(config)]) == 0
+    assert "Hollin Cross" in capsys.readouterr().out
+    # The board page itself, reading the store as the dashboard does.
+    monkeypatch.setenv("GAPWATCH_CONFIG", str(config))
+    board = AppTest.from_file(str(Path(__file__).resolve().parent.parent / "dashboard" / "app.py"),
+                              default_timeout=60)
+    board.run()
+    assert not board.exception, [e.message for e in board.exception]
+    table = "\n".join(h.value for h in board.get("html"))
+    assert "Hollin Cross − Saltmarsh Lane" in table and "east − west" not in table
+
+    w.look(at(12, 16))  # a later pass with the same names writes nothing
+    assert _version_rows(w.engine)[0] == after
+
+
+def test_names_wait_when_the_configuration_describes_another_design(tmp_path):
+    w = LiveWorld(tmp_path, _difference_rows(), planned_per_group=600)
+    assert w.look(at(12, 12)).decision == "difference_found"
+    before = _version_rows(w.engine)
+    w.write(planned_per_group=600, labels=LABELS, unit="s", alpha=0.01)  # another design: a restart's
+    assert w.look(at(12, 14)) is None
+    assert _version_rows(w.engine) == before
+    assert readback.get_comparison(w.engine, "handle-time")["labels"] == ["east", "west"]
+
+
+def test_names_changed_reach_a_running_comparison_with_nothing_new(tmp_path):
+    w = LiveWorld(tmp_path, _difference_rows()[:400], planned_per_group=5000)
+    assert w.look(T0 + timedelta(hours=110)).decision == "collecting"  # every row read (they end at 100 h)
+    before, looks, alerts = _version_rows(w.engine)
+    w.write(planned_per_group=5000, labels=LABELS, unit="s")
+    quiet = w.look(T0 + timedelta(hours=112))
+    assert getattr(quiet, "quiet", False)  # nothing new in the source: no look row
+    after, looks_after, alerts_after = _version_rows(w.engine)
+    assert (looks_after, alerts_after) == (looks, alerts)
+    assert _without_display(after[0]) == _without_display(before[0])
+    row = readback.get_comparison(w.engine, "handle-time")
+    assert row["labels"] == LABELS and row["unit"] == "s" and row["looks"] == 1

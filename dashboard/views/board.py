@@ -12,10 +12,12 @@ st.caption("Every live comparison in the history store. The table refreshes itse
            f"{data.REFRESH_SECONDS} seconds; filters stay as you set them.")
 
 url = data.store_url()
-filter_col, state_col = style.filter_row("board", [2, 3])
-needle = filter_col.text_input("Find a comparison", key="board_find", placeholder="part of a name")
-chosen = state_col.multiselect("States", list(STATES), key="board_states", format_func=state_label,
-                               placeholder="all states")
+# The filters sit above the table but are drawn after it: a browser fetches the code of a text
+# box and of a multi-select when it first meets them, and the table need not wait behind that.
+# A keyed widget's value is in the session when a run starts, so the table reads it from there.
+filters = st.container()
+needle = st.session_state.get("board_find", "")
+chosen = st.session_state.get("board_states", [])
 
 
 @st.fragment(run_every=data.REFRESH_SECONDS)
@@ -37,3 +39,9 @@ def board():
 
 
 board()
+
+with filters:
+    filter_col, state_col = style.filter_row("board", [2, 3])
+    filter_col.text_input("Find a comparison", key="board_find", placeholder="part of a name")
+    state_col.multiselect("States", list(STATES), key="board_states", format_func=state_label,
+                          placeholder="all states")

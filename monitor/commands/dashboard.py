@@ -10,7 +10,7 @@ import sys
 from pathlib import Path
 
 from . import SUMMARIES
-from ._common import add_config_option, open_store, whole_number_type
+from ._common import add_config_option, program, whole_number_type
 
 __all__ = ["register", "run", "app_path", "streamlit_command", "port_is_free", "free_port"]
 
@@ -61,16 +61,24 @@ def free_port(address: str) -> int:
 
 
 def streamlit_command(*, port, address, app=None):
-    """The ``streamlit run`` argument list (no usage statistics, headless, no browser)."""
+    """The server's argument list: ``streamlit run`` through the dashboard's own entry (no usage
+    statistics, headless, no browser, no file watcher).
+
+    ``python -m dashboard`` is Streamlit's ``run`` plus the store check, done in the server
+    process once it listens (see ``dashboard/__main__.py``): this command then loads nothing
+    of the store before it hands over.
+    """
     app = app or app_path()
     return [
-        sys.executable, "-m", "streamlit", "run", str(app),
+        sys.executable, "-m", "dashboard", "run", str(app),
         "--server.address", address,
         "--server.port", str(port),
         "--server.headless", "true",
         "--browser.serverAddress", address,
         "--browser.gatherUsageStats", "false",
         "--global.developmentMode", "false",
+        # Nobody edits the pages of a running dashboard: no file watcher to set up per session.
+        "--server.fileWatcherType", "none",
     ]
 
 
@@ -83,20 +91,21 @@ def dashboard_environment(config_path, environ=None):
     package_root = str(app_path().parent.parent)
     # Streamlit puts only the script's folder on sys.path; the pages import monitor and dashboard.
     env["PYTHONPATH"] = os.pathsep.join(p for p in (package_root, env.get("PYTHONPATH")) if p)
+    # The server words a store problem as this command would, quoting gapwatch as run here.
+    env["GAPWATCH_PROGRAM"] = program()
     return env
 
 
 def run(args) -> int:
-    # Fail here, with the CLI's one-line message, rather than inside the browser. The dashboard
-    # reads the store alone, so only the [store] table is read (a quicker start).
-    open_store(args.config, store_only=True).dispose()
+    # The server process checks the store (one line and status 2 when it cannot be read, before
+    # the address is announced): checking it here first cost half a second of imports that the
+    # server then loaded again for the first page.
     if not port_is_free(args.address, args.port):
         print(f"gapwatch dashboard: --port {args.port}: {args.address}:{args.port} is already in use; "
               f"choose another with --port P", file=sys.stderr)
         return 2
     command = streamlit_command(port=args.port, address=args.address)
     env = dashboard_environment(args.config)
-    print(f"gapwatch dashboard on http://{args.address}:{args.port} (Ctrl+C stops it)", file=sys.stderr)
     sys.stdout.flush()
     sys.stderr.flush()
     if os.name == "posix":

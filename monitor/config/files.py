@@ -96,7 +96,7 @@ def store_url_from_config(path=None, *, store_only: bool = False, environ=None) 
     data = _read(path)
     # lazy: the URL rule loads SQLAlchemy's URL parser, needed only when a file is read.
     from .model import DEFAULT_STORE_URL
-    from .rules import FromEnvironment, database_url
+    from .urls import FromEnvironment, database_url
 
     problems: list[str] = []
     store = data.get("store", {})
@@ -108,8 +108,7 @@ def store_url_from_config(path=None, *, store_only: bool = False, environ=None) 
     try:
         return str.__str__(database_url(store.get("url", DEFAULT_STORE_URL), path.resolve().parent))
     except ValueError as problem:  # the rule's own words, after the key it concerns
-        raise ConfigError([f"[store]: 'url' {problem.message() if hasattr(problem, 'message') else problem}"],
-                          path.name) from None
+        raise ConfigError([f"[store]: 'url' {problem}"], path.name) from None
 
 
 def _read(path: Path) -> dict:

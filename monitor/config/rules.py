@@ -18,30 +18,15 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, ValidationInfo
 from pydantic_core import PydanticCustomError
-from sqlalchemy.engine import make_url
 
 from ..vocabulary import parse_duration
+from . import urls
+from .urls import FromEnvironment  # noqa: F401 - the validators' modules take it from here
 
 # Table, schema and column names: plain identifiers only. The source quotes them
 # anyway; refusing anything else here stops a typo (or an injection attempt)
 # before it reaches a database.
 IDENTIFIER = re.compile(r"^[A-Za-z_][A-Za-z0-9_$]{0,127}$")
-
-
-class FromEnvironment(str):
-    """Text that came (wholly or partly) from ``${NAME}``: shown as written in the file.
-
-    It is the substituted value for every use, but its ``repr`` — which every message
-    echoing a value uses — is the text of the file, so a secret never reaches an error.
-    """
-
-    def __new__(cls, value: str, written: str):
-        text = super().__new__(cls, value)
-        text.written = written
-        return text
-
-    def __repr__(self):
-        return repr(self.written)
 
 
 def plain(value):
@@ -151,25 +136,10 @@ def duration(value, *, key=None):
 
 
 def database_url(value, folder: Path):
-    if not isinstance(value, str) or not value.strip():
-        raise keyed(f"must be a database URL; got {value!r}")
     try:
-        parsed = make_url(value)
-    except Exception:  # noqa: BLE001 - any parse failure is the same problem for the user
-        raise keyed("is not a database URL SQLAlchemy understands") from None
-    return resolve_sqlite(parsed, str(value), folder)
-
-
-def resolve_sqlite(parsed, url: str, folder: Path) -> str:
-    """A relative SQLite file path made absolute against the configuration file's folder."""
-    if not url.startswith("sqlite"):
-        return url
-    database = parsed.database
-    if not database or database == ":memory:" or database.startswith("file:"):
-        return url
-    if Path(database).is_absolute():
-        return url
-    return parsed.set(database=str((folder / database).resolve())).render_as_string(hide_password=False)
+        return urls.database_url(value, folder)
+    except ValueError as problem:
+        raise keyed(str(problem)) from None
 
 
 @dataclass(frozen=True)

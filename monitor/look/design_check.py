@@ -10,7 +10,7 @@ from __future__ import annotations
 from ..design import Design
 from ..errors import DesignChangedError
 
-__all__ = ["frozen_design"]
+__all__ = ["frozen_design", "display_to_record"]
 
 
 def frozen_design(name: str, stored: dict | None, configured: Design) -> Design:
@@ -33,3 +33,18 @@ def frozen_design(name: str, stored: dict | None, configured: Design) -> Design:
             f"{version}; the next look starts version {version + 1} with the new design)")
     # The display (group names, unit) is not design: the configured one is shown from now on.
     return frozen.with_display(configured.display)
+
+
+def display_to_record(stored: dict, configured: Design) -> dict | None:
+    """The configured display (stored form) for a version that takes no look now, else None.
+
+    A stopped version, or one whose check found nothing new, records no look, so names and a
+    unit changed in the configuration would wait for a look that may never come. They are
+    recorded on the version as they are, when the configuration still describes the design
+    frozen at its first look (same fingerprint); None when nothing changed, or when the
+    configuration describes another design (the version that design starts will show them).
+    """
+    frozen = Design.from_stored(stored["design"])
+    if frozen.display == configured.display or frozen.differences(configured):
+        return None
+    return configured.display.to_stored()

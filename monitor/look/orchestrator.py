@@ -33,12 +33,12 @@ from ..stats.adaptive import AdaptiveBoundary
 from ..store.claims import claim
 from ..store.workers import record_check
 from ..store.looks import (AlertDraft, BoundaryLookRow, KeptState, LookWrite, archive_active, boundary_looks,
-                           read_state, write_look)
+                           read_state, write_display, write_look)
 from ..alerts.wording import decision_payload, volume_payload, volume_warnings
 from ..vocabulary import STOPPED_STATES, as_utc, json_safe
 from .cells import BASELINE_READ, counts, merge, roll_up, roll_up_baseline
 from .decision import LookInputs, alert_kind, decide, resumed_boundary, weigh
-from .design_check import frozen_design
+from .design_check import display_to_record, frozen_design
 from .memory import LookMemory
 from .plan import plan_state, resume_boundary
 from .record import LookRecord, QuietCheck
@@ -142,6 +142,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     stopwatch.lap("store_read")
     row = state.comparison
     if row is not None and (row["state"] in STOPPED_STATES or row["stopped_at"] is not None):
+        _record_display(engine, row, configured)
         return None
     if row is not None and row["last_look_at"] is not None and as_of < row["last_look_at"]:
         raise AsOfBeforeLastLookError(
@@ -173,6 +174,7 @@ def _look(config, c: ComparisonConfig, as_of, engine, source, memory: LookMemory
     look_counts = counts(batch, rolled, state.last_excluded)
     if row is not None and not (look_counts.new_events or look_counts.late_events or baseline
                                 or any(look_counts.excluded_new.values())):
+        _record_display(engine, row, design)
         return _quiet(engine, c, state, as_of, cutoff, checked_at, holder)
     last = state.last_boundary_look
     stored = design.to_stored()
@@ -241,6 +243,13 @@ def _settings(config, c) -> dict:
     if place is not None:
         settings["tick_offset"] = place
     return settings
+
+
+def _record_display(engine, row, configured: Design) -> None:
+    """Names and unit changed in the configuration, recorded on a version that takes no look now."""
+    display = display_to_record(row, configured)
+    if display is not None:
+        write_display(engine, row, display)
 
 
 def _quiet(engine, c, state, as_of, cutoff, checked_at, holder) -> QuietCheck:

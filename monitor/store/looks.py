@@ -35,6 +35,7 @@ __all__ = [
     "write_look",
     "upsert_cells",
     "archive_active",
+    "write_display",
 ]
 
 _COMPARISON = Comparison.__table__
@@ -87,6 +88,11 @@ _GUARDED_UPDATE = sa.update(_COMPARISON).where(
     _COMPARISON.c.replans == sa.bindparam("guard_replans"),
     _COMPARISON.c.archived.is_(False))
 _INSERT_LOOK = sa.insert(_LOOK).returning(_LOOK.c.id)
+# A new display on a version without a look: only while no look has moved the version on.
+_DISPLAY_UPDATE = sa.update(_COMPARISON).where(
+    _COMPARISON.c.id == sa.bindparam("guard_id"),
+    _COMPARISON.c.looks_taken == sa.bindparam("guard_looks"),
+    _COMPARISON.c.archived.is_(False)).values(design=sa.bindparam("new_design"))
 
 
 _CELL_SUMS = ("n", "sum_dev", "sum_dev2", "sum_den", "sum_den2", "sum_cross")
@@ -335,3 +341,23 @@ def archive_active(engine, name: str) -> int:
             raise UnknownComparisonError(f"no active comparison named {name!r} in the store")
         conn.execute(sa.update(_COMPARISON).where(_COMPARISON.c.id == row.id).values(archived=True))
     return row.version
+
+
+def write_display(engine, row: dict, display: dict) -> bool:
+    """Record new display names and unit on the active version ``row`` without a look.
+
+    For a version that takes no look now (it has stopped, or a check found nothing new): the
+    stored design changes in its ``display`` alone (``display`` is the stored form, ``{}`` for
+    none); no look row, no new version, nothing else of the row. Returns False when a look
+    or an archive moved the version on first (that look stores the display itself).
+    """
+    design = {k: v for k, v in (row["design"] or {}).items() if k != "display"}
+    if display:
+        design["display"] = display
+    try:
+        with engine.begin() as conn:
+            done = conn.execute(_DISPLAY_UPDATE, {"guard_id": row["id"], "guard_looks": row["looks_taken"],
+                                                  "new_design": design})
+    except OperationalError as exc:
+        raise _store_error("record the display names in", exc) from None
+    return done.rowcount == 1
