@@ -586,20 +586,18 @@ def test_look_memory_has_room_for_every_comparison(site):
 
 
 def test_many_comparisons_on_one_interval_start_spread_over_it():
-    """A large configuration's first looks are spread over the interval; a small one looks at once."""
-    from types import SimpleNamespace
-
-    from monitor.service.scheduler import STAGGER_FROM, first_look_delays
+    """A large configuration's ticks are spread over the interval; a small one's fall together."""
+    from monitor.calendar import SPREAD_FROM, schedule_places
 
     def comparisons(count, schedule=60.0, prefix="desk"):
-        return [SimpleNamespace(name=f"{prefix}-{k:04d}", schedule=schedule) for k in range(count)]
+        return {f"{prefix}-{k:04d}": schedule for k in range(count)}
 
-    few = first_look_delays(comparisons(STAGGER_FROM - 1))
+    few = schedule_places(comparisons(SPREAD_FROM - 1))
     assert set(few.values()) == {0.0}
 
-    many = comparisons(100) + comparisons(STAGGER_FROM - 1, 300.0, "dock") + comparisons(5, "0 6 * * *", "night")
-    delays = first_look_delays(many)
-    desks = sorted(delays[f"desk-{k:04d}"] for k in range(100))
+    places = schedule_places({**comparisons(100), **comparisons(SPREAD_FROM - 1, 300.0, "dock"),
+                              **comparisons(5, "0 6 * * *", "night")})
+    desks = sorted(places[f"desk-{k:04d}"] for k in range(100))
     assert desks == pytest.approx([0.6 * k for k in range(100)])   # evenly over 60 s, none at 60
-    assert all(delays[f"dock-{k:04d}"] == 0.0 for k in range(STAGGER_FROM - 1))
-    assert not any(name.startswith("night") for name in delays)      # cron waits for its own times
+    assert all(places[f"dock-{k:04d}"] == 0.0 for k in range(SPREAD_FROM - 1))
+    assert not any(name.startswith("night") for name in places)      # cron waits for its own times

@@ -41,7 +41,7 @@ from ..alerts import (
     redact,
     source_backoff_until,
 )
-from ..calendar import GRID_EPOCH, SPREAD_FROM, grid_tick, next_grid_tick, schedule_places
+from ..calendar import GRID_EPOCH, grid_tick, next_grid_tick
 from ..config import load_config
 from ..look import LookMemory, take_look
 from ..source.reader import Source
@@ -80,10 +80,6 @@ HOUSEKEEPING = "housekeeping"
 MEMORY_MIN_SIZE = 256
 # A tick may fire this much before the schedule's time and still count as due (a share of
 # the interval, capped): timer and claim jitter must not make a lone worker skip every other tick.
-# From this many interval comparisons on one schedule, their ticks are spread evenly over the
-# interval (calendar.SPREAD_FROM), so a large configuration does not fall due in one second and
-# leave the end of the queue past its misfire grace every time.
-STAGGER_FROM = SPREAD_FROM
 DUE_SLACK_SHARE = 0.1
 DUE_SLACK_CAP_SECONDS = 5.0
 
@@ -198,11 +194,6 @@ def is_due(comparison, last_checked, now, offset: float = 0.0) -> bool:
     return following is not None and (following - now).total_seconds() <= slack
 
 
-def first_look_delays(comparisons) -> dict:
-    """Each interval comparison's place on its schedule's grid (``calendar.schedule_places``)."""
-    return schedule_places({c.name: c.schedule for c in comparisons})
-
-
 def _schedule_key(comparison):
     return (comparison.every, comparison.timezone)
 
@@ -245,7 +236,7 @@ class Service:
         self._memory_size = None
         self.started_at = wall_clock()
         self._looked_at = None
-        # Each interval comparison's place on its schedule's grid (first_look_delays), seconds.
+        # Each interval comparison's place on its schedule's grid (Config.places), seconds.
         self._offsets: dict = {}
         # Comparisons this worker is looking at now (one thread each).
         self._looking: set = set()
@@ -512,7 +503,7 @@ class Service:
             executors={"default": ThreadPoolExecutor(workers), HOUSEKEEPING: ThreadPoolExecutor(2)},
             timezone=timezone.utc, job_defaults={"coalesce": True, "max_instances": 1},
         )
-        self._offsets = first_look_delays(self.config.comparisons)
+        self._offsets = self.config.places
         for comparison in self.config.comparisons:
             self._add_look_job(comparison, at_once=True)
         self.scheduler.add_job(
@@ -559,7 +550,7 @@ class Service:
         added = [n for n in after if n not in before]
         removed = [n for n in before if n not in after]
         rescheduled = [n for n in after if n in before and _schedule_key(after[n]) != _schedule_key(before[n])]
-        offsets, self._offsets = self._offsets, first_look_delays(new.comparisons)
+        offsets, self._offsets = self._offsets, new.places
         # Comparisons whose place on the grid moved (more or fewer on their schedule) keep ticking, there.
         moved = [n for n in after if n in before and n not in rescheduled
                  and offsets.get(n, 0.0) != self._offsets.get(n, 0.0)]
