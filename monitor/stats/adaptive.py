@@ -80,7 +80,7 @@ import numpy as np
 from scipy import special
 
 from ._checks import check_alternative, finite, open_unit
-from .boundaries import MIN_INCREMENT, NEGLIGIBLE_ALPHA, FutilitySpec, LookBoundary, SequentialBoundary
+from .boundaries import MIN_INCREMENT, NEGLIGIBLE_ALPHA, LookBoundary, SequentialBoundary
 from ..errors import InvalidArgumentError, ReplanRefusedError
 from .spending import parse_spending
 

@@ -67,7 +67,7 @@ from scipy import optimize, stats
 from ..errors import InvalidArgumentError
 from ._checks import check_alternative, finite, open_unit, whole
 from .clustered import ClusteredResult, _as_array, _key_codes, cluster_robust_difference
-from .fixed import _critical_values, _interval, _p_value
+from .fixed import IntervalRecord, _critical_values, _interval, _p_value
 from .planning import _quantiles, _stop_profile, design_boundaries, sequential_drift
 from .spending import parse_spending
 
@@ -127,7 +127,7 @@ def degrees_of_freedom(variance, clusters, bell_mccaffrey):
 
 
 @dataclass(frozen=True)
-class BeforeAfterResult:
+class BeforeAfterResult(IntervalRecord):
     """Difference in differences with a day-clustered (CR1) standard error.
 
     Attributes
@@ -175,6 +175,15 @@ class BeforeAfterResult:
         "counterfactual"}``); ``None`` unless asked for.
     notes : tuple of str
     alternative, alpha, null_difference
+    Examples
+    --------
+    >>> r = difference_in_differences([0, 1, 0, 1, 0, 1, 0, 1], [0, 0, 0, 0, 1, 1, 1, 1],
+    ...                               ["d1", "d1", "d2", "d2", "d3", "d3", "d4", "d4"],
+    ...                               [5, 5, 5, 5, 5, 5, 5, 5],
+    ...                               [55.0, 45.0, 52.0, 49.0, 41.0, 47.0, 43.0, 52.0], 0.0)
+    >>> low, high = r.confidence_interval(0.5)
+    >>> r.ci[0] < low < r.estimate < high < r.ci[1]
+    True
     """
 
     estimate: float
@@ -200,44 +209,7 @@ class BeforeAfterResult:
     alpha: float = 0.05
     null_difference: float = 0.0
     _interval: tuple = field(default=(), repr=False, compare=False)
-
-    @property
-    def degenerate(self) -> bool:
-        """Whether the data could not support a test."""
-        return any(note.startswith("degenerate:") for note in self.notes)
-
-    def confidence_interval(self, level: float = None) -> tuple:
-        """Interval (or one-sided bound) for the change at ``level`` (default ``1 − alpha``).
-
-        Examples
-        --------
-        >>> r = difference_in_differences([0, 1, 0, 1, 0, 1, 0, 1], [0, 0, 0, 0, 1, 1, 1, 1],
-        ...                               ["d1", "d1", "d2", "d2", "d3", "d3", "d4", "d4"],
-        ...                               [5, 5, 5, 5, 5, 5, 5, 5],
-        ...                               [55.0, 45.0, 52.0, 49.0, 41.0, 47.0, 43.0, 52.0], 0.0)
-        >>> low, high = r.confidence_interval(0.5)
-        >>> r.ci[0] < low < r.estimate < high < r.ci[1]
-        True
-        """
-        if level is None:
-            level = 1.0 - self.alpha
-        level = open_unit(level, "level")
-        if not self._interval:
-            return {"two-sided": (math.nan, math.nan), "greater": (math.nan, None),
-                    "less": (None, math.nan)}[self.alternative]
-        return _interval(self._interval, self.estimate, self.alternative, 1.0 - level)
-
-    def to_dict(self) -> dict:
-        """Plain dict (tuples become lists, the gaps their own dicts)."""
-        out = {}
-        for f in fields(self):
-            if f.name.startswith("_"):
-                continue
-            value = getattr(self, f.name)
-            if isinstance(value, ClusteredResult):
-                value = value.to_dict()
-            out[f.name] = list(value) if isinstance(value, tuple) else value
-        return out
+    _open_when_empty = True  # a one-sided bound with no data keeps its open end
 
 
 # ----------------------------------------------------------------------------- cells

@@ -37,7 +37,7 @@ from ..errors import InvalidArgumentError
 from ._checks import check_alternative as _check_alternative
 from ._checks import finite as _check_finite
 from ._checks import open_unit as _check_probability
-from .fixed import _critical_values, _interval, _p_value
+from .fixed import IntervalRecord, _critical_values, _interval, _p_value
 from scipy import optimize, stats
 
 __all__ = [
@@ -85,7 +85,7 @@ TOO_FEW_CLUSTERS_NOTE = "degenerate: fewer than two clusters (no degrees of free
 
 
 @dataclass(frozen=True)
-class ClusteredResult:
+class ClusteredResult(IntervalRecord):
     """Difference between two groups with a cluster-robust (CR1 or CR2) standard error.
 
     Attributes
@@ -130,6 +130,12 @@ class ClusteredResult:
         Clusters with events of group 1, of group 2, and of both.
     variance_method : str
         ``"cr1"`` or ``"cr2"`` (Bell–McCaffrey).
+    Examples
+    --------
+    >>> r = cluster_robust_difference([0, 0, 0, 1, 1, 1], [1, 2, 3, 1, 2, 3],
+    ...                               [10, 12, 9, 11, 10, 8], [52.0, 66.0, 41.0, 40.0, 39.0, 30.0], 0.0)
+    >>> r.confidence_interval(0.99)[0] < r.ci[0]
+    True
     """
 
     estimate: float
@@ -155,38 +161,6 @@ class ClusteredResult:
     shared_clusters: int = 0
     variance_method: str = "cr1"
     _interval: tuple = field(default=(), repr=False, compare=False)
-
-    @property
-    def degenerate(self) -> bool:
-        """Whether the data could not support a cluster-robust test."""
-        return any(note.startswith("degenerate:") for note in self.notes)
-
-    def confidence_interval(self, level: float = None) -> tuple:
-        """Interval (or one-sided bound) for the difference at ``level`` (default ``1 − alpha``).
-
-        Examples
-        --------
-        >>> r = cluster_robust_difference([0, 0, 0, 1, 1, 1], [1, 2, 3, 1, 2, 3],
-        ...                               [10, 12, 9, 11, 10, 8], [52.0, 66.0, 41.0, 40.0, 39.0, 30.0], 0.0)
-        >>> r.confidence_interval(0.99)[0] < r.ci[0]
-        True
-        """
-        if level is None:
-            level = 1.0 - self.alpha
-        level = _check_probability(level, "level")
-        if not self._interval:
-            return (math.nan, math.nan)
-        return _interval(self._interval, self.estimate, self.alternative, 1.0 - level)
-
-    def to_dict(self) -> dict:
-        """Plain-dict form (tuples become lists)."""
-        out = {}
-        for f in fields(self):
-            if f.name.startswith("_"):
-                continue
-            value = getattr(self, f.name)
-            out[f.name] = list(value) if isinstance(value, tuple) else value
-        return out
 
 
 @dataclass(frozen=True)

@@ -73,8 +73,53 @@ _ACCEPTED_INTERVALS = INTERVALS + ("score",)
 DEGENERATE_NOTE = "degenerate: both groups have zero variance"
 
 
+class IntervalRecord:
+    """What every two-group result record shares: its degenerate flag, its interval at any level
+    (rebuilt from the record's ``_interval`` recipe) and its plain-dict form.
+
+    A record with no recipe (the data could not support a test) has no interval: ``(nan, nan)``,
+    or, when ``_open_when_empty``, NaN with the open end of a one-sided bound marked ``None``.
+    """
+
+    _open_when_empty = False
+
+    @property
+    def degenerate(self) -> bool:
+        """Whether the data could not support a test."""
+        return any(note.startswith("degenerate:") for note in self.notes)
+
+    def confidence_interval(self, level: float = None) -> tuple:
+        """Confidence interval (or one-sided bound) for the difference at ``level`` (default ``1 − alpha``).
+
+        Returns ``(low, high)``; ``None`` marks the open end of a one-sided bound.
+        """
+        level = 1.0 - self.alpha if level is None else _check_probability(level, "level")
+        if not self._interval:
+            if self._open_when_empty:
+                return {"two-sided": (math.nan, math.nan), "greater": (math.nan, None),
+                        "less": (None, math.nan)}[self.alternative]
+            return (math.nan, math.nan)
+        return _interval(self._interval, self.estimate, self.alternative, 1.0 - level)
+
+    def to_dict(self) -> dict:
+        """Plain-dict form (JSON-friendly: tuples become lists, nested records their own dicts)."""
+        out = {}
+        for f in fields(self):
+            if f.name.startswith("_"):
+                continue
+            value = getattr(self, f.name)
+            if isinstance(value, IntervalRecord):
+                value = value.to_dict()
+            elif isinstance(value, tuple):
+                value = list(value)
+            elif isinstance(value, dict):
+                value = dict(value)
+            out[f.name] = value
+        return out
+
+
 @dataclass(frozen=True)
-class FixedSampleResult:
+class FixedSampleResult(IntervalRecord):
     """Outcome of one fixed-sample two-group test.
 
     Attributes
@@ -115,6 +160,13 @@ class FixedSampleResult:
         Two-sided F-test p-value for equal variances; ``None`` otherwise.
     notes : tuple of str
         Plain-language remarks (pooled or unpooled SE, degenerate data, ...).
+
+    Examples
+    --------
+    >>> r = welch_t(30, 10.0, 2.0, 25, 9.0, 3.0)
+    >>> low, high = r.confidence_interval(0.99)
+    >>> low < r.ci[0] and high > r.ci[1]
+    True
     """
 
     method: str
@@ -140,45 +192,6 @@ class FixedSampleResult:
     def degenerate(self) -> bool:
         """Whether the data had zero variance in both groups."""
         return DEGENERATE_NOTE in self.notes
-
-    def confidence_interval(self, level: float = None) -> tuple:
-        """Confidence interval (or one-sided bound) for the difference.
-
-        Parameters
-        ----------
-        level : float, optional
-            Confidence level in (0, 1); defaults to ``1 − alpha``.
-
-        Returns
-        -------
-        tuple
-            ``(low, high)``; ``None`` marks the open end of a one-sided bound.
-
-        Examples
-        --------
-        >>> r = welch_t(30, 10.0, 2.0, 25, 9.0, 3.0)
-        >>> low, high = r.confidence_interval(0.99)
-        >>> low < r.ci[0] and high > r.ci[1]
-        True
-        """
-        if level is None:
-            level = 1.0 - self.alpha
-        level = _check_probability(level, "level")
-        return _interval(self._interval, self.estimate, self.alternative, 1.0 - level)
-
-    def to_dict(self) -> dict:
-        """Plain-dict form (JSON-friendly: tuples become lists)."""
-        out = {}
-        for f in fields(self):
-            if f.name.startswith("_"):
-                continue
-            value = getattr(self, f.name)
-            if isinstance(value, tuple):
-                value = list(value)
-            elif isinstance(value, dict):
-                value = dict(value)
-            out[f.name] = value
-        return out
 
 
 # ----------------------------------------------------------------------------

@@ -28,14 +28,14 @@ Pure module: numpy and scipy only.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..errors import InvalidArgumentError
 from ._checks import check_alternative, finite, open_unit
 from .clustered import nested_cr2
-from .fixed import _critical_values, _interval, _p_value
+from .fixed import IntervalRecord, _critical_values, _interval, _p_value
 
 __all__ = ["RatioCells", "RatioResult", "ratio_difference", "ratio_planning_sd"]
 
@@ -66,7 +66,7 @@ class RatioCells:
 
 
 @dataclass(frozen=True)
-class RatioResult:
+class RatioResult(IntervalRecord):
     """Difference of two ratios ``R1 − R2`` with its delta-method standard error.
 
     Attributes
@@ -113,27 +113,6 @@ class RatioResult:
     alpha: float = 0.05
     null_difference: float = 0.0
     _interval: tuple = field(default=(), repr=False, compare=False)
-
-    @property
-    def degenerate(self) -> bool:
-        """Whether the data could not support the test."""
-        return any(note.startswith("degenerate:") for note in self.notes)
-
-    def confidence_interval(self, level: float | None = None) -> tuple:
-        """Interval (or one-sided bound) for ``R1 − R2`` at ``level`` (default ``1 − alpha``)."""
-        level = 1.0 - self.alpha if level is None else open_unit(level, "level")
-        if not self._interval:
-            return (math.nan, math.nan)
-        return _interval(self._interval, self.estimate, self.alternative, 1.0 - level)
-
-    def to_dict(self) -> dict:
-        """Plain-dict form (tuples become lists)."""
-        out = {}
-        for f in fields(self):
-            if not f.name.startswith("_"):
-                value = getattr(self, f.name)
-                out[f.name] = list(value) if isinstance(value, tuple) else value
-        return out
 
 
 def _arrays(cells: RatioCells):
@@ -288,7 +267,7 @@ def ratio_difference(cells: RatioCells, *, clustered: bool = False, null_differe
         # Σ e² per cell = Σ(y'−R x')² + 2k Σ(y'−R x') + n k², y' = y − c_y, x' = x − c_x.
         centred = a["num2"] - 2.0 * r_cell * a["cross"] + r_cell ** 2 * a["den2"]
         ss_cell = centred + 2.0 * k * (a["num"] - r_cell * a["den"]) + a["n"] * k ** 2
-        parts, rel_parts = [], []
+        parts = []
         for j in (0, 1):
             if sizes[j] < 2:
                 return _degenerate(ratios, None, TOO_FEW_ROWS_NOTE, notes, common)
