@@ -77,7 +77,8 @@ from .spec import (
     utc,
 )
 from .statements import (cells_statement, count_before_statement, first_values_statement, row_parts, rows_statements,
-                         time_params)
+                         sweep_statements, time_params)
+from .sweep import sweep, sweepable
 from .times import IsoLayout, TimeKind, to_utc_timestamps
 
 # The spec's names stay importable from here (older callers); the package lists them once.
@@ -263,6 +264,10 @@ class Source:
 
         def work(conn):
             statement, params = self._cells_statement(conn, spec, since, cutoff)
+            if since is None:
+                swept = self._sweep(conn, spec, params)
+                if swept is not None:
+                    return swept
             return conn.execute(statement, params).all()
 
         return self._batch(self._connect(spec, work), since, cutoff)
@@ -298,6 +303,22 @@ class Source:
             with self._lock:
                 by_params[shape] = statement
         return statement, params
+
+    def _sweep(self, conn, spec, params):
+        """A first read swept one slot at a time where the dialect and the time column allow it, else None."""
+        cols = self._resolve(conn, spec)
+        kind = self._time_kind(conn, spec, cols)
+        if not sweepable(self._dialect, kind, spec):
+            return None
+        key = (spec, kind, "sweep", tuple(sorted(params)))
+        with self._lock:
+            statements = self._statements.get(key)
+        if statements is None:
+            parts = row_parts(self._dialect, spec, cols, kind)
+            statements = sweep_statements(self._dialect, spec, cols, parts, params)
+            with self._lock:
+                self._statements[key] = statements
+        return sweep(conn, statements, kind, params)
 
     def _batch(self, rows, since, cutoff) -> Batch:
         excluded = {}

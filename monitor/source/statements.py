@@ -20,11 +20,12 @@ import sqlalchemy as sa
 
 from .binding import bind_like, bind_type, literal, literals
 from .columns import Columns
+from .spec import VALUE_LIMIT
 from .times import TimeKind, bind_time
 from ..vocabulary import as_utc
 
-__all__ = ["RowParts", "row_parts", "time_params", "cells_statement", "rows_statements", "count_before_statement",
-           "first_values_statement"]
+__all__ = ["RowParts", "row_parts", "time_params", "cells_select", "cells_statement", "rows_statements", "count_before_statement",
+           "first_values_statement", "SweepStatements", "sweep_statements"]
 
 
 @dataclass(frozen=True)
@@ -179,15 +180,13 @@ def _windowed(ranges: list, window: list | None) -> list:
     return [sa.and_(r, w) for r, w in zip(ranges, window, strict=True)]
 
 
-def cells_statement(dialect, spec, parts: RowParts, params: dict):
-    """The aggregate over new and late rows, with bound parameters named like ``params``.
+def cells_select(dialect, spec, parts: RowParts, where, late=False, why=None):
+    """One branch of the cell aggregate: the rows ``where`` holds, per group, 15-minute slot, key and reason.
 
-    ``params`` holds ``upper`` (this cutoff), and on later reads ``lower`` (the previous
-    cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column
-    (see ``time_params`` for cutoffs compared in more than one storage). A spec with an
-    event-time window adds ``start`` (inclusive) and/or ``end`` (exclusive).
+    Its columns are the reader's: group index, slot, key, reason (NULL for valid rows), count,
+    late count, ``Σ(x − c)``, ``Σ(x − c)²``, largest arrival, and for a ratio metric the
+    denominator's sums. ``late`` marks every row late; ``why`` gives every row that reason.
     """
-    bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
     kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
     dev = parts.summand - float(spec.shift)
     ratio = parts.denominator is not None
@@ -195,46 +194,61 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
     # Grouped by output position: the CASE expressions are evaluated once per row
     # (bound parameters make each repeated expression text distinct to the database).
     by_position = [sa.literal_column(str(i)) for i in (1, 2, 3, 4)]
+    # Each row's time and deviation are computed once in an inner select (the dialect may
+    # fence it so the database does not inline the expressions again); the outer select
+    # buckets and sums them.
+    rows = dialect.fence(
+        sa.select(
+            parts.group_index.label("gi"),
+            parts.epoch.label("at"),
+            time_raw.is_(None).label("no_time"),
+            parts.key.label("key"),
+            parts.other_reason.label("other"),
+            dev.label("dev"),
+            *([den_dev.label("den")] if ratio else []),
+            (arrival if arrival is not None else sa.null()).label("arrival"),
+        ).where(*where, *parts.filters)
+    ).subquery("r")
+    reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
+    if why is not None:
+        reason = sa.literal(why, sa.Text)
+    ratio_sums = []
+    if ratio:
+        ratio_sums = [
+            sa.func.sum(rows.c.den).label("sum_den"),
+            sa.func.sum(rows.c.den * rows.c.den).label("sum_den2"),
+            sa.func.sum(rows.c.dev * rows.c.den).label("sum_cross"),
+        ]
+    return sa.select(
+        rows.c.gi,
+        dialect.slot(kind, rows.c.at).label("slot"),
+        rows.c.key,
+        reason.label("reason"),
+        sa.func.count().label("n"),
+        (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
+        # Sums of bad groups are ignored; only valid groups' sums are used.
+        sa.func.sum(rows.c.dev).label("sum_dev"),
+        sa.func.sum(rows.c.dev * rows.c.dev).label("sum_dev2"),
+        sa.func.max(rows.c.arrival).label("arrival"),
+        *ratio_sums,
+    ).group_by(*by_position)
+
+
+def cells_statement(dialect, spec, parts: RowParts, params: dict, first_ranges=None):
+    """The aggregate over new and late rows, with bound parameters named like ``params``.
+
+    ``params`` holds ``upper`` (this cutoff), and on later reads ``lower`` (the previous
+    cutoff) and ``seen`` (the previous arrival watermark) when there is an arrival column
+    (see ``time_params`` for cutoffs compared in more than one storage). A spec with an
+    event-time window adds ``start`` (inclusive) and/or ``end`` (exclusive). ``first_ranges``
+    (first read only), given the bound parameters, returns time ranges to read instead of the
+    dialect's: a sweep reads most of the text range itself (``sweep.py``).
+    """
+    bound = {name: sa.bindparam(name, type_=bind_type(v)) for name, v in params.items()}
+    kind, time_raw, arrival = parts.kind, parts.time_raw, parts.arrival
 
     def part(where, late, why=None):
-        # Each row's time and deviation are computed once in an inner select (the dialect
-        # may fence it so the database does not inline the expressions again); the outer
-        # select buckets and sums them.
-        rows = dialect.fence(
-            sa.select(
-                parts.group_index.label("gi"),
-                parts.epoch.label("at"),
-                time_raw.is_(None).label("no_time"),
-                parts.key.label("key"),
-                parts.other_reason.label("other"),
-                dev.label("dev"),
-                *([den_dev.label("den")] if ratio else []),
-                (arrival if arrival is not None else sa.null()).label("arrival"),
-            ).where(*where, *parts.filters)
-        ).subquery("r")
-        reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
-        if why is not None:
-            reason = sa.literal(why, sa.Text)
-        ratio_sums = []
-        if ratio:
-            ratio_sums = [
-                sa.func.sum(rows.c.den).label("sum_den"),
-                sa.func.sum(rows.c.den * rows.c.den).label("sum_den2"),
-                sa.func.sum(rows.c.dev * rows.c.den).label("sum_cross"),
-            ]
-        return sa.select(
-            rows.c.gi,
-            dialect.slot(kind, rows.c.at).label("slot"),
-            rows.c.key,
-            reason.label("reason"),
-            sa.func.count().label("n"),
-            (sa.func.count() if late else sa.literal(0, sa.Integer)).label("late"),
-            # Sums of bad groups are ignored; only valid groups' sums are used.
-            sa.func.sum(rows.c.dev).label("sum_dev"),
-            sa.func.sum(rows.c.dev * rows.c.dev).label("sum_dev2"),
-            sa.func.max(rows.c.arrival).label("arrival"),
-            *ratio_sums,
-        ).group_by(*by_position)
+        return cells_select(dialect, spec, parts, where, late, why)
 
     upper, lower = _bounds(bound, "upper"), _bounds(bound, "lower")
     start, end = _bounds(bound, "start"), _bounds(bound, "end")
@@ -243,7 +257,8 @@ def cells_statement(dialect, spec, parts: RowParts, params: dict):
     if lower is None:
         # The first read scans the most: one branch per disjoint time range, each a plain index
         # range scan (cells that two branches share are added up by the reader).
-        branches = [part([r], 0) for r in _windowed(dialect.time_ranges(kind, time_raw, None, upper), window)]
+        ranges = dialect.time_ranges(kind, time_raw, None, upper) if first_ranges is None else first_ranges(bound)
+        branches = [part([r], 0) for r in _windowed(ranges, window)]
         if end is None:
             # NULL times (and words) never fall in a time range: count them once, on the first
             # read (of the comparison, not of its baseline), one branch each (an OR of the two
@@ -320,3 +335,89 @@ def first_values_statement(parts: RowParts, limit: int = 25):
         .order_by(parts.time_raw)
         .limit(limit)
     )
+
+
+@dataclass(frozen=True)
+class SweepStatements:
+    """The statements of a first read that sweeps the text range one slot at a time (``sweep.py``).
+
+    Bound names besides the read's own (``upper``, ``upper_1``, ``start`` …): ``sweep_from``
+    (where the swept text begins; ``rest`` reads everything before it, the numbers and the
+    unplaced rows), ``from_text`` and ``to_text`` (one chunk of text: from inclusive, to
+    exclusive, or inclusive in the ``…_last`` variants), ``slot_first`` and ``slot_last`` (the
+    chunk's slot, epoch seconds, both inclusive).
+    """
+
+    rest: object
+    screen: object
+    screen_last: object
+    chunk: object
+    chunk_last: object
+    seek: object
+
+
+def sweep_statements(dialect, spec, cols: Columns, parts: RowParts, params: dict) -> SweepStatements:
+    """The rest, screen, chunk and seek statements of a swept first read of ISO-text times."""
+    raw = parts.time_raw
+    names = (*params, "sweep_from", "from_text", "to_text")
+    bound = {name: sa.bindparam(name, type_=bind_type(params.get(name, ""))) for name in names}
+    bound.update(slot_first=sa.bindparam("slot_first", type_=sa.BigInteger()),
+                 slot_last=sa.bindparam("slot_last", type_=sa.BigInteger()))
+    upper = _bounds(bound, "upper")
+    text_start = [raw >= bound["start"]] if "start" in bound else []
+
+    def first_ranges(read_bound):
+        # Text before the swept part (normally none), then every other storage as usual.
+        return [sa.and_(raw >= sa.literal(""), raw < read_bound["sweep_from"]),
+                *dialect.time_ranges(parts.kind, raw, None, _bounds(read_bound, "upper"))[1:]]
+
+    rest = cells_statement(dialect, spec, parts, {**params, "sweep_from": ""}, first_ranges=first_ranges)
+    within = [raw >= bound["from_text"], raw < bound["to_text"], *text_start]
+    within_last = [raw >= bound["from_text"], raw <= bound["to_text"], *text_start]
+    screen = _screen_select(dialect, spec, cols, parts, bound)
+    return SweepStatements(
+        rest=rest,
+        screen=screen.where(*within),
+        screen_last=screen.where(*within_last),
+        chunk=cells_select(dialect, spec, parts, within),
+        chunk_last=cells_select(dialect, spec, parts, within_last),
+        seek=sa.select(sa.func.min(raw), dialect.plain_epoch(sa.func.min(raw)))
+        .where(raw >= bound["from_text"], raw <= upper[0]),
+    )
+
+
+def _screen_select(dialect, spec, cols: Columns, parts: RowParts, bound: dict):
+    """Per group (and key) of one slot's rows: count, how many pass plainly, shifted sums, largest arrival.
+
+    A row passes when its time reads to an instant inside the slot and its value (and
+    denominator) is a stored number that no reason could exclude. Where every row passes, the
+    counts and sums equal those of ``cells_select`` over the same rows.
+    """
+    value = dialect.plain_number(cols.raw(spec.value_column))
+    low, high = -VALUE_LIMIT, VALUE_LIMIT
+    if spec.valid_range is not None:
+        range_low, range_high = spec.valid_range
+        low = low if range_low is None else max(low, float(range_low))
+        high = high if range_high is None else min(high, float(range_high))
+    passes = [dialect.plain_epoch(parts.time_raw).between(bound["slot_first"], bound["slot_last"]),
+              value.between(literal(low), literal(high))]
+    if spec.metric == "proportion":
+        passes.append(value.in_(literals((0, 1))))
+    dev = value - float(spec.shift)
+    ratio_sums = []
+    if spec.denominator_column:
+        den = dialect.plain_number(cols.raw(spec.denominator_column))
+        passes.extend([den > literal(0), den <= literal(VALUE_LIMIT)])
+        den_dev = den - float(spec.shift_den)
+        ratio_sums = [sa.func.sum(den_dev), sa.func.sum(den_dev * den_dev), sa.func.sum(dev * den_dev)]
+    arrival = parts.arrival if parts.arrival is not None else sa.null()
+    return sa.select(
+        parts.group_index,
+        parts.key,
+        sa.func.count(),
+        sa.func.sum(sa.and_(*passes)),
+        sa.func.sum(dev),
+        sa.func.sum(dev * dev),
+        sa.func.max(arrival),
+        *ratio_sums,
+    ).where(*parts.filters).group_by(*(sa.literal_column(str(i)) for i in ((1, 2) if spec.key_column else (1,))))

@@ -46,6 +46,9 @@ class SourceDialect:
     typed_values = True
     #: Whether range reads need an index on the time column (column stores prune by min/max instead).
     wants_indexes = True
+    #: Whether a first read of ISO-text times sweeps them one slot at a time (``source/sweep.py``):
+    #: worth it where each statement is cheap (an in-process database) and grouping sorts.
+    sweeps_text_times = False
 
     def __init__(self, url: sa.engine.URL):
         self.url = url
@@ -217,6 +220,15 @@ class SourceDialect:
     def valid_text_epoch(self, raw):
         """Well-formed ISO-8601 text as epoch seconds (text without an offset is UTC)."""
         return self.timestamp_epoch(sa.cast(raw, sa.DateTime(timezone=True)))
+
+    def plain_epoch(self, raw):
+        """ISO text as epoch seconds without the date checks of ``epoch`` (a sweep checks each
+        instant against its slot instead); only for dialects that sweep."""
+        raise NotImplementedError
+
+    def plain_number(self, raw):
+        """A stored value as compared with numbers by a sweep's screen: only a stored number may pass."""
+        return raw
 
     def fence(self, select):
         """An inner select whose columns the database computes once per row (planners inline it here)."""

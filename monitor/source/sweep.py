@@ -1,0 +1,138 @@
+"""The first read of ISO-text times, one 15-minute slot at a time.
+
+A first read groups every row up to the cutoff by group, slot and reason. SQLite groups by
+sorting, and sorting millions of rows in one statement, with the checks each row needs, cost
+about four times the bare per-group aggregate. Where the dialect says so
+(``sweeps_text_times``) the first read instead walks the text range slot by slot, on one
+connection and inside one read transaction, so every statement sees the same rows:
+
+* a *screen* per slot counts, per group (and key), the rows and how many of them plainly pass:
+  a time that reads to an instant inside this slot, a value stored as a number that no reason
+  excludes (within the limits, the range, 0 or 1 for a rate), a usable denominator; with the
+  shifted sums and the largest arrival;
+* a slot whose rows all pass gives its cells straight from the screen; any other slot is read
+  again by the full statement (``statements.cells_select``: every reason, numbers kept as
+  text, dates that roll over into another slot), so the cells and counts are those of the
+  one-statement read;
+* an empty slot is followed by a seek on the time index to the next stored text;
+* the text before the first slot, the times stored as numbers and the rows without a time are
+  read by one full statement (``rest``).
+
+The sweep gives up (returns None, and the one-statement read runs) when none of the first
+texts can be read in the layout the cutoffs are written in.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+
+from .spec import SLOT_SECONDS
+from .statements import SweepStatements
+
+__all__ = ["sweepable", "sweep"]
+
+# How many unreadable texts at the start of the range the sweep steps over before it gives up.
+_FIRST_TEXT_TRIES = 50
+
+
+def sweepable(dialect, kind, spec) -> bool:
+    """Whether a first read of this spec may sweep: ISO text with a clock time, no baseline end."""
+    layout = kind.iso
+    return (dialect.sweeps_text_times and kind.kind == "stored" and layout is not None
+            and layout.sep is not None and spec.end is None)
+
+
+class _Raw:
+    """One compiled statement run straight on the driver's cursor (thousands of runs per read)."""
+
+    def __init__(self, conn, statement):
+        compiled = statement.compile(dialect=conn.dialect)
+        self.sql = str(compiled)
+        self.names = compiled.positiontup
+        self.fixed = compiled.params
+
+    def run(self, cursor, values: dict) -> list:
+        cursor.execute(self.sql, [values[n] if n in values else self.fixed[n] for n in self.names])
+        return cursor.fetchall()
+
+
+def sweep(conn, statements: SweepStatements, kind, params: dict) -> list | None:
+    """The first read's rows (as ``cells_statement`` gives them), or None where the sweep does not apply."""
+    layout = kind.iso
+    driver = conn.connection.dbapi_connection
+    if not driver.in_transaction:
+        driver.execute("BEGIN")  # one snapshot for every statement below; returning the connection ends it
+    cursor = driver.cursor()
+    try:
+        return _walk(conn, cursor, statements, layout, params)
+    finally:
+        cursor.close()
+
+
+def _first_slot(cursor, seek, layout, params):
+    """(text where the sweep begins, its slot): the slot of the first readable text in the cutoffs' layout.
+
+    Texts before it (a number kept as text, a word-like date) are left to the full statement.
+    (None, None) when there is no text up to the cutoff or none readable among the first few.
+    """
+    start = params.get("start", "")
+    for _attempt in range(_FIRST_TEXT_TRIES):
+        text, epoch = seek.run(cursor, {**params, "from_text": start})[0]
+        if text is None:
+            return None, None
+        if epoch is not None:
+            slot = _slot_of(epoch)
+            begin = _text(layout, slot)
+            if begin is not None and begin <= text:
+                return begin, slot
+        start = text + "\x00"  # the least text after this one
+    return None, None
+
+
+def _slot_of(epoch) -> int:
+    return int(epoch) // SLOT_SECONDS * SLOT_SECONDS
+
+
+def _walk(conn, cursor, statements, layout, params):
+    upper = params["upper"]
+    seek, screen, screen_last = (_Raw(conn, s) for s in (statements.seek, statements.screen, statements.screen_last))
+    begin, slot = _first_slot(cursor, seek, layout, params)
+    if begin is None:
+        return None
+    rows = list(conn.execute(statements.rest, {**params, "sweep_from": begin}))
+    low = begin
+    while True:
+        high = _text(layout, slot + SLOT_SECONDS)
+        last = high is None or high > upper
+        chunk = {**params, "from_text": low, "to_text": upper if last else high,
+                 "slot_first": slot, "slot_last": slot + SLOT_SECONDS - 1}
+        found = (screen_last if last else screen).run(cursor, chunk)
+        if all(passed == count for _gi, _key, count, passed, *_sums in found):
+            rows.extend((gi, slot, key, None if gi is not None else "unknown_group", count, 0, *sums)
+                        for gi, key, count, _passed, *sums in found)
+        else:
+            rows.extend(conn.execute(statements.chunk_last if last else statements.chunk, chunk))
+        if last:
+            return rows
+        low = high
+        if found:
+            slot += SLOT_SECONDS
+            continue
+        # An empty slot: jump to the slot of the next stored text (the chunk still starts at
+        # ``low``, so the texts between are read, and there are none).
+        text, epoch = seek.run(cursor, {**params, "from_text": high})[0]
+        if text is None:
+            return rows
+        if epoch is None or _slot_of(epoch) <= slot:
+            # Unreadable, or earlier than its place in the text order: read the rest in one go.
+            rows.extend(conn.execute(statements.chunk_last, {**params, "from_text": high, "to_text": upper}))
+            return rows
+        slot = _slot_of(epoch)
+
+
+def _text(layout, epoch: int) -> str | None:
+    """The moment ``epoch`` in the cutoffs' layout; None beyond the years a text can hold."""
+    try:
+        return layout.format(datetime.fromtimestamp(epoch, tz=timezone.utc))
+    except (ValueError, OverflowError, OSError):
+        return None
