@@ -43,16 +43,24 @@ def sweepable(dialect, kind, spec) -> bool:
 
 
 class _Raw:
-    """One compiled statement run straight on the driver's cursor (thousands of runs per read)."""
+    """One compiled statement run straight on the driver's cursor (thousands of runs per read).
 
-    def __init__(self, conn, statement):
+    The read's own values are bound once; ``run`` fills in only what changes from chunk to chunk.
+    """
+
+    def __init__(self, conn, statement, params: dict):
         compiled = statement.compile(dialect=conn.dialect)
         self.sql = str(compiled)
         self.names = compiled.positiontup
-        self.fixed = compiled.params
+        values = {**compiled.params, **params}
+        self.values = [values.get(n) for n in self.names]
 
-    def run(self, cursor, values: dict) -> list:
-        cursor.execute(self.sql, [values[n] if n in values else self.fixed[n] for n in self.names])
+    def run(self, cursor, changing: dict) -> list:
+        values = self.values[:]
+        for i, name in enumerate(self.names):
+            if name in changing:
+                values[i] = changing[name]
+        cursor.execute(self.sql, values)
         return cursor.fetchall()
 
 
@@ -77,7 +85,7 @@ def _first_slot(cursor, seek, layout, params):
     """
     start = params.get("start", "")
     for _attempt in range(_FIRST_TEXT_TRIES):
-        text, epoch = seek.run(cursor, {**params, "from_text": start})[0]
+        text, epoch = seek.run(cursor, {"from_text": start})[0]
         if text is None:
             return None, None
         if epoch is not None:
@@ -95,7 +103,8 @@ def _slot_of(epoch) -> int:
 
 def _walk(conn, cursor, statements, layout, params):
     upper = params["upper"]
-    seek, screen, screen_last = (_Raw(conn, s) for s in (statements.seek, statements.screen, statements.screen_last))
+    seek, screen, screen_last = (_Raw(conn, s, params)
+                                 for s in (statements.seek, statements.screen, statements.screen_last))
     begin, slot = _first_slot(cursor, seek, layout, params)
     if begin is None:
         return None
@@ -104,14 +113,15 @@ def _walk(conn, cursor, statements, layout, params):
     while True:
         high = _text(layout, slot + SLOT_SECONDS)
         last = high is None or high > upper
-        chunk = {**params, "from_text": low, "to_text": upper if last else high,
+        chunk = {"from_text": low, "to_text": upper if last else high,
                  "slot_first": slot, "slot_last": slot + SLOT_SECONDS - 1}
         found = (screen_last if last else screen).run(cursor, chunk)
-        if all(passed == count for _gi, _key, count, passed, *_sums in found):
-            rows.extend((gi, slot, key, None if gi is not None else "unknown_group", count, 0, *sums)
-                        for gi, key, count, _passed, *sums in found)
+        if all(row[3] == row[2] for row in found):  # passed == count: every row plainly passed
+            # Screen row (gi, key, count, passed, sums…) as a cell row (gi, slot, key, reason, count, late, sums…).
+            rows.extend((row[0], slot, row[1], None if row[0] is not None else "unknown_group", row[2], 0) + row[4:]
+                        for row in found)
         else:
-            rows.extend(conn.execute(statements.chunk_last if last else statements.chunk, chunk))
+            rows.extend(conn.execute(statements.chunk_last if last else statements.chunk, {**params, **chunk}))
         if last:
             return rows
         low = high
@@ -120,7 +130,7 @@ def _walk(conn, cursor, statements, layout, params):
             continue
         # An empty slot: jump to the slot of the next stored text (the chunk still starts at
         # ``low``, so the texts between are read, and there are none).
-        text, epoch = seek.run(cursor, {**params, "from_text": high})[0]
+        text, epoch = seek.run(cursor, {"from_text": high})[0]
         if text is None:
             return rows
         if epoch is None or _slot_of(epoch) <= slot:
