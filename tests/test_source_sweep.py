@@ -216,3 +216,36 @@ def test_rows_written_during_a_sweep_are_read_later_never_lost(tmp_path, monkeyp
     second = source.read_cells(spec, first.watermark, cutoff + timedelta(hours=1))
     source.dispose()
     assert second.new_events == 2 and second.late_events == 2  # both arrive late, once
+
+
+LAYOUTS = {
+    "space-seconds": lambda m: m.astimezone(UTC).replace(tzinfo=None).isoformat(sep=" ", timespec="seconds"),
+    "t-millis-z": lambda m: m.astimezone(UTC).replace(tzinfo=None).isoformat(sep="T", timespec="milliseconds") + "Z",
+    "offset": lambda m: m.astimezone(timezone(timedelta(hours=5, minutes=45))).isoformat(sep="T", timespec="seconds"),
+    "minutes": lambda m: m.astimezone(UTC).replace(tzinfo=None).isoformat(sep=" ", timespec="minutes"),
+}
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_every_iso_layout_sweeps_to_the_same_cells(tmp_path, monkeypatch, sweeps, layout):
+    write = LAYOUTS[layout]
+    rng = np.random.default_rng(11)
+    rows, moment = [], T0
+    while moment < T0 + timedelta(days=1, hours=7):
+        rows.append(["east" if rng.random() < 0.5 else "west", float(rng.normal(100, 12)), write(moment),
+                     "k1", 2.0, "day", 1])
+        moment += timedelta(seconds=int(rng.integers(5, 120)))
+    # Another layout and another offset among them: read at their own instants, in other slots.
+    rows.append(["east", 90.0, _text(T0 + timedelta(hours=3, minutes=7)), "k1", 2.0, "day", 1])
+    rows.append(["west", 95.0, (T0 + timedelta(hours=4)).astimezone(timezone(timedelta(hours=-3))).isoformat(),
+                 "k1", 2.0, "day", 1])
+    path = tmp_path / "ops.sqlite"
+    _table(path, rows)
+    url = f"sqlite:///{path}"
+    spec = spec_for(arrival_column="id")
+    for cutoff in (T0 + timedelta(hours=5, minutes=7, seconds=30), T0 + timedelta(days=2)):
+        source = Source(url)
+        swept = source.read_cells(spec, None, cutoff)
+        source.dispose()
+        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    assert sweeps["swept"] == 2 and swept.new_events > 1000
