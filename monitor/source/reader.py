@@ -22,9 +22,10 @@ Requirements on the source table
   time). In SQLite each stored time is read by its own storage class: text as
   ISO-8601, integers and reals as epoch seconds, so one number among text times
   hides nothing. A time that cannot be read (text that is not an ISO-8601
-  date-time, an impossible date, an epoch beyond year 9999) is ``bad_time``:
-  counted when a read's time range reaches it, or — for words, which sort after
-  every date — once, on the first read or by its arrival.
+  date-time, an impossible date, an epoch beyond year 9999, an infinite
+  timestamp) is ``bad_time``: counted when a read's time range reaches it, or —
+  for words and ``infinity``, which sort after every date — once, on the first
+  read or by its arrival.
 * Arrival column (optional, e.g. an auto-increment id or an ``inserted_at``
   column): increases with insertion; used to find late events. On SQLite the
   implicit rowid serves when no arrival column is configured (a ``VACUUM`` may

@@ -21,6 +21,7 @@ _SETTINGS = (("timezone", "UTC"), ("jit", "off"), ("work_mem", "32MB"))
 
 class PostgreSQLDialect(SourceDialect):
     names = ("postgresql",)
+    infinite_times = True
 
     @property
     def enforces_read_only(self):
@@ -49,5 +50,8 @@ class PostgreSQLDialect(SourceDialect):
     def timestamp_epoch(self, raw):
         # date_part gives double precision directly; EXTRACT gives numeric (PostgreSQL 14 and
         # later), whose conversion back to a double cost more than the rest of a row's work.
-        # Both are the exact microseconds over 1e6, rounded once to a double.
-        return sa.func.date_part(sa.literal_column("'epoch'"), raw, type_=sa.Float)
+        # Both are the exact microseconds over 1e6, rounded once to a double. An infinite
+        # timestamp or date has no epoch (date_part's ±Infinity failed the slot's cast, and with
+        # it every read): NULL, so the row is bad_time.
+        epoch = sa.func.date_part(sa.literal_column("'epoch'"), raw, type_=sa.Float)
+        return sa.case((sa.func.isfinite(raw), epoch), else_=None)
