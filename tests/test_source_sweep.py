@@ -216,3 +216,15 @@ def test_rows_written_during_a_sweep_are_read_later_never_lost(tmp_path, monkeyp
     second = source.read_cells(spec, first.watermark, cutoff + timedelta(hours=1))
     source.dispose()
     assert second.new_events == 2 and second.late_events == 2  # both arrive late, once
+
+
+@pytest.mark.parametrize("text", ["2025-02-26 06:00:00", "2025-02-26T06:00:00.123Z", "2025-02-26T06:00:00+05:45",
+                                  "2025-02-26T06:00-03:30", "2025-02-26 06:00:00.1234567"])
+def test_slot_starts_are_written_as_the_layout_writes_them(text):
+    from monitor.source.times import IsoLayout
+
+    layout = IsoLayout.detect(text)
+    texts = sweep_module._SlotTexts(layout)
+    rng = np.random.default_rng(5)
+    for slot in [0, -900, 951782400, 4102444800, *(int(s) * 900 for s in rng.integers(-3_000_000, 3_000_000, 500))]:
+        assert texts(slot) == sweep_module._text(layout, slot), slot

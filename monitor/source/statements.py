@@ -200,7 +200,7 @@ def cells_select(dialect, spec, parts: RowParts, where, late=False, why=None):
     rows = dialect.fence(
         sa.select(
             parts.group_index.label("gi"),
-            parts.epoch.label("at"),
+            dialect.row_time(kind, time_raw, parts.epoch).label("at"),
             time_raw.is_(None).label("no_time"),
             parts.key.label("key"),
             parts.other_reason.label("other"),

@@ -241,9 +241,25 @@ class SourceDialect:
         """An inner select whose columns the database computes once per row (planners inline it here)."""
         return select
 
-    def slot(self, kind: TimeKind, epoch):
-        """The start of the event's 15-minute UTC slot, in epoch seconds."""
-        return sa.cast(sa.func.floor(epoch / SLOT_SECONDS) * SLOT_SECONDS, sa.BigInteger)
+    def learn(self, conn):
+        """Note what the server offers before statements are built (e.g. its version); nothing here."""
+
+    def row_time(self, kind: TimeKind, raw, epoch):
+        """What a read's inner select keeps of each row's time: NULL for an unreadable time (so
+        the row is ``bad_time``), else what ``slot`` makes the slot of; by default the epoch."""
+        return epoch
+
+    def slot(self, kind: TimeKind, at):
+        """The start of the event's 15-minute UTC slot (``at`` as ``row_time`` gave it), in epoch seconds.
+
+        A dialect may give it as a timestamp instead; ``slot_seconds`` then turns each value
+        the database returns into epoch seconds.
+        """
+        return sa.cast(sa.func.floor(at / SLOT_SECONDS) * SLOT_SECONDS, sa.BigInteger)
+
+    def slot_seconds(self, value) -> int:
+        """A slot as a read returned it, in epoch seconds."""
+        return int(value)
 
     # ------------------------------------------------------------------ values
 
