@@ -271,6 +271,36 @@ def test_unreadable_time_text_is_counted_as_bad_time_once(backend_url):
     source.dispose()
 
 
+@pytest.mark.parametrize("backend_url", backends("postgresql", "duckdb"), indirect=True)
+def test_infinite_timestamps_are_bad_times_and_stop_no_read(backend_url):
+    """PostgreSQL and DuckDB timestamps can be ±infinity: each is counted once as bad_time, never fails a read."""
+    frame = make_events(300, seed=48, span=timedelta(hours=6))
+    infinite = pd.DataFrame([{"site": "east", "value": 1.0, "done_at": "-infinity"},
+                             {"site": "west", "value": 2.0, "done_at": "infinity"}])
+    create_events_table(backend_url, pd.concat([frame.iloc[:150], infinite, frame.iloc[150:]]).reset_index(drop=True),
+                        time_storage="timestamptz" if _backend(backend_url) == "postgresql" else "timestamp")
+    source = Source(backend_url)
+    spec = spec_for(arrival_column="id")
+    since, total, excluded = None, {}, {}
+    for hours in (2, 4, 7):
+        batch = source.read_cells(spec, since, START + timedelta(hours=hours))
+        for k, v in as_dict(batch.cells).items():
+            n, s1, s2 = total.get(k, (0, 0.0, 0.0))
+            total[k] = (n + v[0], s1 + v[1], s2 + v[2])
+        for reason, count in batch.excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
+        since = batch.watermark
+    storage = "timestamptz" if _backend(backend_url) == "postgresql" else "timestamp"
+    assert_cells_equal(total, reference_cells(frame, storage, 100.0))
+    assert excluded == {"bad_time": 2}
+    # A later one is counted by its arrival, once.
+    append_events(backend_url, [{"site": "west", "value": 2.0, "done_at": "-infinity"}])
+    later = source.read_cells(spec, since, START + timedelta(hours=8))
+    assert later.excluded == {"bad_time": 1} and later.new_events == 0
+    assert source.read_rows(spec, START + timedelta(hours=8)).attrs["excluded"] == {"bad_time": 3}
+    source.dispose()
+
+
 @pytest.mark.parametrize("backend_url", EVERY_DATABASE, indirect=True)
 def test_an_unreadable_earliest_time_does_not_block_the_looks(backend_url, tmp_path):
     rows = event_rows(np.random.default_rng(47), 300, T0, east=101.0)

@@ -249,3 +249,14 @@ def test_every_iso_layout_sweeps_to_the_same_cells(tmp_path, monkeypatch, sweeps
         source.dispose()
         _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
     assert sweeps["swept"] == 2 and swept.new_events > 1000
+
+@pytest.mark.parametrize("text", ["2025-02-26 06:00:00", "2025-02-26T06:00:00.123Z", "2025-02-26T06:00:00+05:45",
+                                  "2025-02-26T06:00-03:30", "2025-02-26 06:00:00.1234567"])
+def test_slot_starts_are_written_as_the_layout_writes_them(text):
+    from monitor.source.times import IsoLayout
+
+    layout = IsoLayout.detect(text)
+    texts = sweep_module._SlotTexts(layout)
+    rng = np.random.default_rng(5)
+    for slot in [0, -900, 951782400, 4102444800, *(int(s) * 900 for s in rng.integers(-3_000_000, 3_000_000, 500))]:
+        assert texts(slot) == sweep_module._text(layout, slot), slot

@@ -22,9 +22,10 @@ Requirements on the source table
   time). In SQLite each stored time is read by its own storage class: text as
   ISO-8601, integers and reals as epoch seconds, so one number among text times
   hides nothing. A time that cannot be read (text that is not an ISO-8601
-  date-time, an impossible date, an epoch beyond year 9999) is ``bad_time``:
-  counted when a read's time range reaches it, or — for words, which sort after
-  every date — once, on the first read or by its arrival.
+  date-time, an impossible date, an epoch beyond year 9999, an infinite
+  timestamp) is ``bad_time``: counted when a read's time range reaches it, or —
+  for words and ``infinity``, which sort after every date — once, on the first
+  read or by its arrival.
 * Arrival column (optional, e.g. an auto-increment id or an ``inserted_at``
   column): increases with insertion; used to find late events. On SQLite the
   implicit rowid serves when no arrival column is configured (a ``VACUUM`` may
@@ -275,6 +276,7 @@ class Source:
 
     def _cells_statement(self, conn, spec, since, cutoff):
         """The aggregate statement (built once per spec and shape) and its bound values."""
+        self._dialect.learn(conn)
         cols = self._resolve(conn, spec)
         kind = self._time_kind(conn, spec, cols)
         params = time_params("upper", self._dialect.time_bounds(kind, cutoff))
@@ -325,6 +327,7 @@ class Source:
         excluded = {}
         arrival_max = None
         merged = {}
+        slot_seconds = self._dialect.slot_seconds
         # A first read of a big table returns tens of thousands of cells: one plain pass.
         for gi, slot, key, reason, count, late, sum_dev, sum_dev2, row_arrival, *ratio_sums in rows:
             if row_arrival is not None and (arrival_max is None or row_arrival > arrival_max):
@@ -335,7 +338,7 @@ class Source:
             # Each sum as if added to a zero, as the cell's running sums start.
             sums = (int(count), int(late or 0), float(sum_dev) + 0.0, float(sum_dev2) + 0.0,
                     *[float(x) + 0.0 for x in ratio_sums])
-            cell = (int(gi), int(slot), key)
+            cell = (int(gi), slot_seconds(slot), key)
             old = merged.get(cell)
             # The same cell can come from the new-range and the late branch: add them up.
             merged[cell] = sums if old is None else tuple(a + b for a, b in zip(old, sums))

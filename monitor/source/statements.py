@@ -40,6 +40,7 @@ class RowParts:
     summand: object
     reason: object  # NULL for a valid row, else the exclusion reason
     other_reason: object  # the reason for a row whose time is readable
+    value_reason: object  # the reason for a row whose time is readable and group known
     key: object
     arrival: object
     arrival_type: object
@@ -79,6 +80,7 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         summand=dialect.summand(raw_value, value, value_type),
         reason=reason,
         other_reason=other_reason,
+        value_reason=value_reason,
         key=key,
         arrival=arrival,
         arrival_type=arrival_type,
@@ -200,16 +202,18 @@ def cells_select(dialect, spec, parts: RowParts, where, late=False, why=None):
     rows = dialect.fence(
         sa.select(
             parts.group_index.label("gi"),
-            parts.epoch.label("at"),
+            dialect.row_time(kind, time_raw, parts.epoch).label("at"),
             time_raw.is_(None).label("no_time"),
             parts.key.label("key"),
-            parts.other_reason.label("other"),
+            parts.value_reason.label("other"),
             dev.label("dev"),
             *([den_dev.label("den")] if ratio else []),
             (arrival if arrival is not None else sa.null()).label("arrival"),
         ).where(*where, *parts.filters)
     ).subquery("r")
-    reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"), else_=rows.c.other)
+    # The group is known from gi: the inner select tests it once, not again for the reason.
+    reason = sa.case((rows.c.no_time, "null_time"), (rows.c.at.is_(None), "bad_time"),
+                     (rows.c.gi.is_(None), "unknown_group"), else_=rows.c.other)
     if why is not None:
         reason = sa.literal(why, sa.Text)
     ratio_sums = []

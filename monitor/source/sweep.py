@@ -108,10 +108,11 @@ def _walk(conn, cursor, statements, layout, params):
     begin, slot = _first_slot(cursor, seek, layout, params)
     if begin is None:
         return None
+    text_of = _SlotTexts(layout)
     rows = list(conn.execute(statements.rest, {**params, "sweep_from": begin}))
     low = begin
     while True:
-        high = _text(layout, slot + SLOT_SECONDS)
+        high = text_of(slot + SLOT_SECONDS)
         last = high is None or high > upper
         chunk = {"from_text": low, "to_text": upper if last else high,
                  "slot_first": slot, "slot_last": slot + SLOT_SECONDS - 1}
@@ -146,3 +147,28 @@ def _text(layout, epoch: int) -> str | None:
         return layout.format(datetime.fromtimestamp(epoch, tz=timezone.utc))
     except (ValueError, OverflowError, OSError):
         return None
+
+
+class _SlotTexts:
+    """Slot starts in the cutoffs' layout, as ``_text`` writes them, without a datetime per slot.
+
+    A slot starts on a whole minute of local time (offsets are whole minutes), so only the date
+    needs the calendar: it is taken from ``_text`` once per local day, the clock is arithmetic.
+    """
+
+    def __init__(self, layout):
+        self.layout = layout
+        self.offset = int(layout.offset.total_seconds())
+        seconds = (":00" + ("." + "0" * layout.frac_digits if layout.frac_digits else "")) if layout.seconds else ""
+        self.tail = seconds + layout.zone
+        self.dates: dict = {}
+
+    def __call__(self, epoch: int) -> str | None:
+        day, second = divmod(epoch + self.offset, 86400)
+        date = self.dates.get(day)
+        if date is None:
+            midnight = _text(self.layout, epoch - second)
+            if midnight is None:
+                return None
+            date = self.dates[day] = midnight.split(self.layout.sep, 1)[0]
+        return f"{date}{self.layout.sep}{second // 3600:02d}:{second % 3600 // 60:02d}{self.tail}"

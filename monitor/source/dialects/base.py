@@ -46,6 +46,9 @@ class SourceDialect:
     typed_values = True
     #: Whether range reads need an index on the time column (column stores prune by min/max instead).
     wants_indexes = True
+    #: Whether timestamp and date columns can hold 'infinity' (and '-infinity'): no time range ever
+    #: holds 'infinity', so it is counted with the rows that have no time.
+    infinite_times = False
     #: Whether a first read of ISO-text times sweeps them one slot at a time (``source/sweep.py``):
     #: worth it where each statement is cheap (an in-process database) and grouping sorts.
     sweeps_text_times = False
@@ -177,6 +180,10 @@ class SourceDialect:
         Joined by OR, some databases (SQLite) scan the whole table for them instead.
         """
         if kind.kind not in ("iso", "stored"):
+            if self.infinite_times and kind.kind in ("timestamp", "date"):
+                # An equality, so the index finds it; its epoch is NULL (see timestamp_epoch): bad_time.
+                stored = sa.Date() if kind.kind == "date" else sa.DateTime(timezone=kind.timezone_aware)
+                return [raw.is_(None), raw == sa.cast(sa.literal("infinity"), stored)]
             return [raw.is_(None)]
         word = sa.func.lower(sa.func.substr(raw, 1, 1)).in_(literals(_LETTERS))
         if above is not None:
@@ -234,9 +241,25 @@ class SourceDialect:
         """An inner select whose columns the database computes once per row (planners inline it here)."""
         return select
 
-    def slot(self, kind: TimeKind, epoch):
-        """The start of the event's 15-minute UTC slot, in epoch seconds."""
-        return sa.cast(sa.func.floor(epoch / SLOT_SECONDS) * SLOT_SECONDS, sa.BigInteger)
+    def learn(self, conn):
+        """Note what the server offers before statements are built (e.g. its version); nothing here."""
+
+    def row_time(self, kind: TimeKind, raw, epoch):
+        """What a read's inner select keeps of each row's time: NULL for an unreadable time (so
+        the row is ``bad_time``), else what ``slot`` makes the slot of; by default the epoch."""
+        return epoch
+
+    def slot(self, kind: TimeKind, at):
+        """The start of the event's 15-minute UTC slot (``at`` as ``row_time`` gave it), in epoch seconds.
+
+        A dialect may give it as a timestamp instead; ``slot_seconds`` then turns each value
+        the database returns into epoch seconds.
+        """
+        return sa.cast(sa.func.floor(at / SLOT_SECONDS) * SLOT_SECONDS, sa.BigInteger)
+
+    def slot_seconds(self, value) -> int:
+        """A slot as a read returned it, in epoch seconds."""
+        return int(value)
 
     # ------------------------------------------------------------------ values
 

@@ -19,6 +19,7 @@ class DuckDBDialect(SourceDialect):
     names = ("duckdb",)
     enforces_read_only = True
     wants_indexes = False
+    infinite_times = True  # EXTRACT(epoch …) of an infinite timestamp is NULL: bad_time
 
     def engine_options(self):
         # A DuckDB file open in one process cannot be opened for writing by another: hold it
