@@ -239,6 +239,20 @@ def test_an_epoch_number_written_as_text_is_a_bad_time_and_hides_nothing(backend
 BAD_TIMES = ["02/03/2026 10:00", "yesterday", "2026-02-30 10:00:00", "2026-00-01 10:00:00", "now", "10:00"]
 
 
+def _read_in_steps(source, spec, hours):
+    """Read up to each of ``hours`` after START in turn: (cells added up, exclusions added up, last watermark)."""
+    since, total, excluded = None, {}, {}
+    for step in hours:
+        batch = source.read_cells(spec, since, START + timedelta(hours=step))
+        for k, v in as_dict(batch.cells).items():
+            n, s1, s2 = total.get(k, (0, 0.0, 0.0))
+            total[k] = (n + v[0], s1 + v[1], s2 + v[2])
+        for reason, count in batch.excluded.items():
+            excluded[reason] = excluded.get(reason, 0) + count
+        since = batch.watermark
+    return total, excluded, since
+
+
 @pytest.mark.parametrize("backend_url", EVERY_DATABASE, indirect=True)
 def test_unreadable_time_text_is_counted_as_bad_time_once(backend_url):
     frame = make_events(300, seed=46, span=timedelta(hours=6))
@@ -248,15 +262,7 @@ def test_unreadable_time_text_is_counted_as_bad_time_once(backend_url):
     source = Source(backend_url)
     spec = spec_for(arrival_column="id")
     expected = reference_cells(frame, "iso", 100.0)
-    since, total, excluded = None, {}, {}
-    for hours in (2, 4, 7):
-        batch = source.read_cells(spec, since, START + timedelta(hours=hours))
-        for k, v in as_dict(batch.cells).items():
-            n, s1, s2 = total.get(k, (0, 0.0, 0.0))
-            total[k] = (n + v[0], s1 + v[1], s2 + v[2])
-        for reason, count in batch.excluded.items():
-            excluded[reason] = excluded.get(reason, 0) + count
-        since = batch.watermark
+    total, excluded, since = _read_in_steps(source, spec, (2, 4, 7))
     assert_cells_equal(total, expected)
     # Words ('yesterday', 'now') sort after every date: they are still counted, once.
     assert excluded == {"bad_time": len(BAD_TIMES)}
@@ -281,15 +287,7 @@ def test_infinite_timestamps_are_bad_times_and_stop_no_read(backend_url):
                         time_storage="timestamptz" if _backend(backend_url) == "postgresql" else "timestamp")
     source = Source(backend_url)
     spec = spec_for(arrival_column="id")
-    since, total, excluded = None, {}, {}
-    for hours in (2, 4, 7):
-        batch = source.read_cells(spec, since, START + timedelta(hours=hours))
-        for k, v in as_dict(batch.cells).items():
-            n, s1, s2 = total.get(k, (0, 0.0, 0.0))
-            total[k] = (n + v[0], s1 + v[1], s2 + v[2])
-        for reason, count in batch.excluded.items():
-            excluded[reason] = excluded.get(reason, 0) + count
-        since = batch.watermark
+    total, excluded, since = _read_in_steps(source, spec, (2, 4, 7))
     storage = "timestamptz" if _backend(backend_url) == "postgresql" else "timestamp"
     assert_cells_equal(total, reference_cells(frame, storage, 100.0))
     assert excluded == {"bad_time": 2}
