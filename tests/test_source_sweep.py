@@ -63,9 +63,9 @@ def _rows(seed=7):
     return rows
 
 
-def _table(path, rows, value_type="REAL"):
+def _table(path, rows, value_type="REAL", time_type="TEXT"):
     conn = sqlite3.connect(path)
-    conn.execute(f"CREATE TABLE events (id INTEGER PRIMARY KEY, site TEXT, value {value_type}, done_at TEXT,"
+    conn.execute(f"CREATE TABLE events (id INTEGER PRIMARY KEY, site TEXT, value {value_type}, done_at {time_type},"
                  " crew TEXT, hours REAL, shift_name TEXT, done)")
     conn.execute("CREATE INDEX ix_events_done_at ON events (done_at)")
     conn.executemany("INSERT INTO events (site, value, done_at, crew, hours, shift_name, done)"
@@ -96,9 +96,9 @@ def sweeps(monkeypatch):
     seen = {"swept": 0}
     walk = sweep_module._walk
 
-    def counting_walk(conn, cursor, statements, layout, params):
-        rows = walk(conn, cursor, statements, layout, params)
-        seen["swept"] += rows is not None
+    def counting_walk(*args):
+        rows = walk(*args)
+        seen["swept"] += isinstance(rows, list)
         return rows
 
     monkeypatch.setattr(sweep_module, "_walk", counting_walk)
@@ -106,12 +106,12 @@ def sweeps(monkeypatch):
 
 
 def _one_statement(monkeypatch, url, spec, cutoff):
-    monkeypatch.setattr(SQLiteDialect, "sweeps_text_times", False)
+    monkeypatch.setattr(SQLiteDialect, "sweeps_first_reads", False)
     try:
         source = Source(url)
         return source.read_cells(spec, None, cutoff)
     finally:
-        monkeypatch.setattr(SQLiteDialect, "sweeps_text_times", True)
+        monkeypatch.setattr(SQLiteDialect, "sweeps_first_reads", True)
         source.dispose()
 
 
@@ -260,3 +260,38 @@ def test_slot_starts_are_written_as_the_layout_writes_them(text):
     rng = np.random.default_rng(5)
     for slot in [0, -900, 951782400, 4102444800, *(int(s) * 900 for s in rng.integers(-3_000_000, 3_000_000, 500))]:
         assert texts(slot) == sweep_module._text(layout, slot), slot
+
+
+def _as_epochs(rows, real):
+    """The rows with each readable text time stored as epoch seconds (real or integer); other times dropped."""
+    out = []
+    for row in rows:
+        when = row[2]
+        if isinstance(when, str):
+            try:
+                moment = datetime.fromisoformat(when)
+            except ValueError:
+                continue
+            moment = moment if moment.tzinfo else moment.replace(tzinfo=UTC)
+            when = moment.timestamp() + 0.25 if real else int(moment.timestamp())
+        out.append([row[0], row[1], when, *row[3:]])
+    return out
+
+
+@pytest.mark.parametrize("real", [False, True], ids=["integer", "real"])
+@pytest.mark.parametrize("name", ["mean", "rate", "ratio", "keyed", "start", "filter"])
+def test_epoch_seconds_sweep_to_the_cells_of_one_statement(tmp_path, monkeypatch, sweeps, name, real):
+    rows = _as_epochs(_rows(), real)
+    # Numbers no time can be (before the year 1, after 9999) and negative epochs among them.
+    rows += [["east", 100.0, -1e12, "k1", 1.0, "day", 1], ["west", 100.0, 1e13, "k1", 1.0, "day", 1],
+             ["east", 100.0, -86400.5, "k1", 1.0, "day", 1]]
+    path = tmp_path / "ops.sqlite"
+    _table(path, rows, time_type="INTEGER" if not real else "REAL")
+    url = f"sqlite:///{path}"
+    spec = spec_for(**SPECS[name])
+    for cutoff in CUTOFFS:
+        source = Source(url)
+        swept = source.read_cells(spec, None, cutoff)
+        source.dispose()
+        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    assert sweeps["swept"] >= 2  # every cutoff after the first time (and the start) swept

@@ -313,15 +313,19 @@ class Source:
         kind = self._time_kind(conn, spec, cols)
         if not sweepable(self._dialect, kind, spec):
             return None
-        key = (spec, kind, "sweep", tuple(sorted(params)))
-        with self._lock:
-            statements = self._statements.get(key)
-        if statements is None:
-            parts = row_parts(self._dialect, spec, cols, kind)
-            statements = sweep_statements(self._dialect, spec, cols, parts, params)
+
+        def statements_for(storage):
+            key = (spec, kind, "sweep", storage, tuple(sorted(params)))
             with self._lock:
-                self._statements[key] = statements
-        return sweep(conn, statements, kind, params)
+                statements = self._statements.get(key)
+            if statements is None:
+                parts = row_parts(self._dialect, spec, cols, kind)
+                statements = sweep_statements(self._dialect, spec, cols, parts, params, storage)
+                with self._lock:
+                    self._statements[key] = statements
+            return statements
+
+        return sweep(conn, statements_for, kind, params, self._dialect.epoch_limits)
 
     def _batch(self, rows, since, cutoff) -> Batch:
         excluded = {}

@@ -343,15 +343,20 @@ def first_values_statement(parts: RowParts, limit: int = 25):
 
 @dataclass(frozen=True)
 class SweepStatements:
-    """The statements of a first read that sweeps the text range one slot at a time (``sweep.py``).
+    """The statements of a first read that sweeps one storage of the times one slot at a time (``sweep.py``).
 
-    Bound names besides the read's own (``upper``, ``upper_1``, ``start`` …): ``sweep_from``
-    (where the swept text begins; ``rest`` reads everything before it, the numbers and the
-    unplaced rows), ``from_text`` and ``to_text`` (one chunk of text: from inclusive, to
-    exclusive, or inclusive in the ``…_last`` variants), ``slot_first`` and ``slot_last`` (the
-    chunk's slot, epoch seconds, both inclusive).
+    ``storage`` is ``"text"`` (ISO text, bounds written in its layout) or ``"number"`` (epoch
+    seconds, bounds as numbers). Bound names besides the read's own (``upper``, ``upper_1``,
+    ``start`` …): ``sweep_from`` (where the swept part begins; ``rest`` reads everything of this
+    storage before it, the other storage and the unplaced rows), ``chunk_from`` and
+    ``chunk_to`` (one chunk: from inclusive, to exclusive, or inclusive in the ``…_last``
+    variants), ``slot_first`` and ``slot_last`` (the chunk's slot, epoch seconds, both inclusive).
+    ``upper`` and ``start`` name the read's bounds in this storage.
     """
 
+    storage: str
+    upper: str
+    start: str
     rest: object
     screen: object
     screen_last: object
@@ -360,42 +365,53 @@ class SweepStatements:
     seek: object
 
 
-def sweep_statements(dialect, spec, cols: Columns, parts: RowParts, params: dict) -> SweepStatements:
-    """The rest, screen, chunk and seek statements of a swept first read of ISO-text times."""
+def sweep_statements(dialect, spec, cols: Columns, parts: RowParts, params: dict, storage: str) -> SweepStatements:
+    """The rest, screen, chunk and seek statements of a swept first read of one storage of the times."""
     raw = parts.time_raw
-    names = (*params, "sweep_from", "from_text", "to_text")
-    bound = {name: sa.bindparam(name, type_=bind_type(params.get(name, ""))) for name in names}
+    text = storage == "text"
+    upper_name, start_name = ("upper", "start") if text else ("upper_1", "start_1")
+    sample = "" if text else 0.0
+    bound = {name: sa.bindparam(name, type_=bind_type(value)) for name, value in params.items()}
+    bound.update({name: sa.bindparam(name, type_=bind_type(sample)) for name in ("sweep_from", "chunk_from", "chunk_to")})
     bound.update(slot_first=sa.bindparam("slot_first", type_=sa.BigInteger()),
                  slot_last=sa.bindparam("slot_last", type_=sa.BigInteger()))
-    upper = _bounds(bound, "upper")
-    text_start = [raw >= bound["start"]] if "start" in bound else []
+    after_start = [raw >= bound[start_name]] if start_name in bound else []
 
     def first_ranges(read_bound):
-        # Text before the swept part (normally none), then every other storage as usual.
-        return [sa.and_(raw >= sa.literal(""), raw < read_bound["sweep_from"]),
-                *dialect.time_ranges(parts.kind, raw, None, _bounds(read_bound, "upper"))[1:]]
+        # This storage before the swept part (normally nothing), the other storage as usual.
+        text_range, number_range = dialect.time_ranges(parts.kind, raw, None, _bounds(read_bound, "upper"))
+        if text:
+            return [sa.and_(raw >= sa.literal(""), raw < read_bound["sweep_from"]), number_range]
+        # A number bound keeps text out (text sorts after every number).
+        return [text_range, raw < read_bound["sweep_from"]]
 
-    rest = cells_statement(dialect, spec, parts, {**params, "sweep_from": ""}, first_ranges=first_ranges)
-    within = [raw >= bound["from_text"], raw < bound["to_text"], *text_start]
-    within_last = [raw >= bound["from_text"], raw <= bound["to_text"], *text_start]
-    screen = _screen_select(dialect, spec, cols, parts, bound)
+    rest = cells_statement(dialect, spec, parts, {**params, "sweep_from": sample}, first_ranges=first_ranges)
+    within = [raw >= bound["chunk_from"], raw < bound["chunk_to"], *after_start]
+    within_last = [raw >= bound["chunk_from"], raw <= bound["chunk_to"], *after_start]
+    # For text, each time must read into the slot; a number inside the chunk's bounds is in it already.
+    in_slot = [dialect.plain_epoch(raw).between(bound["slot_first"], bound["slot_last"])] if text else []
+    screen = _screen_select(dialect, spec, cols, parts, in_slot)
+    least = sa.func.min(raw)
     return SweepStatements(
+        storage=storage,
+        upper=upper_name,
+        start=start_name,
         rest=rest,
         screen=screen.where(*within),
         screen_last=screen.where(*within_last),
         chunk=cells_select(dialect, spec, parts, within),
         chunk_last=cells_select(dialect, spec, parts, within_last),
-        seek=sa.select(sa.func.min(raw), dialect.plain_epoch(sa.func.min(raw)))
-        .where(raw >= bound["from_text"], raw <= upper[0]),
+        seek=sa.select(least, dialect.plain_epoch(least) if text else least)
+        .where(raw >= bound["chunk_from"], raw <= bound[upper_name]),
     )
 
 
-def _screen_select(dialect, spec, cols: Columns, parts: RowParts, bound: dict):
+def _screen_select(dialect, spec, cols: Columns, parts: RowParts, in_slot: list):
     """Per group (and key) of one slot's rows: count, how many pass plainly, shifted sums, largest arrival.
 
-    A row passes when its time reads to an instant inside the slot and its value (and
-    denominator) is a stored number that no reason could exclude. Where every row passes, the
-    counts and sums equal those of ``cells_select`` over the same rows.
+    A row passes when its time is inside the slot (``in_slot``, the conditions that prove it)
+    and its value (and denominator) is a stored number that no reason could exclude. Where
+    every row passes, the counts and sums equal those of ``cells_select`` over the same rows.
     """
     value = dialect.plain_number(cols.raw(spec.value_column))
     low, high = -VALUE_LIMIT, VALUE_LIMIT
@@ -403,8 +419,7 @@ def _screen_select(dialect, spec, cols: Columns, parts: RowParts, bound: dict):
         range_low, range_high = spec.valid_range
         low = low if range_low is None else max(low, float(range_low))
         high = high if range_high is None else min(high, float(range_high))
-    passes = [dialect.plain_epoch(parts.time_raw).between(bound["slot_first"], bound["slot_last"]),
-              value.between(literal(low), literal(high))]
+    passes = [*in_slot, value.between(literal(low), literal(high))]
     if spec.metric == "proportion":
         passes.append(value.in_(literals((0, 1))))
     dev = value - float(spec.shift)

@@ -3,8 +3,9 @@
 The first look reads the whole table once. The least any tool must do for that is one grouped
 aggregate: per group, the count, sum and sum of squares of the value over every row up to the
 cutoff. This script builds the events table of ``bench_look.py`` (default 10 million rows;
-integer primary key, group, value, event time as ISO text in SQLite and ``timestamptz`` in
-PostgreSQL, an index on the time) and measures, alternating so the page cache treats them alike,
+integer primary key, group, value, event time as ISO text in SQLite, and again as real epoch
+seconds in a second SQLite table (``sqlite-num``), ``timestamptz`` in PostgreSQL, an index on
+the time) and measures, alternating so the page cache treats them alike,
 ``--repeats`` times each:
 
 bare       the bare grouped aggregate over the same rows (one statement, ``GROUP BY`` group);
@@ -66,9 +67,9 @@ GOAL = 1.5
 SLOT_SECONDS = 900
 
 
-def bare_statements(pg: bool):
+def bare_statements(pg: bool, epochs: bool = False):
     """(bare, slotted): per-group count, sum and sum of squares up to the cutoff; the second also per slot."""
-    _metadata, t = events_metadata(pg)
+    _metadata, t = events_metadata(pg, epochs=epochs)
     sums = (sa.func.count(), sa.func.sum(t.c.value), sa.func.sum(t.c.value * t.c.value))
     where = t.c.done_at <= sa.bindparam("upper")
     bare = sa.select(t.c.site, *sums).where(where).group_by(t.c.site)
@@ -79,7 +80,8 @@ def bare_statements(pg: bool):
     else:
         # Whole epoch seconds (SQLite 3.38+) divided as integers (a bound divisor would be a
         # real, and the quotient one group per row): every time here is after 1970.
-        slot = sa.func.unixepoch(t.c.done_at).op("/")(sa.literal_column(str(SLOT_SECONDS)))
+        seconds = sa.cast(t.c.done_at, sa.Integer) if epochs else sa.func.unixepoch(t.c.done_at)
+        slot = seconds.op("/")(sa.literal_column(str(SLOT_SECONDS)))
     slotted = sa.select(t.c.site, slot.label("slot"), *sums).where(where).group_by(t.c.site, sa.literal_column("2"))
     return bare, slotted
 
@@ -97,7 +99,8 @@ def timed_rows(engine, statement, upper):
     return time.perf_counter() - began, rows
 
 
-def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Path, build: float) -> dict:
+def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Path, build: float,
+            epochs: bool = False) -> dict:
     from monitor.config import load_config
     from monitor.design import Design
     from monitor.look import LookMemory, take_look
@@ -106,9 +109,10 @@ def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Pat
     from monitor.store.engine import make_engine, upgrade
 
     cutoff = START + timedelta(seconds=rows * SPACING_SECONDS)
-    upper = cutoff if pg else iso_text(__import__("numpy").array([cutoff.timestamp()]))[0]
+    upper = (cutoff if pg else cutoff.timestamp() if epochs
+             else iso_text(__import__("numpy").array([cutoff.timestamp()]))[0])
     engine = sa.create_engine(url)
-    bare, slotted = bare_statements(pg)
+    bare, slotted = bare_statements(pg, epochs)
     times = {"bare": [], "slotted": [], "read": [], "look": []}
     if not pg:
         times["single"] = []
@@ -137,7 +141,7 @@ def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Pat
         counts.add(batch.new_events)
         source.dispose()
         if not pg:
-            SQLiteDialect.sweeps_text_times = False
+            SQLiteDialect.sweeps_first_reads = False
             try:
                 source = Source(url, name="ops")
                 began = time.perf_counter()
@@ -145,7 +149,7 @@ def measure(label: str, url: str, pg: bool, rows: int, repeats: int, folder: Pat
                 times["single"].append(time.perf_counter() - began)
                 source.dispose()
             finally:
-                SQLiteDialect.sweeps_text_times = True
+                SQLiteDialect.sweeps_first_reads = True
             if _cell_sums(single) != _cell_sums(batch) or single.excluded != batch.excluded:
                 raise SystemExit(f"{label}: the swept read and the one statement read differ")
 
@@ -213,6 +217,15 @@ def main(argv=None):
                 print(f"building SQLite table of {args.rows:,} rows …", flush=True)
                 build = build_sqlite(path, args.rows)
             results.append(measure("sqlite", f"sqlite:///{path}", False, args.rows, args.repeats, folder, build))
+            path = folder / "first-look-epochs.sqlite"
+            if path.exists() and path.stat().st_size > 0 and args.dir is not None:
+                build = 0.0
+            else:
+                path.unlink(missing_ok=True)
+                print(f"building SQLite table of {args.rows:,} rows, times as epoch seconds …", flush=True)
+                build = build_sqlite(path, args.rows, epochs=True)
+            results.append(measure("sqlite-num", f"sqlite:///{path}", False, args.rows, args.repeats, folder, build,
+                                   epochs=True))
         if args.pg_url and not args.skip_postgres:
             server = sa.engine.make_url(args.pg_url)
             name = f"gw_first_{uuid.uuid4().hex[:8]}"

@@ -56,7 +56,8 @@ SPACING_SECONDS = 3  # one event every 3 s: 10M rows cover about 347 days
 GROUPS = ("east", "west")
 
 
-def events_metadata(pg: bool, with_index: bool = True):
+def events_metadata(pg: bool, with_index: bool = True, epochs: bool = False):
+    """The events table: times as ``timestamptz`` (PostgreSQL), ISO text (SQLite) or epoch seconds (SQLite, ``epochs``)."""
     metadata = sa.MetaData()
     t = sa.Table(
         "events",
@@ -64,7 +65,7 @@ def events_metadata(pg: bool, with_index: bool = True):
         sa.Column("id", sa.BigInteger().with_variant(sa.Integer(), "sqlite"), primary_key=True, autoincrement=True),
         sa.Column("site", sa.Text(), nullable=False),
         sa.Column("value", sa.Float(), nullable=False),
-        sa.Column("done_at", sa.DateTime(timezone=True) if pg else sa.Text(), nullable=False),
+        sa.Column("done_at", sa.DateTime(timezone=True) if pg else sa.Float() if epochs else sa.Text(), nullable=False),
     )
     if with_index:
         sa.Index("ix_events_done_at", t.c.done_at)
@@ -86,14 +87,15 @@ def event_batch(rng, first_index: int, count: int):
     return site, value, epochs
 
 
-def build_sqlite(path: Path, rows: int, chunk: int = 500_000) -> float:
+def build_sqlite(path: Path, rows: int, chunk: int = 500_000, epochs: bool = False) -> float:
+    """The SQLite events table of ``rows`` rows, times as ISO text or (``epochs``) real epoch seconds."""
     import sqlite3
 
     began = time.perf_counter()
     engine = sa.create_engine(f"sqlite:///{path}")
     # The index is built after the load: far faster than maintaining it row by row.
-    events_metadata(pg=False, with_index=False)[1].create(engine)
-    metadata, t = events_metadata(pg=False)
+    events_metadata(pg=False, with_index=False, epochs=epochs)[1].create(engine)
+    metadata, t = events_metadata(pg=False, epochs=epochs)
     engine.dispose()
     rng = np.random.default_rng(1)
     conn = sqlite3.connect(path)
@@ -103,8 +105,9 @@ def build_sqlite(path: Path, rows: int, chunk: int = 500_000) -> float:
                     .compile(dialect=sa.dialects.sqlite.dialect(paramstyle="qmark")))
     for first in range(0, rows, chunk):
         count = min(chunk, rows - first)
-        site, value, epochs = event_batch(rng, first, count)
-        conn.executemany(statement, zip(site.tolist(), value.tolist(), iso_text(epochs)))
+        site, value, moments = event_batch(rng, first, count)
+        times = moments.tolist() if epochs else iso_text(moments)
+        conn.executemany(statement, zip(site.tolist(), value.tolist(), times))
         conn.commit()
     conn.close()
     engine = sa.create_engine(f"sqlite:///{path}")

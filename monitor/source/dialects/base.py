@@ -49,9 +49,11 @@ class SourceDialect:
     #: Whether timestamp and date columns can hold 'infinity' (and '-infinity'): no time range ever
     #: holds 'infinity', so it is counted with the rows that have no time.
     infinite_times = False
-    #: Whether a first read of ISO-text times sweeps them one slot at a time (``source/sweep.py``):
-    #: worth it where each statement is cheap (an in-process database) and grouping sorts.
-    sweeps_text_times = False
+    #: Whether a first read sweeps the times one slot at a time (``source/sweep.py``): worth it
+    #: where each statement is cheap (an in-process database) and grouping sorts.
+    sweeps_first_reads = False
+    #: (least, greatest) epoch seconds a stored number may hold to be read as a time (sweeps only).
+    epoch_limits = None
 
     def __init__(self, url: sa.engine.URL):
         self.url = url

@@ -33,7 +33,8 @@ class SQLiteDialect(SourceDialect):
     enforces_read_only = True
     typed_values = False
     # Grouping sorts every row; one small statement per slot sorts a few hundred in cache.
-    sweeps_text_times = True
+    sweeps_first_reads = True
+    epoch_limits = (_EPOCH_MIN, _EPOCH_MAX)
 
     def create_engine(self, *, source_name: str, safe_url: str) -> sa.Engine:
         database = self.url.database
