@@ -2,7 +2,7 @@
 
 The monitor never pulls raw rows to decide. For every look it asks the
 database, with one SQLAlchemy Core statement (``statements.py``; on SQLite a
-first read of ISO-text times runs one small statement per slot, ``sweep.py``), for per
+first read runs one small statement per slot, ``sweep.py``), for per
 (group, 15-minute UTC slot[, key]) counts and shifted sums of the valid rows
 (for a ratio metric also the denominator's ``Σ(d − c_d)``, ``Σ(d − c_d)²`` and the
 cross-product ``Σ(x − c)(d − c_d)``), and for per-reason counts of the bad ones. Only rows that are new since the
