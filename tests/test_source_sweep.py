@@ -115,6 +115,16 @@ def _one_statement(monkeypatch, url, spec, cutoff):
         source.dispose()
 
 
+def _assert_sweeps_match(monkeypatch, url, spec, cutoffs):
+    """A first read up to each cutoff, swept and as one statement, is the same; returns the last swept."""
+    for cutoff in cutoffs:
+        source = Source(url)
+        swept = source.read_cells(spec, None, cutoff)
+        source.dispose()
+        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    return swept
+
+
 SPECS = {
     "mean": dict(arrival_column="id"),
     "mean-rowid": dict(),
@@ -135,11 +145,7 @@ def test_the_sweep_reads_exactly_what_one_statement_reads(tmp_path, monkeypatch,
     _table(path, _rows())
     url = f"sqlite:///{path}"
     spec = spec_for(**SPECS[name])
-    for cutoff in CUTOFFS:
-        source = Source(url)
-        swept = source.read_cells(spec, None, cutoff)
-        source.dispose()
-        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    _assert_sweeps_match(monkeypatch, url, spec, CUTOFFS)
     assert sweeps["swept"] >= 2  # every cutoff after the first text (and the start) swept
     final = _one_statement(monkeypatch, url, spec, CUTOFFS[-1])
     assert final.new_events > 2000 and final.excluded  # the table's bad rows were read and counted
@@ -243,11 +249,8 @@ def test_every_iso_layout_sweeps_to_the_same_cells(tmp_path, monkeypatch, sweeps
     _table(path, rows)
     url = f"sqlite:///{path}"
     spec = spec_for(arrival_column="id")
-    for cutoff in (T0 + timedelta(hours=5, minutes=7, seconds=30), T0 + timedelta(days=2)):
-        source = Source(url)
-        swept = source.read_cells(spec, None, cutoff)
-        source.dispose()
-        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    swept = _assert_sweeps_match(monkeypatch, url, spec, (T0 + timedelta(hours=5, minutes=7, seconds=30),
+                                                           T0 + timedelta(days=2)))
     assert sweeps["swept"] == 2 and swept.new_events > 1000
 
 @pytest.mark.parametrize("text", ["2025-02-26 06:00:00", "2025-02-26T06:00:00.123Z", "2025-02-26T06:00:00+05:45",
@@ -289,9 +292,5 @@ def test_epoch_seconds_sweep_to_the_cells_of_one_statement(tmp_path, monkeypatch
     _table(path, rows, time_type="INTEGER" if not real else "REAL")
     url = f"sqlite:///{path}"
     spec = spec_for(**SPECS[name])
-    for cutoff in CUTOFFS:
-        source = Source(url)
-        swept = source.read_cells(spec, None, cutoff)
-        source.dispose()
-        _assert_same(swept, _one_statement(monkeypatch, url, spec, cutoff))
+    _assert_sweeps_match(monkeypatch, url, spec, CUTOFFS)
     assert sweeps["swept"] >= 2  # every cutoff after the first time (and the start) swept
