@@ -296,6 +296,8 @@ def test_infinite_timestamps_are_bad_times_and_stop_no_read(backend_url):
     later = source.read_cells(spec, since, START + timedelta(hours=8))
     assert later.excluded == {"bad_time": 1} and later.new_events == 0
     assert source.read_rows(spec, START + timedelta(hours=8)).attrs["excluded"] == {"bad_time": 3}
+    problems = source.check(spec)
+    assert any(p.startswith("warning:") and "3 rows whose time is infinity or -infinity" in p for p in problems), problems
     source.dispose()
 
 

@@ -16,7 +16,7 @@ __all__ = ["time_problems", "reading_warnings"]
 def time_problems(conn, dialect, spec, parts) -> list[str]:
     """Unreadable time values (counted as bad_time), numbers among text, mixed ISO layouts."""
     if parts.kind.kind not in ("iso", "stored"):
-        return []
+        return _infinite_times(conn, dialect, spec, parts)
     name = spec.time_column
     raw, epoch = parts.time_raw, parts.epoch
     problems = []
@@ -47,6 +47,19 @@ def time_problems(conn, dialect, spec, parts) -> list[str]:
         )
     problems.extend(_layout_problems(conn, name, raw, readable_text))
     return problems
+
+
+def _infinite_times(conn, dialect, spec, parts) -> list[str]:
+    """Timestamps of ±infinity (PostgreSQL, DuckDB): no instant, so each is counted as bad_time."""
+    if not dialect.infinite_times or parts.kind.kind not in ("timestamp", "date"):
+        return []
+    raw = parts.time_raw
+    # Counted only: drivers cannot always turn an infinite time into a Python value.
+    count = conn.execute(sa.select(sa.func.count()).where(raw.is_not(None), parts.epoch.is_(None))).scalar()
+    if not count:
+        return []
+    return [f"warning: time_column {spec.time_column!r} has {count} rows whose time is infinity or -infinity; "
+            "they are excluded and counted as bad_time"]
 
 
 def _layout_problems(conn, name, raw, readable_text) -> list[str]:
