@@ -39,7 +39,6 @@ class RowParts:
     value: object
     summand: object
     reason: object  # NULL for a valid row, else the exclusion reason
-    other_reason: object  # the reason for a row whose time is readable
     value_reason: object  # the reason for a row whose time is readable and group known
     key: object
     arrival: object
@@ -62,8 +61,8 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         )
         # The value's own reasons come first; a row with a usable value may still have a bad denominator.
         value_reason = sa.func.coalesce(value_reason, den_reason)
-    other_reason = sa.case((group_index.is_(None), "unknown_group"), else_=value_reason)
-    reason = sa.case((time_raw.is_(None), "null_time"), (epoch.is_(None), "bad_time"), else_=other_reason)
+    reason = sa.case((time_raw.is_(None), "null_time"), (epoch.is_(None), "bad_time"),
+                     (group_index.is_(None), "unknown_group"), else_=value_reason)
     key = sa.cast(cols.raw(spec.key_column), sa.String) if spec.key_column else sa.null()
     if spec.arrival_column:
         arrival, arrival_type = cols.raw(spec.arrival_column), cols.declared_type(spec.arrival_column)
@@ -79,7 +78,6 @@ def row_parts(dialect, spec, cols: Columns, kind: TimeKind) -> RowParts:
         value=value,
         summand=dialect.summand(raw_value, value, value_type),
         reason=reason,
-        other_reason=other_reason,
         value_reason=value_reason,
         key=key,
         arrival=arrival,
@@ -345,8 +343,8 @@ def first_values_statement(parts: RowParts, limit: int = 25):
 class SweepStatements:
     """The statements of a first read that sweeps one storage of the times one slot at a time (``sweep.py``).
 
-    ``storage`` is ``"text"`` (ISO text, bounds written in its layout) or ``"number"`` (epoch
-    seconds, bounds as numbers). Bound names besides the read's own (``upper``, ``upper_1``,
+    The storage is ISO text (bounds written in its layout) or numbers (epoch seconds, bounds as
+    numbers). Bound names besides the read's own (``upper``, ``upper_1``,
     ``start`` …): ``sweep_from`` (where the swept part begins; ``rest`` reads everything of this
     storage before it, the other storage and the unplaced rows), ``chunk_from`` and
     ``chunk_to`` (one chunk: from inclusive, to exclusive, or inclusive in the ``…_last``
@@ -354,7 +352,6 @@ class SweepStatements:
     ``upper`` and ``start`` name the read's bounds in this storage.
     """
 
-    storage: str
     upper: str
     start: str
     rest: object
@@ -393,7 +390,6 @@ def sweep_statements(dialect, spec, cols: Columns, parts: RowParts, params: dict
     screen = _screen_select(dialect, spec, cols, parts, in_slot)
     least = sa.func.min(raw)
     return SweepStatements(
-        storage=storage,
         upper=upper_name,
         start=start_name,
         rest=rest,
